@@ -1,0 +1,1 @@
+"""Thin services layer between the CLI/TUI and the core packages (sweep, extract, library, design)."""

@@ -1,0 +1,1 @@
+"""Bundled instrument profiles (TOML); installed as the benchlab.drivers package."""
