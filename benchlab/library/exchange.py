@@ -1,0 +1,198 @@
+"""Whole-library exchange: export to plain JSON (and CSV rows), import that JSON back (one transaction)."""
+
+from __future__ import annotations
+
+import json
+from typing import TYPE_CHECKING, Any, Mapping
+
+from benchlab.errors import LibraryError
+from benchlab.library.records import PART_STATES, finite_or_none, to_json
+from benchlab.library.store import natural_key, utc_now
+from benchlab.models import DeviceParams
+
+if TYPE_CHECKING:
+    from benchlab.library.store import Library
+
+EXPORT_FORMAT = "benchlab-library/1"
+PARAM_FIELDS = ("vth", "kp", "theta", "n", "gm", "temperature_k")
+CSV_COLUMNS = (("lot", "label", "polarity", "state", "reason", "package", "notes", "classification", "model")
+               + PARAM_FIELDS + tuple(f"stderr_{f}" for f in PARAM_FIELDS[:5])
+               + ("flags", "fit_source", "fitted_at", "fitter_version"))
+
+
+def _selected_parts(lib: "Library", lot: str | None, state: str | None) -> list[tuple]:
+    where, args = [], []
+    if lot is not None:
+        where.append("l.name = ?")
+        args.append(lot)
+    if state is not None:
+        if state not in PART_STATES:
+            raise LibraryError(f"unknown part state '{state}' (expected one of {', '.join(PART_STATES)})")
+        where.append("p.state = ?")
+        args.append(state)
+    sql = ("SELECT p.id, l.name, p.label, p.polarity, p.package, p.notes, p.state, p.reason, p.classification, "
+           "p.created FROM parts p JOIN lots l ON l.id = p.lot_id" + (" WHERE " + " AND ".join(where) if where else ""))
+    rows = lib.connection.execute(sql, args).fetchall()
+    return sorted(rows, key=lambda r: (natural_key(r[1]), natural_key(r[2])))
+
+
+def export_library(lib: "Library", lot: str | None = None, state: str | None = None) -> dict[str, Any]:
+    """Plain JSON data of the selected parts with their sweeps (and points), fits, history, plus the lots,
+    designs and binnings that involve them. Non-finite readings become ``null`` (their status says why)."""
+    conn = lib.connection
+    with lib.snapshot():
+        if lot is not None and conn.execute("SELECT 1 FROM lots WHERE name = ?", (lot,)).fetchone() is None:
+            raise LibraryError(f"no lot named '{lot}' in the library")
+        rows = _selected_parts(lib, lot, state)
+        ids = {r[0]: (r[1], r[2]) for r in rows}
+        parts = []
+        for pid, lot_name, label, polarity, package, notes, pstate, reason, classification, created in rows:
+            sweeps = []
+            for s in conn.execute("SELECT id, session_path, csv_path, session_id, started, complete, classification, "
+                                  "reason, sidecar_json, imported FROM sweeps WHERE part_id = ? ORDER BY id", (pid,)):
+                pts = conn.execute("SELECT point, vgs, id, status FROM sweep_points WHERE sweep_id = ? ORDER BY point",
+                                   (s[0],)).fetchall()
+                sweeps.append({"key": s[0], "session_path": s[1], "csv_path": s[2], "session_id": s[3],
+                               "started": s[4], "complete": bool(s[5]), "classification": s[6], "reason": s[7],
+                               "sidecar": json.loads(s[8]), "imported": s[9],
+                               "points": {"point": [p[0] for p in pts], "vgs": [p[1] for p in pts],
+                                          "id": [p[2] for p in pts], "status": [p[3] for p in pts]}})
+            fits = [{"sweep": f[0], "source": f[1], "model": f[2], "params": json.loads(f[3]),
+                     "stderr": json.loads(f[4]), "flags": json.loads(f[5]), "result": json.loads(f[6]),
+                     "fitted_at": f[7], "fitter_version": f[8]}
+                    for f in conn.execute("SELECT sweep_id, source, model, params_json, stderr_json, flags_json, "
+                                          "result_json, fitted_at, fitter_version FROM fits WHERE part_id = ? "
+                                          "ORDER BY id", (pid,))]
+            history = [{"changed_at": h[0], "old_state": h[1], "new_state": h[2], "reason": h[3]}
+                       for h in conn.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
+                                             "WHERE part_id = ? ORDER BY id", (pid,))]
+            parts.append({"lot": lot_name, "label": label, "polarity": polarity, "package": package, "notes": notes,
+                          "state": pstate, "reason": reason, "classification": classification, "created": created,
+                          "sweeps": sweeps, "fits": fits, "history": history})
+        lot_names = sorted({p["lot"] for p in parts} | ({lot} if lot else set()), key=natural_key)
+        lots = [{"name": r[0], "description": r[1], "created": r[2]} for name in lot_names
+                for r in conn.execute("SELECT name, description, created FROM lots WHERE name = ?", (name,))]
+        designs = _linked(conn, "SELECT design_id, part_id, position FROM design_parts ORDER BY design_id, position",
+                          "SELECT created, kind, design_json FROM designs WHERE id = ?", ids)
+        binnings = _linked(conn, "SELECT binning_id, part_id, bin FROM bin_members ORDER BY binning_id, bin, part_id",
+                           "SELECT created, scheme_json FROM binnings WHERE id = ?", ids)
+    return {"format": EXPORT_FORMAT, "exported": utc_now(), "filter": {"lot": lot, "state": state},
+            "lots": lots, "parts": parts,
+            "designs": [{"created": d[0], "kind": d[1], "design": json.loads(d[2]), "parts": m} for d, m in designs],
+            "binnings": [{"created": b[0], "scheme": json.loads(b[1]), "members": m} for b, m in binnings]}
+
+
+def _linked(conn, members_sql: str, row_sql: str, ids: Mapping[int, tuple[str, str]]) -> list[tuple]:
+    # designs / binnings whose parts are all in the export (a partial one would not import cleanly)
+    groups: dict[int, list] = {}
+    for owner, part_id, extra in conn.execute(members_sql):
+        groups.setdefault(owner, []).append((part_id, extra))
+    result = []
+    for owner, members in groups.items():
+        if all(pid in ids for pid, _ in members):
+            row = conn.execute(row_sql, (owner,)).fetchone()
+            result.append((row, [{"lot": ids[pid][0], "label": ids[pid][1], "at": extra} for pid, extra in members]))
+    return result
+
+
+def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
+    """Add everything in an export to the library, in one transaction.
+
+    Raises
+    ------
+    LibraryError
+        When the data is not a library export, or a part it holds already exists (nothing is written then).
+    """
+    if not isinstance(data, Mapping) or data.get("format") != EXPORT_FORMAT:
+        raise LibraryError(f"not a benchlab library export (expected format '{EXPORT_FORMAT}')")
+    conn = lib.connection
+    counts = {"lots": 0, "parts": 0, "sweeps": 0, "fits": 0, "designs": 0, "binnings": 0}
+    try:
+        with lib.write():
+            for lot in data.get("lots", []):
+                if conn.execute("SELECT 1 FROM lots WHERE name = ?", (lot["name"],)).fetchone() is None:
+                    conn.execute("INSERT INTO lots (name, description, created) VALUES (?, ?, ?)",
+                                 (lot["name"], lot.get("description", ""), lot.get("created") or utc_now()))
+                    counts["lots"] += 1
+            part_ids: dict[tuple[str, str], int] = {}
+            for part in data.get("parts", []):
+                lot_id = lib.lot_id(part["lot"], create=True)
+                pid = lib._insert_part(lot_id, part["label"], part.get("polarity", "N"), part.get("package", ""),
+                                       part.get("notes", ""), part.get("state", "in_stock"), part.get("reason"),
+                                       part.get("classification"), part.get("created"))
+                part_ids[(part["lot"], part["label"])] = pid
+                counts["parts"] += 1
+                sweep_ids = {}
+                for s in part.get("sweeps", []):
+                    cur = conn.execute(
+                        "INSERT INTO sweeps (part_id, session_path, csv_path, session_id, started, complete, "
+                        "classification, reason, sidecar_json, imported) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                        (pid, s.get("session_path"), s.get("csv_path"), s.get("session_id"), s.get("started"),
+                         int(bool(s.get("complete", True))), s.get("classification"), s.get("reason"),
+                         to_json(s.get("sidecar", {})), s.get("imported") or utc_now()))
+                    sweep_ids[s.get("key")] = int(cur.lastrowid)
+                    pts = s.get("points", {})
+                    conn.executemany(
+                        "INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
+                        [(cur.lastrowid, int(p), finite_or_none(v), finite_or_none(i), str(st)) for p, v, i, st in
+                         zip(pts.get("point", []), pts.get("vgs", []), pts.get("id", []), pts.get("status", []))])
+                    counts["sweeps"] += 1
+                for f in part.get("fits", []):
+                    lib.insert_fit(pid, source=f.get("source", "imported"),
+                                   params=DeviceParams.from_dict(f["params"]), stderr=f.get("stderr", {}),
+                                   flags=f.get("flags", []), result=f.get("result", {}),
+                                   sweep_id=sweep_ids.get(f.get("sweep")), fitted_at=f.get("fitted_at"),
+                                   fitter_version=f.get("fitter_version"))
+                    counts["fits"] += 1
+                for h in part.get("history", []):
+                    conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
+                                 "VALUES (?, ?, ?, ?, ?)", (pid, h.get("changed_at") or utc_now(), h.get("old_state"),
+                                                            h["new_state"], h.get("reason")))
+            for d in data.get("designs", []):
+                cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
+                                   (d.get("created") or utc_now(), d.get("kind", ""), to_json(d["design"])))
+                for m in d.get("parts", []):
+                    conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
+                                 (cur.lastrowid, _member(lib, part_ids, m), int(m.get("at", 0))))
+                counts["designs"] += 1
+            for b in data.get("binnings", []):
+                cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
+                                   (b.get("created") or utc_now(), to_json(b["scheme"])))
+                for m in b.get("members", []):
+                    conn.execute("INSERT INTO bin_members (binning_id, part_id, bin) VALUES (?, ?, ?)",
+                                 (cur.lastrowid, _member(lib, part_ids, m), str(m.get("at", ""))))
+                counts["binnings"] += 1
+    except (KeyError, TypeError, ValueError) as exc:
+        raise LibraryError(f"malformed library export ({type(exc).__name__}: {exc}); nothing was imported") from exc
+    return counts
+
+
+def _member(lib: "Library", part_ids: Mapping[tuple[str, str], int], member: Mapping[str, Any]) -> int:
+    key = (member["lot"], member["label"])
+    if key in part_ids:
+        return part_ids[key]
+    return lib.get_part(f"{key[0]}/{key[1]}").id
+
+
+def csv_rows(lib: "Library", lot: str | None = None, state: str | None = None) -> list[dict[str, Any]]:
+    """One row per part (columns :data:`CSV_COLUMNS`): its identity, state and latest curve with stderrs."""
+    rows = []
+    with lib.snapshot():
+        if lot is not None and lib.connection.execute("SELECT 1 FROM lots WHERE name = ?", (lot,)).fetchone() is None:
+            raise LibraryError(f"no lot named '{lot}' in the library")
+        for part in lib.parts(lot=lot, state=state):
+            row = {"lot": part.lot, "label": part.label, "polarity": part.polarity, "state": part.state,
+                   "reason": part.reason or "", "package": part.package, "notes": part.notes,
+                   "classification": part.classification or "", "model": part.params.model if part.params else "",
+                   "flags": ";".join(part.flags), "fit_source": "", "fitted_at": "", "fitter_version": ""}
+            for name in PARAM_FIELDS:
+                row[name] = repr(float(getattr(part.params, name))) if part.params else ""
+            for name in PARAM_FIELDS[:5]:
+                value = part.stderr.get(name)
+                row[f"stderr_{name}"] = "" if value is None else repr(float(value))
+            if part.fit_id is not None:
+                source, fitted_at, version = lib.connection.execute(
+                    "SELECT source, fitted_at, fitter_version FROM fits WHERE id = ?", (part.fit_id,)).fetchone()
+                row.update(fit_source=source, fitted_at=fitted_at, fitter_version=version or "")
+            rows.append(row)
+    return rows

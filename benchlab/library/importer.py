@@ -1,0 +1,169 @@
+"""Import session records into the library: read, (re-)fit, then write everything in one transaction."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any, Callable, Mapping, Sequence
+
+from benchlab.errors import BenchlabError, LibraryError
+from benchlab.library.records import ImportedSweep, ImportSummary, finite_or_none, to_json
+from benchlab.library.sessions import Session, SessionSweep, read_session
+from benchlab.models import DeviceParams
+
+if TYPE_CHECKING:
+    from benchlab.library.store import Library
+
+MIN_FIT_POINTS = 4  # below this no model with a threshold and a slope is determined (common practice)
+
+
+@dataclass(frozen=True)
+class FitOutcome:
+    """A fit reduced to what the library stores."""
+
+    params: DeviceParams
+    stderr: dict
+    flags: tuple
+    result: dict
+    fitter_version: str | None
+
+
+@dataclass(frozen=True)
+class PreparedSweep:
+    """A sweep ready to be written: where it goes, its verdict and its fit (or why there is none)."""
+
+    session: Session
+    sweep: SessionSweep
+    lot: str
+    fit: FitOutcome | None
+    fit_problem: str
+
+    @property
+    def is_dud(self) -> bool:
+        return self.sweep.classification not in (None, "good")
+
+
+def default_fit_function() -> Callable:
+    """``benchlab.extract.fit_sweep`` with its automatic model choice."""
+    try:
+        from benchlab.extract import fit_sweep
+    except ImportError as exc:
+        raise LibraryError(f"the fitter is not available ({exc}); import without re-fitting") from exc
+    return fit_sweep
+
+
+def fit_outcome(result: Any) -> FitOutcome:
+    """Reduce a ``FitResult`` (or its ``to_dict()`` form) to what the library stores."""
+    if isinstance(result, Mapping):
+        data = dict(result)
+        params = data.get("params")
+        params = params if isinstance(params, DeviceParams) else DeviceParams.from_dict(params or {})
+        stderr, flags, version = data.get("stderr"), data.get("flags"), data.get("fitter_version")
+    else:
+        params, stderr, flags = result.params, getattr(result, "stderr", {}), getattr(result, "flags", ())
+        version = getattr(result, "fitter_version", None)
+        data = result.to_dict() if hasattr(result, "to_dict") else {}
+    if not isinstance(params, DeviceParams):
+        raise LibraryError("the fit function returned no DeviceParams")
+    clean_stderr = {str(k): finite_or_none(v) for k, v in (stderr or {}).items()
+                    if v is None or isinstance(v, (int, float))}
+    return FitOutcome(params=params, stderr=clean_stderr, flags=tuple(str(f) for f in flags or ()),
+                      result=data, fitter_version=None if version is None else str(version))
+
+
+def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
+                  fit_function: Callable | None) -> PreparedSweep:
+    """Fit one sweep (pure computation, nothing written); a dud or an unfittable sweep carries the reason."""
+    if sweep.classification not in (None, "good"):
+        return PreparedSweep(session, sweep, lot, None, "")
+    try:
+        if refit:
+            vgs, ids = sweep.fit_points()
+            if len(vgs) < MIN_FIT_POINTS:
+                return PreparedSweep(session, sweep, lot, None, f"only {len(vgs)} usable points, no fit")
+            outcome = fit_outcome(fit_function(vgs, ids))
+        else:
+            stored = sweep.sidecar.get("fits") or []
+            if not stored:
+                return PreparedSweep(session, sweep, lot, None, "no stored fit in the sidecar")
+            outcome = fit_outcome(stored[-1])
+    except (BenchlabError, ValueError, ArithmeticError) as exc:
+        return PreparedSweep(session, sweep, lot, None, f"fit failed: {exc}")
+    if not sweep.complete:
+        outcome = FitOutcome(outcome.params, outcome.stderr, outcome.flags + ("incomplete_sweep",),
+                             outcome.result, outcome.fitter_version)
+    return PreparedSweep(session, sweep, lot, outcome, "")
+
+
+def _already_imported(lib: "Library", lot: str, label: str, session_id: str) -> bool:
+    row = lib.connection.execute(
+        "SELECT 1 FROM sweeps s JOIN parts p ON p.id = s.part_id JOIN lots l ON l.id = p.lot_id "
+        "WHERE l.name = ? AND p.label = ? AND s.session_id = ? LIMIT 1", (lot, label, session_id)).fetchone()
+    return row is not None
+
+
+def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
+    conn = lib.connection
+    sweep, session = item.sweep, item.session
+    from benchlab.library.store import utc_now
+
+    if _already_imported(lib, item.lot, sweep.label, session.id):
+        return ImportedSweep(item.lot, sweep.label, sweep.classification, "skipped",
+                             f"already imported from session {session.id}")
+    lot_id = lib.lot_id(item.lot, create=True)
+    row = conn.execute("SELECT id, state FROM parts WHERE lot_id = ? AND label = ?", (lot_id, sweep.label)).fetchone()
+    if row is None:
+        part_id = lib._insert_part(lot_id, sweep.label, "N", classification=sweep.classification)
+        state = "in_stock"
+    else:
+        part_id, state = int(row[0]), row[1]
+        conn.execute("UPDATE parts SET classification = ? WHERE id = ?", (sweep.classification, part_id))
+    sidecar = {k: v for k, v in sweep.sidecar.items() if k != "fits"}
+    cur = conn.execute(
+        "INSERT INTO sweeps (part_id, session_path, csv_path, session_id, started, complete, classification, "
+        "reason, sidecar_json, imported) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        (part_id, os.path.abspath(session.path), os.path.abspath(sweep.csv_path), session.id,
+         sweep.sidecar.get("started"), int(sweep.complete), sweep.classification, sweep.reason or None,
+         to_json(sidecar), utc_now()))
+    sweep_id = int(cur.lastrowid)
+    conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
+                     [(sweep_id, p, finite_or_none(v), finite_or_none(i), s)
+                      for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status)])
+    if item.is_dud:
+        reason = f"{sweep.classification}: {sweep.reason}" if sweep.reason else str(sweep.classification)
+        if state != "rejected":
+            lib._change_state(part_id, state, "rejected", reason)
+        return ImportedSweep(item.lot, sweep.label, sweep.classification, "rejected", reason)
+    if item.fit is None:
+        return ImportedSweep(item.lot, sweep.label, sweep.classification, "stored", item.fit_problem)
+    fit = item.fit
+    lib.insert_fit(part_id, source="fit", params=fit.params, stderr=fit.stderr, flags=fit.flags,
+                   result=fit.result, sweep_id=sweep_id, fitter_version=fit.fitter_version)
+    detail = f"{fit.params.model}: Vth {fit.params.vth:.4g} V"
+    if fit.flags:
+        detail += " (" + ", ".join(fit.flags) + ")"
+    return ImportedSweep(item.lot, sweep.label, sweep.classification, "fitted", detail)
+
+
+def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit: bool = True,
+                    lot: str | None = None, fit_function: Callable | None = None,
+                    progress: Callable[[str], None] | None = None) -> ImportSummary:
+    """See :meth:`benchlab.library.Library.import_sessions`."""
+    if not paths:
+        raise LibraryError("no session folders to import")
+    sessions = [read_session(p) for p in paths]  # every file read before anything is written
+    if refit and fit_function is None:
+        fit_function = default_fit_function()
+    prepared = []
+    for session in sessions:
+        for sweep in session.sweeps:
+            target_lot = lot or sweep.lot or session.lot or "default"
+            prepared.append(prepare_sweep(session, sweep, target_lot, refit, fit_function))
+    results = []
+    with lib.write():
+        for item in prepared:
+            results.append(_write_sweep(lib, item))
+            if progress is not None:
+                progress(item.sweep.label)
+    return ImportSummary(sessions=tuple(str(s.path) for s in sessions), sweeps=tuple(results))
+

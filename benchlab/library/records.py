@@ -1,0 +1,139 @@
+"""Plain records the device library hands out: frozen dataclasses that reduce to plain JSON."""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+from benchlab.models import DeviceParams
+
+PART_STATES = ("in_stock", "reserved", "used", "rejected")
+POLARITIES = ("N", "P")
+
+
+def json_default(value: Any) -> Any:
+    """``json.dumps`` fallback: numpy scalars/arrays, tuples and objects with ``to_dict``."""
+    if hasattr(value, "to_dict"):
+        return value.to_dict()
+    if hasattr(value, "tolist"):
+        return value.tolist()
+    if isinstance(value, (set, frozenset)):
+        return sorted(value)
+    raise TypeError(f"cannot store {type(value).__name__} as JSON")
+
+
+def to_json(value: Any) -> str:
+    """Compact JSON text for a database column."""
+    return json.dumps(value, default=json_default, sort_keys=True, separators=(",", ":"))
+
+
+def finite_or_none(value: Any) -> float | None:
+    """A float, or None for missing / infinite / NaN readings (JSON has no inf or NaN)."""
+    if value is None:
+        return None
+    number = float(value)
+    return number if math.isfinite(number) else None
+
+
+@dataclass(frozen=True)
+class PartRecord:
+    """One part of the library with its latest curve.
+
+    Parameters
+    ----------
+    id : int
+        Database id (stable within one library file only).
+    lot, label : str
+        The lot (bag) and the part's label, unique within the lot.
+    polarity : str
+        ``N`` or ``P``.
+    state : str
+        ``in_stock``, ``reserved``, ``used`` or ``rejected``.
+    reason : str or None
+        Why the part was rejected (or the note of its last state change).
+    package, notes : str
+        Free text.
+    params : DeviceParams or None
+        The latest fit or the hand-entered curve; None for parts never fitted.
+    stderr : dict
+        Standard errors of that fit, keyed like ``params``.
+    flags : tuple of str
+        Warnings the fitter raised on that fit.
+    fit_id : int or None
+        Database id of that fit.
+    classification : str or None
+        The sweep's verdict (good, open, shorted, leaky, unstable), None for hand-entered parts.
+    """
+
+    id: int
+    lot: str
+    label: str
+    polarity: str = "N"
+    state: str = "in_stock"
+    reason: str | None = None
+    package: str = ""
+    notes: str = ""
+    params: DeviceParams | None = None
+    stderr: dict = field(default_factory=dict)
+    flags: tuple = ()
+    fit_id: int | None = None
+    classification: str | None = None
+
+    @property
+    def spec(self) -> str:
+        """``LOT/LABEL``: the unambiguous way to name the part on the command line."""
+        return f"{self.lot}/{self.label}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "id": self.id, "lot": self.lot, "label": self.label, "polarity": self.polarity,
+            "state": self.state, "reason": self.reason, "package": self.package, "notes": self.notes,
+            "params": self.params.to_dict() if self.params else None, "stderr": dict(self.stderr),
+            "flags": list(self.flags), "fit_id": self.fit_id, "classification": self.classification,
+        }
+
+
+@dataclass(frozen=True)
+class ImportedSweep:
+    """Outcome of importing one sweep: which part, its verdict, and what happened to it."""
+
+    lot: str
+    label: str
+    classification: str | None
+    action: str  # "fitted", "rejected", "stored" (no fit possible), "skipped" (already in the library)
+    detail: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"lot": self.lot, "label": self.label, "classification": self.classification,
+                "action": self.action, "detail": self.detail}
+
+
+@dataclass(frozen=True)
+class ImportSummary:
+    """What a session import did, sweep by sweep."""
+
+    sessions: tuple[str, ...]
+    sweeps: tuple[ImportedSweep, ...]
+
+    def count(self, action: str) -> int:
+        """Number of sweeps that ended with ``action``."""
+        return sum(1 for s in self.sweeps if s.action == action)
+
+    @property
+    def fitted(self) -> int:
+        return self.count("fitted")
+
+    @property
+    def rejected(self) -> int:
+        return self.count("rejected")
+
+    @property
+    def skipped(self) -> int:
+        return self.count("skipped")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"sessions": list(self.sessions), "sweeps": [s.to_dict() for s in self.sweeps],
+                "fitted": self.fitted, "rejected": self.rejected, "skipped": self.skipped,
+                "stored": self.count("stored")}

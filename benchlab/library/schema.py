@@ -1,0 +1,97 @@
+"""Schema versions of the device library and the migrations between them.
+
+The schema version lives in ``PRAGMA user_version``. Migrations are the ordered ``.sql`` files of
+``benchlab/library/migrations/`` (``NNNN_name.sql`` migrates from version NNNN-1 to NNNN). Each one runs in
+its own transaction together with the version bump, so a crash mid-migration leaves the previous version.
+"""
+
+from __future__ import annotations
+
+import re
+import sqlite3
+from dataclasses import dataclass
+from importlib import resources
+
+from benchlab.errors import LibraryError
+
+_MIGRATION_NAME = re.compile(r"^(\d{4})_([a-z0-9_]+)\.sql$")
+
+
+@dataclass(frozen=True)
+class Migration:
+    """One step of the schema: ``version`` is the schema version after it ran."""
+
+    version: int
+    name: str
+    sql: str
+
+
+def load_migrations() -> tuple[Migration, ...]:
+    """The bundled migrations in order; checks they number 1, 2, 3... without gaps.
+
+    Returns
+    -------
+    tuple of Migration
+        Sorted by version.
+    """
+    folder = resources.files("benchlab.library").joinpath("migrations")
+    found = []
+    for entry in folder.iterdir():
+        match = _MIGRATION_NAME.match(entry.name)
+        if match:
+            found.append(Migration(int(match.group(1)), match.group(2), entry.read_text(encoding="utf-8")))
+    found.sort(key=lambda m: m.version)
+    expected = list(range(1, len(found) + 1))
+    if [m.version for m in found] != expected:
+        raise RuntimeError(f"library migrations are not numbered 1..{len(found)}: {[m.version for m in found]}")
+    return tuple(found)
+
+
+def latest_version() -> int:
+    """Schema version this benchlab writes."""
+    return len(load_migrations())
+
+
+def schema_version(connection: sqlite3.Connection) -> int:
+    """The database's ``PRAGMA user_version``."""
+    return int(connection.execute("PRAGMA user_version").fetchone()[0])
+
+
+def migrate(connection: sqlite3.Connection, target: int | None = None, *, path: str = "") -> int:
+    """Bring the database up to ``target`` (default: the latest version), one transaction per step.
+
+    Parameters
+    ----------
+    connection : sqlite3.Connection
+        Opened with ``isolation_level=None`` (transactions are explicit here).
+    target : int, optional
+        Version to stop at; tests use it to build an old-version database.
+    path : str
+        Database path, for error messages.
+
+    Returns
+    -------
+    int
+        The schema version after migrating.
+    """
+    migrations = load_migrations()
+    target = len(migrations) if target is None else target
+    current = schema_version(connection)
+    if current > len(migrations):
+        raise LibraryError(
+            f"{path or 'library'}: schema version {current} is newer than this benchlab understands "
+            f"({len(migrations)}); upgrade benchlab to open it"
+        )
+    for migration in migrations[current:target]:
+        # version bump inside the same transaction: a crash leaves the database at the previous version
+        script = (f"BEGIN IMMEDIATE;\n{migration.sql}\n"
+                  f"PRAGMA user_version = {int(migration.version)};\nCOMMIT;")
+        try:
+            connection.executescript(script)
+        except sqlite3.Error as exc:
+            if connection.in_transaction:
+                connection.execute("ROLLBACK")
+            raise LibraryError(
+                f"{path or 'library'}: migration {migration.version} ({migration.name}) failed: {exc}"
+            ) from exc
+    return schema_version(connection)

@@ -1,0 +1,181 @@
+"""Read session records (docs/session-format.md) into plain data for the library import.
+
+Tolerates what a crash leaves behind: a truncated last CSV line is dropped, a sweep whose sidecar is
+missing is read as incomplete with no classification. Anything else malformed is an ``InputError`` that
+names the file and row.
+"""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from benchlab.errors import InputError
+
+REQUIRED_COLUMNS = ("vgs", "id")
+
+
+@dataclass(frozen=True)
+class SessionSweep:
+    """One part's sweep as recorded: raw points, sidecar data and the files it came from."""
+
+    label: str
+    lot: str | None
+    csv_path: Path
+    json_path: Path | None
+    sidecar: dict = field(default_factory=dict)
+    point: tuple[int, ...] = ()
+    vgs: tuple[float, ...] = ()
+    id: tuple[float, ...] = ()
+    status: tuple[str, ...] = ()
+    direction: tuple[str, ...] = ()
+
+    @property
+    def complete(self) -> bool:
+        return bool(self.sidecar.get("complete", False))
+
+    @property
+    def classification(self) -> str | None:
+        return self.sidecar.get("classification")
+
+    @property
+    def reason(self) -> str:
+        return str(self.sidecar.get("reason") or "")
+
+    def fit_points(self) -> tuple[list[float], list[float]]:
+        """VGS and ID of the points a fit may use: status ``ok``, finite, and of the up-sweep only.
+
+        A down-sweep repeats the VGS range backwards (for self-heating checks); the fitter takes one
+        monotonic sweep, so only the up-going points are passed on.
+        """
+        vgs, ids = [], []
+        directions = self.direction or ("",) * len(self.vgs)
+        for v, i, s, d in zip(self.vgs, self.id, self.status, directions):
+            if s == "ok" and d in ("", "up") and v is not None and i is not None and math.isfinite(v) and math.isfinite(i):
+                vgs.append(v)
+                ids.append(i)
+        return vgs, ids
+
+
+@dataclass(frozen=True)
+class Session:
+    """A session folder: its metadata and its sweeps in the order the session lists them."""
+
+    path: Path
+    meta: dict
+    sweeps: tuple[SessionSweep, ...]
+
+    @property
+    def id(self) -> str:
+        return str(self.meta.get("id") or self.path.name)
+
+    @property
+    def lot(self) -> str | None:
+        return self.meta.get("lot")
+
+
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read: {exc.strerror or exc}", path=str(path)) from exc
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not valid JSON: {exc}", path=str(path)) from exc
+    if not isinstance(data, dict):
+        raise InputError("expected a JSON object", path=str(path))
+    return data
+
+
+def _number(text: str) -> float:
+    # over-range readings are recorded as inf/nan; float() parses both spellings
+    return float(text) if text.strip() else math.nan
+
+
+def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tuple[float, ...], tuple[str, ...],
+                                         tuple[str, ...]]:
+    """The ``point, vgs, id, status, direction`` columns of a sweep CSV (other columns ignored).
+
+    A last line cut short by a crash is dropped; any other bad row raises ``InputError`` naming the row.
+    """
+    try:
+        with csv_path.open(newline="", encoding="utf-8") as handle:
+            rows = list(csv.reader(handle))
+    except OSError as exc:
+        raise InputError(f"cannot read: {exc.strerror or exc}", path=str(csv_path)) from exc
+    if not rows:
+        raise InputError("empty file (no header row)", path=str(csv_path))
+    header = [h.strip() for h in rows[0]]
+    missing = [c for c in REQUIRED_COLUMNS if c not in header]
+    if missing:
+        raise InputError(f"missing column(s) {', '.join(missing)} in the header", path=str(csv_path))
+    col = {name: header.index(name) for name in header}
+    points, vgs, ids, status, direction = [], [], [], [], []
+    body = rows[1:]
+    for n, row in enumerate(body, start=1):
+        if not row:
+            continue
+        try:
+            if len(row) < len(header):
+                raise ValueError("too few fields")
+            v = _number(row[col["vgs"]])
+            i = _number(row[col["id"]])
+            p = int(row[col["point"]]) if "point" in col else n - 1
+        except ValueError as exc:
+            if n == len(body):  # the point in flight when the recorder stopped
+                break
+            raise InputError(f"unreadable row ({exc})", path=str(csv_path), row=n) from exc
+        points.append(p)
+        vgs.append(v)
+        ids.append(i)
+        status.append(row[col["status"]].strip() if "status" in col else "ok")
+        direction.append(row[col["direction"]].strip().lower() if "direction" in col else "")
+    return tuple(points), tuple(vgs), tuple(ids), tuple(status), tuple(direction)
+
+
+def read_session(path: str | Path) -> Session:
+    """Read a session folder (``session.json`` plus ``<label>.csv`` / ``<label>.json`` per part).
+
+    Raises
+    ------
+    InputError
+        When the folder or its ``session.json`` is missing or unreadable, or a sweep file is malformed.
+    """
+    folder = Path(path)
+    if not folder.is_dir():
+        raise InputError("not a session folder", path=str(folder))
+    meta_path = folder / "session.json"
+    if not meta_path.exists():
+        raise InputError("no session.json here: not a session folder", path=str(folder))
+    meta = _read_json(meta_path)
+    sidecars: dict[str, tuple[Path, dict]] = {}
+    for json_path in sorted(folder.glob("*.json")):
+        if json_path.name == "session.json":
+            continue
+        data = _read_json(json_path)
+        if not str(data.get("format", "")).startswith("benchlab-sweep/"):
+            continue
+        sidecars[json_path.stem] = (json_path, data)
+    # '<label>.interrupted-N.*' are records a resumed session set aside; the sweep that replaced them counts
+    stems = {s for s in set(sidecars) | {p.stem for p in folder.glob("*.csv")} if ".interrupted-" not in s}
+    listed = [str(p) for p in meta.get("parts") or []]
+
+    def order(stem: str) -> tuple:
+        label = sidecars[stem][1].get("label", stem) if stem in sidecars else stem
+        return (listed.index(label) if label in listed else len(listed), stem)
+
+    sweeps = []
+    for stem in sorted(stems, key=order):
+        csv_path = folder / f"{stem}.csv"
+        json_path, sidecar = sidecars.get(stem, (None, {}))
+        if not csv_path.exists():
+            raise InputError(f"sweep '{stem}' has a sidecar but no CSV", path=str(json_path))
+        point, vgs, ids, status, direction = read_points(csv_path)
+        sweeps.append(SessionSweep(label=str(sidecar.get("label") or stem),
+                                   lot=sidecar.get("lot") or meta.get("lot"), csv_path=csv_path,
+                                   json_path=json_path, sidecar=sidecar, point=point, vgs=vgs, id=ids,
+                                   status=status, direction=direction))
+    return Session(path=folder, meta=meta, sweeps=tuple(sweeps))

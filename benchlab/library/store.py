@@ -1,0 +1,508 @@
+"""The device library: one SQLite file (WAL mode, foreign keys on, every write in one transaction).
+
+All SQL is parameterized; labels, lots, notes and reasons never become part of a statement's text.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import re
+import sqlite3
+from contextlib import contextmanager
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
+
+from benchlab.errors import LibraryError
+from benchlab.library import schema
+from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, to_json
+from benchlab.models import DeviceParams
+
+LIBRARY_ENV = "BENCHLAB_LIBRARY"
+
+_PART_SELECT = """
+SELECT p.id, l.name, p.label, p.polarity, p.state, p.reason, p.package, p.notes, p.classification,
+       f.id, f.params_json, f.stderr_json, f.flags_json
+FROM parts p
+JOIN lots l ON l.id = p.lot_id
+LEFT JOIN fits f ON f.id = (SELECT max(id) FROM fits WHERE part_id = p.id)
+"""
+
+
+def default_library_path() -> Path:
+    """Where the library lives unless ``--library`` says otherwise.
+
+    ``$BENCHLAB_LIBRARY`` when set, else ``user_data_dir("benchlab")/library.db`` (platformdirs).
+    """
+    env = os.environ.get(LIBRARY_ENV)
+    if env:
+        return Path(env).expanduser()
+    from platformdirs import user_data_dir
+
+    return Path(user_data_dir("benchlab")) / "library.db"
+
+
+def utc_now() -> str:
+    """ISO-8601 UTC timestamp, second resolution."""
+    return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
+
+
+def natural_key(text: str) -> tuple:
+    """Sort key that puts Q2 before Q10."""
+    return tuple(int(p) if p.isdigit() else p.lower() for p in re.split(r"(\d+)", text))
+
+
+def _row_to_part(row: Sequence[Any]) -> PartRecord:
+    (pid, lot, label, polarity, state, reason, package, notes, classification,
+     fit_id, params_json, stderr_json, flags_json) = row
+    params = DeviceParams.from_dict(json.loads(params_json)) if params_json else None
+    return PartRecord(
+        id=pid, lot=lot, label=label, polarity=polarity, state=state, reason=reason, package=package,
+        notes=notes, params=params, stderr=json.loads(stderr_json) if stderr_json else {},
+        flags=tuple(json.loads(flags_json)) if flags_json else (), fit_id=fit_id,
+        classification=classification,
+    )
+
+
+class Library:
+    """An open device library. Use :meth:`open`; it is a context manager that closes the file.
+
+    Parameters
+    ----------
+    connection : sqlite3.Connection
+        An open connection in autocommit mode (``isolation_level=None``); transactions are explicit.
+    path : str
+        The database path (for messages).
+    """
+
+    def __init__(self, connection: sqlite3.Connection, path: str = ""):
+        self._conn = connection
+        self.path = path
+        self._in_write = False
+
+    # -- opening ---------------------------------------------------------------------------------
+    @classmethod
+    def open(cls, path: str | os.PathLike | None = None, *, timeout_s: float = 30.0) -> "Library":
+        """Open (creating and migrating as needed) the library at ``path`` (default :func:`default_library_path`).
+
+        Parameters
+        ----------
+        path : path-like, optional
+            The database file; its folder is created when missing.
+        timeout_s : float
+            How long a write waits for another writer before giving up.
+
+        Returns
+        -------
+        Library
+        """
+        target = Path(path) if path is not None else default_library_path()
+        if target.exists() and target.is_dir():
+            raise LibraryError(f"{target}: is a folder, not a library file")
+        try:
+            target.parent.mkdir(parents=True, exist_ok=True)
+            connection = sqlite3.connect(str(target), isolation_level=None, timeout=timeout_s)
+        except (OSError, sqlite3.Error) as exc:
+            raise LibraryError(f"{target}: cannot open the library: {exc}") from exc
+        try:
+            connection.execute("PRAGMA foreign_keys = ON")
+            mode = connection.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if str(mode).lower() != "wal":
+                raise LibraryError(f"{target}: cannot switch the library to WAL mode (got {mode})")
+            connection.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
+            schema.migrate(connection, path=str(target))
+        except sqlite3.DatabaseError as exc:
+            connection.close()
+            raise LibraryError(f"{target}: not a usable library file: {exc}") from exc
+        except BaseException:
+            connection.close()
+            raise
+        return cls(connection, str(target))
+
+    def close(self) -> None:
+        """Close the database file."""
+        self._conn.close()
+
+    def __enter__(self) -> "Library":
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        self.close()
+
+    @property
+    def connection(self) -> sqlite3.Connection:
+        """The underlying connection (for the library's own modules and tests)."""
+        return self._conn
+
+    # -- transactions ----------------------------------------------------------------------------
+    @contextmanager
+    def write(self) -> Iterator[sqlite3.Connection]:
+        """One write transaction (``BEGIN IMMEDIATE``): everything inside commits together or not at all."""
+        if self._in_write:
+            yield self._conn
+            return
+        try:
+            self._conn.execute("BEGIN IMMEDIATE")
+        except sqlite3.OperationalError as exc:
+            raise LibraryError(f"{self.path}: the library is busy (another program is writing): {exc}") from exc
+        self._in_write = True
+        try:
+            yield self._conn
+        except BaseException:
+            self._conn.execute("ROLLBACK")
+            raise
+        else:
+            self._conn.execute("COMMIT")
+        finally:
+            self._in_write = False
+
+    @contextmanager
+    def snapshot(self) -> Iterator[sqlite3.Connection]:
+        """A read transaction: several queries see one consistent state of the file."""
+        if self._in_write or self._conn.in_transaction:
+            yield self._conn
+            return
+        self._conn.execute("BEGIN DEFERRED")
+        try:
+            yield self._conn
+        finally:
+            self._conn.execute("COMMIT")
+
+    # -- lots ------------------------------------------------------------------------------------
+    def lot_id(self, name: str, *, create: bool = False, description: str = "") -> int:
+        """Database id of lot ``name``; created when ``create`` (inside the caller's transaction)."""
+        name = _clean_name(name, "lot")
+        row = self._conn.execute("SELECT id FROM lots WHERE name = ?", (name,)).fetchone()
+        if row:
+            return int(row[0])
+        if not create:
+            raise LibraryError(f"no lot named '{name}' in the library")
+        cur = self._conn.execute("INSERT INTO lots (name, description, created) VALUES (?, ?, ?)",
+                                 (name, description, utc_now()))
+        return int(cur.lastrowid)
+
+    def lots(self) -> list[dict[str, Any]]:
+        """Every lot with its part counts per state."""
+        with self.snapshot() as conn:
+            rows = conn.execute(
+                "SELECT l.name, l.description, l.created, p.state, count(p.id) FROM lots l "
+                "LEFT JOIN parts p ON p.lot_id = l.id GROUP BY l.id, p.state ORDER BY l.name").fetchall()
+        lots: dict[str, dict[str, Any]] = {}
+        for name, description, created, state, count in rows:
+            entry = lots.setdefault(name, {"name": name, "description": description, "created": created,
+                                           "parts": 0, **{s: 0 for s in PART_STATES}})
+            if state is not None:
+                entry[state] = count
+                entry["parts"] += count
+        return list(lots.values())
+
+    # -- parts -----------------------------------------------------------------------------------
+    def add_part(self, label: str, lot: str = "default", polarity: str = "N",
+                 params: DeviceParams | None = None, stderr: dict | None = None,
+                 package: str = "", notes: str = "") -> PartRecord:
+        """Add a part (optionally with a hand-entered curve) and return it.
+
+        Raises
+        ------
+        LibraryError
+            When the label is empty, the polarity unknown, or the lot already holds that label.
+        """
+        label = _clean_name(label, "label")
+        polarity = _check_polarity(polarity)
+        if params is not None and not isinstance(params, DeviceParams):
+            raise LibraryError("params must be a DeviceParams")
+        with self.write() as conn:
+            lot_id = self.lot_id(lot, create=True)
+            part_id = self._insert_part(lot_id, label, polarity, package, notes)
+            if params is not None:
+                self.insert_fit(part_id, source="hand", params=params, stderr=stderr or {})
+        return self.get_part(part_id)
+
+    def _insert_part(self, lot_id: int, label: str, polarity: str, package: str = "", notes: str = "",
+                     state: str = "in_stock", reason: str | None = None,
+                     classification: str | None = None, created: str | None = None) -> int:
+        try:
+            cur = self._conn.execute(
+                "INSERT INTO parts (lot_id, label, polarity, package, notes, state, reason, classification, "
+                "created) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (lot_id, label, polarity, package or "", notes or "", state, reason, classification,
+                 created or utc_now()))
+        except sqlite3.IntegrityError as exc:
+            lot = self._conn.execute("SELECT name FROM lots WHERE id = ?", (lot_id,)).fetchone()[0]
+            raise LibraryError(f"part '{lot}/{label}' already exists in the library") from exc
+        return int(cur.lastrowid)
+
+    def insert_fit(self, part_id: int, *, source: str, params: DeviceParams, stderr: Mapping | None = None,
+                   flags: Iterable[str] = (), result: Mapping | None = None, sweep_id: int | None = None,
+                   fitted_at: str | None = None, fitter_version: str | None = None) -> int:
+        """Store a fit of a part (call inside :meth:`write`); it becomes the part's current curve."""
+        cur = self._conn.execute(
+            "INSERT INTO fits (part_id, sweep_id, source, model, params_json, stderr_json, flags_json, "
+            "result_json, fitted_at, fitter_version) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (part_id, sweep_id, source, params.model, to_json(params.to_dict()), to_json(dict(stderr or {})),
+             to_json(list(flags)), to_json(dict(result or {})), fitted_at or utc_now(), fitter_version))
+        return int(cur.lastrowid)
+
+    def get_part(self, part: str | int | PartRecord) -> PartRecord:
+        """A part by ``LABEL`` (when unique), ``LOT/LABEL``, database id or a record.
+
+        Raises
+        ------
+        LibraryError
+            When no part matches, or a bare label names parts in several lots (the message lists them).
+        """
+        if isinstance(part, PartRecord):
+            part = part.id
+        if isinstance(part, int):
+            row = self._conn.execute(_PART_SELECT + "WHERE p.id = ?", (part,)).fetchone()
+            if row is None:
+                raise LibraryError(f"no part with id {part} in the library")
+            return _row_to_part(row)
+        spec = str(part).strip()
+        if not spec:
+            raise LibraryError("empty part name")
+        with self.snapshot() as conn:
+            rows = conn.execute(_PART_SELECT + "WHERE p.label = ?", (spec,)).fetchall()
+            if len(rows) > 1:
+                lots = ", ".join(f"{r[1]}/{r[2]}" for r in sorted(rows, key=lambda r: r[1]))
+                raise LibraryError(f"part label '{spec}' is ambiguous: it is in several lots ({lots}); "
+                                   f"name it as LOT/LABEL")
+            if rows:
+                return _row_to_part(rows[0])
+            # LOT/LABEL: try every '/' as the separator, since lots and labels may contain '/' themselves
+            matches = []
+            for i, char in enumerate(spec):
+                if char == "/":
+                    matches += conn.execute(_PART_SELECT + "WHERE l.name = ? AND p.label = ?",
+                                            (spec[:i], spec[i + 1:])).fetchall()
+        if len(matches) == 1:
+            return _row_to_part(matches[0])
+        if len(matches) > 1:
+            raise LibraryError(f"part '{spec}' is ambiguous: " + ", ".join(f"lot '{r[1]}' label '{r[2]}'"
+                                                                             for r in matches))
+        raise LibraryError(f"no part '{spec}' in the library (name it as LABEL or LOT/LABEL)")
+
+    def parts(self, lot: str | None = None, state: str | None = "in_stock") -> list[PartRecord]:
+        """Parts, optionally of one lot and/or one state (``state=None`` for every state), in label order."""
+        where, args = [], []
+        if lot is not None:
+            where.append("l.name = ?")
+            args.append(lot)
+        if state is not None:
+            where.append("p.state = ?")
+            args.append(_check_state(state))
+        sql = _PART_SELECT + (("WHERE " + " AND ".join(where)) if where else "")
+        rows = self._conn.execute(sql, args).fetchall()
+        return sorted((_row_to_part(r) for r in rows), key=lambda p: (natural_key(p.lot), natural_key(p.label)))
+
+    def set_state(self, part: str | int | PartRecord, state: str, reason: str | None = None) -> PartRecord:
+        """Move a part to ``state`` (a reason is required for ``rejected``); the change is kept in its history."""
+        state = _check_state(state)
+        reason = reason.strip() if isinstance(reason, str) else reason
+        if state == "rejected" and not reason:
+            raise LibraryError("rejecting a part needs a reason")
+        with self.write():
+            record = self.get_part(part)
+            self._change_state(record.id, record.state, state, reason)
+        return self.get_part(record.id)
+
+    def _change_state(self, part_id: int, old: str | None, new: str, reason: str | None) -> None:
+        self._conn.execute("UPDATE parts SET state = ?, reason = ? WHERE id = ?", (new, reason, part_id))
+        self._conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
+                           "VALUES (?, ?, ?, ?, ?)", (part_id, utc_now(), old, new, reason))
+
+    def history(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
+        """The part's state changes, oldest first."""
+        record = self.get_part(part)
+        rows = self._conn.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
+                                  "WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
+        return [{"changed_at": r[0], "old_state": r[1], "new_state": r[2], "reason": r[3]} for r in rows]
+
+    def fits(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
+        """Every fit of a part, oldest first, as plain data."""
+        record = self.get_part(part)
+        rows = self._conn.execute(
+            "SELECT id, sweep_id, source, model, params_json, stderr_json, flags_json, fitted_at, fitter_version "
+            "FROM fits WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
+        return [{"id": r[0], "sweep_id": r[1], "source": r[2], "model": r[3], "params": json.loads(r[4]),
+                 "stderr": json.loads(r[5]), "flags": json.loads(r[6]), "fitted_at": r[7],
+                 "fitter_version": r[8]} for r in rows]
+
+    def sweeps(self, part: str | int | PartRecord, *, with_points: bool = True) -> list[dict[str, Any]]:
+        """Every sweep of a part, oldest first: metadata and (optionally) its points as lists."""
+        record = self.get_part(part)
+        with self.snapshot() as conn:
+            rows = conn.execute(
+                "SELECT id, session_path, csv_path, session_id, started, complete, classification, reason "
+                "FROM sweeps WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
+            result = []
+            for r in rows:
+                sweep = {"id": r[0], "session_path": r[1], "csv_path": r[2], "session_id": r[3], "started": r[4],
+                         "complete": bool(r[5]), "classification": r[6], "reason": r[7]}
+                if with_points:
+                    pts = conn.execute("SELECT point, vgs, id, status FROM sweep_points WHERE sweep_id = ? "
+                                       "ORDER BY point", (r[0],)).fetchall()
+                    sweep.update(point=[p[0] for p in pts], vgs=[p[1] for p in pts], id=[p[2] for p in pts],
+                                 status=[p[3] for p in pts])
+                result.append(sweep)
+        return result
+
+    # -- designs and bins ------------------------------------------------------------------------
+    def record_design(self, design: Mapping[str, Any], parts: Sequence[PartRecord | str | int],
+                      state: str = "reserved") -> int:
+        """Store a design (plain JSON data) and move its parts from in_stock to ``reserved`` or ``used``.
+
+        The parts are kept in the given order (by convention the reference part first). Nothing is written
+        when any part is not in stock.
+
+        Returns
+        -------
+        int
+            The design's id.
+        """
+        if state not in ("reserved", "used"):
+            raise LibraryError(f"a design can reserve or use its parts, not set them to '{state}'")
+        text = to_json(dict(design))
+        with self.write() as conn:
+            records = [self.get_part(p) for p in parts]
+            if len({r.id for r in records}) != len(records):
+                raise LibraryError("a design lists the same part twice")
+            for r in records:
+                if r.state != "in_stock":
+                    raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
+            cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
+                               (utc_now(), str(design.get("kind", "")), text))
+            design_id = int(cur.lastrowid)
+            for position, r in enumerate(records):
+                conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
+                             (design_id, r.id, position))
+                self._change_state(r.id, r.state, state, f"design {design_id}")
+        return design_id
+
+    def design(self, design_id: int) -> dict[str, Any]:
+        """A recorded design: its stored data plus ``design_id``, ``recorded_at`` and ``recorded_parts``.
+
+        ``recorded_parts`` lists ``{"lot", "label", "state", "position"}`` in the order given when recorded.
+        """
+        with self.snapshot() as conn:
+            row = conn.execute("SELECT created, design_json FROM designs WHERE id = ?", (int(design_id),)).fetchone()
+            if row is None:
+                raise LibraryError(f"no design {design_id} in the library")
+            members = conn.execute(
+                "SELECT l.name, p.label, p.state, d.position FROM design_parts d JOIN parts p ON p.id = d.part_id "
+                "JOIN lots l ON l.id = p.lot_id WHERE d.design_id = ? ORDER BY d.position", (int(design_id),)
+            ).fetchall()
+        data = json.loads(row[1])
+        data.update(design_id=int(design_id), recorded_at=row[0],
+                    recorded_parts=[{"lot": m[0], "label": m[1], "state": m[2], "position": m[3]} for m in members])
+        return data
+
+    def designs(self) -> list[dict[str, Any]]:
+        """Summary of every design: id, when, kind and how many parts it holds."""
+        rows = self._conn.execute(
+            "SELECT d.id, d.created, d.kind, count(dp.part_id) FROM designs d "
+            "LEFT JOIN design_parts dp ON dp.design_id = d.id GROUP BY d.id ORDER BY d.id").fetchall()
+        return [{"id": r[0], "created": r[1], "kind": r[2], "parts": r[3]} for r in rows]
+
+    def record_binning(self, scheme: Mapping[str, Any], members: Mapping[str, Sequence[PartRecord | str]]) -> int:
+        """Store a binning: the scheme (plain JSON, e.g. current and window width) and the parts of each bin."""
+        with self.write() as conn:
+            cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
+                               (utc_now(), to_json(dict(scheme))))
+            binning_id = int(cur.lastrowid)
+            for bin_name, parts in members.items():
+                for part in parts:
+                    record = self.get_part(part)
+                    conn.execute("INSERT INTO bin_members (binning_id, part_id, bin) VALUES (?, ?, ?)",
+                                 (binning_id, record.id, str(bin_name)))
+        return binning_id
+
+    def binning(self, binning_id: int) -> dict[str, Any]:
+        """A stored binning: ``{"id", "created", "scheme", "bins": {bin: ["LOT/LABEL", ...]}}``."""
+        with self.snapshot() as conn:
+            row = conn.execute("SELECT created, scheme_json FROM binnings WHERE id = ?", (int(binning_id),)).fetchone()
+            if row is None:
+                raise LibraryError(f"no binning {binning_id} in the library")
+            members = conn.execute(
+                "SELECT b.bin, l.name, p.label FROM bin_members b JOIN parts p ON p.id = b.part_id "
+                "JOIN lots l ON l.id = p.lot_id WHERE b.binning_id = ? ORDER BY b.bin", (int(binning_id),)).fetchall()
+        bins: dict[str, list[str]] = {}
+        for bin_name, lot, label in members:
+            bins.setdefault(bin_name, []).append(f"{lot}/{label}")
+        return {"id": int(binning_id), "created": row[0], "scheme": json.loads(row[1]), "bins": bins}
+
+    # -- whole-library operations (implemented in sibling modules) --------------------------------
+    def import_session(self, path: str | os.PathLike, refit: bool = True, *, lot: str | None = None,
+                       fit_function: Callable | None = None) -> "ImportSummary":
+        """Import one session folder (see :meth:`import_sessions`)."""
+        return self.import_sessions([path], refit=refit, lot=lot, fit_function=fit_function)
+
+    def import_sessions(self, paths: Sequence[str | os.PathLike], refit: bool = True, *, lot: str | None = None,
+                        fit_function: Callable | None = None, progress: Callable | None = None) -> "ImportSummary":
+        """Import session folders: every sweep with its raw points, re-fitted (``refit``) or with its stored fit.
+
+        Fitting runs first; then everything is written in ONE transaction, so an interrupted import leaves
+        either all of it or none. Duds are stored as rejected with their classification as reason. Sweeps
+        already in the library (same session id and label) are skipped.
+
+        Parameters
+        ----------
+        paths : sequence of path-like
+            Session folders (each with ``session.json``).
+        refit : bool
+            Fit the raw points again (default) rather than trusting the fits stored in the sidecar.
+        lot : str, optional
+            Store the parts in this lot instead of the session's own.
+        fit_function : callable, optional
+            ``f(vgs, id) -> FitResult``; default ``benchlab.extract.fit_sweep``.
+        progress : callable, optional
+            Called with each part's label as it is written (inside the transaction).
+        """
+        from benchlab.library.importer import import_sessions
+
+        return import_sessions(self, paths, refit=refit, lot=lot, fit_function=fit_function, progress=progress)
+
+    def export(self, lot: str | None = None, state: str | None = None) -> dict[str, Any]:
+        """The library (or the parts of one lot / state) as plain JSON data; :meth:`import_json` reads it back."""
+        from benchlab.library.exchange import export_library
+
+        return export_library(self, lot=lot, state=state)
+
+    def import_json(self, data: Mapping[str, Any]) -> dict[str, int]:
+        """Add the parts, fits, sweeps, designs and binnings of an :meth:`export` (one transaction)."""
+        from benchlab.library.exchange import import_library
+
+        return import_library(self, data)
+
+    def info(self) -> dict[str, Any]:
+        """Path, schema version, journal mode and row counts."""
+        with self.snapshot() as conn:
+            counts = {table: conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]  # fixed names, not input
+                      for table in ("lots", "parts", "sweeps", "fits", "designs", "binnings")}
+            version = schema.schema_version(conn)
+        return {"path": self.path, "schema_version": version, "schema_latest": schema.latest_version(),
+                "journal_mode": self._conn.execute("PRAGMA journal_mode").fetchone()[0],
+                "foreign_keys": bool(self._conn.execute("PRAGMA foreign_keys").fetchone()[0]), **counts}
+
+
+def _clean_name(value: Any, what: str) -> str:
+    text = str(value).strip() if value is not None else ""
+    if not text:
+        raise LibraryError(f"empty {what}")
+    if any(ord(c) < 32 for c in text):
+        raise LibraryError(f"{what} '{text!r}' holds control characters")
+    return text
+
+
+def _check_polarity(polarity: str) -> str:
+    value = str(polarity).strip().upper()
+    if value not in POLARITIES:
+        raise LibraryError(f"polarity must be N or P, not '{polarity}'")
+    return value
+
+
+def _check_state(state: str) -> str:
+    if state not in PART_STATES:
+        raise LibraryError(f"unknown part state '{state}' (expected one of {', '.join(PART_STATES)})")
+    return state

@@ -1,0 +1,115 @@
+"""Parts by hand, naming and ambiguity, states, designs and binnings."""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.errors import LibraryError
+from benchlab.library import PartRecord
+from benchlab.models import DeviceParams, solve_resistor_line
+
+NASTY_LABELS = [
+    "Q1'; DROP TABLE parts; --",
+    'Q"2" OR 1=1',
+    "Q3 %_ \\ ? :name @x $y",
+    "Q4 ) ; SELECT * FROM lots",
+    "Ω5 ünïcode",
+]
+
+
+@pytest.mark.parametrize("label", NASTY_LABELS)
+def test_labels_with_sql_metacharacters_round_trip(lib, label):
+    params = DeviceParams("square", vth=2.71, kp=0.93)
+    added = lib.add_part(label, lot="bag'; --", params=params, notes="it's \"quoted\"")
+    assert added.label == label and added.lot == "bag'; --"
+    again = lib.get_part(label)
+    assert again == added
+    assert lib.get_part(f"bag'; --/{label}") == added
+    assert [p.label for p in lib.parts()] == [label]
+    assert lib.info()["parts"] == 1  # nothing dropped, nothing duplicated
+    exported = lib.export()
+    assert exported["parts"][0]["label"] == label and exported["parts"][0]["notes"] == "it's \"quoted\""
+
+
+def test_hand_entered_linear_part_matches_the_worked_example(lib):
+    part = lib.add_part("Q07", lot="demo-bag", params=DeviceParams("linear", vth=3.9, gm=0.544))
+    assert isinstance(part, PartRecord) and part.params.model == "linear" and part.fit_id is not None
+    vgs, i_d = solve_resistor_line(part.params, 12.0, 1000.0)
+    # common practice, no published source: 3.9 V / 0.544 A/V on 12 V through 1 kOhm settles at
+    # VGS = 2133.6/545 = 3.91486 V and ID = 8.085 mA; the hand value 8.5 mA does not satisfy both lines.
+    assert vgs == pytest.approx(2133.6 / 545, abs=1e-6)
+    assert i_d == pytest.approx(8.085e-3, abs=1e-6)
+    assert lib.fits("Q07")[0]["source"] == "hand"
+
+
+def test_parts_without_curve_and_bad_input(lib):
+    bare = lib.add_part("Q1", package="TO-220")
+    assert bare.params is None and bare.package == "TO-220" and bare.lot == "default"
+    with pytest.raises(LibraryError, match="already exists"):
+        lib.add_part("Q1")
+    with pytest.raises(LibraryError, match="polarity"):
+        lib.add_part("Q2", polarity="X")
+    with pytest.raises(LibraryError, match="empty label"):
+        lib.add_part("   ")
+    assert [p.label for p in lib.parts(state=None)] == ["Q1"]  # the failed adds wrote nothing
+
+
+def test_ambiguous_and_unknown_names_say_so(lib):
+    a = lib.add_part("Q01", lot="bag-A")
+    b = lib.add_part("Q01", lot="bag-B")
+    lib.add_part("Q02", lot="bag-B")
+    with pytest.raises(LibraryError, match=r"ambiguous.*bag-A/Q01, bag-B/Q01.*LOT/LABEL"):
+        lib.get_part("Q01")
+    assert lib.get_part("bag-A/Q01") == a and lib.get_part("bag-B/Q01") == b
+    assert lib.get_part("Q02").lot == "bag-B"
+    with pytest.raises(LibraryError, match="no part 'Q99'"):
+        lib.get_part("Q99")
+    with pytest.raises(LibraryError, match="no part 'bag-C/Q01'"):
+        lib.get_part("bag-C/Q01")
+
+
+def test_slashes_inside_lots_and_labels(lib):
+    part = lib.add_part("Q/7", lot="2026/12")
+    assert lib.get_part("2026/12/Q/7") == part
+    assert lib.get_part("Q/7") == part
+
+
+def test_states_reasons_and_history(lib):
+    lib.add_part("Q1", params=DeviceParams("square", vth=3.0, kp=1.0))
+    with pytest.raises(LibraryError, match="needs a reason"):
+        lib.set_state("Q1", "rejected")
+    with pytest.raises(LibraryError, match="unknown part state"):
+        lib.set_state("Q1", "lost")
+    rejected = lib.set_state("Q1", "rejected", "gate-source leakage after the drop test")
+    assert rejected.state == "rejected" and rejected.reason.startswith("gate-source")
+    assert lib.parts() == [] and [p.label for p in lib.parts(state="rejected")] == ["Q1"]
+    lib.set_state("Q1", "in_stock")
+    assert [h["new_state"] for h in lib.history("Q1")] == ["rejected", "in_stock"]
+
+
+def test_record_design_reserves_parts_and_refuses_unavailable_ones(lib):
+    ref = lib.add_part("Q1", params=DeviceParams("square", vth=3.0, kp=1.0))
+    out = lib.add_part("Q2", params=DeviceParams("square", vth=3.01, kp=1.0))
+    spare = lib.add_part("Q3", params=DeviceParams("square", vth=3.02, kp=1.0))
+    design = {"kind": "sink", "supply": 12.0, "r_chosen": 1000.0, "cautions": ["hot"]}
+    design_id = lib.record_design(design, [ref, out])
+    stored = lib.design(design_id)
+    assert stored["supply"] == 12.0 and stored["cautions"] == ["hot"]
+    assert [(p["label"], p["state"], p["position"]) for p in stored["recorded_parts"]] == [
+        ("Q1", "reserved", 0), ("Q2", "reserved", 1)]
+    assert [p.label for p in lib.parts()] == ["Q3"]
+    with pytest.raises(LibraryError, match="reserved, not in stock"):
+        lib.record_design(design, [spare, out], state="used")
+    assert lib.get_part("Q3").state == "in_stock"  # all or nothing
+    assert len(lib.designs()) == 1
+    with pytest.raises(LibraryError, match="no design 42"):
+        lib.design(42)
+
+
+def test_binning_is_stored_with_members(lib):
+    for k in range(4):
+        lib.add_part(f"Q{k}", params=DeviceParams("square", vth=3.0 + 0.05 * k, kp=1.0))
+    binning_id = lib.record_binning({"current": 0.01, "width": 0.1}, {"A": ["Q0", "Q1"], "B": ["Q2", "Q3"]})
+    stored = lib.binning(binning_id)
+    assert stored["scheme"]["width"] == 0.1
+    assert stored["bins"] == {"A": ["default/Q0", "default/Q1"], "B": ["default/Q2", "default/Q3"]}

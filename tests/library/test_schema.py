@@ -1,0 +1,87 @@
+"""Schema versions, migrations and the SQLite settings the library relies on."""
+
+from __future__ import annotations
+
+import sqlite3
+
+import pytest
+
+from benchlab.errors import LibraryError
+from benchlab.library import Library, default_library_path
+from benchlab.library import schema
+from benchlab.models import DeviceParams
+
+
+def test_migrations_are_numbered_and_latest_matches_file(tmp_path):
+    migrations = schema.load_migrations()
+    assert [m.version for m in migrations] == list(range(1, len(migrations) + 1))
+    with Library.open(tmp_path / "lib.db") as lib:
+        assert lib.info()["schema_version"] == schema.latest_version() == len(migrations)
+
+
+def test_old_version_database_is_migrated_keeping_its_data(tmp_path):
+    path = tmp_path / "old.db"
+    conn = sqlite3.connect(path, isolation_level=None)
+    assert schema.migrate(conn, target=1) == 1
+    conn.execute("INSERT INTO lots (name, created) VALUES ('bag-A', '2026-01-01T00:00:00+00:00')")
+    conn.execute("INSERT INTO parts (lot_id, label, created) VALUES (1, 'Q01', '2026-01-01T00:00:00+00:00')")
+    conn.execute("INSERT INTO fits (part_id, source, model, params_json, fitted_at) VALUES "
+                 "(1, 'hand', 'square', '{\"model\": \"square\", \"vth\": 2.5, \"kp\": 0.9}', '2026-01-01')")
+    # version 1 has no design tables yet
+    with pytest.raises(sqlite3.OperationalError):
+        conn.execute("SELECT * FROM designs")
+    conn.close()
+
+    with Library.open(path) as lib:
+        assert lib.info()["schema_version"] == schema.latest_version()
+        part = lib.get_part("Q01")
+        assert part.params == DeviceParams("square", vth=2.5, kp=0.9)
+        design_id = lib.record_design({"kind": "sink", "supply": 12.0}, [part])
+        assert lib.get_part("Q01").state == "reserved"
+        assert lib.design(design_id)["supply"] == 12.0
+        assert lib.history("Q01")[-1]["new_state"] == "reserved"  # table of migration 3
+
+
+def test_newer_schema_is_refused_with_a_clear_error(tmp_path):
+    path = tmp_path / "future.db"
+    with Library.open(path):
+        pass
+    conn = sqlite3.connect(path)
+    conn.execute(f"PRAGMA user_version = {schema.latest_version() + 5}")
+    conn.commit()
+    conn.close()
+    with pytest.raises(LibraryError, match="newer than this benchlab"):
+        Library.open(path)
+
+
+def test_wal_and_foreign_keys_are_on(lib):
+    # SQLite documentation (https://sqlite.org/pragma.html): journal_mode returns the new mode, 'wal';
+    # foreign_keys returns 1 when enforcement is on.
+    conn = lib.connection
+    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    assert conn.execute("PRAGMA foreign_keys").fetchone()[0] == 1
+    lib.add_part("Q01", lot="bag")
+    # SQLite documentation (https://sqlite.org/foreignkeys.html): a violated constraint fails the statement
+    with pytest.raises(sqlite3.IntegrityError):
+        conn.execute("INSERT INTO fits (part_id, source, model, params_json, fitted_at) "
+                     "VALUES (999, 'hand', 'square', '{}', 'now')")
+    with pytest.raises(sqlite3.IntegrityError):
+        conn.execute("DELETE FROM lots WHERE name = 'bag'")  # ON DELETE RESTRICT: the lot still holds a part
+    assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+
+
+def test_not_a_database_gets_one_clear_error(tmp_path):
+    path = tmp_path / "notes.db"
+    path.write_text("this is not a database file, just some text " * 50)
+    with pytest.raises(LibraryError, match="not a usable library file"):
+        Library.open(path)
+    with pytest.raises(LibraryError, match="is a folder"):
+        Library.open(tmp_path)
+
+
+def test_default_path_follows_the_environment(monkeypatch, tmp_path):
+    monkeypatch.setenv("BENCHLAB_LIBRARY", str(tmp_path / "env.db"))
+    assert default_library_path() == tmp_path / "env.db"
+    monkeypatch.delenv("BENCHLAB_LIBRARY")
+    path = default_library_path()
+    assert path.name == "library.db" and "benchlab" in str(path.parent)
