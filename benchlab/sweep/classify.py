@@ -1,0 +1,102 @@
+"""Judge a swept part from its points: good, open, shorted, leaky or unstable, with the reason in words.
+
+Pure functions on the measured points. The rules are deliberately simple and each one names what
+it saw, so a technician can check the verdict against the CSV.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from typing import Any, Sequence
+
+from benchlab.sweep.records import SweepPoint, vgs_at_current
+
+CLASSES = ("good", "open", "shorted", "leaky", "unstable")
+
+# A diode-connected enhancement MOSFET cannot carry a real current with almost no voltage across
+# it: its threshold sits well above this (power parts: about 1-4 V, common practice).
+SHORT_VGS_V = 0.3
+# Far below threshold a healthy part carries next to nothing (datasheet IDSS / IGSS are in the
+# nA-uA range, common practice); "far below" is this fraction of VGS at the reference current.
+LEAK_VGS_FRACTION = 0.5
+UNSETTLED_FRACTION = 0.15
+
+
+@dataclass(frozen=True)
+class Classification:
+    """A part's verdict."""
+
+    kind: str
+    reason: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def _fmt_a(amps: float) -> str:
+    for scale, unit in ((1.0, "A"), (1e-3, "mA"), (1e-6, "uA"), (1e-9, "nA")):
+        if abs(amps) >= scale:
+            return f"{amps / scale:.3g} {unit}"
+    return f"{amps:.3g} A"
+
+
+def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_current_a: float,
+             reference_current_a: float = 250e-6, failure: str | None = None,
+             fixture: str = "resistor") -> Classification:
+    """Classify a part from its sweep.
+
+    Parameters
+    ----------
+    points : sequence of SweepPoint
+        Every point of the sweep (up and down).
+    detect_current_a : float
+        Below this current the part counts as not conducting (A).
+    leak_current_a : float
+        A current this large far below threshold makes the part leaky (A).
+    reference_current_a : float
+        Current at which VGS is quoted (A).
+    failure : str, optional
+        A failure the engine saw during the sweep (e.g. "failed open at point 12"); wins over the rules.
+    fixture : str
+        ``resistor`` or ``smu`` (only changes the wording).
+
+    Returns
+    -------
+    Classification
+    """
+    if failure:
+        kind = "shorted" if "short" in failure else "open" if "open" in failure else "unstable"
+        return Classification(kind, failure)
+    usable = [p for p in points if p.usable]
+    if not usable:
+        return Classification("unstable", "no usable reading (every reading was over range or not a number)")
+    conducting = [p for p in usable if p.id >= detect_current_a and p.status != "compliance"]
+    if not conducting:
+        top = max(usable, key=lambda p: p.vgs)
+        if fixture == "smu" and any(p.status == "compliance" for p in usable):
+            return Classification("open", f"hit the voltage compliance ({top.vgs:.2f} V) without carrying the "
+                                          f"forced current: no conduction path")
+        return Classification("open", f"no current above {_fmt_a(detect_current_a)} with up to "
+                                      f"{top.vgs:.2f} V across the part")
+    peak = max(conducting, key=lambda p: p.id)
+    if peak.vgs < SHORT_VGS_V:
+        return Classification("shorted", f"carries {_fmt_a(peak.id)} with only {peak.vgs * 1e3:.0f} mV across it: "
+                                         f"drain-source short")
+    unsettled = [p for p in usable if p.status == "unsettled"]
+    if unsettled and len(unsettled) >= max(2, UNSETTLED_FRACTION * len(usable)):
+        spread = max(abs(p.spread_v) for p in unsettled)
+        return Classification("unstable", f"readings did not settle at {len(unsettled)} of {len(usable)} points "
+                                          f"(VGS moved up to {spread * 1e3:.1f} mV between repeated readings)")
+    vref = vgs_at_current(points, reference_current_a)
+    onset = min(conducting, key=lambda p: p.vgs)
+    scale_v = vref if vref is not None else onset.vgs
+    low = [p for p in usable if p.direction == "up" and p.vgs <= LEAK_VGS_FRACTION * scale_v and p.vgs > 0]
+    if low:
+        worst = max(low, key=lambda p: p.id)
+        if worst.id >= leak_current_a:
+            return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, far below its "
+                                           f"threshold (about {scale_v:.2f} V)")
+    if vref is not None:
+        return Classification("good", f"conducts normally, VGS {vref:.3f} V at {_fmt_a(reference_current_a)}")
+    return Classification("good", f"conducts normally up to {_fmt_a(peak.id)} at {peak.vgs:.3f} V "
+                                  f"({_fmt_a(reference_current_a)} not bracketed)")

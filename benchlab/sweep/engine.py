@@ -1,0 +1,425 @@
+"""The sweep engine: ``run(plan, instruments, on_event, cancel) -> SweepOutcome``.
+
+Every setpoint goes through the safety guard (:mod:`benchlab.sweep.safety`); every measured point
+is handed to the recorder (which makes it durable) before the next setpoint is applied; and the
+output is switched off and the setpoint returned to zero on every way out of :func:`run` - done,
+limit reached, cancel, an instrument error or timeout, ``KeyboardInterrupt`` and the exception the
+CLI raises on SIGTERM. Interrupted sweeps are recorded with ``complete: false`` and the exception
+is re-raised; a ``cancel`` request returns normally with ``complete=False``.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from typing import Any, Callable
+
+from benchlab.errors import InputError, SafetyError
+from benchlab.sweep.classify import classify
+from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
+from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
+from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply
+
+# Sub-threshold slope assumed before two conducting points exist: n UT ln10 with n about 1.7
+# (S = n x 59.5 mV/decade at 300 K; Enz, Krummenacher, Vittoz 1995). A steeper guess would overshoot.
+DEFAULT_SLOPE_V_PER_DECADE = 0.1
+MIN_SLOPE_V_PER_DECADE = 0.04
+MIN_STEP_V = 1e-3
+ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
+
+
+class _Stop(Exception):
+    """Internal: the engine decided to stop stepping (not an error)."""
+
+    def __init__(self, reason: str, failure: str | None = None):
+        super().__init__(reason)
+        self.reason = reason
+        self.failure = failure
+
+
+class _NullRecorder:
+    def append(self, point: SweepPoint) -> None:
+        pass
+
+    def finish(self, outcome: SweepOutcome) -> None:
+        pass
+
+
+def predict_vgs(conducting: list[tuple[float, float]], target_a: float) -> float:
+    """Predict VGS (V) at ``target_a`` from measured ``(vgs, id)`` pairs (ascending, conducting).
+
+    Straight-line extrapolation of VGS against log(current) through the last two points; with one
+    point, the sub-threshold slope guess. Above threshold VGS grows faster than linearly in
+    log(current), so this under-predicts and the sweep undershoots: the safe side.
+    """
+    vgs1, id1 = conducting[-1]
+    slope = DEFAULT_SLOPE_V_PER_DECADE
+    for vgs0, id0 in reversed(conducting[:-1]):
+        if id1 > id0 * 1.05:
+            slope = max((vgs1 - vgs0) / math.log10(id1 / id0), MIN_SLOPE_V_PER_DECADE)
+            break
+    return vgs1 + slope * math.log10(target_a / id1)
+
+
+class _Sweep:
+    """State of one running sweep (one part)."""
+
+    def __init__(self, plan: SweepPlan, instruments: Any, on_event, cancel, label: str, recorder,
+                 clock: Callable[[], float], sleep: Callable[[float], None]):
+        self.plan = plan
+        self.label = label
+        self.on_event = on_event or (lambda event: None)
+        self.cancel = cancel
+        self.recorder = recorder or _NullRecorder()
+        self.clock = clock
+        self.sleep = sleep
+        self.points: list[SweepPoint] = []
+        self.t0 = clock()
+        self.pulsed = plan.pulsed_duty is not None and plan.pulsed_duty < 1.0
+        if plan.fixture == "resistor":
+            supply = getattr(instruments, "supply", None)
+            self.meter = getattr(instruments, "meter", None)
+            if supply is None or self.meter is None:
+                raise InputError("the resistor fixture needs a supply and a meter on the bench")
+            self.source = GuardedSupply(supply, plan.limits, plan.series_resistor_ohm, clock)
+        else:
+            smu = getattr(instruments, "source_meter", None)
+            if smu is None:
+                raise InputError("the smu fixture needs a source-measure unit on the bench")
+            self.source = GuardedSourceMeter(smu, plan.limits, clock)
+            self.meter = None
+
+    # ------------------------------------------------------------------ setup and the single point
+    def setup(self) -> None:
+        """Output off, limit / compliance first, setpoint 0, meter configured. Nothing is powered."""
+        plan = self.plan
+        if plan.fixture == "resistor":
+            self.source.safe_off()
+            self.source.set_current_limit(plan.current_limit())
+            self.source.set_voltage(0.0)
+            self.meter.configure_voltage(None, plan.nplc)
+            if plan.mode == "voltages":  # refuse a bad list before anything is switched on
+                for v in plan.voltages:
+                    self.source.check_voltage(v)
+        else:
+            self.source.safe_off()
+            if plan.mode == "currents":
+                self.source.configure_source("current", plan.limits.max_supply_v)
+            else:
+                self.source.configure_source("voltage", plan.current_limit())
+            self.source.set_nplc(plan.nplc)
+            self.source.set_level(0.0)
+            if plan.mode == "voltages":
+                for v in plan.voltages:
+                    self.source.check_level(v)
+
+    def apply(self, level: float, expect_id: float | None, expect_vgs: float | None) -> None:
+        if self.plan.fixture == "resistor":
+            self.source.set_voltage(level, expect_id, expect_vgs)
+        elif self.source.mode == "voltage":
+            self.source.set_level(level, expect_id)
+        else:
+            self.source.set_level(level, expect_vgs)
+
+    def _read_once(self) -> tuple[float, float, float, float, bool]:
+        """(vgs, id, v_source, i_source, compliance) from one reading."""
+        if self.plan.fixture == "resistor":
+            vgs = float(self.meter.read())
+            v_src = float(self.source.measure_voltage())
+            i_src = float(self.source.measure_current())
+            i_d = (v_src - vgs) / self.plan.series_resistor_ohm
+            # in constant-current mode the supply sits at its limit: the part no longer sets the current
+            at_limit = self.source.current_limit_a is not None and i_src >= 0.98 * self.source.current_limit_a
+            return vgs, i_d, v_src, i_src, at_limit
+        v, i = self.source.measure()
+        return float(v), float(i), float(v), float(i), bool(self.source.in_compliance())
+
+    def read_point(self, direction: str) -> SweepPoint:
+        """Read (and re-read until settled) at the present setpoint; the point is not yet stored."""
+        vgs, i_d, v_src, i_src, at_limit = self._read_once()
+        status, spread = "ok", 0.0
+        if not (math.isfinite(vgs) and math.isfinite(i_d)) or abs(vgs) > 1e30:
+            status = "over_range"
+        elif self.plan.repeat_reading:
+            for _ in range(self.plan.max_rereads + 1):
+                vgs2, i2, v2, is2, lim2 = self._read_once()
+                if not (math.isfinite(vgs2) and math.isfinite(i2)):
+                    break
+                spread = vgs2 - vgs
+                vgs, i_d, v_src, i_src, at_limit = vgs2, i2, v2, is2, lim2
+                if abs(spread) <= max(self.plan.settle_tolerance * abs(vgs), ABS_SETTLE_V):
+                    break
+            else:
+                status = "unsettled"
+        if status == "ok" and at_limit:
+            status = "compliance"
+        return SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=vgs, id=i_d, v_source=v_src,
+                          i_source=i_src, status=status, direction=direction, spread_v=spread)
+
+    def measure(self, level: float, direction: str, expect_id: float | None = None,
+                expect_vgs: float | None = None) -> SweepPoint:
+        """Apply one setpoint, wait, read, store the point durably, report it."""
+        if self.cancel is not None and self.cancel.is_set():
+            raise _Stop("cancelled")
+        self.apply(level, expect_id, expect_vgs)
+        if self.pulsed:
+            on_at = self.clock()
+            self.source.set_output(True)
+        if self.plan.settle_s:
+            self.sleep(self.plan.settle_s)
+        point = self.read_point(direction)
+        if self.pulsed:
+            self.source.set_output(False)
+            on_time = self.clock() - on_at
+            # cool-down so that on / (on + off) equals the duty cycle
+            self.sleep(on_time * (1.0 / self.plan.pulsed_duty - 1.0))
+        self.store(point)
+        return point
+
+    def store(self, point: SweepPoint) -> None:
+        self.recorder.append(point)  # durable before the next setpoint
+        self.points.append(point)
+        self.on_event(PointMeasured(self.label, point, len(self.points), self.plan.points, self.clock() - self.t0))
+
+    # ------------------------------------------------------------------ checks after each reading
+    def check_reading(self, point: SweepPoint, previous: list[SweepPoint]) -> None:
+        plan, lim = self.plan, self.plan.limits
+        if point.status == "over_range":
+            recent = [p.status for p in self.points[-3:]]
+            if len(recent) == 3 and all(s == "over_range" for s in recent):
+                raise _Stop("three readings in a row over range")
+            return
+        conducting = [p for p in previous if p.id >= max(10 * plan.detect_current_a, 1e-5) and p.status == "ok"]
+        if conducting and point.status in ("ok", "compliance"):  # an unsettled reading proves no failure
+            last = conducting[-1]
+            if point.id < plan.detect_current_a and point.vgs > last.vgs:
+                raise _Stop("part failed open", f"failed open during the sweep at point {point.point}: it carried "
+                                                f"{last.id:.3g} A at {last.vgs:.3f} V, then nothing at {point.vgs:.3f} V")
+            if last.vgs > 0.5 and point.vgs < 0.3 * last.vgs and point.id > last.id:
+                raise _Stop("part failed short", f"failed short during the sweep at point {point.point}: "
+                                                 f"{point.vgs * 1e3:.0f} mV across it at {point.id:.3g} A "
+                                                 f"(was {last.vgs:.3f} V)")
+        if point.status == "compliance":
+            raise _Stop("the source reached its current limit / compliance")
+        if point.id >= lim.max_drain_a:
+            raise _Stop(f"reading reached max_drain_a ({lim.max_drain_a:g} A)")
+        if point.id * point.vgs >= lim.max_power_w:
+            raise _Stop(f"reading reached max_power_w ({lim.max_power_w:g} W)")
+
+    # ------------------------------------------------------------------ the sweep modes
+    def sweep_targets(self) -> None:
+        """Adaptive: aim at log-spaced currents, predicting each next setpoint from the points so far."""
+        plan, lim = self.plan, self.plan.limits
+        resistor = plan.fixture == "resistor"
+        r = plan.series_resistor_ohm if resistor else 0.0
+        targets = plan.target_currents()
+        level, k = plan.start_v, 0
+        ups: list[SweepPoint] = []
+        self.source_on_if_continuous()
+        point = self.measure(level, "up")
+        ups.append(point)
+        while True:
+            if len(ups) >= plan.max_measured_points:
+                raise _Stop(f"stopped after {len(ups)} points (max_measured_points) below the top current")
+            conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= plan.detect_current_a]
+            last_vgs = ups[-1].vgs if math.isfinite(ups[-1].vgs) else level
+            if not conducting:
+                nxt = level + plan.search_step_v
+                # a monotone part cannot let more than (Vs - VGS_last)/R through: the search's own bound
+                expect_id = max(nxt - max(last_vgs, 0.0), 0.0) / r if resistor else None
+                expect_vgs = nxt
+            else:
+                while k < len(targets) and targets[k] <= conducting[-1][1] * 1.05:
+                    k += 1
+                if k == len(targets):
+                    return
+                target = float(targets[k])
+                vgs_pred = predict_vgs(sorted(conducting, key=lambda c: c[1]), target)
+                if target * vgs_pred > lim.max_power_w:
+                    target = 0.95 * lim.max_power_w / vgs_pred
+                    if target <= conducting[-1][1] * 1.02:
+                        raise _Stop(f"next point would exceed max_power_w ({lim.max_power_w:g} W)")
+                    vgs_pred = predict_vgs(sorted(conducting, key=lambda c: c[1]), target)
+                nxt = min(max(vgs_pred + target * r, level + MIN_STEP_V), level + plan.max_step_v)
+                expect_id, expect_vgs = min(target, lim.max_drain_a), vgs_pred
+            if nxt > lim.max_supply_v:
+                if level >= lim.max_supply_v * (1 - 1e-9):
+                    raise _Stop(f"reached max_supply_v ({lim.max_supply_v:g} V)")
+                nxt = lim.max_supply_v
+            try:
+                if resistor:
+                    self.source.check_voltage(nxt, expect_id, expect_vgs)
+                else:
+                    self.source.check_level(nxt, expect_id)
+            except SafetyError as exc:
+                raise _Stop(f"next setpoint refused by the safety limits ({exc})") from None
+            level = nxt
+            point = self.measure(level, "up", expect_id, expect_vgs)
+            previous = list(ups)
+            ups.append(point)
+            self.check_reading(point, previous)
+            if point.usable and point.id >= plan.max_current_a * 0.98:
+                return
+
+    def sweep_levels(self, levels, direction: str, expects=None) -> None:
+        """Step through explicit levels (voltages, or currents on a SMU forcing current)."""
+        self.source_on_if_continuous()
+        forcing_current = self.plan.mode == "currents"
+        for n, level in enumerate(levels):
+            previous = [p for p in self.points if p.direction == direction]
+            expect_id = expect_vgs = None
+            if expects is not None:
+                expect_id, expect_vgs = expects[n]
+            elif forcing_current:
+                conducting = [(p.vgs, p.id) for p in previous if p.usable and p.id > 0 and p.status == "ok"]
+                if conducting:
+                    expect_vgs = predict_vgs(sorted(conducting, key=lambda c: c[1]), level)
+                    if level * expect_vgs > self.plan.limits.max_power_w:
+                        raise _Stop(f"next point would exceed max_power_w ({self.plan.limits.max_power_w:g} W)")
+            point = self.measure(float(level), direction, expect_id, expect_vgs)
+            self.check_reading(point, previous)
+
+    def sweep_list(self) -> None:
+        """SMU list sweep: upload the voltages in chunks, one trigger per chunk, store each chunk."""
+        plan = self.plan
+        self.source.set_output(True)
+        levels = list(plan.voltages)
+        for start in range(0, len(levels), plan.list_chunk):
+            if self.cancel is not None and self.cancel.is_set():
+                raise _Stop("cancelled")
+            chunk = levels[start:start + plan.list_chunk]
+            readings = self.source.run_list(chunk, plan.settle_s)
+            for v, i in readings:
+                status = "ok" if math.isfinite(v) and math.isfinite(i) and abs(v) < 1e30 else "over_range"
+                point = SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=float(v), id=float(i),
+                                   v_source=float(v), i_source=float(i), status=status, direction="up")
+                previous = list(self.points)
+                self.store(point)
+                self.check_reading(point, previous)
+
+    def source_on_if_continuous(self) -> None:
+        if not self.pulsed and not self.source.output_is_on():
+            self.source.set_output(True)
+
+    def down_sweep(self) -> None:
+        """Replay the up-sweep's setpoints in reverse (the top one excluded)."""
+        ups = [p for p in self.points if p.direction == "up" and p.usable and p.id >= self.plan.detect_current_a]
+        if len(ups) < 2:
+            return
+        if self.plan.mode == "currents":
+            levels = [p.id for p in ups[:-1]]
+            expects = [(p.id, p.vgs) for p in ups[:-1]]
+        elif self.plan.fixture == "resistor":
+            levels = [p.v_source for p in ups[:-1]]
+            expects = [(p.id, p.vgs) for p in ups[:-1]]
+        else:
+            levels = [p.vgs for p in ups[:-1]]
+            expects = [(p.id, p.vgs) for p in ups[:-1]]
+        levels = [max(0.0, float(v)) for v in levels]
+        self.sweep_levels(levels[::-1], "down", expects[::-1])
+
+    def body(self) -> str:
+        plan = self.plan
+        if plan.mode == "targets":
+            self.sweep_targets()
+            reason = "reached the top target current"
+        elif plan.mode == "currents":
+            self.sweep_levels(plan.target_currents(), "up")
+            reason = "swept every target current"
+        elif plan.use_list:
+            self.sweep_list()
+            reason = "swept every listed voltage"
+        else:
+            self.sweep_levels(plan.voltages, "up")
+            reason = "swept every listed voltage"
+        return reason
+
+    def outcome(self, complete: bool, stop_reason: str, failure: str | None, error: str | None,
+                problems: list[str]) -> SweepOutcome:
+        plan = self.plan
+        verdict = classify(self.points, detect_current_a=plan.detect_current_a, leak_current_a=plan.leak_current_a,
+                           reference_current_a=REFERENCE_CURRENT_A, failure=failure, fixture=plan.fixture)
+        reason = verdict.reason if complete else f"{verdict.reason} (sweep interrupted: {stop_reason})"
+        return SweepOutcome(label=self.label, complete=complete, stop_reason=stop_reason,
+                            classification=verdict.kind, reason=reason, points=tuple(self.points),
+                            powered_s=self.source.powered_s, elapsed_s=self.clock() - self.t0,
+                            vgs_at_ref=vgs_at_current(self.points, REFERENCE_CURRENT_A),
+                            reference_current_a=REFERENCE_CURRENT_A, error=error,
+                            shutdown_problems=tuple(problems))
+
+
+def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | None = None, cancel=None, *,
+        label: str = "part", recorder=None, clock: Callable[[], float] = time.monotonic,
+        sleep: Callable[[float], None] = time.sleep) -> SweepOutcome:
+    """Sweep one diode-connected part and return how it went.
+
+    Parameters
+    ----------
+    plan : SweepPlan
+        What to do (validated here first: bad input raises before anything is sent).
+    instruments : object
+        Anything with ``supply`` and ``meter`` (resistor fixture) or ``source_meter`` (smu fixture)
+        attributes implementing the role interfaces of :mod:`benchlab.instruments.roles`, e.g. a ``Bench``.
+    on_event : callable, optional
+        Receives :class:`PointMeasured`, :class:`SweepDone` and :class:`SweepFault` events.
+    cancel : threading.Event-like, optional
+        Checked before each point; when set the sweep stops, the output goes off, and the outcome
+        has ``complete=False``.
+    label : str
+        The part's label (events and outcome).
+    recorder : object, optional
+        ``append(point)`` (must make the point durable) and ``finish(outcome)``, e.g. a
+        :class:`benchlab.sweep.session.SweepRecorder`.
+    clock, sleep : callable
+        Injected time source and wait (tests run without real waits).
+
+    Returns
+    -------
+    SweepOutcome
+
+    Raises
+    ------
+    BenchlabError
+        Instrument errors, timeouts, lost connections and :class:`SweepCancelled` (SIGTERM) are
+        re-raised after the output is off and the record is marked incomplete; so is
+        ``KeyboardInterrupt``.
+    """
+    validate_plan(plan)
+    sweep = _Sweep(plan, instruments, on_event, cancel, label, recorder, clock, sleep)
+    complete, failure, error, stop_reason = False, None, None, "not started"
+    try:
+        sweep.setup()
+        try:
+            stop_reason = sweep.body()
+            complete = True
+        except _Stop as stop:
+            stop_reason, failure = stop.reason, stop.failure
+            complete = stop.reason != "cancelled"
+        if complete and plan.down_sweep and failure is None:
+            try:
+                sweep.down_sweep()
+            except _Stop as stop:
+                if stop.reason == "cancelled":
+                    complete, stop_reason = False, "cancelled"
+                else:
+                    failure = stop.failure
+                    stop_reason = f"down-sweep: {stop.reason}"
+    except BaseException as exc:
+        problems = sweep.source.safe_off()
+        kind = type(exc).__name__
+        message = str(exc) or ("interrupted (Ctrl-C)" if isinstance(exc, KeyboardInterrupt) else kind)
+        outcome = sweep.outcome(False, f"{kind}: {message}", None, message, problems)
+        try:
+            sweep.recorder.finish(outcome)
+        finally:
+            sweep.on_event(SweepFault(label, message, kind, outcome.elapsed_s))
+        raise
+    problems = sweep.source.safe_off()
+    outcome = sweep.outcome(complete, stop_reason, failure, None, problems)
+    sweep.recorder.finish(outcome)
+    sweep.on_event(SweepDone(label, outcome.complete, outcome.classification, outcome.reason, len(outcome.points),
+                             outcome.elapsed_s, outcome.summary()))
+    return outcome
+
+
+__all__ = ["run", "predict_vgs"]

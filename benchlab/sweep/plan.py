@@ -1,0 +1,237 @@
+"""Sweep plans: what to force, where to stop, how to pace the part. Plain data, validated up front.
+
+A plan is checked against the bench's safety limits *before* anything is connected or powered
+(:func:`validate_plan`), so bad input gets one clear error and nothing is written or powered.
+
+Three ways to sweep a diode-connected part (VDS = VGS):
+
+- ``targets`` (adaptive): aim at drain currents spread evenly in log(current) from the
+  sub-threshold region up to ``max_current_a``. Stepping the supply evenly in volts crowds every
+  point near threshold, because the current grows by decades over a few hundred mV there. VGS at a
+  current is unknown beforehand, so the next setpoint is predicted from the points measured so far.
+  Works with the resistor fixture (supply voltage) and a source-measure unit forcing voltage.
+- ``voltages``: an explicit list of supply / SMU voltages (on a SMU optionally uploaded as lists).
+- ``currents``: a source-measure unit forcing log-spaced currents; this is how datasheets state
+  VGS(th) (VGS at 250 uA with VDS = VGS, common practice).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, fields
+from typing import Any
+
+import numpy as np
+
+from benchlab.errors import InputError, SafetyError
+
+FIXTURES = ("resistor", "smu")
+MODES = ("targets", "voltages", "currents")
+REFERENCE_CURRENT_A = 250e-6  # datasheet VGS(th) test current with VDS = VGS (common practice)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """The safety limits a plan runs under (a copy of the bench's, so the plan is self-contained)."""
+
+    max_supply_v: float
+    max_drain_a: float
+    max_power_w: float
+
+    @classmethod
+    def from_safety_limits(cls, limits: Any) -> "Limits":
+        """Build from any object with ``max_supply_v``, ``max_drain_a``, ``max_power_w``."""
+        return cls(float(limits.max_supply_v), float(limits.max_drain_a), float(limits.max_power_w))
+
+
+@dataclass(frozen=True)
+class SweepPlan:
+    """Everything the engine needs to sweep one part; reduces to plain data with :meth:`to_dict`.
+
+    Parameters
+    ----------
+    fixture : str
+        ``"resistor"`` (supply + series resistor + meter across the part) or ``"smu"``.
+    limits : Limits
+        Hard limits; no setpoint beyond them is ever applied.
+    mode : str
+        ``"targets"``, ``"voltages"`` or ``"currents"`` (see module docstring).
+    points : int
+        Number of target currents (``targets``/``currents`` modes).
+    min_current_a, max_current_a : float
+        First and last target current (A), spread evenly in log(current).
+    voltages : tuple of float
+        Explicit source voltages (``voltages`` mode), applied in order.
+    series_resistor_ohm : float
+        Measured series resistor (resistor fixture); the drain current is the drop across it over R.
+    settle_s : float
+        Wait after each setpoint before reading (s).
+    nplc : float
+        Meter integration time in power-line cycles.
+    start_v : float
+        First source voltage of an adaptive sweep (V); starting a little below the lowest threshold
+        a datasheet allows saves the points spent searching for conduction.
+    search_step_v : float
+        Source step while the part does not yet conduct (V). Through a series resistor R a step of
+        dV can raise the current by at most about dV / R, which bounds the first conducting point.
+    max_step_v : float
+        Largest source increase between two adaptive points (V).
+    detect_current_a : float
+        Current below which the part counts as not conducting (A).
+    pulsed_duty : float or None
+        Duty cycle in (0, 1]: the output is on only for settle + reading, then off for
+        ``on_time * (1 / duty - 1)``. ``None`` keeps the output on for the whole sweep.
+    down_sweep : bool
+        Repeat the up-sweep's setpoints in reverse (hysteresis / self-heating check).
+    repeat_reading : bool
+        Read twice at each point and compare (detects parts whose readings do not settle).
+    settle_tolerance : float
+        Relative difference (of VGS) allowed between the two readings.
+    max_rereads : int
+        Further readings to wait for a point to settle before marking it ``unsettled``.
+    use_list : bool
+        ``voltages`` mode on a SMU: upload the setpoints as lists (chunks of ``list_chunk``).
+    list_chunk : int
+        Setpoints per uploaded list; a stop loses at most one chunk.
+    leak_current_a : float
+        Current that, flowing far below threshold, classifies the part as leaky (A).
+    max_measured_points : int
+        Hard cap on points per direction (adaptive stepping may need more points than targets).
+    """
+
+    fixture: str
+    limits: Limits
+    mode: str = "targets"
+    points: int = 24
+    min_current_a: float = 10e-6
+    max_current_a: float = 0.1
+    voltages: tuple[float, ...] = ()
+    series_resistor_ohm: float = 0.0
+    settle_s: float = 0.05
+    nplc: float = 1.0
+    start_v: float = 0.0
+    search_step_v: float = 0.1
+    max_step_v: float = 0.5
+    detect_current_a: float = 2e-6
+    pulsed_duty: float | None = None
+    down_sweep: bool = False
+    repeat_reading: bool = True
+    settle_tolerance: float = 0.002
+    max_rereads: int = 3
+    use_list: bool = False
+    list_chunk: int = 8
+    leak_current_a: float = 20e-6
+    max_measured_points: int = 200
+
+    def target_currents(self) -> np.ndarray:
+        """The target currents (A), evenly spread in log(current), ascending."""
+        return target_currents(self.min_current_a, self.max_current_a, self.points)
+
+    def current_limit(self) -> float:
+        """Supply current limit / SMU compliance (A): a margin above the top target, never above the limit."""
+        return min(self.limits.max_drain_a, 1.25 * self.max_current_a)
+
+    def to_dict(self) -> dict[str, Any]:
+        data = asdict(self)
+        data["voltages"] = list(self.voltages)
+        return data
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> "SweepPlan":
+        known = {f.name for f in fields(cls)}
+        values = {k: v for k, v in data.items() if k in known}
+        values["limits"] = Limits(**data["limits"])
+        values["voltages"] = tuple(float(v) for v in data.get("voltages", ()))
+        return cls(**values)
+
+
+def target_currents(min_current_a: float, max_current_a: float, points: int) -> np.ndarray:
+    """``points`` currents from ``min_current_a`` to ``max_current_a`` spread evenly in log(current).
+
+    Parameters
+    ----------
+    min_current_a, max_current_a : float
+        End points (A), ``0 < min < max``.
+    points : int
+        How many (>= 2).
+
+    Returns
+    -------
+    numpy.ndarray
+        Ascending currents (A).
+    """
+    return np.geomspace(min_current_a, max_current_a, int(points))
+
+
+def _positive(name: str, value: float) -> None:
+    if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
+        raise InputError(f"{name} must be a positive number, got {value!r}")
+
+
+def validate_plan(plan: SweepPlan) -> SweepPlan:
+    """Check a plan against itself and its limits; raise one clear error, else return it unchanged.
+
+    Raises
+    ------
+    InputError
+        An option value that makes no sense (negative points, unknown mode, ...).
+    SafetyError
+        A requested setpoint or range beyond the safety limits.
+    """
+    if plan.fixture not in FIXTURES:
+        raise InputError(f"unknown fixture '{plan.fixture}' (expected one of {', '.join(FIXTURES)})")
+    if plan.mode not in MODES:
+        raise InputError(f"unknown sweep mode '{plan.mode}' (expected one of {', '.join(MODES)})")
+    lim = plan.limits
+    for name in ("max_supply_v", "max_drain_a", "max_power_w"):
+        _positive(f"limit {name}", getattr(lim, name))
+    for name in ("min_current_a", "max_current_a", "search_step_v", "max_step_v", "detect_current_a",
+                 "settle_tolerance", "leak_current_a", "nplc"):
+        _positive(name, getattr(plan, name))
+    if not (math.isfinite(plan.settle_s) and plan.settle_s >= 0):
+        raise InputError(f"settle_s must be >= 0, got {plan.settle_s!r}")
+    if not (math.isfinite(plan.start_v) and 0 <= plan.start_v <= lim.max_supply_v):
+        raise SafetyError(f"start voltage {plan.start_v!r} V must be between 0 and max_supply_v {lim.max_supply_v:g} V")
+    if not isinstance(plan.points, int) or plan.points < 2:
+        raise InputError(f"points must be an integer >= 2, got {plan.points!r}")
+    if plan.min_current_a >= plan.max_current_a:
+        raise InputError(f"min current {plan.min_current_a:g} A must be below max current {plan.max_current_a:g} A")
+    if plan.max_current_a > lim.max_drain_a:
+        raise SafetyError(f"max current {plan.max_current_a:g} A is above the bench limit max_drain_a "
+                          f"{lim.max_drain_a:g} A")
+    if plan.pulsed_duty is not None and not (0 < plan.pulsed_duty <= 1):
+        raise InputError(f"pulsed duty cycle must be in (0, 1], got {plan.pulsed_duty!r}")
+    if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
+        raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
+    if plan.fixture == "resistor":
+        _positive("series resistor (ohm)", plan.series_resistor_ohm)
+        if plan.mode == "currents":
+            raise InputError("forcing currents needs a source-measure unit (fixture 'smu')")
+        if plan.use_list:
+            raise InputError("list sweeps need a source-measure unit (fixture 'smu')")
+    if plan.mode == "voltages":
+        if not plan.voltages:
+            raise InputError("a voltage-list sweep needs at least one voltage")
+        for v in plan.voltages:
+            if not (math.isfinite(v) and v >= 0):
+                raise InputError(f"sweep voltages must be >= 0 V, got {v!r}")
+            if v > lim.max_supply_v:
+                raise SafetyError(f"sweep voltage {v:g} V is above the bench limit max_supply_v "
+                                  f"{lim.max_supply_v:g} V")
+            if plan.fixture == "smu" and v * plan.current_limit() > lim.max_power_w:
+                # on a SMU all of the source power lands in the part: compliance x voltage bounds it
+                raise SafetyError(f"sweep voltage {v:g} V at compliance {plan.current_limit():g} A could put "
+                                  f"{v * plan.current_limit():.3g} W in the part, above max_power_w "
+                                  f"{lim.max_power_w:g} W")
+    elif plan.voltages:
+        raise InputError(f"an explicit voltage list only goes with mode 'voltages', not '{plan.mode}'")
+    return plan
+
+
+def plan_field_names() -> tuple[str, ...]:
+    """Names of the plan's fields (for help text and config overrides)."""
+    return tuple(f.name for f in fields(SweepPlan))
+
+
+__all__ = ["Limits", "SweepPlan", "target_currents", "validate_plan", "REFERENCE_CURRENT_A", "FIXTURES", "MODES",
+           "plan_field_names"]

@@ -1,0 +1,345 @@
+"""Session records on disk (see docs/session-format.md): writers that never lose a measured point, and readers.
+
+Each point is appended to the part's CSV, flushed and fsync'd before the engine takes the next one,
+so a crash, ``kill -9`` or a pulled cable loses at most the point in flight. JSON files are replaced
+atomically (write a temporary file, fsync, rename), so they are always whole. A sweep's sidecar is
+written with ``complete: false`` when the sweep starts and only marked complete at its end.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import math
+import os
+import re
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from benchlab.errors import InputError
+from benchlab.sweep.records import CSV_COLUMNS, SweepOutcome, SweepPoint
+
+SESSION_FORMAT = "benchlab-session/1"
+SWEEP_FORMAT = "benchlab-sweep/1"
+_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]{0,63}$")
+
+
+def now_iso() -> str:
+    """The current UTC time, ISO-8601 with seconds."""
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+def check_name(kind: str, name: str) -> str:
+    """Refuse a lot name or part label that cannot be a file name on every system."""
+    if not isinstance(name, str) or not _NAME_RE.match(name) or name in (".", ".."):
+        raise InputError(f"bad {kind} '{name}': use 1-64 letters, digits, '_', '.', '+' or '-', starting with a "
+                         f"letter or digit")
+    return name
+
+
+def write_json_atomic(path: Path, data: dict[str, Any]) -> None:
+    """Replace ``path`` with ``data`` as JSON so a reader never sees half a file."""
+    tmp = path.with_name(path.name + ".tmp")
+    with open(tmp, "w", encoding="utf-8") as fh:
+        json.dump(data, fh, indent=1, allow_nan=False, default=_json_default)
+        fh.write("\n")
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    _fsync_dir(path.parent)
+
+
+def _json_default(value):
+    if isinstance(value, (np.floating, np.integer)):
+        return value.item()
+    if hasattr(value, "to_dict"):
+        return value.to_dict()
+    raise TypeError(f"cannot store {type(value).__name__} in JSON")
+
+
+def _fsync_dir(directory: Path) -> None:
+    # make a new or renamed file's directory entry durable too (POSIX); harmless elsewhere
+    try:
+        fd = os.open(directory, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def _finite_or_none(value: float | None):
+    return None if value is None or not math.isfinite(value) else value
+
+
+class SweepRecorder:
+    """Writes one part's ``<label>.csv`` point by point and its ``<label>.json`` sidecar.
+
+    Parameters
+    ----------
+    directory : Path
+        The session folder.
+    label, lot : str
+        Part label and lot name.
+    plan : dict
+        The sweep plan as plain data (stored in the sidecar).
+    """
+
+    def __init__(self, directory: Path, label: str, lot: str, plan: dict[str, Any]):
+        self.label = check_name("part label", label)
+        self.csv_path = Path(directory) / f"{label}.csv"
+        self.json_path = Path(directory) / f"{label}.json"
+        self.meta: dict[str, Any] = {"format": SWEEP_FORMAT, "label": label, "lot": lot, "started": now_iso(),
+                                     "ended": None, "complete": False, "classification": None,
+                                     "reason": "sweep in progress or interrupted", "powered_s": 0.0,
+                                     "points": 0, "plan": plan, "fits": []}
+        self._fh = open(self.csv_path, "w", encoding="utf-8", newline="")
+        self._fh.write(",".join(CSV_COLUMNS) + "\n")
+        self._sync()
+        write_json_atomic(self.json_path, self.meta)
+        self.count = 0
+
+    def _sync(self) -> None:
+        self._fh.flush()
+        os.fsync(self._fh.fileno())
+
+    def append(self, point: SweepPoint) -> None:
+        """Append one point and make it durable (flush + fsync) before returning."""
+        row = [point.point, f"{point.time_s:.6f}", repr(float(point.vgs)), repr(float(point.id)),
+               repr(float(point.v_source)), repr(float(point.i_source)), point.status, point.direction,
+               repr(float(point.spread_v))]
+        self._fh.write(",".join(str(v) for v in row) + "\n")
+        self._sync()
+        self.count += 1
+
+    def finish(self, outcome: SweepOutcome) -> None:
+        """Close the CSV and write the final sidecar (``complete`` as the outcome says)."""
+        try:
+            self._sync()
+        finally:
+            self._fh.close()
+        self.meta.update({"ended": now_iso(), "complete": bool(outcome.complete),
+                          "classification": outcome.classification, "reason": outcome.reason,
+                          "stop_reason": outcome.stop_reason, "powered_s": round(outcome.powered_s, 6),
+                          "points": len(outcome.points), "vgs_at_ref": _finite_or_none(outcome.vgs_at_ref),
+                          "reference_current_a": outcome.reference_current_a, "error": outcome.error,
+                          "shutdown_problems": list(outcome.shutdown_problems)})
+        write_json_atomic(self.json_path, self.meta)
+
+
+class SessionWriter:
+    """One sitting at the bench: creates the folder and ``session.json``, hands out part recorders."""
+
+    def __init__(self, directory: Path, meta: dict[str, Any]):
+        self.path = Path(directory)
+        self.meta = meta
+
+    @classmethod
+    def create(cls, root: str | os.PathLike, lot: str, *, operator: str = "", ambient_c: float | None = None,
+               bench: dict[str, Any] | None = None, instruments: dict[str, str] | None = None,
+               planned_count: int | None = None, started: datetime | None = None) -> "SessionWriter":
+        """Create ``<root>/<YYYYmmdd-HHMMSS>-<lot>/`` with its ``session.json``."""
+        check_name("lot name", lot)
+        started = started or datetime.now(timezone.utc)
+        root_path = Path(root)
+        root_path.mkdir(parents=True, exist_ok=True)
+        stamp = started.strftime("%Y%m%d-%H%M%S")
+        directory = root_path / f"{stamp}-{lot}"
+        suffix = 1
+        while directory.exists():  # two sessions in the same second: keep both
+            suffix += 1
+            directory = root_path / f"{stamp}-{lot}-{suffix}"
+        directory.mkdir()
+        meta = {"format": SESSION_FORMAT, "id": directory.name, "operator": operator,
+                "started": started.isoformat(timespec="seconds"), "ended": None, "lot": lot,
+                "ambient_c": ambient_c, "bench": bench or {}, "instruments": instruments or {},
+                "planned_count": planned_count, "parts": []}
+        writer = cls(directory, meta)
+        writer.save()
+        return writer
+
+    @classmethod
+    def reopen(cls, directory: str | os.PathLike) -> "SessionWriter":
+        """Open an existing session to resume it (``ended`` is cleared until it finishes again)."""
+        meta = _load_json(Path(directory) / "session.json")
+        if meta.get("format") != SESSION_FORMAT:
+            raise InputError(f"not a benchlab session (format {meta.get('format')!r})",
+                             path=str(Path(directory) / "session.json"))
+        meta["ended"] = None
+        writer = cls(Path(directory), meta)
+        writer.save()
+        return writer
+
+    def save(self) -> None:
+        write_json_atomic(self.path / "session.json", self.meta)
+
+    def completed_labels(self) -> set[str]:
+        """Labels whose sweep finished (``complete: true``)."""
+        done = set()
+        for label in self.meta.get("parts", []):
+            path = self.path / f"{label}.json"
+            try:
+                if json.loads(path.read_text(encoding="utf-8")).get("complete"):
+                    done.add(label)
+            except (OSError, ValueError):
+                continue
+        return done
+
+    def start_part(self, label: str, plan: dict[str, Any]) -> SweepRecorder:
+        """Begin a part's record; an earlier interrupted record of the same label is kept aside."""
+        check_name("part label", label)
+        if label in self.meta["parts"]:
+            if label in self.completed_labels():
+                raise InputError(f"part '{label}' is already measured in this session", path=str(self.path))
+            n = 1
+            while (self.path / f"{label}.interrupted-{n}.csv").exists():
+                n += 1
+            for ext in ("csv", "json"):
+                old = self.path / f"{label}.{ext}"
+                if old.exists():
+                    os.replace(old, self.path / f"{label}.interrupted-{n}.{ext}")
+        else:
+            self.meta["parts"].append(label)
+        recorder = SweepRecorder(self.path, label, self.meta["lot"], plan)
+        self.save()
+        return recorder
+
+    def finish(self) -> None:
+        self.meta["ended"] = now_iso()
+        self.save()
+
+
+# ----------------------------------------------------------------------------------------------- readers
+
+@dataclass(frozen=True)
+class SweepData:
+    """One sweep read back: columns as numpy arrays plus the sidecar (empty dict when missing)."""
+
+    label: str
+    point: np.ndarray
+    time_s: np.ndarray
+    vgs: np.ndarray
+    id: np.ndarray
+    v_source: np.ndarray
+    i_source: np.ndarray
+    status: tuple[str, ...]
+    direction: tuple[str, ...]
+    meta: dict[str, Any] = field(default_factory=dict)
+    truncated: bool = False  # the CSV's last line was cut short (crash mid-write) and was skipped
+
+    @property
+    def complete(self) -> bool:
+        return bool(self.meta.get("complete", False))
+
+    def usable_mask(self) -> np.ndarray:
+        """Points fit for fitting: finite and not over range."""
+        ok = np.array([s != "over_range" for s in self.status], dtype=bool)
+        return ok & np.isfinite(self.vgs) & np.isfinite(self.id)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"label": self.label, "point": self.point.tolist(), "time_s": self.time_s.tolist(),
+                "vgs": self.vgs.tolist(), "id": self.id.tolist(), "v_source": self.v_source.tolist(),
+                "i_source": self.i_source.tolist(), "status": list(self.status), "direction": list(self.direction),
+                "meta": self.meta, "truncated": self.truncated}
+
+
+@dataclass(frozen=True)
+class SessionData:
+    """A session read back."""
+
+    path: Path
+    meta: dict[str, Any]
+    sweeps: dict[str, SweepData]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"path": str(self.path), "meta": self.meta, "sweeps": {k: v.to_dict() for k, v in self.sweeps.items()}}
+
+
+def _load_json(path: Path) -> dict[str, Any]:
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError("file not found", path=str(path)) from None
+    except ValueError as exc:
+        raise InputError(f"not valid JSON ({exc})", path=str(path)) from None
+
+
+def _parse_csv(path: Path) -> tuple[dict[str, list], bool]:
+    text = path.read_text(encoding="utf-8")
+    lines = text.split("\n")
+    truncated = False
+    if lines and lines[-1] == "":
+        lines.pop()
+    elif lines:
+        truncated = True  # no newline after the last row: the writer died mid-line
+        lines.pop()
+    if not lines:
+        raise InputError("empty sweep file (no header)", path=str(path))
+    rows = list(csv.reader(io.StringIO("\n".join(lines))))
+    header = [h.strip() for h in rows[0]]
+    missing = [c for c in ("point", "vgs", "id") if c not in header]
+    if missing:
+        raise InputError(f"missing column(s) {', '.join(missing)}", path=str(path))
+    cols: dict[str, list] = {name: [] for name in header}
+    for n, row in enumerate(rows[1:], start=1):
+        if len(row) != len(header):
+            if n == len(rows) - 1:  # a cut last line
+                truncated = True
+                break
+            raise InputError(f"expected {len(header)} fields, found {len(row)}", path=str(path), row=n)
+        for name, value in zip(header, row):
+            cols[name].append(value)
+    return cols, truncated
+
+
+def _floats(values: list, path: Path, name: str) -> np.ndarray:
+    try:
+        return np.array([float(v) for v in values], dtype=float)
+    except ValueError as exc:
+        raise InputError(f"column '{name}': {exc}", path=str(path)) from None
+
+
+def read_sweep(path: str | os.PathLike) -> SweepData:
+    """Read one part's sweep from its ``.csv`` or ``.json`` (the other one is found beside it).
+
+    A cut last line (a crash mid-write) is skipped and flagged with ``truncated=True``; unknown extra
+    columns are ignored.
+    """
+    path = Path(path)
+    csv_path = path.with_suffix(".csv")
+    json_path = path.with_suffix(".json")
+    if not csv_path.exists():
+        raise InputError("sweep file not found", path=str(csv_path))
+    meta = _load_json(json_path) if json_path.exists() else {}
+    cols, truncated = _parse_csv(csv_path)
+    n = len(cols["point"])
+
+    def col(name: str, default: float = math.nan) -> np.ndarray:
+        return _floats(cols[name], csv_path, name) if name in cols else np.full(n, default)
+
+    status = tuple(cols.get("status", ["ok"] * n))
+    direction = tuple(cols.get("direction", ["up"] * n))
+    return SweepData(label=meta.get("label", csv_path.stem), point=col("point").astype(int), time_s=col("time_s"),
+                     vgs=col("vgs"), id=col("id"), v_source=col("v_source"), i_source=col("i_source"),
+                     status=status, direction=direction, meta=meta, truncated=truncated)
+
+
+def read_session(directory: str | os.PathLike) -> SessionData:
+    """Read a whole session folder: ``session.json`` and every part listed in it that has a CSV."""
+    directory = Path(directory)
+    meta = _load_json(directory / "session.json")
+    if meta.get("format") != SESSION_FORMAT:
+        raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(directory))
+    sweeps = {}
+    for label in meta.get("parts", []):
+        if (directory / f"{label}.csv").exists():
+            sweeps[label] = read_sweep(directory / f"{label}.csv")
+    return SessionData(path=directory, meta=meta, sweeps=sweeps)
