@@ -1,0 +1,96 @@
+"""``benchlab parts``: add parts by hand, list, show, reject and change state."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from benchlab.library.records import PART_STATES, json_default
+from benchlab.services import library as service
+
+
+def library_option() -> argparse.ArgumentParser:
+    """Parent parser with ``--library PATH`` (shared by every command that touches the library)."""
+    parent = argparse.ArgumentParser(add_help=False)
+    parent.add_argument("--library", metavar="PATH",
+                        help="library file (default: $BENCHLAB_LIBRARY, else library.db in the user data folder)")
+    return parent
+
+
+def register(subparsers) -> None:
+    lib = library_option()
+    parser = subparsers.add_parser("parts", help="parts in the device library: add by hand, list, show, reject",
+                                   description="Parts in the device library. Name a part as LABEL where the label is "
+                                               "unique, else as LOT/LABEL.")
+    sub = parser.add_subparsers(dest="parts_command", metavar="ACTION", required=True)
+
+    add = sub.add_parser("add", parents=[lib], help="add a part, optionally with a hand-entered curve")
+    add.add_argument("label")
+    add.add_argument("--lot", default="default", help="lot (bag) the part belongs to (default: %(default)s)")
+    add.add_argument("--polarity", choices=("N", "P"), default="N")
+    add.add_argument("--vth", type=float, metavar="V", help="threshold voltage (V)")
+    add.add_argument("--gm", type=float, metavar="A/V", help="transconductance of the linear model (A/V)")
+    add.add_argument("--kp", type=float, metavar="A/V2", help="KP of the square law (A/V^2, SPICE level-1, W=L=1)")
+    add.add_argument("--theta", type=float, metavar="1/V", help="mobility degradation THETA (1/V), with --kp")
+    add.add_argument("--package", default="", help="package, e.g. TO-220")
+    add.add_argument("--notes", default="")
+    add.add_argument("--json", action="store_true", help="print the part as JSON")
+    add.set_defaults(func=_add)
+
+    lst = sub.add_parser("list", parents=[lib], help="list parts")
+    lst.add_argument("--lot")
+    lst.add_argument("--state", choices=PART_STATES + ("all",), default="in_stock",
+                     help="only parts in this state (default: %(default)s)")
+    lst.add_argument("--json", action="store_true", help="one JSON array of parts")
+    lst.set_defaults(func=_list)
+
+    show = sub.add_parser("show", parents=[lib], help="show one part: curve, fits, sweeps, history")
+    show.add_argument("part", help="LABEL or LOT/LABEL")
+    show.set_defaults(func=_show)
+
+    reject = sub.add_parser("reject", parents=[lib], help="mark a part rejected")
+    reject.add_argument("part", help="LABEL or LOT/LABEL")
+    reject.add_argument("--reason", required=True, help="why (kept with the part)")
+    reject.set_defaults(func=_reject)
+
+    state = sub.add_parser("state", parents=[lib], help="set a part's state")
+    state.add_argument("part", help="LABEL or LOT/LABEL")
+    state.add_argument("state", choices=PART_STATES)
+    state.add_argument("--reason", help="note kept with the change (required for rejected)")
+    state.set_defaults(func=_state)
+
+
+def _add(args) -> int:
+    part = service.add_part(args.library, args.label, lot=args.lot, polarity=args.polarity, vth=args.vth,
+                            gm=args.gm, kp=args.kp, theta=args.theta, package=args.package, notes=args.notes)
+    if args.json:
+        print(json.dumps(part.to_dict(), default=json_default))
+    else:
+        print(f"added {part.spec}" + (f" ({part.params.model} model)" if part.params else " (no curve yet)"))
+    return 0
+
+
+def _list(args) -> int:
+    parts = service.list_parts(args.library, lot=args.lot, state=args.state)
+    if args.json:
+        print(json.dumps([p.to_dict() for p in parts], default=json_default))
+    else:
+        print(service.format_parts_table(parts))
+    return 0
+
+
+def _show(args) -> int:
+    print(json.dumps(service.show_part(args.library, args.part), indent=1, default=json_default))
+    return 0
+
+
+def _reject(args) -> int:
+    part = service.set_state(args.library, args.part, "rejected", args.reason)
+    print(f"{part.spec}: rejected ({part.reason})")
+    return 0
+
+
+def _state(args) -> int:
+    part = service.set_state(args.library, args.part, args.state, args.reason)
+    print(f"{part.spec}: {part.state}")
+    return 0

@@ -1,0 +1,197 @@
+"""Services behind the ``parts``, ``library`` and ``export`` commands: open the right library, build hand-entered
+curves, re-fit on import with the fitter, format tables, write export files."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import os
+from pathlib import Path
+from typing import Any, Callable, Sequence
+
+from benchlab.errors import InputError, LibraryError
+from benchlab.library import Library, PartRecord, default_library_path
+from benchlab.library.exchange import CSV_COLUMNS, csv_rows
+from benchlab.library.records import json_default
+from benchlab.models import DeviceParams
+
+
+def library_path(path: str | os.PathLike | None = None) -> Path:
+    """The library file to use: ``--library`` when given, else ``$BENCHLAB_LIBRARY``, else the user data folder."""
+    return Path(path).expanduser() if path else default_library_path()
+
+
+def open_library(path: str | os.PathLike | None = None) -> Library:
+    """Open (creating when needed) the library at :func:`library_path` ``(path)``."""
+    return Library.open(library_path(path))
+
+
+def hand_params(vth: float | None, gm: float | None = None, kp: float | None = None,
+                theta: float | None = None) -> DeviceParams:
+    """A curve entered by hand: ``vth`` + ``gm`` (linear model) or ``vth`` + ``kp`` [+ ``theta``].
+
+    Raises
+    ------
+    InputError
+        When the combination is incomplete or contradictory, or a value is out of range.
+    """
+    if vth is None:
+        raise InputError("a hand-entered part needs --vth (and --gm, or --kp)")
+    if (gm is None) == (kp is None):
+        raise InputError("give either --gm (linear model) or --kp (square law, optionally with --theta), not both")
+    if gm is not None and theta is not None:
+        raise InputError("--theta goes with --kp, not with --gm")
+    try:
+        if gm is not None:
+            return DeviceParams("linear", vth=float(vth), gm=float(gm))
+        if theta:
+            return DeviceParams("theta", vth=float(vth), kp=float(kp), theta=float(theta))
+        return DeviceParams("square", vth=float(vth), kp=float(kp))
+    except ValueError as exc:
+        raise InputError(str(exc)) from exc
+
+
+def fit_function(model: str = "auto") -> Callable:
+    """The fitter as the library's import expects it: ``f(vgs, id) -> FitResult``."""
+    try:
+        from benchlab.extract import fit_sweep
+    except ImportError as exc:
+        raise LibraryError(f"the fitter is not available ({exc}); use --no-refit") from exc
+
+    def fit(vgs: Sequence[float], i_d: Sequence[float]):
+        return fit_sweep(vgs, i_d, model=model)
+
+    return fit
+
+
+def add_part(path, label: str, *, lot: str = "default", polarity: str = "N", vth: float | None = None,
+             gm: float | None = None, kp: float | None = None, theta: float | None = None,
+             package: str = "", notes: str = "") -> PartRecord:
+    """Add a part, with a hand-entered curve when ``vth`` is given. Nothing is written on bad input."""
+    params = None
+    if vth is not None or gm is not None or kp is not None or theta is not None:
+        params = hand_params(vth, gm, kp, theta)
+    with open_library(path) as lib:
+        return lib.add_part(label, lot=lot, polarity=polarity, params=params, package=package, notes=notes)
+
+
+def list_parts(path, lot: str | None = None, state: str | None = "in_stock") -> list[PartRecord]:
+    """Parts of the library (``state=None`` or ``"all"`` for every state)."""
+    with open_library(path) as lib:
+        return lib.parts(lot=lot, state=None if state in (None, "all") else state)
+
+
+def show_part(path, spec: str) -> dict[str, Any]:
+    """Everything about one part: record, fits, sweeps (without points) and state history."""
+    with open_library(path) as lib:
+        part = lib.get_part(spec)
+        return {"part": part.to_dict(), "fits": lib.fits(part), "sweeps": lib.sweeps(part, with_points=False),
+                "history": lib.history(part)}
+
+
+def set_state(path, spec: str, state: str, reason: str | None = None) -> PartRecord:
+    """Move a part to another state (``rejected`` needs a reason)."""
+    with open_library(path) as lib:
+        return lib.set_state(spec, state, reason)
+
+
+def import_sessions(path, session_dirs: Sequence[str], *, lot: str | None = None, refit: bool = True,
+                    model: str = "auto"):
+    """Import session folders (re-fitting each good sweep with the fitter unless ``refit`` is False)."""
+    fit = fit_function(model) if refit else None
+    with open_library(path) as lib:
+        return lib.import_sessions(session_dirs, refit=refit, lot=lot, fit_function=fit)
+
+
+def import_json_file(path, json_file: str) -> dict[str, int]:
+    """Import a library export file (``benchlab export json``)."""
+    try:
+        data = json.loads(Path(json_file).read_text(encoding="utf-8"))
+    except OSError as exc:
+        raise InputError(f"cannot read: {exc.strerror or exc}", path=json_file) from exc
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        raise InputError(f"not valid JSON: {exc}", path=json_file) from exc
+    with open_library(path) as lib:
+        return lib.import_json(data)
+
+
+def lots(path) -> list[dict[str, Any]]:
+    """Lots with part counts per state."""
+    with open_library(path) as lib:
+        return lib.lots()
+
+
+def info(path) -> dict[str, Any]:
+    """Library file facts: path, schema version, journal mode, row counts."""
+    with open_library(path) as lib:
+        return lib.info()
+
+
+def export_json_text(path, lot: str | None = None, state: str | None = None) -> str:
+    """The library (or a filtered view) as JSON text (non-finite numbers are written as null)."""
+    with open_library(path) as lib:
+        data = lib.export(lot=lot, state=None if state in (None, "all") else state)
+    return json.dumps(data, indent=1, default=json_default, allow_nan=False) + "\n"
+
+
+def export_csv_text(path, lot: str | None = None, state: str | None = None) -> str:
+    """One CSV row per part (header row first), readable by any CSV reader."""
+    with open_library(path) as lib:
+        rows = csv_rows(lib, lot=lot, state=None if state in (None, "all") else state)
+    buffer = io.StringIO(newline="")
+    writer = csv.DictWriter(buffer, fieldnames=list(CSV_COLUMNS), lineterminator="\n")
+    writer.writeheader()
+    writer.writerows(rows)
+    return buffer.getvalue()
+
+
+def export_spice_text(path, specs: Sequence[str]) -> str:
+    """SPICE ``.model`` cards of the named parts (each named by its label), via ``benchlab.design.spice``."""
+    if not specs:
+        raise InputError("name at least one part to export")
+    with open_library(path) as lib:
+        parts = [lib.get_part(s) for s in specs]
+    missing = [p.spec for p in parts if p.params is None]
+    if missing:
+        raise LibraryError(f"no fitted or hand-entered curve for {', '.join(missing)}: nothing to export")
+    try:
+        from benchlab.design.spice import model_card, unique_model_names
+    except ImportError as exc:
+        raise LibraryError(f"SPICE export is not available ({exc})") from exc
+    names = unique_model_names([p.label for p in parts])
+    cards = [model_card(p.label, p.params, name=name, polarity=p.polarity, lot=p.lot)
+             for p, name in zip(parts, names)]
+    return "\n".join(["* benchlab SPICE models (instances use W=1 L=1)", *[c.text for c in cards], ""])
+
+
+def write_output(text: str, out: str | None) -> str | None:
+    """Write ``text`` to ``out`` atomically (temp file + rename), or return it for stdout when ``out`` is None."""
+    if not out:
+        return text
+    target = Path(out)
+    if target.is_dir():
+        raise InputError("is a folder; give a file name", path=str(target))
+    tmp = target.with_name(target.name + ".tmp")
+    try:
+        tmp.write_text(text, encoding="utf-8", newline="")
+        os.replace(tmp, target)
+    except OSError as exc:
+        raise InputError(f"cannot write: {exc.strerror or exc}", path=str(target)) from exc
+    return None
+
+
+def format_parts_table(parts: Sequence[PartRecord]) -> str:
+    """A readable fixed-width table of parts (label, lot, state, model, Vth, KP/gm, THETA, flags)."""
+    header = f"{'PART':<22} {'STATE':<9} {'MODEL':<7} {'VTH/V':>8} {'KP/(A/V2)':>10} {'GM/(A/V)':>9} {'THETA':>7}  NOTE"
+    lines = [header]
+    for p in parts:
+        prm = p.params
+        vth = f"{prm.vth:8.4f}" if prm else f"{'-':>8}"
+        kp = f"{prm.kp:10.4g}" if prm and prm.model != "linear" else f"{'-':>10}"
+        gm = f"{prm.gm:9.4g}" if prm and prm.model == "linear" else f"{'-':>9}"
+        theta = f"{prm.theta:7.3g}" if prm and prm.theta else f"{'-':>7}"
+        note = p.reason if p.state == "rejected" else ", ".join(p.flags)
+        lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {gm} {theta}  {note or ''}")
+    lines.append(f"{len(parts)} part(s)")
+    return "\n".join(lines)
