@@ -8,9 +8,20 @@ connected or powered.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import tomllib
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import IO, Any, Mapping
+
+from benchlab.errors import ConfigError
+from benchlab.instruments.profiles import ROLES, Profile, load_profile
+from benchlab.instruments.quantities import parse_quantity
+from benchlab.instruments.transport import resource_kind
 
 FIXTURES = ("resistor", "smu")
+# The instruments each fixture needs.
+FIXTURE_ROLES: dict[str, tuple[str, ...]] = {"resistor": ("supply", "meter"), "smu": ("source_meter",)}
+BENCH_FORMAT_VERSION = 1
 
 
 @dataclass(frozen=True)
@@ -51,3 +62,298 @@ class BenchConfig:
     visa_library: str = "@py"
     source_path: str | None = None  # file it was read from (None: built in)
     notes: dict[str, str] = field(default_factory=dict)
+    series_resistor_power_w: float | None = None  # the resistor's power rating, when given
+
+    def roles(self) -> tuple[str, ...]:
+        """The instrument roles this fixture connects, in connection order."""
+        return FIXTURE_ROLES[self.fixture]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (session sidecars, reports)."""
+        return asdict(self)
+
+
+# ---------------------------------------------------------------------------------------------
+# loading
+_TOP_KEYS = {"format_version", "fixture", "visa_library", "limits", "measurement", "series_resistor",
+             "instruments", "notes"}
+_LIMIT_UNITS = {"max_supply_v": "V", "max_drain_a": "A", "max_power_w": "W"}
+_MEASUREMENT_UNITS = {"settle_s": "s", "nplc": ""}
+_RESISTOR_KEYS = {"ohms", "tolerance", "power_rating_w"}
+_SPEC_KEYS = {"resource", "profile", "timeout_ms", "reset_on_connect"}
+# The instrument-limit names in a profile that each bench limit must respect, per fixture.
+_SOURCE_ROLE = {"resistor": "supply", "smu": "source_meter"}
+_NPLC_ROLE = {"resistor": "meter", "smu": "source_meter"}
+
+
+def load_bench_config(path_or_file: str | Path | IO[bytes] | IO[str]) -> BenchConfig:
+    """Read and validate a bench file (TOML; format in ``docs/bench-config.md``).
+
+    Parameters
+    ----------
+    path_or_file : str, Path or open file
+        The bench file; profile paths in it are relative to its folder.
+
+    Returns
+    -------
+    BenchConfig
+        The validated bench, profiles resolved.
+
+    Raises
+    ------
+    ConfigError
+        The first problem found (missing or unknown key, wrong unit or type, contradicting limits,
+        a limit beyond the instrument's, a resistor of 0 ohm or less, a fixture's instrument
+        missing), naming the file and key. Nothing is connected or powered.
+    """
+    if hasattr(path_or_file, "read"):
+        raw = path_or_file.read()  # type: ignore[union-attr]
+        name = getattr(path_or_file, "name", None)
+        source = str(name) if isinstance(name, str) else None
+    else:
+        source = str(path_or_file)
+        try:
+            raw = Path(source).read_bytes()
+        except OSError as exc:
+            raise ConfigError(f"cannot read the bench file: {exc.strerror or exc}", path=source) from exc
+    text = raw.decode("utf-8") if isinstance(raw, bytes) else raw
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML: {exc}", path=source) from exc
+    base_dir = Path(source).resolve().parent if source else Path.cwd()
+    return parse_bench_config(data, path=source, base_dir=base_dir)
+
+
+def parse_bench_config(data: Mapping[str, Any], *, path: str | None = None, base_dir: Path | None = None,
+                       environ: Mapping[str, str] | None = None) -> BenchConfig:
+    """Validate the parsed TOML of a bench file (see :func:`load_bench_config`)."""
+    def fail(key: str, problem: str) -> ConfigError:
+        return ConfigError(problem, path=path, key=key)
+
+    _only(data, _TOP_KEYS, "", fail)
+    version = data.get("format_version", BENCH_FORMAT_VERSION)
+    if type(version) is not int or version != BENCH_FORMAT_VERSION:
+        raise fail("format_version", f"is {version!r}; this benchlab reads format_version = {BENCH_FORMAT_VERSION}")
+    fixture = data.get("fixture")
+    if fixture is None:
+        raise fail("fixture", f"missing (one of: {', '.join(FIXTURES)})")
+    if fixture not in FIXTURES:
+        raise fail("fixture", f"must be one of {', '.join(FIXTURES)}, got {fixture!r}")
+    visa_library = data.get("visa_library", "@py")
+    if not isinstance(visa_library, str) or not visa_library.strip():
+        raise fail("visa_library", "must be a VISA library path or '@py'")
+
+    limits_table = _sub(data, "limits", fail, required=True)
+    _only(limits_table, set(_LIMIT_UNITS), "limits.", fail)
+    values = {name: _positive(limits_table, name, unit, "limits.", fail, required=True)
+              for name, unit in _LIMIT_UNITS.items()}
+    limits = SafetyLimits(**values)
+
+    measurement = _sub(data, "measurement", fail, required=False)
+    _only(measurement, set(_MEASUREMENT_UNITS), "measurement.", fail)
+    settle_s = _quantity(measurement, "settle_s", "s", "measurement.", fail, default=0.05)
+    if settle_s < 0:
+        raise fail("measurement.settle_s", f"must be 0 s or more, got {settle_s} s")
+    nplc = _positive(measurement, "nplc", "", "measurement.", fail, required=False, default=1.0)
+
+    instruments = _parse_instruments(_sub(data, "instruments", fail, required=True), fixture, fail, base_dir, environ)
+    ohms, tolerance, rating = _parse_resistor(data, fixture, fail)
+    notes = _sub(data, "notes", fail, required=False)
+    for key, value in notes.items():
+        if not isinstance(value, str):
+            raise fail(f"notes.{key}", "must be a string")
+
+    config = BenchConfig(fixture=fixture, instruments=instruments, limits=limits, series_resistor_ohm=ohms,
+                         series_resistor_tolerance=tolerance, settle_s=settle_s, nplc=nplc,
+                         visa_library=visa_library.strip(), source_path=path, notes=dict(notes),
+                         series_resistor_power_w=rating)
+    check_consistency(config, {role: load_profile(spec.profile, environ=environ)
+                               for role, spec in instruments.items()}, path=path)
+    return config
+
+
+def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, path: str | None = None) -> None:
+    """Check the bench's limits against each other and against its instruments' profiles.
+
+    Raises
+    ------
+    ConfigError
+        For a power limit that can never bind (a unit slip), a resistor that would overheat at the
+        current limit, a limit above what the source instrument can do, or an NPLC outside the
+        measuring instrument's range.
+    """
+    def fail(key: str, problem: str) -> ConfigError:
+        return ConfigError(problem, path=path, key=key)
+
+    lim = config.limits
+    ceiling = lim.max_supply_v * lim.max_drain_a
+    if lim.max_power_w > ceiling * (1 + 1e-12):
+        raise fail("limits.max_power_w", f"{lim.max_power_w:g} W is more than max_supply_v x max_drain_a = "
+                                         f"{ceiling:g} W, so it could never apply; check the units")
+    if config.fixture == "resistor" and config.series_resistor_power_w is not None:
+        heat = lim.max_drain_a ** 2 * config.series_resistor_ohm
+        if heat > config.series_resistor_power_w:
+            raise fail("series_resistor.power_rating_w",
+                       f"at max_drain_a = {lim.max_drain_a:g} A the {config.series_resistor_ohm:g} ohm resistor "
+                       f"dissipates {heat:.3g} W, above its rating of {config.series_resistor_power_w:g} W")
+    source = profiles[_SOURCE_ROLE[config.fixture]]
+    where = f"profile '{source.name}'"
+    if lim.max_supply_v > source.limits["max_voltage"]:
+        raise fail("limits.max_supply_v", f"{lim.max_supply_v:g} V is above the instrument's "
+                                          f"{source.limits['max_voltage']:g} V ({where})")
+    if lim.max_drain_a > source.limits["max_current"]:
+        raise fail("limits.max_drain_a", f"{lim.max_drain_a:g} A is above the instrument's "
+                                         f"{source.limits['max_current']:g} A ({where})")
+    measuring = profiles[_NPLC_ROLE[config.fixture]]
+    low, high = measuring.limits["min_nplc"], measuring.limits["max_nplc"]
+    if not low <= config.nplc <= high:
+        raise fail("measurement.nplc", f"{config.nplc:g} is outside the instrument's {low:g} to {high:g} "
+                                       f"(profile '{measuring.name}')")
+
+
+def _parse_instruments(table: Mapping[str, Any], fixture: str, fail, base_dir: Path | None,
+                       environ: Mapping[str, str] | None) -> dict[str, InstrumentSpec]:
+    _only(table, set(ROLES), "instruments.", fail)
+    for role in FIXTURE_ROLES[fixture]:
+        if role not in table:
+            need = " and ".join(f"[instruments.{r}]" for r in FIXTURE_ROLES[fixture])
+            raise fail(f"instruments.{role}", f"missing: fixture '{fixture}' needs {need}")
+    specs: dict[str, InstrumentSpec] = {}
+    for role, spec in table.items():
+        prefix = f"instruments.{role}."
+        if not isinstance(spec, dict):
+            raise fail(prefix[:-1], "must be a table")
+        _only(spec, _SPEC_KEYS, prefix, fail)
+        for key in ("resource", "profile"):
+            if not isinstance(spec.get(key), str) or not spec[key].strip():
+                raise fail(prefix + key, "missing" if key not in spec else "must be a non-empty string")
+        try:
+            resource_kind(spec["resource"])
+        except ConfigError as exc:
+            raise fail(prefix + "resource", str(exc).split(": ", 1)[-1]) from None
+        timeout = spec.get("timeout_ms", 2000)
+        if type(timeout) is not int or timeout <= 0:
+            raise fail(prefix + "timeout_ms", f"must be a positive whole number of milliseconds, got {timeout!r}")
+        reset = spec.get("reset_on_connect", False)
+        if not isinstance(reset, bool):
+            raise fail(prefix + "reset_on_connect", f"must be true or false, got {reset!r}")
+        profile_ref = _resolve_profile_ref(spec["profile"].strip(), base_dir)
+        try:
+            profile = load_profile(profile_ref, environ=environ)
+        except ConfigError as exc:
+            raise fail(prefix + "profile", str(exc)) from None
+        if profile.role != role:
+            raise fail(prefix + "profile", f"profile '{profile.name}' is for role {profile.role}, not {role}")
+        specs[role] = InstrumentSpec(role=role, resource=spec["resource"].strip(), profile=profile_ref,
+                                     timeout_ms=timeout, reset_on_connect=reset)
+    return specs
+
+
+def _resolve_profile_ref(reference: str, base_dir: Path | None) -> str:
+    looks_like_path = reference.endswith(".toml") or "/" in reference or "\\" in reference
+    if looks_like_path and base_dir is not None and not Path(reference).expanduser().is_absolute():
+        return str((base_dir / reference).resolve())
+    return reference
+
+
+def _parse_resistor(data: Mapping[str, Any], fixture: str, fail) -> tuple[float, float, float | None]:
+    table = _sub(data, "series_resistor", fail, required=(fixture == "resistor"))
+    if fixture != "resistor":
+        if table:
+            raise fail("series_resistor", "only the 'resistor' fixture has a series resistor; remove this table")
+        return 0.0, 0.01, None
+    _only(table, _RESISTOR_KEYS, "series_resistor.", fail)
+    ohms = _quantity(table, "ohms", "ohm", "series_resistor.", fail)
+    if ohms <= 0:
+        raise fail("series_resistor.ohms", f"must be the measured resistance, above 0 ohm; got {ohms:g}")
+    tolerance = _quantity(table, "tolerance", "%", "series_resistor.", fail, default=0.01)
+    if not 0 <= tolerance < 0.5:
+        raise fail("series_resistor.tolerance", f"must be a fraction from 0 to 0.5 (or '1 %'), got {tolerance:g}")
+    rating = None
+    if "power_rating_w" in table:
+        rating = _positive(table, "power_rating_w", "W", "series_resistor.", fail, required=True)
+    return ohms, tolerance, rating
+
+
+def _only(table: Mapping[str, Any], allowed: set[str], prefix: str, fail) -> None:
+    for key in table:
+        if key not in allowed:
+            raise fail(prefix + key, f"unknown key (known here: {', '.join(sorted(allowed))})")
+
+
+def _sub(data: Mapping[str, Any], key: str, fail, *, required: bool) -> Mapping[str, Any]:
+    if key not in data:
+        if required:
+            raise fail(key, "missing table")
+        return {}
+    if not isinstance(data[key], dict):
+        raise fail(key, f"must be a table, got {type(data[key]).__name__}")
+    return data[key]
+
+
+def _quantity(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail, *,
+              default: float | None = None) -> float:
+    if name not in table:
+        if default is None:
+            raise fail(prefix + name, "missing")
+        return default
+    if unit == "":
+        value = table[name]
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise fail(prefix + name, f"must be a plain number, got {value!r}")
+        return float(value)
+    try:
+        return parse_quantity(table[name], unit)
+    except ValueError as exc:
+        raise fail(prefix + name, str(exc)) from None
+
+
+def _positive(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail, *, required: bool,
+              default: float | None = None) -> float:
+    value = _quantity(table, name, unit, prefix, fail, default=None if required else default)
+    if not value > 0:
+        raise fail(prefix + name, f"must be above 0, got {value:g}")
+    return value
+
+
+# ---------------------------------------------------------------------------------------------
+# the built-in simulator bench
+SIM_PROFILES = {"supply": "generic-scpi-supply", "meter": "generic-scpi-meter",
+                "source_meter": "generic-scpi-smu"}
+
+
+def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resistor", series_resistor_ohm: float = 10.0,
+                           *, max_supply_v: float = 12.0, max_drain_a: float = 0.5, max_power_w: float = 3.0,
+                           settle_s: float = 0.0, nplc: float = 1.0) -> BenchConfig:
+    """The bench of the built-in simulator, so no file is needed to try the tool.
+
+    Parameters
+    ----------
+    resources : mapping
+        Role -> VISA resource string, as given by ``benchlab.sim.SimBench.resources``
+        (keys ``supply``, ``meter``, ``source_meter``).
+    fixture : str
+        ``"resistor"`` or ``"smu"``.
+    series_resistor_ohm : float
+        The simulated fixture's series resistor (pass the simulator's value).
+    max_supply_v, max_drain_a, max_power_w, settle_s, nplc : float
+        Limits and timing; the defaults suit the invented demo bag of power MOSFETs.
+
+    Raises
+    ------
+    ConfigError
+        When a resource the fixture needs is missing or the values are inconsistent.
+    """
+    if fixture not in FIXTURES:
+        raise ConfigError(f"must be one of {', '.join(FIXTURES)}, got {fixture!r}", key="fixture")
+    data: dict[str, Any] = {
+        "fixture": fixture,
+        "limits": {"max_supply_v": max_supply_v, "max_drain_a": max_drain_a, "max_power_w": max_power_w},
+        "measurement": {"settle_s": settle_s, "nplc": nplc},
+        "instruments": {role: {"resource": resources[role], "profile": SIM_PROFILES[role]}
+                        for role in FIXTURE_ROLES[fixture] if role in resources},
+    }
+    if fixture == "resistor":
+        data["series_resistor"] = {"ohms": series_resistor_ohm}
+    return parse_bench_config(data, path=None)

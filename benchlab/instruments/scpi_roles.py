@@ -1,0 +1,334 @@
+"""SCPI role classes: :class:`ScpiSupply`, :class:`ScpiMeter`, :class:`ScpiSourceMeter`.
+
+Each implements its interface in ``roles.py`` over an injected transport and a validated
+:class:`~benchlab.instruments.profiles.Profile`. They hold no sweep logic and never send
+anything the caller did not ask for: closing leaves outputs as they are; only the explicit
+``safe_off()`` switches an output off. Every setting is followed by reading the instrument's
+error queue until it is empty, so a refused command raises
+:class:`~benchlab.errors.InstrumentReportedError` with the instrument's own code and text.
+"""
+
+from __future__ import annotations
+
+from typing import Any, Sequence
+
+from benchlab.errors import ConnectionLost, InputError, InstrumentError, InstrumentReportedError
+from benchlab.instruments.profiles import Profile
+from benchlab.instruments.scpi import parse_bool, parse_error_reply, parse_reading, parse_readings
+from benchlab.instruments.transport import Transport
+
+# A queue holds 16 entries in the simulator (more on some instruments); stop reading after this
+# many so an instrument that never reports "0" cannot hang us.
+MAX_ERROR_READS = 64
+# Time of one power-line cycle at 50 Hz (the slower mains), for list-sweep waits.
+_PLC_SECONDS = 0.02
+
+
+class ScpiInstrument:
+    """Shared plumbing: settings with error check, queries, identification.
+
+    Parameters
+    ----------
+    transport : Transport
+        An open transport (injected; the instrument never opens its own).
+    profile : Profile
+        The instrument's validated profile.
+    identity : str
+        The ``*IDN?`` reply when already known (set by :meth:`connect`).
+    """
+
+    role = ""
+
+    def __init__(self, transport: Transport, profile: Profile, *, identity: str = ""):
+        if profile.role != self.role:
+            raise InputError(f"profile '{profile.name}' is for role {profile.role}, not {self.role}",
+                             path=profile.source_path)
+        self.transport = transport
+        self.profile = profile
+        self.identity = identity
+        self.resource = getattr(transport, "resource", "")
+
+    # -- connection ----------------------------------------------------------------------
+    def connect(self, *, reset: bool = False) -> str:
+        """Identify the instrument, clear its status, optionally reset it; returns the identity.
+
+        ``*RST`` puts an instrument in its default state (output off on a supply or SMU).
+        """
+        self.identity = self.ask("identify").strip()
+        if not self.identity:
+            raise InstrumentError("answered *IDN? with an empty reply", resource=self.resource)
+        self.configure("clear_status")
+        if reset:
+            self.configure("reset")
+            self.ask("wait")
+        return self.identity
+
+    def close(self) -> None:
+        """Close the connection without sending anything."""
+        self.transport.close()
+
+    # -- messages ------------------------------------------------------------------------
+    def configure(self, operation: str, *, idempotent: bool = True, **values: Any) -> None:
+        """Send the lines of a setting, checking the error queue after each one."""
+        for line in self.profile.lines(operation, **values):
+            self.send(line, idempotent=idempotent)
+
+    def send(self, command: str, *, idempotent: bool = True) -> None:
+        """Write one message, then raise the first error the instrument queued for it.
+
+        A connection reset right after a write only shows at the next I/O (here the error-queue
+        read), and the instrument may never have seen the message; so when the link was reopened
+        meanwhile, an idempotent setting is sent once more on the new link and anything else raises
+        :class:`~benchlab.errors.ConnectionLost` rather than be taken as applied.
+        """
+        reopens = getattr(self.transport, "reopen_count", 0)
+        self.transport.write(command, idempotent=idempotent)
+        self.check_errors(command)
+        if getattr(self.transport, "reopen_count", 0) == reopens:
+            return
+        if not idempotent:
+            raise ConnectionLost(f"the connection was reopened after '{command}'; it may not have been applied",
+                                 resource=self.resource)
+        reopens = getattr(self.transport, "reopen_count", 0)
+        self.transport.write(command, idempotent=idempotent)
+        self.check_errors(command)
+        if getattr(self.transport, "reopen_count", 0) != reopens:
+            raise ConnectionLost(f"the connection dropped again while sending '{command}'", resource=self.resource)
+
+    def check_errors(self, command: str | None = None) -> None:
+        """Read the error queue until empty; raise the first entry found.
+
+        Raises
+        ------
+        InstrumentReportedError
+            With the instrument's code and text, and the command it followed.
+        """
+        errors = self.read_error_queue()
+        if errors:
+            code, text = errors[0]
+            if len(errors) > 1:
+                text += f" (and {len(errors) - 1} more queued error(s))"
+            raise InstrumentReportedError(code, text, command=command, resource=self.resource)
+
+    def read_error_queue(self) -> list[tuple[int, str]]:
+        """Empty the instrument's error queue and return its entries, oldest first."""
+        (query,) = self.profile.lines("error_query")
+        errors: list[tuple[int, str]] = []
+        for _ in range(MAX_ERROR_READS):
+            reply = self.transport.query(query)
+            try:
+                code, text = parse_error_reply(reply)
+            except ValueError:
+                raise InstrumentError(f"unexpected reply {reply!r} to '{query}'", resource=self.resource) from None
+            if code == 0:
+                return errors
+            errors.append((code, text))
+        return errors
+
+    def ask(self, operation: str, *, idempotent: bool = True, timeout_ms: int | None = None) -> str:
+        """Send a one-line query operation and return the reply."""
+        lines = self.profile.lines(operation)
+        for line in lines[:-1]:
+            self.send(line)
+        return self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
+
+    def ask_float(self, operation: str) -> float:
+        """A numeric query (SCPI special values -> inf/nan)."""
+        reply = self.ask(operation)
+        try:
+            return parse_reading(reply)
+        except ValueError:
+            raise InstrumentError(f"unexpected reply {reply!r} to {operation}", resource=self.resource) from None
+
+    def ask_bool(self, operation: str) -> bool:
+        """A 0/1 query."""
+        reply = self.ask(operation)
+        try:
+            return parse_bool(reply)
+        except ValueError:
+            raise InstrumentError(f"unexpected reply {reply!r} to {operation}", resource=self.resource) from None
+
+
+class _OutputMixin:
+    """Output on/off for the roles that have one."""
+
+    def set_output(self, on: bool) -> None:
+        """Switch the output on or off (exactly one operation, nothing else)."""
+        self.configure("output_on" if on else "output_off")  # type: ignore[attr-defined]
+
+    def output_is_on(self) -> bool:
+        """Ask the instrument whether its output is on."""
+        return self.ask_bool("output_state")  # type: ignore[attr-defined]
+
+    def safe_off(self) -> None:
+        """Switch the output off; the one explicit call that does so (used on every exit path)."""
+        self.set_output(False)
+
+
+class ScpiSupply(_OutputMixin, ScpiInstrument):
+    """A one-channel DC supply driven by a ``supply`` profile (implements ``roles.Supply``)."""
+
+    role = "supply"
+
+    def set_current_limit(self, amps: float) -> None:
+        """Set the current limit (A)."""
+        self.configure("set_current_limit", amps=float(amps))
+
+    def set_voltage(self, volts: float) -> None:
+        """Set the voltage setpoint (V)."""
+        self.configure("set_voltage", volts=float(volts))
+
+    def measure_voltage(self) -> float:
+        """Output voltage readback (V)."""
+        return self.ask_float("measure_voltage")
+
+    def measure_current(self) -> float:
+        """Output current readback (A)."""
+        return self.ask_float("measure_current")
+
+    def voltage_setpoint(self) -> float:
+        """The voltage setpoint as the instrument holds it (needs ``get_voltage``)."""
+        return self.ask_float("get_voltage")
+
+    def current_limit(self) -> float:
+        """The current limit as the instrument holds it (needs ``get_current_limit``)."""
+        return self.ask_float("get_current_limit")
+
+
+class ScpiMeter(ScpiInstrument):
+    """A DC multimeter driven by a ``meter`` profile (implements ``roles.Meter``)."""
+
+    role = "meter"
+
+    def __init__(self, transport: Transport, profile: Profile, *, identity: str = ""):
+        super().__init__(transport, profile, identity=identity)
+        self.function: str | None = None  # "voltage" or "current" once configured
+
+    def configure_voltage(self, range_volts: float | None = None, nplc: float = 1.0) -> None:
+        """Select DC volts at ``range_volts`` (``None``: autorange) and an integration time."""
+        self._configure("voltage", range_volts, nplc)
+
+    def configure_current(self, range_amps: float | None = None, nplc: float = 1.0) -> None:
+        """Select DC amps at ``range_amps`` (``None``: autorange) and an integration time."""
+        self._configure("current", range_amps, nplc)
+
+    def _configure(self, function: str, value_range: float | None, nplc: float) -> None:
+        if value_range is None:
+            self.configure(f"configure_{function}_auto")
+        else:
+            self.configure(f"configure_{function}_range", range=float(value_range))
+        self.configure(f"set_{function}_nplc", nplc=float(nplc))
+        self.function = function
+
+    def read(self) -> float:
+        """Take one reading in the configured function (+inf/-inf/nan for the special values)."""
+        return self.ask_float("read")
+
+    def nplc_setting(self, function: str | None = None) -> float:
+        """The integration time the instrument holds for ``function`` (default: the configured one)."""
+        return self.ask_float(f"get_{function or self.function or 'voltage'}_nplc")
+
+
+class ScpiSourceMeter(_OutputMixin, ScpiInstrument):
+    """A source-measure unit driven by a ``source_meter`` profile (implements ``roles.SourceMeter``)."""
+
+    role = "source_meter"
+
+    def __init__(self, transport: Transport, profile: Profile, *, identity: str = ""):
+        super().__init__(transport, profile, identity=identity)
+        self.mode: str | None = None  # "voltage" or "current" once configured
+        self.nplc = 1.0
+
+    def configure_source(self, mode: str, compliance: float) -> None:
+        """Force ``mode`` (``"voltage"``: compliance in A; ``"current"``: compliance in V)."""
+        if mode not in ("voltage", "current"):
+            raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
+        self.configure(f"source_{mode}")
+        limit_of = "current" if mode == "voltage" else "voltage"
+        unit = "amps" if limit_of == "current" else "volts"
+        self.configure(f"set_{limit_of}_compliance", **{unit: float(compliance)})
+        self.mode = mode
+
+    def _require_mode(self) -> str:
+        if self.mode is None:
+            raise InstrumentError("configure_source() must be called before setting a level",
+                                  resource=self.resource)
+        return self.mode
+
+    def set_level(self, value: float) -> None:
+        """Set the forced level (V or A, by the configured mode)."""
+        mode = self._require_mode()
+        unit = "volts" if mode == "voltage" else "amps"
+        self.configure(f"set_{mode}_level", **{unit: float(value)})
+
+    def set_nplc(self, nplc: float) -> None:
+        """Set the integration time in power-line cycles."""
+        self.configure("set_nplc", nplc=float(nplc))
+        self.nplc = float(nplc)
+
+    def measure(self) -> tuple[float, float]:
+        """One reading: (volts, amps)."""
+        reply = self.ask("read")
+        readings = self._parse(reply, expect_points=1)
+        return readings[0]
+
+    def in_compliance(self) -> bool:
+        """True when the last reading hit the compliance limit."""
+        limit_of = "current" if self._require_mode() == "voltage" else "voltage"
+        return self.ask_bool(f"{limit_of}_compliance_tripped")
+
+    def compliance(self) -> float:
+        """The compliance the instrument holds for the configured mode (needs the ``get_`` query)."""
+        limit_of = "current" if self._require_mode() == "voltage" else "voltage"
+        return self.ask_float(f"get_{limit_of}_compliance")
+
+    def run_list(self, levels: Sequence[float], dwell_s: float) -> list[tuple[float, float]]:
+        """Upload ``levels``, run them once, read the buffer back in one transfer.
+
+        The output must already be on (the caller switches it); this method never does. The
+        source is put back in fixed mode at the end, where it holds the last level given to
+        :meth:`set_level`.
+
+        Returns
+        -------
+        list of (float, float)
+            (volts, amps) per level, in order.
+        """
+        mode = self._require_mode()
+        settings = self.profile.list_settings
+        if not levels:
+            raise InputError("a list sweep needs at least one level")
+        if len(levels) > settings["max_points"]:
+            raise InputError(f"a list of {len(levels)} points is longer than the instrument takes "
+                             f"({settings['max_points']}, profile '{self.profile.name}')")
+        values = settings["separator"].join(format(float(level), settings["value_format"]) for level in levels)
+        for operation, extra in (("clear_buffer", {}), (f"upload_{mode}", {"values": values}),
+                                 ("dwell", {"seconds": float(dwell_s)}), (f"list_mode_{mode}", {})):
+            for line in self.profile.list_lines(operation, **extra):
+                self.send(line)
+        for line in self.profile.list_lines("start"):
+            self.send(line, idempotent=False)
+        # Wait for the list to finish: its own duration, doubled for margin, on top of the usual timeout.
+        expected_s = len(levels) * (float(dwell_s) + self.nplc * _PLC_SECONDS * 2)
+        timeout_ms = int(getattr(self.transport, "timeout_ms", 2000) + 2000 * expected_s)
+        self.ask("wait", timeout_ms=timeout_ms)
+        (*setup, fetch) = self.profile.list_lines("fetch")
+        for line in setup:
+            self.send(line)
+        reply = self.transport.query(fetch, timeout_ms=timeout_ms)
+        for line in self.profile.list_lines(f"fixed_mode_{mode}"):
+            self.send(line)
+        return self._parse(reply, expect_points=len(levels))
+
+    def _parse(self, reply: str, *, expect_points: int) -> list[tuple[float, float]]:
+        fields = self.profile.reading_fields
+        try:
+            values = parse_readings(reply, self.profile.list_settings.get("separator", ","))
+        except ValueError:
+            raise InstrumentError(f"unexpected reading reply {reply[:80]!r}", resource=self.resource) from None
+        if len(values) != expect_points * len(fields):
+            raise InstrumentError(f"expected {expect_points} reading(s) of {len(fields)} values, got "
+                                  f"{len(values)} values", resource=self.resource)
+        at_volts, at_amps = fields.index("volts"), fields.index("amps")
+        width = len(fields)
+        return [(values[k * width + at_volts], values[k * width + at_amps]) for k in range(expect_points)]

@@ -1,0 +1,280 @@
+"""Message transport over pyvisa: open by VISA resource string, query with one retry, reopen once.
+
+This is the only module (with ``bench.py``) that touches pyvisa. Role classes receive an
+object with the small :class:`Transport` interface, so tests can hand them a fake.
+
+Recovery rules (each raises a :mod:`benchlab.errors` class once its one chance is used):
+
+* a query that times out is retried once, after ``clear()`` so a late reply cannot be read as
+  the answer to the next query; only queries marked idempotent are retried;
+* a lost connection (reset, broken pipe, refused port at first I/O, or a cleanly closed peer,
+  which pyvisa-py reports as a timeout) is reopened once and the message sent again when that
+  is safe; a second loss raises :class:`~benchlab.errors.ConnectionLost`.
+"""
+
+from __future__ import annotations
+
+import re
+import socket
+import threading
+from dataclasses import dataclass, field
+from typing import Any, Callable, Mapping, Protocol, runtime_checkable
+
+from benchlab.errors import ConfigError, ConnectionLost, InstrumentTimeout
+
+
+@runtime_checkable
+class Transport(Protocol):
+    """What a role class needs from a connection: text in, text out."""
+
+    resource: str
+
+    def write(self, command: str, *, idempotent: bool = True) -> None: ...
+    def query(self, command: str, *, idempotent: bool = True, timeout_ms: int | None = None) -> str: ...
+    def close(self) -> None: ...
+
+
+def find_socket(resource: Any) -> socket.socket | None:
+    """Return the TCP socket behind an open pyvisa-py resource, or ``None`` when there is none.
+
+    pyvisa-py keeps its sessions in ``visalib.sessions``; a SOCKET session's ``interface`` is the
+    socket itself, a VXI-11 (INSTR) client keeps it as ``interface.sock``. Other backends
+    (a system VISA library) expose no socket, and ``None`` is returned.
+    """
+    sessions = getattr(getattr(resource, "visalib", None), "sessions", None)
+    if not isinstance(sessions, Mapping):
+        return None
+    session = sessions.get(getattr(resource, "session", None))
+    interface = getattr(session, "interface", None)
+    for candidate in (interface, getattr(interface, "sock", None)):
+        if isinstance(candidate, socket.socket):
+            return candidate
+    return None
+
+
+def set_tcp_nodelay(resource: Any) -> None:
+    """Switch off Nagle's algorithm on the socket behind a resource (pyvisa-py never does).
+
+    Without it a write followed by a query waits for the delayed ACK (tens of ms per pair).
+    """
+    sock = find_socket(resource)
+    if sock is not None:
+        sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+
+
+@dataclass(frozen=True)
+class ResourceKind:
+    """One family of VISA resource strings and how to open it."""
+
+    name: str
+    pattern: re.Pattern[str]
+    open_options: Mapping[str, Any] = field(default_factory=dict)
+    after_open: Callable[[Any], None] | None = None
+
+
+_LINE_ENDINGS = {"read_termination": "\n", "write_termination": "\n"}
+
+# Checked in order; the first pattern that matches wins (VISA resource-string grammar, VPP-4.3).
+RESOURCE_KINDS: tuple[ResourceKind, ...] = (
+    ResourceKind("tcpip-socket", re.compile(r"^TCPIP\d*::[^:]+::\d+::SOCKET$", re.I), _LINE_ENDINGS, set_tcp_nodelay),
+    ResourceKind("tcpip-hislip", re.compile(r"^TCPIP\d*::[^:]+::hislip\d+(::INSTR)?$", re.I), _LINE_ENDINGS),
+    ResourceKind("tcpip-instr", re.compile(r"^TCPIP\d*::[^:]+(::[^:]+)?(::INSTR)?$", re.I), _LINE_ENDINGS),
+    ResourceKind("usb", re.compile(r"^USB\d*::[^:]+::[^:]+::[^:]+(::\d+)?(::INSTR)?$", re.I), _LINE_ENDINGS),
+    ResourceKind("gpib", re.compile(r"^GPIB\d*::\d+(::\d+)?(::INSTR)?$", re.I), _LINE_ENDINGS),
+    ResourceKind("serial", re.compile(r"^ASRL[^:]+(::INSTR)?$", re.I), _LINE_ENDINGS),
+)
+
+
+def resource_kind(resource: str) -> ResourceKind:
+    """Return the :class:`ResourceKind` of a VISA resource string.
+
+    Raises
+    ------
+    ConfigError
+        When the string matches no supported kind.
+    """
+    for kind in RESOURCE_KINDS:
+        if kind.pattern.match(resource.strip()):
+            return kind
+    kinds = ", ".join(kind.name for kind in RESOURCE_KINDS)
+    raise ConfigError(f"'{resource}' is not a VISA resource string benchlab can open ({kinds})", key="resource")
+
+
+def _is_timeout(exc: BaseException) -> bool:
+    # Duck-typed so this module needs pyvisa only where a resource manager is made.
+    code = getattr(exc, "error_code", None)
+    return code is not None and getattr(code, "name", str(code)) == "error_timeout"
+
+
+def _is_visa_error(exc: BaseException) -> bool:
+    return type(exc).__name__ in ("VisaIOError", "InvalidSession") or hasattr(exc, "error_code")
+
+
+class VisaTransport:
+    """A pyvisa resource with benchlab's retry and reconnect rules.
+
+    Parameters
+    ----------
+    resource_manager : pyvisa.ResourceManager
+        Injected; one per bench (``pyvisa.ResourceManager("@py")`` by default, see ``bench.py``).
+    resource : str
+        VISA resource string, e.g. ``"TCPIP0::127.0.0.1::5025::SOCKET"``.
+    timeout_ms : int
+        Time allowed for each reply.
+    options : mapping, optional
+        Extra ``open_resource`` keyword arguments (a profile's ``[connection]`` table); they
+        override the defaults of the resource kind.
+    """
+
+    def __init__(self, resource_manager: Any, resource: str, *, timeout_ms: int = 2000,
+                 options: Mapping[str, Any] | None = None):
+        self.resource = resource.strip()
+        self.kind = resource_kind(self.resource)
+        self.timeout_ms = int(timeout_ms)
+        self._manager = resource_manager
+        self._options = {**self.kind.open_options, **dict(options or {})}
+        self._handle: Any = None
+        self._lock = threading.RLock()
+        self.reopen_count = 0  # how many times the connection was reopened (for reports and tests)
+        self.retry_count = 0  # how many timed-out queries were sent again
+
+    # -- life cycle -------------------------------------------------------------------------
+    def open(self) -> "VisaTransport":
+        """Open the resource (no message is sent). Returns ``self``."""
+        with self._lock:
+            if self._handle is None:
+                self._handle = self._open_handle()
+        return self
+
+    def _open_handle(self) -> Any:
+        try:
+            handle = self._manager.open_resource(self.resource, timeout=self.timeout_ms, **self._options)
+        except Exception as exc:  # pyvisa-py raises bare Exception("could not connect") here
+            raise ConnectionLost(f"cannot open: {exc}", resource=self.resource) from exc
+        try:
+            if self.kind.after_open is not None:
+                self.kind.after_open(handle)
+        except OSError as exc:
+            handle.close()
+            raise ConnectionLost(f"cannot set up the connection: {exc}", resource=self.resource) from exc
+        return handle
+
+    def close(self) -> None:
+        """Close the resource. Sends nothing (outputs are left as they are)."""
+        with self._lock:
+            handle, self._handle = self._handle, None
+            if handle is not None:
+                try:
+                    handle.close()
+                except Exception:  # closing a dead link must not hide the error that killed it
+                    pass
+
+    def __enter__(self) -> "VisaTransport":
+        return self.open()
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    def _reopen(self) -> None:
+        self.close()
+        self.reopen_count += 1
+        self._handle = self._open_handle()
+
+    # -- I/O -------------------------------------------------------------------------------
+    def write(self, command: str, *, idempotent: bool = True) -> None:
+        """Send one message.
+
+        Parameters
+        ----------
+        command : str
+            The SCPI text (the termination is added by the resource).
+        idempotent : bool
+            Whether sending it twice is harmless (a setting); after a lost connection only
+            idempotent messages are sent again, others raise :class:`ConnectionLost`.
+        """
+        with self._lock:
+            self._run(lambda handle: handle.write(command), command, idempotent, allow_retry=False)
+
+    def query(self, command: str, *, idempotent: bool = True, timeout_ms: int | None = None) -> str:
+        """Send a query and return its reply (termination stripped).
+
+        Parameters
+        ----------
+        command : str
+            The SCPI query.
+        idempotent : bool
+            Whether asking twice is harmless; only then is a timed-out query retried.
+        timeout_ms : int, optional
+            A longer wait for this query only (e.g. ``*OPC?`` after a list sweep).
+
+        Raises
+        ------
+        InstrumentTimeout
+            No reply after the one retry.
+        ConnectionLost
+            The link dropped again after being reopened once.
+        """
+        with self._lock:
+            return self._run(lambda handle: self._timed_query(handle, command, timeout_ms), command,
+                             idempotent, allow_retry=idempotent)
+
+    def _timed_query(self, handle: Any, command: str, timeout_ms: int | None) -> str:
+        if timeout_ms is None:
+            return handle.query(command)
+        handle.timeout = int(timeout_ms)
+        try:
+            return handle.query(command)
+        finally:
+            handle.timeout = self.timeout_ms
+
+    def _run(self, action: Callable[[Any], Any], command: str, idempotent: bool, allow_retry: bool) -> Any:
+        if self._handle is None:
+            self.open()
+        reopened = retried = False
+        while True:
+            try:
+                return action(self._handle)
+            except Exception as exc:
+                timed_out = _is_timeout(exc)
+                if not timed_out and not isinstance(exc, OSError) and not _is_visa_error(exc):
+                    raise
+                lost = not timed_out or self._peer_closed()
+                if not lost:
+                    self._clear()
+                    if allow_retry and not retried:
+                        retried = True
+                        self.retry_count += 1
+                        continue
+                    raise InstrumentTimeout(
+                        f"no reply to '{command}' within {self.timeout_ms} ms"
+                        + (" (asked twice)" if retried else ""), resource=self.resource) from exc
+                if reopened:
+                    raise ConnectionLost(f"connection lost again after reopening, at '{command}': {exc}",
+                                         resource=self.resource) from exc
+                reopened = True
+                self._reopen()
+                if not idempotent:
+                    raise ConnectionLost(
+                        f"connection lost at '{command}'; reopened, but that message is not safe to repeat",
+                        resource=self.resource) from exc
+
+    def _peer_closed(self) -> bool:
+        """True when the peer has closed the socket (a clean close looks like a timeout in pyvisa-py)."""
+        sock = find_socket(self._handle)
+        if sock is None:
+            return False
+        try:
+            data = sock.recv(1, socket.MSG_PEEK | socket.MSG_DONTWAIT)
+        except BlockingIOError:
+            return False
+        except OSError:
+            return True
+        return data == b""
+
+    def _clear(self) -> None:
+        # Device clear discards any late reply; pyvisa-py's socket clear loops forever on a
+        # closed peer, which _peer_closed has ruled out before we get here.
+        try:
+            self._handle.clear()
+        except Exception:
+            pass

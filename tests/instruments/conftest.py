@@ -1,0 +1,41 @@
+"""Fixtures of the instrument-layer tests: pyvisa-py resource manager and scripted fake servers."""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.instruments.profiles import load_profile
+from benchlab.instruments.transport import VisaTransport
+
+from .fake_scpi import FakeScpiServer
+
+# Short enough to keep the suite quick, long enough for a loopback reply on a busy machine.
+TEST_TIMEOUT_MS = 250
+
+
+@pytest.fixture(scope="session")
+def resource_manager():
+    pyvisa = pytest.importorskip("pyvisa")
+    manager = pyvisa.ResourceManager("@py")
+    yield manager
+    manager.close()
+
+
+@pytest.fixture
+def server():
+    with FakeScpiServer() as fake:
+        yield fake
+
+
+@pytest.fixture
+def transport(resource_manager, server):
+    link = VisaTransport(resource_manager, server.resource, timeout_ms=TEST_TIMEOUT_MS).open()
+    yield link
+    link.close()
+
+
+@pytest.fixture(scope="session")
+def profiles():
+    return {role: load_profile(name) for role, name in (("supply", "generic-scpi-supply"),
+                                                         ("meter", "generic-scpi-meter"),
+                                                         ("source_meter", "generic-scpi-smu"))}
