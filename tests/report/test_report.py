@@ -1,0 +1,119 @@
+"""The HTML + PNG report of a lot and a design."""
+
+from __future__ import annotations
+
+import struct
+import zlib
+from html.parser import HTMLParser
+
+import numpy as np
+import pytest
+from matplotlib.image import imread
+
+from benchlab.cli import main
+from benchlab.library import Library
+from benchlab.models import DeviceParams
+from benchlab.report import build_report, collect
+from benchlab.report.figures import scatter_figure
+from session_builder import demo_bag, write_session
+
+NASTY = "Q<script>alert('x')</script>&amp;"
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C / ISO/IEC 15948), section 5.2
+
+
+class _Collector(HTMLParser):
+    def __init__(self):
+        super().__init__()
+        self.tags, self.text, self.images = [], [], []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+        if tag == "img":
+            self.images.append(dict(attrs)["src"])
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+@pytest.fixture
+def lot_with_design(tmp_path):
+    session = write_session(tmp_path, "20261202-101500-demo-bag", "demo-bag", demo_bag(10, duds=(6,)))
+    lib = Library.open(tmp_path / "lib.db")
+    lib.import_session(session, refit=False)
+    ref = lib.add_part("R1", lot="demo-bag", params=DeviceParams("linear", vth=3.9, gm=0.544))
+    lib.add_part(NASTY, lot="demo-bag", params=DeviceParams("square", vth=3.05, kp=1.0))
+    design = {"kind": "sink", "supply": 12.0, "r_chosen": 1000.0, "r_exact": 1000.0, "vgs": 3.91486,
+              "i_ref": 8.085e-3, "ref": "demo-bag/R1",
+              "outputs": [{"part": "demo-bag/Q02", "i_out": 8.1e-3, "error": 0.002}],
+              "sets": [["R1", "Q02"]],
+              "cautions": ["Power <in the reference part> & heat-sinking: 32 mW", "Eye safety for LED emitters"]}
+    design_id = lib.record_design(design, [ref, lib.get_part("demo-bag/Q02")])
+    yield lib, design_id
+    lib.close()
+
+
+def _check_png(path):
+    raw = path.read_bytes()
+    assert raw[:8] == PNG_SIGNATURE
+    # first chunk is IHDR: length 13, then width and height (big-endian), CRC-32 over type + data
+    length, kind = struct.unpack(">I4s", raw[8:16])
+    width, height = struct.unpack(">II", raw[16:24])
+    assert (length, kind) == (13, b"IHDR") and width >= 300 and height >= 200
+    assert struct.unpack(">I", raw[29:33])[0] == zlib.crc32(raw[12:29])
+    pixels = imread(path)[..., :3]
+    not_white = np.any(pixels < 0.95, axis=-1).mean()
+    colours = len(np.unique((pixels * 255).astype(np.uint8).reshape(-1, 3), axis=0))
+    assert not_white > 0.02 and colours > 20  # drawn content, not a blank canvas
+
+
+def test_report_files_figures_and_escaped_html(lot_with_design, tmp_path):
+    lib, design_id = lot_with_design
+    files = build_report(collect(lib, "demo-bag", design_id), tmp_path / "report")
+    names = {p.rsplit("/", 1)[-1] for p in files.figures}
+    assert names == {"sweeps.png", "histograms.png", "kp_vs_vth.png", "operating_point.png"}
+    for path in files.figures:
+        _check_png(tmp_path / "report" / path.rsplit("/", 1)[-1])
+
+    page = (tmp_path / "report" / "index.html").read_text(encoding="utf-8")
+    parser = _Collector()
+    parser.feed(page)
+    text = "".join(parser.text)
+    assert "script" not in parser.tags and "b" not in parser.tags
+    assert NASTY in text  # shown literally, escaped in the source
+    for part in lib.parts(lot="demo-bag", state=None):
+        assert part.label in text
+    assert "Power <in the reference part> & heat-sinking: 32 mW" in text and "Eye safety for LED emitters" in text
+    assert "licensed practice" in text
+    assert sorted(parser.images) == sorted(names)
+    assert "open" in text  # the dud's classification shows in the table
+
+    # common practice, no published source: Vth 3.9 V, gm 0.544 A/V on 12 V through 1 kOhm crosses at
+    # VGS = 2133.6/545 V and ID = 8.085 mA
+    op = files.operating_point
+    assert op["vgs"] == pytest.approx(2133.6 / 545, abs=1e-6) and op["id"] == pytest.approx(8.085e-3, abs=1e-6)
+
+
+def test_scatter_marks_exactly_the_chosen_set(lot_with_design):
+    lib, design_id = lot_with_design
+    data = collect(lib, "demo-bag", design_id)
+    assert data.design_sets == (("R1", "Q02"),) and data.reference.label == "R1"
+    fig = scatter_figure([p for p in data.parts if p.state != "rejected"], data.design_sets)
+    ax = fig.axes[0]
+    everyone, chosen = ax.collections[0], ax.collections[1]
+    q02 = lib.get_part("demo-bag/Q02").params
+    # R1 is a linear-model part (no KP), so only Q02 of the set sits on the KP axis
+    assert np.allclose(chosen.get_offsets(), [[q02.vth, q02.kp]])
+    assert len(everyone.get_offsets()) == 10  # 9 good swept parts + the hand-entered square-law part
+
+
+def test_report_command_and_its_errors(lot_with_design, tmp_path, capsys):
+    lib, design_id = lot_with_design
+    out = tmp_path / "cli-report"
+    assert main(["report", "--lot", "demo-bag", "--out", str(out), "--library", lib.path]) == 0
+    assert (out / "index.html").exists() and not (out / "operating_point.png").exists()
+    capsys.readouterr()
+    assert main(["report", "--lot", "nope", "--out", str(out), "--library", lib.path]) == 2
+    err = capsys.readouterr().err
+    assert "lot 'nope' has no parts" in err and err.count("\n") == 1
+    assert main(["report", "--lot", "demo-bag", "--design", "99", "--out", str(out), "--library", lib.path]) == 2
+    assert "no design 99" in capsys.readouterr().err
