@@ -1,0 +1,151 @@
+"""Fault injection for the simulated bench.
+
+A fault is written ``KIND[@ROLE][=VALUE]`` (on the command line: ``--fault mute@meter=12``).
+ROLE is ``supply``, ``meter``, ``source_meter`` or ``all`` (the default). Kinds:
+
+``slow=S``       every reply is held back S extra (real) seconds.
+``mute=N``       after N messages the instrument still executes commands but sends no replies.
+``hang=N``       after N messages the instrument neither executes nor replies (until the bench stops).
+``drop=N``       the N-th message is executed, then the connection is closed without a reply (once).
+``error=HEADER[/CODE]`` each command with that header (``VOLT``, ``OUTP``, ``MEAS:CURR?``...) is
+                 refused with error CODE (default -240, hardware error) queued instead of executing.
+``garble=N``     the N-th reply line of the instrument is garbled (digits turned into letters).
+``open=N``       the part in the fixture fails open after N readings (counted over the whole bench).
+``short=N``      the part fails short after N readings.
+
+Messages are lines received, counted per instrument over all its connections since the bench started.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from benchlab.errors import InputError
+
+FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short")
+FAULT_ROLES = ("supply", "meter", "source_meter", "all")
+DEFAULT_INJECTED_ERROR = -240
+
+
+@dataclass(frozen=True)
+class FaultSpec:
+    """One injected fault (see the module docstring for the meaning of each kind)."""
+
+    kind: str
+    role: str = "all"
+    value: str = ""
+
+    def applies_to(self, role: str) -> bool:
+        return self.role in ("all", role)
+
+    @property
+    def count(self) -> int:
+        """The N of ``mute``, ``hang``, ``drop``, ``garble``, ``open``, ``short``."""
+        return int(self.value)
+
+    @property
+    def seconds(self) -> float:
+        """The S of ``slow``."""
+        return float(self.value)
+
+    @property
+    def error_header(self) -> str:
+        return self.value.split("/", 1)[0]
+
+    @property
+    def error_code(self) -> int:
+        parts = self.value.split("/", 1)
+        return int(parts[1]) if len(parts) == 2 else DEFAULT_INJECTED_ERROR
+
+    def to_text(self) -> str:
+        role = "" if self.role == "all" else f"@{self.role}"
+        value = f"={self.value}" if self.value else ""
+        return f"{self.kind}{role}{value}"
+
+
+def parse_fault(text: str) -> FaultSpec:
+    """Parse ``KIND[@ROLE][=VALUE]``.
+
+    Raises
+    ------
+    benchlab.errors.InputError
+        With one clear message for an unknown kind or role or a bad value.
+    """
+    raw = text.strip()
+    head, has_value, value = raw.partition("=")
+    kind, _, role = head.partition("@")
+    kind = kind.strip().lower()
+    role = (role.strip().lower() or "all").replace("-", "_")
+    value = value.strip()
+    if kind not in FAULT_KINDS:
+        raise InputError(f"fault '{raw}': unknown kind '{kind}' (expected one of {', '.join(FAULT_KINDS)})")
+    if role not in FAULT_ROLES:
+        raise InputError(f"fault '{raw}': unknown role '{role}' (expected one of {', '.join(FAULT_ROLES)})")
+    if kind == "garble" and not has_value:
+        value = "1"
+    if kind == "slow":
+        try:
+            ok = float(value) >= 0
+        except ValueError:
+            ok = False
+        if not ok:
+            raise InputError(f"fault '{raw}': slow needs a number of seconds >= 0, e.g. slow=0.5")
+    elif kind == "error":
+        header, _, code = value.partition("/")
+        if not header:
+            raise InputError(f"fault '{raw}': error needs a command header, e.g. error@supply=OUTP")
+        if code and not code.lstrip("-").isdigit():
+            raise InputError(f"fault '{raw}': the error code must be an integer, e.g. /-240")
+    else:
+        if not value.isdigit() or (kind in ("garble",) and int(value) < 1):
+            raise InputError(f"fault '{raw}': {kind} needs a whole count, e.g. {kind}=10")
+    return FaultSpec(kind, role, value)
+
+
+def coerce_faults(faults) -> tuple[FaultSpec, ...]:
+    """Accept ``FaultSpec`` objects or spec strings (as given to ``SimConfig.faults``)."""
+    return tuple(f if isinstance(f, FaultSpec) else parse_fault(str(f)) for f in faults or ())
+
+
+class RoleFaults:
+    """Per-instrument fault bookkeeping, consulted by the server for each message."""
+
+    def __init__(self, role: str, faults: tuple[FaultSpec, ...]):
+        mine = [f for f in faults if f.applies_to(role)]
+        self.role = role
+        self.extra_delay_s = sum(f.seconds for f in mine if f.kind == "slow")
+        self.mute_after = min((f.count for f in mine if f.kind == "mute"), default=None)
+        self.hang_after = min((f.count for f in mine if f.kind == "hang"), default=None)
+        self.drop_at = min((f.count for f in mine if f.kind == "drop"), default=None)
+        self.garble_at = {f.count for f in mine if f.kind == "garble"}
+        self.error_rules = [(f.error_header, f.error_code) for f in mine if f.kind == "error"]
+        self.messages_seen = 0
+        self.replies_sent = 0
+        self.drop_done = False
+
+    def note_message(self) -> int:
+        """Count one received message; returns its 1-based number."""
+        self.messages_seen += 1
+        return self.messages_seen
+
+    def hung(self, number: int) -> bool:
+        return self.hang_after is not None and number > self.hang_after
+
+    def muted(self, number: int) -> bool:
+        return self.mute_after is not None and number > self.mute_after
+
+    def drop_now(self, number: int) -> bool:
+        if self.drop_at is not None and not self.drop_done and number >= self.drop_at:
+            self.drop_done = True
+            return True
+        return False
+
+    def garble_next_reply(self) -> bool:
+        """Count one reply line; True when it is the one to garble."""
+        self.replies_sent += 1
+        return self.replies_sent in self.garble_at
+
+
+def garble(reply: str) -> str:
+    """A reply made unreadable but still one line: digits become letters, a junk prefix."""
+    return "#?" + "".join(chr(ord("A") + int(ch)) if ch.isdigit() else ch for ch in reply)

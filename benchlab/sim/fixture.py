@@ -1,0 +1,203 @@
+"""The virtual fixture: the circuit around the part, solved exactly, and the part's temperature.
+
+``resistor`` fixture: supply (+) -> series resistor -> drain = gate of the part -> source -> 0 V;
+the meter's volts function reads across the part, its amps function the branch current.
+The supply is an ideal CV/CC source: constant voltage at (setpoint with a small gain and
+offset error) until the branch current would pass the current limit, then constant current
+at the limit. ``smu`` fixture: the SMU straight across the part, forcing volts (current
+compliance) or amps (voltage compliance). Instruments of the other fixture see an open circuit.
+
+Junction temperature follows dT/dt = (T_amb + P Rth - T) / tau on the virtual clock, with
+P = V I of the part recomputed along the way (exact exponential steps of at most tau/20).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+
+from scipy.optimize import brentq
+
+from benchlab.sim.physics import PartPhysics, part_current, voltage_at_current
+
+FIXTURES = ("resistor", "smu")
+
+
+@dataclass(frozen=True)
+class SupplyError:
+    """Setpoint error of the supply output: V_out = V_set (1 + gain) + offset (clipped at 0)."""
+
+    gain: float = 0.0
+    offset_v: float = 0.0
+
+    def actual(self, setpoint_v: float) -> float:
+        if setpoint_v <= 0:
+            return 0.0
+        return max(0.0, setpoint_v * (1.0 + self.gain) + self.offset_v)
+
+
+@dataclass
+class SourceState:
+    """Everything the two sources are set to (mutated by the instruments, under the bench lock)."""
+
+    supply_on: bool = False
+    supply_v: float = 0.0
+    supply_i_limit: float = 0.1
+    smu_on: bool = False
+    smu_function: str = "VOLTAGE"  # what the SMU forces: VOLTAGE or CURRENT
+    smu_level_v: float = 0.0
+    smu_level_i: float = 0.0
+    smu_i_compliance: float = 0.1
+    smu_v_compliance: float = 20.0
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """The solved circuit: voltage across and current through the part, and what each source sees."""
+
+    part_v: float = 0.0
+    part_i: float = 0.0
+    supply_v: float = 0.0
+    supply_i: float = 0.0
+    supply_mode: str = "OFF"  # CV, CC or OFF
+    smu_v: float = 0.0
+    smu_i: float = 0.0
+    smu_tripped: bool = False
+
+    @property
+    def part_power_w(self) -> float:
+        return self.part_v * self.part_i
+
+
+def solve_resistor_fixture(part: PartPhysics | None, temperature_k: float, supply_v: float,
+                           i_limit: float, resistor_ohm: float) -> OperatingPoint:
+    """Exact operating point of supply -> resistor -> part with the supply on.
+
+    Parameters
+    ----------
+    part : PartPhysics or None
+        None for an empty fixture (open circuit).
+    supply_v : float
+        Actual (not nominal) supply output voltage in CV (V).
+    i_limit : float
+        Supply current limit (A).
+    resistor_ohm : float
+        Actual series resistance (ohm).
+    """
+    if part is None or supply_v <= 0:
+        return OperatingPoint(part_v=supply_v, supply_v=supply_v, supply_mode="CV")
+    # CV: (Vs - V) / R = I(V); the left side falls and the right side rises with V
+    v_cv = brentq(lambda v: (supply_v - v) / resistor_ohm - part_current(part, v, temperature_k),
+                  0.0, supply_v, xtol=1e-13, rtol=1e-13, maxiter=200)
+    i_cv = (supply_v - v_cv) / resistor_ohm
+    if i_cv <= i_limit:
+        return OperatingPoint(part_v=v_cv, part_i=i_cv, supply_v=supply_v, supply_i=i_cv, supply_mode="CV")
+    v_cc = voltage_at_current(part, i_limit, temperature_k, ceiling_v=supply_v) if i_limit > 0 else 0.0
+    return OperatingPoint(part_v=v_cc, part_i=i_limit, supply_v=v_cc + i_limit * resistor_ohm,
+                          supply_i=i_limit, supply_mode="CC")
+
+
+def solve_smu_fixture(part: PartPhysics | None, temperature_k: float, state: SourceState) -> OperatingPoint:
+    """Exact operating point of the SMU forcing volts or amps straight across the part (output on)."""
+    if state.smu_function == "VOLTAGE":
+        volts = state.smu_level_v
+        amps = part_current(part, volts, temperature_k) if part is not None else 0.0
+        if amps > state.smu_i_compliance:
+            amps = state.smu_i_compliance
+            volts = voltage_at_current(part, amps, temperature_k, ceiling_v=volts)  # type: ignore[arg-type]
+            return OperatingPoint(part_v=volts, part_i=amps, smu_v=volts, smu_i=amps, smu_tripped=True)
+        return OperatingPoint(part_v=volts, part_i=amps, smu_v=volts, smu_i=amps)
+    amps = state.smu_level_i
+    volts = voltage_at_current(part, amps, temperature_k) if part is not None else math.inf
+    if volts > state.smu_v_compliance:
+        volts = state.smu_v_compliance
+        amps = part_current(part, volts, temperature_k) if part is not None else 0.0
+        return OperatingPoint(part_v=volts, part_i=amps, smu_v=volts, smu_i=amps, smu_tripped=True)
+    return OperatingPoint(part_v=volts, part_i=amps, smu_v=volts, smu_i=amps)
+
+
+class Fixture:
+    """The part under test in its fixture, with its junction temperature on the virtual clock.
+
+    Parameters
+    ----------
+    kind : str
+        ``resistor`` or ``smu``.
+    resistor_ohm : float
+        Actual series resistance (the nominal one is what the user believes).
+    supply_error : SupplyError
+        Supply setpoint error.
+    ambient_k : float
+        Ambient temperature (K).
+    """
+
+    def __init__(self, kind: str, resistor_ohm: float, supply_error: SupplyError, ambient_k: float):
+        if kind not in FIXTURES:
+            raise ValueError(f"unknown fixture {kind!r}")
+        self.kind = kind
+        self.resistor_ohm = resistor_ohm
+        self.supply_error = supply_error
+        self.ambient_k = ambient_k
+        self.sources = SourceState()
+        self.part: PartPhysics | None = None
+        self.temperature_k = ambient_k
+        self._thermal_time = 0.0
+
+    def load(self, part: PartPhysics | None, now: float) -> None:
+        """Put a part (or nothing) in the fixture; it starts at ambient temperature."""
+        self.part = part
+        self.temperature_k = self.ambient_k
+        self._thermal_time = now
+
+    def fail(self, kind: str, now: float) -> None:
+        """The part in the fixture fails ``open`` or ``short`` from now on."""
+        self.advance(now)
+        if self.part is not None:
+            self.part = replace(self.part, kind=kind)
+
+    def operating_point(self, temperature_k: float | None = None) -> OperatingPoint:
+        """Solve the circuit for the present source settings (at the present temperature)."""
+        temp = self.temperature_k if temperature_k is None else temperature_k
+        state = self.sources
+        point = OperatingPoint()
+        if self.kind == "resistor":
+            if state.supply_on:
+                point = solve_resistor_fixture(self.part, temp, self.supply_error.actual(state.supply_v),
+                                               state.supply_i_limit, self.resistor_ohm)
+            smu = self._smu_open_circuit()
+            return replace(point, smu_v=smu.smu_v, smu_i=smu.smu_i, smu_tripped=smu.smu_tripped)
+        if state.smu_on:
+            point = solve_smu_fixture(self.part, temp, state)
+        if state.supply_on:  # supply unconnected in the smu fixture
+            point = replace(point, supply_v=self.supply_error.actual(state.supply_v), supply_mode="CV")
+        return point
+
+    def _smu_open_circuit(self) -> OperatingPoint:
+        state = self.sources
+        if not state.smu_on:
+            return OperatingPoint()
+        if state.smu_function == "VOLTAGE":
+            return OperatingPoint(smu_v=state.smu_level_v)
+        if state.smu_level_i == 0:
+            return OperatingPoint()
+        return OperatingPoint(smu_v=state.smu_v_compliance, smu_tripped=True)
+
+    def advance(self, now: float) -> None:
+        """Integrate the junction temperature up to virtual time ``now``."""
+        elapsed = now - self._thermal_time
+        if elapsed <= 0 or self.part is None:
+            self._thermal_time = max(self._thermal_time, now)
+            return
+        tau = self.part.tau_thermal_s
+        rth = self.part.rth_k_per_w
+        powered = self.sources.supply_on if self.kind == "resistor" else self.sources.smu_on
+        if not powered:
+            self.temperature_k = self.ambient_k + (self.temperature_k - self.ambient_k) * math.exp(-elapsed / tau)
+        else:
+            steps = min(400, max(1, math.ceil(elapsed / (tau / 20.0))))
+            step = elapsed / steps
+            for _ in range(steps):
+                power = max(0.0, self.operating_point().part_power_w)
+                steady = self.ambient_k + power * rth
+                self.temperature_k = steady + (self.temperature_k - steady) * math.exp(-step / tau)
+        self._thermal_time = now

@@ -1,0 +1,231 @@
+"""Base of the three simulated instruments: message execution, IEEE 488.2 common commands,
+``SYSTem`` commands and the simulator-only ``SIMulation`` commands.
+
+Each concrete instrument adds its own ``COMMANDS`` table (rows of
+:class:`benchlab.sim.scpi.CommandSpec`) and handler methods; :meth:`SimInstrument.execute`
+parses one received line and dispatches through the table.
+"""
+
+from __future__ import annotations
+
+import json
+
+from benchlab.errors import InputError
+from benchlab.sim.core import BenchCore
+from benchlab.sim.faults import RoleFaults
+from benchlab.sim.physics import REFERENCE_TEMPERATURE_K
+from benchlab.sim.scpi import (
+    CommandSpec, CommandTable, Param, ScpiError, format_number, parse_unit, quote_string, split_message,
+    numeric_value,
+)
+from benchlab.sim.status import ESR_OPERATION_COMPLETE, StatusModel
+
+MAKER = "BENCHLAB-SIM"
+FIRMWARE = "0.1"
+SCPI_VERSION = "1999.0"
+
+COMMON_COMMANDS: tuple[CommandSpec, ...] = (
+    CommandSpec("*IDN", True, "query_identity"),
+    CommandSpec("*RST", False, "command_reset"),
+    CommandSpec("*CLS", False, "command_clear_status"),
+    CommandSpec("*OPC", True, "query_operation_complete"),
+    CommandSpec("*OPC", False, "command_operation_complete"),
+    CommandSpec("*WAI", False, "command_wait"),
+    CommandSpec("*ESR", True, "query_event_status"),
+    CommandSpec("*ESE", False, "command_event_enable", 1, 1),
+    CommandSpec("*ESE", True, "query_event_enable"),
+    CommandSpec("*STB", True, "query_status_byte"),
+    CommandSpec("*TST", True, "query_self_test"),
+    CommandSpec("*TRG", False, "command_trigger"),
+    CommandSpec("SYSTem:ERRor[:NEXT]", True, "query_error"),
+    CommandSpec("SYSTem:ERRor:COUNt", True, "query_error_count"),
+    CommandSpec("SYSTem:VERSion", True, "query_version"),
+    CommandSpec("SIMulation:PART:NEXT", False, "command_next_part"),
+    CommandSpec("SIMulation:PART:INDex", True, "query_part_index"),
+    CommandSpec("SIMulation:PART:LABel", True, "query_part_label"),
+    CommandSpec("SIMulation:PART:TRUTh", True, "query_part_truth"),
+    CommandSpec("SIMulation:TEMPerature", True, "query_temperature"),
+)
+
+
+class SimInstrument:
+    """One simulated instrument (subclasses set ``ROLE``, ``MODEL``, ``COMMANDS``).
+
+    Parameters
+    ----------
+    core : BenchCore
+        Bench state shared with the other instruments.
+    serial : str
+        Serial number shown by ``*IDN?``.
+    faults : RoleFaults
+        Fault bookkeeping of this instrument (the ``error`` rules are applied here).
+    """
+
+    ROLE = ""
+    MODEL = ""
+    COMMANDS: tuple[CommandSpec, ...] = ()
+
+    def __init__(self, core: BenchCore, serial: str, faults: RoleFaults):
+        self.core = core
+        self.serial = serial
+        self.faults = faults
+        self.status = StatusModel()
+        self.table = CommandTable(COMMON_COMMANDS + self.COMMANDS)
+        self._injected_errors = [(self._spec_for_header(header), code) for header, code in faults.error_rules]
+        self.reset_state()
+
+    def _spec_for_header(self, header: str) -> CommandSpec:
+        try:
+            unit = parse_unit(header)
+        except ScpiError:
+            unit = None
+        spec = self.table.lookup(list(unit.keywords), unit.query) if unit else None
+        if spec is None:
+            raise InputError(f"fault error@{self.ROLE}={header}: '{header}' is not a command of the {self.ROLE}")
+        return spec
+
+    # ----------------------------------------------------------------- execution
+    def execute(self, line: str) -> list[str]:
+        """Execute one received line (a program message); returns the query replies in order.
+
+        Errors go to the error queue; a command error (-1xx) discards the rest of the message.
+        """
+        with self.core.lock:
+            replies: list[str] = []
+            try:
+                units = split_message(line)
+            except ScpiError as exc:
+                self.status.push(exc.code, exc.text)
+                return replies
+            path: tuple[str, ...] = ()
+            for text in units:
+                try:
+                    unit = parse_unit(text)
+                    if unit is None:
+                        continue
+                    spec, path = self._resolve(unit, path)
+                    self._check_param_count(spec, unit.params)
+                    for faulty_spec, code in self._injected_errors:
+                        if faulty_spec is spec:
+                            self.core.log.add(self.ROLE, "fault", f"error {code} on {unit.header_text}", self.core.now())
+                            raise ScpiError(code, "injected fault")
+                    result = getattr(self, spec.handler)(list(unit.params))
+                    if spec.query:
+                        replies.append(str(result))
+                except ScpiError as exc:
+                    self.status.push(exc.code, exc.text)
+                    if exc.is_command_error:
+                        break
+            return replies
+
+    def _resolve(self, unit, path: tuple[str, ...]) -> tuple[CommandSpec, tuple[str, ...]]:
+        # SCPI-1999 6.2.4: after ';' a header is relative to the previous command's path;
+        # a leading ':' or a common command goes back to the root. Fall back to the root.
+        keywords = list(unit.keywords)
+        if unit.common:
+            spec = self.table.lookup(keywords, unit.query)
+            if spec is None:
+                raise ScpiError(-113, unit.header_text.split(" ")[0])
+            return spec, path
+        candidates = [keywords] if unit.absolute or not path else [list(path) + keywords, keywords]
+        for typed in candidates:
+            spec = self.table.lookup(typed, unit.query)
+            if spec is not None:
+                return spec, tuple(typed[:-1])
+        raise ScpiError(-113, unit.header_text.split(" ")[0][:40])
+
+    @staticmethod
+    def _check_param_count(spec: CommandSpec, params) -> None:
+        if len(params) < spec.min_params:
+            raise ScpiError(-109)
+        if spec.max_params >= 0 and len(params) > spec.max_params:
+            raise ScpiError(-108)
+
+    # ----------------------------------------------------------------- hooks for subclasses
+    def reset_state(self) -> None:
+        """Put the instrument-specific settings in their ``*RST`` state (subclasses)."""
+
+    def set_output_logged(self, on: bool) -> None:
+        """Record an output change in the log (subclasses call it when the state really changes)."""
+        self.core.log.add(self.ROLE, "output", "ON" if on else "OFF", self.core.now())
+
+    def trigger(self) -> None:
+        """``*TRG``: subclasses without a trigger system report -211."""
+        raise ScpiError(-211)
+
+    # ----------------------------------------------------------------- common commands
+    def query_identity(self, params: list[Param]) -> str:
+        return f"{MAKER},{self.MODEL},{self.serial},{FIRMWARE}"
+
+    def command_reset(self, params: list[Param]) -> None:
+        self.core.catch_up()
+        self.reset_state()
+
+    def command_clear_status(self, params: list[Param]) -> None:
+        self.status.clear()
+
+    def query_operation_complete(self, params: list[Param]) -> str:
+        return "1"  # every operation, list sweeps included, completes before the next message
+
+    def command_operation_complete(self, params: list[Param]) -> None:
+        self.status.esr |= ESR_OPERATION_COMPLETE
+
+    def command_wait(self, params: list[Param]) -> None:
+        return None
+
+    def query_event_status(self, params: list[Param]) -> str:
+        return str(self.status.read_esr())
+
+    def command_event_enable(self, params: list[Param]) -> None:
+        self.status.ese = int(numeric_value(params[0], 0, 255))
+
+    def query_event_enable(self, params: list[Param]) -> str:
+        return str(self.status.ese)
+
+    def query_status_byte(self, params: list[Param]) -> str:
+        return str(self.status.status_byte())
+
+    def query_self_test(self, params: list[Param]) -> str:
+        return "0"
+
+    def command_trigger(self, params: list[Param]) -> None:
+        self.trigger()
+
+    def query_error(self, params: list[Param]) -> str:
+        code, text = self.status.pop()
+        return f"{code:+d},{quote_string(text)}" if code else f"0,{quote_string(text)}"
+
+    def query_error_count(self, params: list[Param]) -> str:
+        return str(self.status.count)
+
+    def query_version(self, params: list[Param]) -> str:
+        return SCPI_VERSION
+
+    # ----------------------------------------------------------------- simulator-only commands
+    def command_next_part(self, params: list[Param]) -> None:
+        if self.core.outputs_on():
+            raise ScpiError(-221, "switch the output off before changing the part")
+        self.core.next_part()
+
+    def query_part_index(self, params: list[Param]) -> str:
+        return str(self.core.part_index)
+
+    def query_part_label(self, params: list[Param]) -> str:
+        part = self.core.part
+        return quote_string(part.label if part is not None and self.core.part_index >= 0 else "")
+
+    def query_part_truth(self, params: list[Param]) -> str:
+        part = self.core.part
+        truth: dict = {}
+        if part is not None and self.core.part_index >= 0:
+            truth = part.to_dict()
+            truth["for_tests_only"] = True
+            truth["index"] = self.core.part_index
+            truth["series_resistor_actual_ohm"] = self.core.fixture.resistor_ohm
+            truth["ambient_k"] = self.core.fixture.ambient_k
+            truth["reference_temperature_k"] = REFERENCE_TEMPERATURE_K
+        return quote_string(json.dumps(truth, sort_keys=True))
+
+    def query_temperature(self, params: list[Param]) -> str:
+        self.core.catch_up()
+        return format_number(self.core.fixture.temperature_k)

@@ -1,0 +1,199 @@
+"""Raw-socket SCPI server of one simulated instrument (one thread per connection).
+
+Messages are lines ending in ``\\n`` (a trailing ``\\r`` is dropped). Each accepted socket gets
+TCP_NODELAY so a query's reply is not held back by Nagle's algorithm. Bad input never stops
+the server: a line that is not UTF-8 or holds control characters is a -101 error, a line
+longer than :data:`MAX_LINE_BYTES` is a -223 error (and is skipped up to its end), and a
+client that disconnects mid-line only loses that line.
+"""
+
+from __future__ import annotations
+
+import socket
+import threading
+import time
+
+from benchlab.sim.faults import RoleFaults, garble
+from benchlab.sim.instrument import SimInstrument
+
+MAX_LINE_BYTES = 256 * 1024
+_POLL_S = 0.2
+_LOGGED_TEXT_CHARS = 4000
+
+
+class InstrumentServer:
+    """Serve one :class:`SimInstrument` on a TCP port.
+
+    Parameters
+    ----------
+    instrument : SimInstrument
+        What executes the messages.
+    faults : RoleFaults
+        Transport-level faults of this instrument (slow, mute, hang, drop, garble).
+    latency_s : float
+        Real delay added to every message, standing in for a LAN round trip.
+    """
+
+    def __init__(self, instrument: SimInstrument, faults: RoleFaults, latency_s: float = 0.0):
+        self.instrument = instrument
+        self.faults = faults
+        self.latency_s = latency_s
+        self.port = 0
+        self.host = ""
+        self._listener: socket.socket | None = None
+        self._stopping = threading.Event()
+        self._threads: list[threading.Thread] = []
+        self._connections: set[socket.socket] = set()
+        self._lock = threading.Lock()
+
+    @property
+    def role(self) -> str:
+        return self.instrument.ROLE
+
+    def start(self, host: str, port: int) -> int:
+        """Bind and start accepting; returns the port actually bound (``port`` 0 picks a free one)."""
+        listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+        listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        try:
+            listener.bind((host, port))
+        except OSError:
+            listener.close()
+            raise
+        listener.listen(8)
+        listener.settimeout(_POLL_S)
+        self._listener = listener
+        self.host, self.port = host, listener.getsockname()[1]
+        self._spawn(self._accept_loop, f"sim-{self.role}-accept")
+        return self.port
+
+    def _spawn(self, target, name: str, *args) -> None:
+        thread = threading.Thread(target=target, args=args, name=name, daemon=True)
+        with self._lock:
+            self._threads = [t for t in self._threads if t.is_alive()]
+            self._threads.append(thread)
+        thread.start()
+
+    def _accept_loop(self) -> None:
+        assert self._listener is not None
+        while not self._stopping.is_set():
+            try:
+                conn, peer = self._listener.accept()
+            except socket.timeout:
+                continue
+            except OSError:
+                break
+            conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
+            conn.settimeout(_POLL_S)
+            with self._lock:
+                self._connections.add(conn)
+            self._log("connection", f"open {peer[0]}:{peer[1]}")
+            self._spawn(self._serve, f"sim-{self.role}-conn", conn)
+
+    def _log(self, kind: str, text: str) -> None:
+        core = self.instrument.core
+        core.log.add(self.role, kind, text, core.now())
+
+    def _serve(self, conn: socket.socket) -> None:
+        buffer = b""
+        skipping = False  # inside an over-long line, dropping bytes up to its newline
+        try:
+            while not self._stopping.is_set():
+                try:
+                    chunk = conn.recv(65536)
+                except socket.timeout:
+                    continue
+                except OSError:
+                    break
+                if not chunk:
+                    break  # peer closed; a partial line is discarded
+                buffer += chunk
+                while b"\n" in buffer:
+                    line, buffer = buffer.split(b"\n", 1)
+                    if skipping:
+                        skipping = False
+                        continue
+                    if not self._handle_line(conn, line):
+                        return
+                if len(buffer) > MAX_LINE_BYTES:
+                    buffer = b""
+                    if not skipping:
+                        skipping = True
+                        with self.instrument.core.lock:
+                            self.instrument.status.push(-223, "Too much data; line longer than "
+                                                        f"{MAX_LINE_BYTES} bytes")
+        finally:
+            self._close(conn)
+
+    def _close(self, conn: socket.socket) -> None:
+        with self._lock:
+            self._connections.discard(conn)
+        try:
+            conn.close()
+        except OSError:
+            pass
+
+    def _handle_line(self, conn: socket.socket, raw: bytes) -> bool:
+        """Execute one line and send its reply; False when the connection must close."""
+        if raw.endswith(b"\r"):
+            raw = raw[:-1]
+        if not raw.strip():
+            return True
+        text = raw.decode("utf-8", errors="replace")
+        core = self.instrument.core
+        with core.lock:
+            number = self.faults.note_message()
+            self._log("command", text[:_LOGGED_TEXT_CHARS])
+        if self.faults.hung(number):
+            self._log("fault", f"hang: message {number} ignored")
+            return True
+        replies = self.instrument.execute(text)
+        if self.faults.drop_now(number):
+            self._log("fault", f"drop: connection closed after message {number}")
+            try:
+                conn.shutdown(socket.SHUT_RDWR)
+            except OSError:
+                pass
+            return False
+        if self.latency_s > 0:
+            time.sleep(self.latency_s)
+        if not replies:
+            return True
+        if self.faults.muted(number):
+            self._log("fault", f"mute: reply to message {number} withheld")
+            return True
+        reply = ";".join(replies)
+        if self.faults.garble_next_reply():
+            self._log("fault", f"garble: reply to message {number} garbled")
+            reply = garble(reply)
+        if self.faults.extra_delay_s > 0:
+            time.sleep(self.faults.extra_delay_s)
+        try:
+            conn.sendall(reply.encode("ascii", errors="replace") + b"\n")
+        except OSError:
+            return False
+        return True
+
+    def stop(self, join_timeout_s: float = 2.0) -> None:
+        """Stop accepting, close every connection and wait for the threads."""
+        self._stopping.set()
+        if self._listener is not None:
+            try:
+                self._listener.shutdown(socket.SHUT_RDWR)  # wakes a blocked accept() on Linux
+            except OSError:
+                pass
+            try:
+                self._listener.close()
+            except OSError:
+                pass
+        with self._lock:
+            connections = list(self._connections)
+            threads = list(self._threads)
+        for conn in connections:
+            try:
+                conn.shutdown(socket.SHUT_RDWR)
+            except OSError:
+                pass
+        deadline = time.monotonic() + join_timeout_s
+        for thread in threads:
+            if thread is not threading.current_thread():
+                thread.join(max(0.0, deadline - time.monotonic()))

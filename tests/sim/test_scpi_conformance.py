@@ -1,0 +1,169 @@
+"""SCPI conformance of the simulated instruments, over real TCP through pyvisa-py.
+
+Sources: IEEE Std 488.2-1992 (common commands, status reporting, message exchange) and
+SCPI-1999 vol. 1 (headers: short/long forms, optional nodes, ';' chaining, path rules, special
+values) and vol. 2 ch. 21 (error codes and queue behaviour).
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.sim.scpi import CommandSpec, CommandTable, ScpiError, compile_pattern, parse_unit
+from tests.sim.conftest import drain_errors, error_code
+
+
+def test_identity_names_the_invented_maker(supply, meter):
+    # IEEE 488.2 10.14: *IDN? -> four fields maker,model,serial,firmware
+    fields = supply.query("*IDN?").split(",")
+    assert len(fields) == 4 and fields[0] == "BENCHLAB-SIM" and fields[1] == "PSU-1"
+    assert meter.query("*IDN?").split(",")[1] == "DMM-1"
+
+
+@pytest.mark.parametrize("command", [
+    "VOLT 2.5", "VOLTAGE 2.5", "volt 2.5", "Voltage 2.5", "SOUR:VOLT 2.5", "SOURCE:VOLTAGE:LEVEL 2.5",
+    "sour:volt:lev:imm:ampl 2.5", "VOLT:LEV:IMM:AMPL 2.5", ":SOUR:VOLT 2.5", "VOLT 2500 MV", "VOLT 2.5V",
+])
+def test_short_long_forms_case_and_optional_nodes_are_accepted(supply, command):
+    # SCPI-1999 vol. 1, 6.2.1 (short/long form), 6.2.3 (case), 6.2.4 (optional nodes), 7.4 (suffix units)
+    supply.write(command)
+    assert float(supply.query("VOLT?")) == pytest.approx(2.5)
+    assert error_code(supply) == 0
+
+
+@pytest.mark.parametrize("command", ["VOLTA 1", "VOLTAG 1", "SOURC:VOLT 1", "SO:VOLT 1", "OUTPU ON"])
+def test_partial_long_forms_are_undefined_headers(supply, command):
+    # SCPI-1999 vol. 1, 6.2.1: only the short form or the whole long form is accepted -> -113
+    supply.write(command)
+    assert error_code(supply) == -113
+
+
+def test_chaining_with_relative_path_and_joined_replies(supply):
+    # SCPI-1999 vol. 1, 6.2.4-6.2.5: ';' chains units; a later header is relative to the last path;
+    # several queries in one message give one reply with the answers joined by ';'
+    supply.write("SOUR:VOLT 3;CURR 0.25")
+    reply = supply.query("VOLT?;CURR?;:OUTP?;*OPC?")
+    volts, amps, output, opc = reply.split(";")
+    assert float(volts) == pytest.approx(3.0)
+    assert float(amps) == pytest.approx(0.25)
+    assert output == "0" and opc == "1"
+
+
+def test_min_max_def_numeric_words(supply):
+    # SCPI-1999 vol. 1, 7.2.1.1: MINimum / MAXimum / DEFault for numeric parameters
+    supply.write("VOLT MAX")
+    assert float(supply.query("VOLT?")) == pytest.approx(30.0)
+    supply.write("VOLT MIN")
+    assert float(supply.query("VOLT?")) == pytest.approx(0.0)
+    assert float(supply.query("CURR? MAX")) == pytest.approx(3.0)
+
+
+@pytest.mark.parametrize("command, code", [
+    ("FOO:BAR 1", -113),                # undefined header
+    ("VOLT", -109),                     # missing parameter
+    ("OUTP ON,1", -108),                # parameter not allowed
+    ("*RST 5", -108),
+    ("VOLT abc", -104),                 # data type error (character data where NRf expected)
+    ("VOLT \"3\"", -104),               # string where NRf expected
+    ("VOLT 31", -222),                  # out of range (0-30 V)
+    ("CURR -1", -222),
+    ("VOLT 1e999", -222),
+    ("OUTP MAYBE", -224),               # illegal parameter value
+    ("VOLT 1 A", -131),                 # invalid suffix (amps for a voltage)
+    ("OUTP2 ON", -114),                 # header suffix out of range (one channel)
+    ("VOLT 1,,2", -102),                # syntax error
+    ("VOLT(3)", -102),
+    ("VOLT \"unterminated", -102),
+    ("VOLT \x01 1", -101),              # invalid character
+])
+def test_standard_error_codes(supply, command, code):
+    # SCPI-1999 vol. 2, 21.8 (command errors -1xx, execution errors -2xx)
+    supply.write(command)
+    assert drain_errors(supply) == [code]
+
+
+def test_command_error_discards_rest_of_message_but_execution_error_does_not(supply):
+    # IEEE 488.2 6.1.6: after a command (parser) error the rest of the message is not executed
+    supply.write("VOLT 1;BOGUS;VOLT 2")
+    assert float(supply.query("VOLT?")) == pytest.approx(1.0)
+    assert drain_errors(supply) == [-113]
+    supply.write("VOLT 99;CURR 0.2")
+    assert float(supply.query("CURR?")) == pytest.approx(0.2)
+    assert drain_errors(supply) == [-222]
+
+
+def test_error_queue_is_fifo_and_overflows_to_minus_350(supply):
+    # SCPI-1999 vol. 2, 21.8.1: FIFO; when full the most recent entry is replaced by -350
+    supply.write("VOLT 99")
+    supply.write("NOPE")
+    assert supply.query("SYST:ERR:COUN?") == "2"
+    assert drain_errors(supply) == [-222, -113]
+    for _ in range(20):
+        supply.write("NOPE")
+    codes = drain_errors(supply)
+    assert len(codes) == 16
+    assert codes[:15] == [-113] * 15 and codes[15] == -350
+    assert supply.query("SYST:ERR?") == '0,"No error"'
+    assert supply.query("SYSTEM:ERROR:NEXT?") == '0,"No error"'
+
+
+def test_event_status_and_status_byte(supply):
+    # IEEE 488.2 11.5.1: ESR bit 5 command error, bit 4 execution error; read clears it.
+    # SCPI-1999 vol. 1, 9: STB bit 2 = error queue not empty; bit 5 = ESB summary.
+    supply.write("*CLS")
+    assert int(supply.query("*ESR?")) == 0
+    supply.write("NOPE")
+    supply.write("VOLT 99")
+    stb = int(supply.query("*STB?"))
+    assert stb & 0b100 and stb & 0b100000
+    esr = int(supply.query("*ESR?"))
+    assert esr & (1 << 5) and esr & (1 << 4)
+    assert int(supply.query("*ESR?")) == 0
+    supply.write("*CLS")
+    assert int(supply.query("*STB?")) & 0b100 == 0
+    assert supply.query("SYST:VERS?") == "1999.0"
+
+
+def test_reset_turns_output_off_and_restores_defaults(bench, supply):
+    # IEEE 488.2 10.32: *RST sets the device-dependent default state
+    supply.write("VOLT 5;CURR 0.2;OUTP ON")
+    assert supply.query("OUTP?") == "1"
+    supply.write("*RST")
+    assert supply.query("OUTP?;VOLT?") .split(";")[0] == "0"
+    assert float(supply.query("VOLT?")) == 0.0
+    assert bench.log.output_history("supply") == [True, False]
+
+
+def test_fetch_without_reading_is_data_stale(meter):
+    # SCPI-1999 vol. 2, 21.8.3: -230 data corrupt or stale
+    meter.write("CONF:VOLT")
+    meter.write("FETC?")
+    assert drain_errors(meter) == [-230]
+
+
+def test_meter_overflow_reads_scpi_infinity(bench, supply, meter):
+    # SCPI-1999 vol. 1, 7.2.1.5: +INF is returned as 9.9E37 (over range)
+    # *OPC? makes sure the supply has applied the settings before the meter reads (separate sockets)
+    assert supply.query("CURR 0.5;VOLT 10;OUTP ON;*OPC?") == "1"
+    meter.write("CONF:VOLT 0.1")
+    assert meter.query("READ?") == "9.9E37"
+    meter.write("CONF:CURR 0.01")
+    assert meter.query("READ?") == "9.9E37"
+    meter.write("VOLT:RANG:AUTO ON")
+    meter.write("FUNC \"VOLT:DC\"")
+    assert 1.0 < float(meter.query("READ?")) < 5.0
+    supply.write("OUTP OFF")
+
+
+def test_header_matching_table_is_data():
+    # SCPI-1999 vol. 1, 6.2.1: short form = the uppercase letters
+    nodes = compile_pattern("[SOURce:]VOLTage[:LEVel]")
+    assert [(n.short, n.long, n.optional) for n in nodes] == [
+        ("SOUR", "SOURCE", True), ("VOLT", "VOLTAGE", False), ("LEV", "LEVEL", True)]
+    table = CommandTable([CommandSpec("[SOURce:]VOLTage[:LEVel]", False, "h", 1, 1)])
+    assert table.lookup(["SOUR", "VOLT", "LEV"], False) is not None
+    assert table.lookup(["VOLT"], True) is None
+    assert table.lookup(["LEV"], False) is None
+    with pytest.raises(ScpiError) as info:
+        parse_unit("VOLT 1,")
+    assert info.value.code == -102
