@@ -24,9 +24,21 @@ def json_default(value: Any) -> Any:
     raise TypeError(f"cannot store {type(value).__name__} as JSON")
 
 
+def _strict(value: Any) -> Any:
+    # JSON has no inf / NaN: stored (and exported) as null
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {k: _strict(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_strict(v) for v in value]
+    return value
+
+
 def to_json(value: Any) -> str:
-    """Compact JSON text for a database column."""
-    return json.dumps(value, default=json_default, sort_keys=True, separators=(",", ":"))
+    """Compact, strict JSON text for a database column (non-finite numbers become null)."""
+    plain = json.loads(json.dumps(value, default=json_default))
+    return json.dumps(_strict(plain), sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
 def finite_or_none(value: Any) -> float | None:
