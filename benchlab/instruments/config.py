@@ -319,13 +319,16 @@ def _positive(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail,
 
 # ---------------------------------------------------------------------------------------------
 # the built-in simulator bench
+SIM_SERIES_RESISTOR_OHM = 47.0  # the simulator's marked resistor (benchlab.sim.DEFAULT_SERIES_RESISTOR_OHM)
+SIM_MAX_SUPPLY_V = {"resistor": 30.0, "smu": 10.0}
 SIM_PROFILES = {"supply": "generic-scpi-supply", "meter": "generic-scpi-meter",
                 "source_meter": "generic-scpi-smu"}
 
 
-def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resistor", series_resistor_ohm: float = 10.0,
-                           *, max_supply_v: float = 12.0, max_drain_a: float = 0.5, max_power_w: float = 3.0,
-                           settle_s: float = 0.0, nplc: float = 1.0) -> BenchConfig:
+def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resistor",
+                           series_resistor_ohm: float = SIM_SERIES_RESISTOR_OHM, *, max_supply_v: float | None = None,
+                           max_drain_a: float = 0.5, max_power_w: float = 3.0, settle_s: float = 0.0,
+                           nplc: float = 1.0) -> BenchConfig:
     """The bench of the built-in simulator, so no file is needed to try the tool.
 
     Parameters
@@ -336,8 +339,11 @@ def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resisto
     fixture : str
         ``"resistor"`` or ``"smu"``.
     series_resistor_ohm : float
-        The simulated fixture's series resistor (pass the simulator's value).
-    max_supply_v, max_drain_a, max_power_w, settle_s, nplc : float
+        The simulated fixture's series resistor; pass ``SimBench.series_resistor_actual_ohm``
+        (what a careful user would measure).
+    max_supply_v : float, optional
+        Default: 30 V with the resistor fixture (the supply's range), 10 V with the SMU.
+    max_drain_a, max_power_w, settle_s, nplc : float
         Limits and timing; the defaults suit the invented demo bag of power MOSFETs.
 
     Raises
@@ -349,7 +355,8 @@ def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resisto
         raise ConfigError(f"must be one of {', '.join(FIXTURES)}, got {fixture!r}", key="fixture")
     data: dict[str, Any] = {
         "fixture": fixture,
-        "limits": {"max_supply_v": max_supply_v, "max_drain_a": max_drain_a, "max_power_w": max_power_w},
+        "limits": {"max_supply_v": max_supply_v if max_supply_v is not None else SIM_MAX_SUPPLY_V[fixture],
+                   "max_drain_a": max_drain_a, "max_power_w": max_power_w},
         "measurement": {"settle_s": settle_s, "nplc": nplc},
         "instruments": {role: {"resource": resources[role], "profile": SIM_PROFILES[role]}
                         for role in FIXTURE_ROLES[fixture] if role in resources},

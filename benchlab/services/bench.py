@@ -116,19 +116,9 @@ def check_simulator_bench(fixture: str = "resistor") -> BenchCheckReport:
 
     with SimBench(SimConfig(fixture=fixture, time_scale=0.0)) as sim:
         sim.start(first_port=0)
-        ohms = _simulator_resistor(sim)
         config = simulator_bench_config(sim.resources, fixture=fixture,
-                                        **({"series_resistor_ohm": ohms} if ohms else {}))
+                                        series_resistor_ohm=sim.series_resistor_actual_ohm)
         return check_bench(config, source=f"built-in simulator bench ({fixture} fixture)")
-
-
-def _simulator_resistor(sim: Any) -> float | None:
-    config = getattr(sim, "config", None)
-    for name in ("series_resistor_ohm", "resistor_ohm"):
-        value = getattr(config, name, None)
-        if isinstance(value, (int, float)) and value > 0:
-            return float(value)
-    return None
 
 
 def _check_instrument(bench: Bench, role: str, instrument: ScpiInstrument) -> InstrumentCheck:
