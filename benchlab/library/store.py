@@ -16,6 +16,7 @@ from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
 
 from benchlab.errors import LibraryError
 from benchlab.library import schema
+from benchlab.library.designs import DesignStore
 from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, to_json
 from benchlab.models import DeviceParams
 
@@ -65,7 +66,7 @@ def _row_to_part(row: Sequence[Any]) -> PartRecord:
     )
 
 
-class Library:
+class Library(DesignStore):
     """An open device library. Use :meth:`open`; it is a context manager that closes the file.
 
     Parameters
@@ -83,7 +84,8 @@ class Library:
 
     # -- opening ---------------------------------------------------------------------------------
     @classmethod
-    def open(cls, path: str | os.PathLike | None = None, *, timeout_s: float = 30.0) -> "Library":
+    def open(cls, path: str | os.PathLike | None = None, *, timeout_s: float = 30.0,
+             create: bool = True) -> "Library":
         """Open (creating and migrating as needed) the library at ``path`` (default :func:`default_library_path`).
 
         Parameters
@@ -92,6 +94,8 @@ class Library:
             The database file; its folder is created when missing.
         timeout_s : float
             How long a write waits for another writer before giving up.
+        create : bool
+            Create the file when it does not exist (else a ``LibraryError`` names the missing file).
 
         Returns
         -------
@@ -100,6 +104,9 @@ class Library:
         target = Path(path) if path is not None else default_library_path()
         if target.exists() and target.is_dir():
             raise LibraryError(f"{target}: is a folder, not a library file")
+        if not create and not target.exists():
+            raise LibraryError(f"{target}: no library here yet (add a part or import a session first, "
+                               f"or name another file with --library)")
         try:
             target.parent.mkdir(parents=True, exist_ok=True)
             connection = sqlite3.connect(str(target), isolation_level=None, timeout=timeout_s)
@@ -347,90 +354,6 @@ class Library:
                                  status=[p[3] for p in pts])
                 result.append(sweep)
         return result
-
-    # -- designs and bins ------------------------------------------------------------------------
-    def record_design(self, design: Mapping[str, Any], parts: Sequence[PartRecord | str | int],
-                      state: str = "reserved") -> int:
-        """Store a design (plain JSON data) and move its parts from in_stock to ``reserved`` or ``used``.
-
-        The parts are kept in the given order (by convention the reference part first). Nothing is written
-        when any part is not in stock.
-
-        Returns
-        -------
-        int
-            The design's id.
-        """
-        if state not in ("reserved", "used"):
-            raise LibraryError(f"a design can reserve or use its parts, not set them to '{state}'")
-        text = to_json(dict(design))
-        with self.write() as conn:
-            records = [self.get_part(p) for p in parts]
-            if len({r.id for r in records}) != len(records):
-                raise LibraryError("a design lists the same part twice")
-            for r in records:
-                if r.state != "in_stock":
-                    raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
-            cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
-                               (utc_now(), str(design.get("kind", "")), text))
-            design_id = int(cur.lastrowid)
-            for position, r in enumerate(records):
-                conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
-                             (design_id, r.id, position))
-                self._change_state(r.id, r.state, state, f"design {design_id}")
-        return design_id
-
-    def design(self, design_id: int) -> dict[str, Any]:
-        """A recorded design: its stored data plus ``design_id``, ``recorded_at`` and ``recorded_parts``.
-
-        ``recorded_parts`` lists ``{"lot", "label", "state", "position"}`` in the order given when recorded.
-        """
-        with self.snapshot() as conn:
-            row = conn.execute("SELECT created, design_json FROM designs WHERE id = ?", (int(design_id),)).fetchone()
-            if row is None:
-                raise LibraryError(f"no design {design_id} in the library")
-            members = conn.execute(
-                "SELECT l.name, p.label, p.state, d.position FROM design_parts d JOIN parts p ON p.id = d.part_id "
-                "JOIN lots l ON l.id = p.lot_id WHERE d.design_id = ? ORDER BY d.position", (int(design_id),)
-            ).fetchall()
-        data = json.loads(row[1])
-        data.update(design_id=int(design_id), recorded_at=row[0],
-                    recorded_parts=[{"lot": m[0], "label": m[1], "state": m[2], "position": m[3]} for m in members])
-        return data
-
-    def designs(self) -> list[dict[str, Any]]:
-        """Summary of every design: id, when, kind and how many parts it holds."""
-        rows = self._conn.execute(
-            "SELECT d.id, d.created, d.kind, count(dp.part_id) FROM designs d "
-            "LEFT JOIN design_parts dp ON dp.design_id = d.id GROUP BY d.id ORDER BY d.id").fetchall()
-        return [{"id": r[0], "created": r[1], "kind": r[2], "parts": r[3]} for r in rows]
-
-    def record_binning(self, scheme: Mapping[str, Any], members: Mapping[str, Sequence[PartRecord | str]]) -> int:
-        """Store a binning: the scheme (plain JSON, e.g. current and window width) and the parts of each bin."""
-        with self.write() as conn:
-            cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
-                               (utc_now(), to_json(dict(scheme))))
-            binning_id = int(cur.lastrowid)
-            for bin_name, parts in members.items():
-                for part in parts:
-                    record = self.get_part(part)
-                    conn.execute("INSERT INTO bin_members (binning_id, part_id, bin) VALUES (?, ?, ?)",
-                                 (binning_id, record.id, str(bin_name)))
-        return binning_id
-
-    def binning(self, binning_id: int) -> dict[str, Any]:
-        """A stored binning: ``{"id", "created", "scheme", "bins": {bin: ["LOT/LABEL", ...]}}``."""
-        with self.snapshot() as conn:
-            row = conn.execute("SELECT created, scheme_json FROM binnings WHERE id = ?", (int(binning_id),)).fetchone()
-            if row is None:
-                raise LibraryError(f"no binning {binning_id} in the library")
-            members = conn.execute(
-                "SELECT b.bin, l.name, p.label FROM bin_members b JOIN parts p ON p.id = b.part_id "
-                "JOIN lots l ON l.id = p.lot_id WHERE b.binning_id = ? ORDER BY b.bin", (int(binning_id),)).fetchall()
-        bins: dict[str, list[str]] = {}
-        for bin_name, lot, label in members:
-            bins.setdefault(bin_name, []).append(f"{lot}/{label}")
-        return {"id": int(binning_id), "created": row[0], "scheme": json.loads(row[1]), "bins": bins}
 
     # -- whole-library operations (implemented in sibling modules) --------------------------------
     def import_session(self, path: str | os.PathLike, refit: bool = True, *, lot: str | None = None,

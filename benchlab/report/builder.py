@@ -11,7 +11,7 @@ from benchlab.errors import InputError
 from benchlab.models import DeviceParams, solve_resistor_line
 from benchlab.report import figures
 from benchlab.report.data import ReportData
-from benchlab.report.html_page import cautions_section, design_section, esc, page, parts_table
+from benchlab.report.html_page import cautions_section, design_section, page, parts_table
 from benchlab.library.store import utc_now
 
 
@@ -99,5 +99,3 @@ def build_report(data: ReportData, out_dir: str | os.PathLike) -> ReportFiles:
     return ReportFiles(folder=str(folder), index=str(index), figures=tuple(str(folder / n) for n in names.values()),
                        operating_point=operating_point)
 
-
-__all__ = ["build_report", "ReportFiles", "esc"]

@@ -17,6 +17,7 @@ class SweepTrace:
     label: str
     vgs: tuple[float, ...]
     id: tuple[float, ...]
+    rejected: bool = False
 
 
 @dataclass(frozen=True)
@@ -68,7 +69,8 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
                 points = [(v, i) for v, i, s in zip(sweep["vgs"], sweep["id"], sweep["status"])
                           if s == "ok" and v is not None and i is not None and math.isfinite(v) and i > 0]
                 if points:
-                    traces.append(SweepTrace(part.label, tuple(p[0] for p in points), tuple(p[1] for p in points)))
+                    traces.append(SweepTrace(part.label, tuple(p[0] for p in points), tuple(p[1] for p in points),
+                                             rejected=part.state == "rejected"))
         design = lib.design(design_id) if design_id is not None else None
         reference = None
         if design is not None:

@@ -34,9 +34,12 @@ def sweeps_figure(traces: Sequence[SweepTrace], title: str) -> Figure:
     """Every sweep overlaid, drain current on a log axis against VGS."""
     fig = _new_figure()
     ax = fig.add_subplot()
-    colours = _colours(len(traces))
-    for trace, colour in zip(traces, colours):
+    kept = [t for t in traces if not t.rejected]
+    for trace, colour in zip(kept, _colours(len(kept))):
         ax.semilogy(trace.vgs, trace.id, ".-", ms=2.5, lw=0.8, color=colour, label=trace.label)
+    for trace in traces:
+        if trace.rejected:  # duds stay visible, but greyed out
+            ax.semilogy(trace.vgs, trace.id, "--", lw=0.8, color="#b0b0b0", label=f"{trace.label} (rejected)")
     if not traces:
         ax.text(0.5, 0.5, "no measured sweeps in this lot", ha="center", va="center", transform=ax.transAxes)
     ax.set_xlabel("VGS = VDS (V)")

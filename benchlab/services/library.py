@@ -22,9 +22,9 @@ def library_path(path: str | os.PathLike | None = None) -> Path:
     return Path(path).expanduser() if path else default_library_path()
 
 
-def open_library(path: str | os.PathLike | None = None) -> Library:
-    """Open (creating when needed) the library at :func:`library_path` ``(path)``."""
-    return Library.open(library_path(path))
+def open_library(path: str | os.PathLike | None = None, *, create: bool = False) -> Library:
+    """Open the library at :func:`library_path` ``(path)``; only commands that add data ``create`` it."""
+    return Library.open(library_path(path), create=create)
 
 
 def hand_params(vth: float | None, gm: float | None = None, kp: float | None = None,
@@ -72,7 +72,7 @@ def add_part(path, label: str, *, lot: str = "default", polarity: str = "N", vth
     params = None
     if vth is not None or gm is not None or kp is not None or theta is not None:
         params = hand_params(vth, gm, kp, theta)
-    with open_library(path) as lib:
+    with open_library(path, create=True) as lib:
         return lib.add_part(label, lot=lot, polarity=polarity, params=params, package=package, notes=notes)
 
 
@@ -100,7 +100,7 @@ def import_sessions(path, session_dirs: Sequence[str], *, lot: str | None = None
                     model: str = "auto"):
     """Import session folders (re-fitting each good sweep with the fitter unless ``refit`` is False)."""
     fit = fit_function(model) if refit else None
-    with open_library(path) as lib:
+    with open_library(path, create=True) as lib:
         return lib.import_sessions(session_dirs, refit=refit, lot=lot, fit_function=fit)
 
 
@@ -112,7 +112,7 @@ def import_json_file(path, json_file: str) -> dict[str, int]:
         raise InputError(f"cannot read: {exc.strerror or exc}", path=json_file) from exc
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise InputError(f"not valid JSON: {exc}", path=json_file) from exc
-    with open_library(path) as lib:
+    with open_library(path, create=True) as lib:
         return lib.import_json(data)
 
 

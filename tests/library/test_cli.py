@@ -113,3 +113,12 @@ def test_exported_spice_cards_reproduce_the_stored_curves_in_ngspice(capsys, tmp
             # ngspice (level 1: ID = KP/2 (VGS-VTO)^2; level 3 with THETA) as the outside reference:
             # the stored curve and the exported card agree within 1 mV
             assert vgs == pytest.approx(float(part.params.vgs_at(current)), abs=1e-3)
+
+
+def test_read_commands_do_not_create_a_library(capsys, tmp_path):
+    missing = tmp_path / "nowhere" / "lib.db"
+    for argv in (["parts", "list"], ["parts", "show", "Q1"], ["export", "csv"], ["library", "info"],
+                 ["report", "--lot", "x", "--out", str(tmp_path / "r")]):
+        code, out, err = run(capsys, *argv, "--library", str(missing))
+        assert code == 2 and "no library here yet" in err and err.count("\n") == 1
+    assert not missing.exists() and not missing.parent.exists() and not (tmp_path / "r").exists()
