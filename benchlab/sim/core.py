@@ -74,12 +74,12 @@ class BenchCore:
         Counts the reading and fires a pending open/short DUT fault when its count is reached.
         """
         self.spend(integration_s)
-        self.readings_taken += 1
         while self._dut_faults and self.readings_taken >= self._dut_faults[0][0]:
             count, kind = self._dut_faults.pop(0)
             self.fixture.fail(kind, self.clock.now())
             label = self.fixture.part.label if self.fixture.part else "-"
             self.log.add("bench", "fault", f"part {label} failed {kind} after {count} readings", self.now())
+        self.readings_taken += 1
         return self.fixture.operating_point()
 
     def noise(self, sigma: float) -> float:

@@ -22,7 +22,8 @@ class LogEntry:
     """One log line.
 
     ``kind`` is ``command`` (text = the line received), ``output`` (text ``ON``/``OFF``),
-    ``part`` (a part was loaded), ``fault`` (an injected fault fired) or ``connection``.
+    ``part`` (a part was loaded), ``fault`` (an injected fault fired), ``input`` (bad input skipped)
+    or ``connection``.
     ``time`` is wall-clock seconds (Unix), ``virtual_s`` the bench's virtual clock.
     """
 

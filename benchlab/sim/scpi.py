@@ -340,7 +340,7 @@ def numeric_value(param: Param, low: float, high: float, *, default: float | Non
         raise ScpiError(-104, "string where a number was expected")
     value = _apply_suffix(param, unit)
     if not math.isfinite(value) or value < low or value > high:
-        raise ScpiError(-222, f"{param.text} not in [{low:g}, {high:g}]")
+        raise ScpiError(-222, f"{param.text[:24]} not in [{low:g}, {high:g}]")
     return value
 
 

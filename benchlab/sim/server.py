@@ -112,17 +112,23 @@ class InstrumentServer:
                     if skipping:
                         skipping = False
                         continue
+                    if len(line) > MAX_LINE_BYTES:
+                        self._too_long()
+                        continue
                     if not self._handle_line(conn, line):
                         return
                 if len(buffer) > MAX_LINE_BYTES:
                     buffer = b""
                     if not skipping:
                         skipping = True
-                        with self.instrument.core.lock:
-                            self.instrument.status.push(-223, "Too much data; line longer than "
-                                                        f"{MAX_LINE_BYTES} bytes")
+                        self._too_long()
         finally:
             self._close(conn)
+
+    def _too_long(self) -> None:
+        with self.instrument.core.lock:
+            self.instrument.status.push(-223, f"Too much data; line longer than {MAX_LINE_BYTES} bytes")
+        self._log("input", "over-long line skipped")
 
     def _close(self, conn: socket.socket) -> None:
         with self._lock:

@@ -1,0 +1,170 @@
+"""The in-process API (SimBench / SimConfig), the virtual clock, the log and the `benchlab sim` command."""
+
+from __future__ import annotations
+
+import json
+import os
+import signal
+import socket
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from benchlab.errors import InputError, InstrumentError
+from benchlab.sim import BenchLog, SimBench, SimConfig
+from benchlab.sim.clock import VirtualClock
+from tests.sim.conftest import open_client
+
+REPO = Path(__file__).resolve().parents[2]
+
+
+@pytest.mark.parametrize("kwargs", [
+    {"fixture": "breadboard"}, {"bag_size": 0}, {"time_scale": -1.0}, {"latency_s": -0.1},
+    {"series_resistor_nominal_ohm": 0.0}, {"faults": ("mute=abc",)}, {"time_scale": float("nan")},
+])
+def test_bad_config_is_one_clear_error(kwargs):
+    with pytest.raises(InputError):
+        SimConfig(**kwargs)
+
+
+def test_resources_and_context_manager(rm):
+    with SimBench(SimConfig(time_scale=0.0)) as bench:
+        resources = bench.start(first_port=0)
+        assert set(resources) == {"supply", "meter", "source_meter"}
+        for role, resource in resources.items():
+            assert resource.startswith("TCPIP0::127.0.0.1::") and resource.endswith("::SOCKET")
+        models = {role: open_client(rm, res).query("*IDN?").split(",")[1] for role, res in resources.items()}
+        assert models == {"supply": "PSU-1", "meter": "DMM-1", "source_meter": "SMU-1"}
+        port = bench.ports["supply"]
+    with pytest.raises(OSError):
+        socket.create_connection(("127.0.0.1", port), timeout=1).close()
+
+
+def _free_base_port() -> int:
+    for _ in range(20):
+        probe = socket.socket()
+        probe.bind(("127.0.0.1", 0))
+        base = probe.getsockname()[1]
+        probe.close()
+        if base < 65000:
+            return base
+    pytest.skip("no free port range found")
+
+
+def test_first_port_then_consecutive_ports():
+    base = _free_base_port()
+    with SimBench(SimConfig(time_scale=0.0)) as bench:
+        try:
+            bench.start(first_port=base)
+        except InstrumentError:
+            pytest.skip("a port next to the free one was taken meanwhile")
+        assert bench.ports == {"supply": base, "meter": base + 1, "source_meter": base + 2}
+
+
+def test_port_in_use_is_a_clear_error_and_nothing_listens():
+    with SimBench(SimConfig(time_scale=0.0)) as first:
+        first.start(first_port=0)
+        taken = first.ports["supply"]
+        second = SimBench(SimConfig(time_scale=0.0))
+        with pytest.raises(InstrumentError, match="cannot listen"):
+            second.start(first_port=taken)
+        assert all(server._stopping.is_set() for server in second._servers.values())
+
+
+def test_log_file_is_json_lines_and_proves_output_off(tmp_path, rm):
+    path = tmp_path / "sim.jsonl"
+    with SimBench(SimConfig(time_scale=0.0, log_path=str(path))) as bench:
+        bench.start()
+        supply = open_client(rm, bench.resources["supply"])
+        assert supply.query("CURR 0.1;VOLT 5;OUTP ON;*OPC?") == "1"
+        on_log = BenchLog.read_file(path)
+        assert on_log.output_was_left_on()
+        assert supply.query("OUTP OFF;*OPC?") == "1"
+    lines = path.read_text().splitlines()
+    assert all(json.loads(line)["role"] for line in lines)
+    log = BenchLog.read_file(path)
+    assert log.output_history("supply") == [True, False]
+    assert not log.output_was_left_on()
+    assert "CURR 0.1;VOLT 5;OUTP ON;*OPC?" in log.commands("supply")
+    torn = BenchLog.from_lines(lines + ['{"time": 1, "virt'])
+    assert len(torn.entries()) == len(lines)
+
+
+def test_virtual_clock_books_nominal_time_and_sleeps_scaled():
+    real = [100.0]
+    slept = []
+    clock = VirtualClock(0.001, real_time=lambda: real[0], sleep=slept.append)
+    clock.spend(2.0)
+    real[0] += 0.002  # the real sleep
+    assert slept == [pytest.approx(0.002)]
+    assert clock.now() == pytest.approx(2.0)
+    real[0] += 1.0  # real time passing between operations counts too
+    assert clock.now() == pytest.approx(3.0)
+    still = VirtualClock(0.0, real_time=lambda: 0.0, sleep=slept.append)
+    still.spend(5.0)
+    assert still.now() == 5.0 and len(slept) == 1
+
+
+def test_thermal_history_follows_the_virtual_clock_not_the_wall(make_bench, rm):
+    # with time_scale 0 a minute of dwell heats the part as much as a real minute would:
+    # first-order response T = Tamb + P Rth (1 - exp(-t / tau)) (Newton's law of cooling)
+    bench = make_bench(fixture="smu")
+    smu = open_client(rm, bench.resources["source_meter"])
+    smu.write("FUNC CURR;:SENS:VOLT:PROT 20;:CURR 0.2;:OUTP ON")
+    smu.write("LIST:CURR 0.2;:LIST:DWEL 45;:CURR:MODE LIST;:INIT")
+    volts, amps = (float(x) for x in smu.query("READ?").split(","))
+    temperature = float(smu.query("SIM:TEMP?"))
+    assert smu.query("OUTP OFF;*OPC?") == "1"
+    rise = temperature - 300.15
+    steady = volts * amps * 62.0
+    # about one time constant (45 s): 1 - 1/e = 63 % of the steady rise (the power drifts a little as it heats)
+    assert 0.5 * steady < rise < 0.8 * steady
+    assert bench.virtual_time_s > 45.0
+
+
+def _start_cli(tmp_path, *extra):
+    log_path = tmp_path / "cli.jsonl"
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "benchlab", "sim", "--port", "0", "--time-scale", "0", "--log", str(log_path),
+         *extra],
+        cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )
+    lines = [proc.stdout.readline().strip() for _ in range(3)]
+    return proc, log_path, dict(line.split(" ", 1) for line in lines if line)
+
+
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT])
+def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum):
+    proc, log_path, resources = _start_cli(tmp_path, "--fixture", "smu", "--seed", "5")
+    try:
+        assert set(resources) == {"supply", "meter", "source_meter"}
+        smu = open_client(rm, resources["source_meter"])
+        assert smu.query("SIM:PART:LAB?") == '"Q01"'
+        assert smu.query("OUTP ON;OUTP OFF;*OPC?") == "1"
+        smu.close()
+        proc.send_signal(signum)
+        assert proc.wait(timeout=20) == 0
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    log = BenchLog.read_file(log_path)
+    assert log.output_history("source_meter") == [True, False]
+    assert not log.output_was_left_on()
+
+
+def test_cli_bad_fault_is_one_line_error():
+    run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--fault", "explode=1"], cwd=REPO,
+                         capture_output=True, text=True, timeout=60)
+    assert run.returncode == 2
+    assert run.stderr.strip().startswith("benchlab: error: fault 'explode=1'")
+    assert "Traceback" not in run.stderr and len(run.stderr.strip().splitlines()) == 1
+
+
+def test_cli_help_lists_every_option():
+    run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--help"], cwd=REPO, capture_output=True,
+                         text=True, timeout=60)
+    for option in ("--host", "--port", "--fixture", "--seed", "--bag-size", "--time-scale", "--latency",
+                   "--fault", "--log"):
+        assert option in run.stdout
