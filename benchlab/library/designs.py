@@ -36,7 +36,7 @@ class DesignStore:
                 if r.state != "in_stock":
                     raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
             cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
-                               (_utc_now(), str(design.get("kind", "")), text))
+                               (_utc_now(), str(design.get("kind") or design.get("mode") or ""), text))
             design_id = int(cur.lastrowid)
             for position, r in enumerate(records):
                 conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",

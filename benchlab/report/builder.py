@@ -72,12 +72,13 @@ def build_report(data: ReportData, out_dir: str | os.PathLike) -> ReportFiles:
         resistor = _number(design, "r_chosen", "resistor", "r_exact")
         if supply and resistor and supply > 0 and resistor > 0:
             params: DeviceParams = data.reference.params
-            vgs_solved, id_solved = solve_resistor_line(params, supply, resistor)
+            source_resistor = _number(design, "source_resistor") or 0.0
+            vgs_solved, id_solved = solve_resistor_line(params, supply, resistor, source_resistor)
             operating_point = {"part": data.reference.spec, "supply": supply, "resistor": resistor,
-                               "vgs": vgs_solved, "id": id_solved}
+                               "source_resistor": source_resistor, "vgs": vgs_solved, "id": id_solved}
             emit("operating_point", figures.operating_point_figure(
                 params, data.reference.label, supply, resistor, _number(design, "vgs"),
-                _number(design, "i_ref", "current")))
+                _number(design, "i_ref", "current"), source_resistor))
     chosen = {label for s in data.design_sets for label in s}
     body = [
         "<h2>Sweeps</h2>", f'<img src="{names["sweeps"]}" alt="all sweeps, drain current on a log axis">',

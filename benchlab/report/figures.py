@@ -100,21 +100,25 @@ def scatter_figure(parts: Sequence[PartRecord], sets: Sequence[Sequence[str]]) -
 
 
 def operating_point_figure(params: DeviceParams, label: str, supply_v: float, resistor_ohm: float,
-                           vgs_op: float | None = None, id_op: float | None = None) -> Figure:
+                           vgs_op: float | None = None, id_op: float | None = None,
+                           source_resistor_ohm: float = 0.0) -> Figure:
     """The reference part's curve, the resistor line from the supply, and where they cross.
+
+    With a source resistor Rs the line in VGS coordinates is ID = (Vs - VGS) / (R + Rs).
 
     The crossing is solved here again (``solve_resistor_line``) and drawn next to the design's recorded
     operating point, so a stale or inconsistent design shows up as two separate marks.
     """
     fig = _new_figure()
     ax = fig.add_subplot()
-    vgs_solved, id_solved = solve_resistor_line(params, supply_v, resistor_ohm)
+    vgs_solved, id_solved = solve_resistor_line(params, supply_v, resistor_ohm, source_resistor_ohm)
     v_max = min(supply_v, max(vgs_solved * 1.5, params.vth + 1.0))
     v = np.linspace(max(0.0, params.vth - 0.5), v_max, 400)
     i_part = params.current(v)
-    i_line = (supply_v - v) / resistor_ohm
+    i_line = (supply_v - v) / (resistor_ohm + source_resistor_ohm)
     ax.plot(v, i_part * 1e3, color="#2c3e50", label=f"{label} ({params.model} curve)")
-    ax.plot(v, i_line * 1e3, color="#d35400", label=f"resistor line: {supply_v:g} V through {resistor_ohm:.4g} ohm")
+    ax.plot(v, i_line * 1e3, color="#d35400", label=f"resistor line: {supply_v:g} V through {resistor_ohm:.4g} ohm"
+            + (f" + {source_resistor_ohm:.4g} ohm in the source" if source_resistor_ohm else ""))
     ax.plot([vgs_solved], [id_solved * 1e3], "o", ms=8, mfc="none", mec="#27ae60", mew=2,
             label=f"solved: VGS {vgs_solved:.4f} V, ID {id_solved * 1e3:.4g} mA")
     if vgs_op is not None and id_op is not None:

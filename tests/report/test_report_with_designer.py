@@ -1,0 +1,42 @@
+"""A sink designed by benchlab.design from library parts, recorded, then reported."""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.library import Library
+from benchlab.models import DeviceParams
+from benchlab.report import build_report, collect
+
+sink = pytest.importorskip("benchlab.design.sink")
+design_parts = pytest.importorskip("benchlab.design.parts")
+
+
+@pytest.mark.parametrize("source_resistor", [0.0, 22.0])
+def test_designed_sink_is_reported_at_its_own_operating_point(tmp_path, source_resistor):
+    with Library.open(tmp_path / "lib.db") as lib:
+        records = [lib.add_part(f"Q{k}", lot="demo-bag",
+                                params=DeviceParams("theta", vth=3.0 + 0.01 * k, kp=1.2, theta=0.08))
+                   for k in range(1, 4)]
+        parts = [design_parts.Part(r.label, r.params, r.stderr, lot=r.lot, part_id=r.id) for r in records]
+        design = sink.synthesize_sink(12.0, 0.02, parts[0], parts[1:],
+                                      sink.SinkOptions(source_resistor_ohm=source_resistor))
+        design_id = lib.record_design(design.to_dict(), records)
+        files = build_report(collect(lib, "demo-bag", design_id), tmp_path / "report")
+        html = (tmp_path / "report" / "index.html").read_text()
+    op = files.operating_point
+    assert op["part"] == "demo-bag/Q1" and op["source_resistor"] == source_resistor
+    # the report solves the reference branch again; it lands on the designer's recorded point
+    assert op["id"] == pytest.approx(design.i_ref, rel=1e-9) and op["vgs"] == pytest.approx(design.vgs, abs=1e-9)
+    text = html_to_text(html)
+    assert design.cautions and all(caution in text for caution in design.cautions)
+
+
+def html_to_text(page: str) -> str:
+    from html.parser import HTMLParser
+
+    chunks = []
+    parser = HTMLParser()
+    parser.handle_data = chunks.append
+    parser.feed(page)
+    return "".join(chunks)
