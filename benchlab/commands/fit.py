@@ -1,0 +1,64 @@
+"""``benchlab fit``: fit threshold, KP/THETA or the full curve to recorded sweeps (no instrument needed)."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from benchlab.extract import MODEL_CHOICES
+from benchlab.services import fitting as service
+
+
+def _current(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a current in A (e.g. 250e-6)") from None
+    if not value > 0 or value != value or value == float("inf"):
+        raise argparse.ArgumentTypeError(f"{text} A: the current must be positive and finite")
+    return value
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError("the number of resamples must be 0 or more")
+    return value
+
+
+def register(subparsers) -> None:
+    parser = subparsers.add_parser(
+        "fit", help="fit recorded sweeps (CSV files or session records)",
+        description="Fit diode-connected sweeps: threshold voltage by several published definitions, KP, THETA, "
+                    "the EKV slope factor, gm at an operating current, with standard errors and warnings. Input: "
+                    "CSV files with a header row holding 'vgs' (V) and 'id' (A), or session records (a session "
+                    "folder, a part's .json sidecar or .csv). Points whose status is not 'ok' are never fitted. "
+                    "Nothing is measured: fits can be re-run from the raw points at any time.")
+    parser.add_argument("files", nargs="+", metavar="FILE", help="CSV file, part sidecar (.json) or session folder")
+    parser.add_argument("--model", choices=MODEL_CHOICES, default="auto",
+                        help="model to fit; auto chooses among square, theta and ekv by AICc (default auto)")
+    parser.add_argument("--at-current", type=_current, metavar="A",
+                        help="operating current for gm and VGS (also centres the linear model's window)")
+    parser.add_argument("--cc-current", type=_current, default=service.DEFAULT_CC_CURRENT, metavar="A",
+                        help="constant-current threshold criterion (default 250e-6 A)")
+    parser.add_argument("--window", type=_current, nargs=2, metavar=("LOW", "HIGH"),
+                        help="fit only points with LOW <= ID <= HIGH (A)")
+    parser.add_argument("--bootstrap", type=_count, default=0, metavar="N",
+                        help="standard errors from N residual-bootstrap resamples (default: from the fit covariance)")
+    parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
+    parser.add_argument("--save", action="store_true",
+                        help="append each fit to 'fits' in its session sidecar (session records only)")
+    parser.set_defaults(func=_fit)
+
+
+def _fit(args) -> int:
+    records = service.fit_files(args.files, model=args.model, at_current=args.at_current,
+                                cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
+                                bootstrap=args.bootstrap, save=args.save)
+    print(service.json_lines(records) if args.json else service.format_table(records))
+    if args.save:
+        print(f"saved {len(records)} fit(s) to their session sidecars", file=sys.stderr)
+    return 0

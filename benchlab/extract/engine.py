@@ -1,0 +1,336 @@
+"""Batched Levenberg-Marquardt fitting of the shared drain-current models.
+
+Many sweeps are fitted in one vectorised pass: the points of B sweeps are stacked in
+``(B, N)`` arrays (shorter sweeps padded and masked out), and every iteration builds
+all Jacobians, normal equations and damped steps at once with numpy. A single sweep is
+just a batch of one.
+
+Error model: relative residuals r = (model - measured) / measured, because bench
+currents span several decades and a meter's error grows with its reading. All models
+are compared on the same error model, so their residual sums are comparable.
+
+Parameter vectors (order matters; see :data:`PARAM_NAMES`):
+
+- ``linear``: (vth, gm)            ID = gm (VGS - Vth) above Vth
+- ``square``: (vth, kp)            ID = (KP/2) (VGS - Vth)^2
+- ``theta``:  (vth, kp, theta)     ID = (KP/2) Vov^2 / (1 + THETA Vov)
+- ``ekv``:    (vth, kp, theta, n)  the same with the EKV interpolated overdrive
+
+The formulas are those of :mod:`benchlab.models`; a test checks that the engine's
+model current equals :meth:`benchlab.models.DeviceParams.current`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from benchlab.models import thermal_voltage
+
+PARAM_NAMES: dict[str, tuple[str, ...]] = {
+    "linear": ("vth", "gm"),
+    "square": ("vth", "kp"),
+    "theta": ("vth", "kp", "theta"),
+    "ekv": ("vth", "kp", "theta", "n"),
+}
+
+# Lower bounds keep parameters physical (KP > 0, THETA >= 0, n >= 1); a parameter
+# resting on its bound is reported by the caller as a flag.
+_LOWER = {"vth": -np.inf, "gm": 1e-15, "kp": 1e-15, "theta": 0.0, "n": 1.0}
+
+
+@dataclass(frozen=True)
+class BatchFit:
+    """Outcome of :func:`solve_batch` for B sweeps.
+
+    Attributes
+    ----------
+    model : str
+        Model name.
+    params : ndarray, shape (B, P)
+        Best parameters, columns in :data:`PARAM_NAMES` order.
+    covariance : ndarray, shape (B, P, P)
+        s^2 (J^T J)^-1 at the solution, s^2 = RSS / (N - P) (relative-residual units).
+    rss : ndarray, shape (B,)
+        Sum of squared relative residuals.
+    n_points : ndarray, shape (B,)
+        Points fitted per sweep.
+    iterations : ndarray, shape (B,)
+        Iterations used per sweep.
+    converged : ndarray of bool, shape (B,)
+    """
+
+    model: str
+    params: np.ndarray
+    covariance: np.ndarray
+    rss: np.ndarray
+    n_points: np.ndarray
+    iterations: np.ndarray
+    converged: np.ndarray
+
+
+def model_current(model: str, vgs: np.ndarray, params: np.ndarray, ut: float = thermal_voltage()) -> np.ndarray:
+    """Drain current of ``model`` for stacked sweeps.
+
+    Parameters
+    ----------
+    model : str
+        One of ``linear``, ``square``, ``theta``, ``ekv``.
+    vgs : ndarray, shape (B, N)
+        Gate-source voltages (V).
+    params : ndarray, shape (B, P)
+        Parameters in :data:`PARAM_NAMES` order.
+    ut : float
+        Thermal voltage (V), ekv only.
+
+    Returns
+    -------
+    ndarray, shape (B, N)
+    """
+    current, _ = _current_and_jacobian(model, vgs, params, ut, want_jacobian=False)
+    return current
+
+
+def _current_and_jacobian(model, vgs, params, ut, want_jacobian=True):
+    # Written for speed (it is the inner loop of every fit): few temporaries, and the
+    # hard cut-off needs no extra mask because every derivative carries a factor q.
+    vth = params[:, 0:1]
+    if model == "linear":
+        gm = params[:, 1:2]
+        q = np.maximum(vgs - vth, 0.0)
+        current = gm * q
+        if not want_jacobian:
+            return current, None
+        return current, [-gm * (q > 0), q]
+    kp = params[:, 1:2]
+    if model == "ekv":
+        n = params[:, 3:4]
+        scale = 2.0 * n * ut
+        x = (vgs - vth) / scale
+        softplus = np.logaddexp(0.0, x)
+        q = scale * softplus
+        dq_dvov = 0.5 * (1.0 + np.tanh(0.5 * x))  # logistic(x), overflow-free
+    else:
+        q = np.maximum(vgs - vth, 0.0)
+    if model == "square":
+        half_q2 = 0.5 * q * q
+        current = kp * half_q2
+        if not want_jacobian:
+            return current, None
+        return current, [-kp * q, half_q2]
+    theta = params[:, 2:3]
+    inv_denom = 1.0 / (1.0 + theta * q)
+    half_q2_d = 0.5 * q * q * inv_denom
+    current = kp * half_q2_d
+    if not want_jacobian:
+        return current, None
+    kq_d = kp * q * inv_denom
+    di_dq = kq_d * (1.0 + 0.5 * theta * q) * inv_denom
+    d_theta = -kq_d * half_q2_d
+    if model == "theta":
+        return current, [-di_dq, half_q2_d, d_theta]
+    dq_dn = 2.0 * ut * (softplus - x * dq_dvov)
+    return current, [-di_dq * dq_dvov, half_q2_d, d_theta, di_dq * dq_dn]
+
+
+def lower_bounds(model: str) -> np.ndarray:
+    """Lower bound of each parameter of ``model`` (``-inf`` when unbounded)."""
+    return np.array([_LOWER[name] for name in PARAM_NAMES[model]])
+
+
+def _project(model, params):
+    return np.maximum(params, lower_bounds(model))
+
+
+def _residuals(model, vgs, inv, mask, params, ut):
+    # relative residuals (inv = mask / measured current) and the Jacobian columns, a
+    # list of (B, N) arrays: building the normal equations column by column is several
+    # times faster than a stacked matmul
+    current, columns = _current_and_jacobian(model, vgs, params, ut)
+    return current * inv - mask, [c * inv for c in columns]
+
+
+def _normal_equations(r, columns):
+    n_par = len(columns)
+    normal = np.empty((r.shape[0], n_par, n_par))
+    gradient = np.empty((r.shape[0], n_par))
+    for p in range(n_par):
+        gradient[:, p] = np.einsum("bn,bn->b", columns[p], r)
+        for q in range(p, n_par):
+            normal[:, p, q] = normal[:, q, p] = np.einsum("bn,bn->b", columns[p], columns[q])
+    return normal, gradient
+
+
+def _cost(model, vgs, inv, mask, params, ut):
+    r = model_current(model, vgs, params, ut) * inv - mask
+    return np.einsum("bn,bn->b", r, r)
+
+
+def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray, *,
+                ut: float = thermal_voltage(), max_iter: int = 100, tol: float = 1e-8) -> BatchFit:
+    """Levenberg-Marquardt on relative residuals for B stacked sweeps at once.
+
+    Parameters
+    ----------
+    model : str
+        Model name (see :data:`PARAM_NAMES`).
+    vgs, i_meas : ndarray, shape (B, N)
+        Measured points; padded entries may hold any positive value.
+    mask : ndarray, shape (B, N)
+        1.0 where a point takes part in the fit, 0.0 elsewhere.
+    start : ndarray, shape (B, P)
+        Starting parameters (see :func:`initial_guess`).
+    ut : float
+        Thermal voltage (V) for the ekv model.
+    max_iter : int
+        Iteration cap per sweep.
+    tol : float
+        Stop when a step changes every parameter by less than ``tol`` relative to its size.
+
+    Returns
+    -------
+    BatchFit
+    """
+    vgs = np.asarray(vgs, dtype=float)
+    i_meas = np.asarray(i_meas, dtype=float)
+    mask = np.asarray(mask, dtype=float)
+    # padded entries must not divide by zero
+    inv = mask / np.where(mask > 0, i_meas, 1.0)
+    params = _project(model, np.array(start, dtype=float))
+    n_batch, n_par = params.shape
+    cost = _cost(model, vgs, inv, mask, params, ut)
+    damping = np.full(n_batch, 1e-6)
+    iterations = np.zeros(n_batch, dtype=int)
+    converged = np.zeros(n_batch, dtype=bool)
+    active = np.arange(n_batch)
+    eye = np.eye(n_par)
+    lower = lower_bounds(model)
+    for _ in range(max_iter):
+        if active.size == 0:
+            break
+        v, w, m, p = vgs[active], inv[active], mask[active], params[active]
+        r, columns = _residuals(model, v, w, m, p, ut)
+        normal, gradient = _normal_equations(r, columns)
+        # active set: a parameter on its bound whose descent direction points out of the
+        # allowed range is held there (its row and column decouple), so the others can move
+        held = (p <= lower + 1e-12) & (gradient > 0)
+        if held.any():
+            free = ~held
+            normal = normal * (free[:, :, None] & free[:, None, :]) + held[:, :, None] * eye
+            gradient = np.where(held, 0.0, gradient)
+        diag = np.diagonal(normal, axis1=1, axis2=2)
+        # Marquardt scaling by diag(J^T J); the floor keeps columns with no information solvable
+        floor = 1e-12 * np.maximum(diag.max(axis=1, keepdims=True), 1e-300)
+        scaled = np.maximum(diag, floor)
+        lam = damping[active][:, None]
+        system = normal + (lam * scaled)[:, :, None] * eye + (floor[:, :, None] * eye)
+        step = -np.linalg.solve(system, gradient[..., None])[..., 0]
+        trial = _project(model, p + step)
+        trial_cost = _cost(model, v, w, m, trial, ut)
+        better = trial_cost <= cost[active]
+        moved = np.abs(trial - p) <= tol * (np.abs(p) + 1e-6)
+        # at the optimum, rounding makes steps fail by a hair: that counts as converged too
+        flat = np.abs(cost[active] - trial_cost) <= 1e-12 * cost[active]
+        small = np.all(moved, axis=1) | flat
+        params[active[better]] = trial[better]
+        cost[active[better]] = trial_cost[better]
+        damping[active] = np.where(better, damping[active] * 0.1, damping[active] * 10.0)
+        iterations[active] += 1
+        stalled = damping[active] > 1e12
+        done = small | stalled
+        converged[active[small]] = True
+        # a sweep that stalls with a tiny gradient is at its optimum too
+        converged[active[stalled]] = True
+        active = active[~done]
+    r, columns = _residuals(model, vgs, inv, mask, params, ut)
+    normal, _ = _normal_equations(r, columns)
+    n_points = mask.sum(axis=1)
+    dof = np.maximum(n_points - n_par, 1.0)
+    scale = cost / dof
+    covariance = np.linalg.pinv(normal) * scale[:, None, None]
+    return BatchFit(model=model, params=params, covariance=covariance, rss=cost, n_points=n_points,
+                    iterations=iterations, converged=converged)
+
+
+def _weighted_line(x, y, w):
+    # per-row weighted least-squares line y = a + b x (rows with < 2 points get b = nan)
+    sw = w.sum(axis=1)
+    mx = (w * x).sum(axis=1) / np.where(sw > 0, sw, 1.0)
+    my = (w * y).sum(axis=1) / np.where(sw > 0, sw, 1.0)
+    dx = x - mx[:, None]
+    sxx = (w * dx * dx).sum(axis=1)
+    sxy = (w * dx * (y - my[:, None])).sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        slope = sxy / sxx
+    return my - slope * mx, slope
+
+
+def initial_guess(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray,
+                  ut: float = thermal_voltage()) -> np.ndarray:
+    """Vectorised starting parameters from the data alone.
+
+    ``linear``: the weighted straight line itself. Square-law family: a straight line
+    through sqrt(ID) vs VGS over the upper part of each sweep (sqrt(ID) is linear in
+    VGS for a square law). ``ekv`` adds n from the steepest log-current slope
+    (weak inversion: d ln ID / dVGS = 1 / (n UT)).
+
+    Returns
+    -------
+    ndarray, shape (B, P)
+    """
+    vgs = np.asarray(vgs, dtype=float)
+    mask = np.asarray(mask, dtype=float)
+    i_pos = np.where(mask > 0, np.abs(i_meas), 0.0)
+    i_max = i_pos.max(axis=1, keepdims=True)
+    if model == "linear":
+        weights = mask / np.where(mask > 0, i_pos, 1.0) ** 2
+        intercept, slope = _weighted_line(vgs, i_pos, weights)
+        slope = np.where(np.isfinite(slope) & (slope > 0), slope, 1e-3)
+        return np.stack([-intercept / slope, slope], axis=1)
+    upper = mask * (i_pos >= 0.05 * i_max)
+    # fall back to every fitted point where the upper part has fewer than 3
+    upper = np.where(upper.sum(axis=1, keepdims=True) >= 3, upper, mask)
+    intercept, slope = _weighted_line(vgs, np.sqrt(i_pos), upper)
+    slope = np.where(np.isfinite(slope) & (slope > 0), slope, 1e-3)
+    vth = -intercept / slope
+    # the threshold cannot lie above the lowest conducting point of a hard-cut-off law
+    v_low = np.where(mask > 0, vgs, np.inf).min(axis=1)
+    vth = np.where(model in ("square", "theta"), np.minimum(vth, v_low - 1e-3), vth)
+    kp = 2.0 * slope * slope
+    if model == "square":
+        return np.stack([vth, kp], axis=1)
+    if model == "theta":
+        return _theta_start(vgs, np.where(mask > 0, i_pos, 1.0), mask, vth, kp, ut)
+    theta = np.full_like(vth, 0.01)
+    # vth, KP, THETA from a theta-law fit over the strong-inversion part (upper currents),
+    # where the EKV overdrive equals the plain one
+    strong = mask * (i_pos >= 0.02 * i_max)
+    strong = np.where(strong.sum(axis=1, keepdims=True) >= 4, strong, mask)
+    theta_fit = solve_batch("theta", vgs, np.where(mask > 0, i_pos, 1.0), strong,
+                            np.stack([vth, kp, theta], axis=1), ut=ut, max_iter=60)
+    vth, kp, theta = theta_fit.params.T
+    log_i = np.log(np.where(mask > 0, i_pos, 1.0))
+    dv = np.diff(vgs, axis=1)
+    both = (mask[:, 1:] > 0) & (mask[:, :-1] > 0) & (dv > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_slope = np.where(both, np.diff(log_i, axis=1) / np.where(both, dv, 1.0), 0.0)
+    steepest = log_slope.max(axis=1)
+    with np.errstate(divide="ignore"):
+        n = np.clip(1.0 / (ut * np.maximum(steepest, 1e-9)), 1.05, 4.0)
+    return np.stack([vth, kp, theta, n], axis=1)
+
+
+def _theta_start(vgs, i_meas, mask, vth, kp, ut):
+    # A square-law fit pins the threshold (the near-threshold points dominate relative
+    # residuals); then Vov^2 / (2 ID) = 1/KP + (THETA/KP) Vov is a straight line in Vov.
+    square = solve_batch("square", vgs, i_meas, mask, np.stack([vth, kp], axis=1), ut=ut, max_iter=3)
+    vth = square.params[:, 0]
+    vov = vgs - vth[:, None]
+    above = mask * (vov > 0)
+    y = np.where(above > 0, vov * vov / (2.0 * i_meas), 0.0)
+    intercept, slope = _weighted_line(vov, y, above * i_meas)
+    good = np.isfinite(intercept) & np.isfinite(slope) & (intercept > 0)
+    kp_line = np.where(good, 1.0 / np.where(good, intercept, 1.0), square.params[:, 1])
+    theta = np.where(good, np.clip(slope * kp_line, 0.0, 10.0), 0.0)
+    return np.stack([vth, kp_line, theta], axis=1)

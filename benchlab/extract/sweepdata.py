@@ -1,0 +1,265 @@
+"""Sweep data for fitting: validation of arrays and reading of CSV files.
+
+A :class:`Sweep` holds the points a fit may use (status ``ok`` only), each tagged with
+its sweep direction and the row it came from, so every complaint can name the file and
+row. Bad input raises :class:`benchlab.errors.InputError` with one clear sentence.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import re
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from benchlab.errors import InputError
+
+# Above these magnitudes the numbers are almost surely in mA / mV, not A / V: a bench
+# fixture for discrete parts does not pass 20 A or reach 100 V (common practice).
+MAX_PLAUSIBLE_CURRENT_A = 20.0
+MAX_PLAUSIBLE_VOLTAGE_V = 100.0
+
+DIRECTIONS = ("up", "down")
+_UNIT_SUFFIX = re.compile(r"^\s*([a-z_]+?)\s*(?:[\[(]\s*([a-zµ]+)\s*[\])])?\s*$")
+_SI_UNITS = {"vgs": "v", "id": "a"}
+
+
+@dataclass(frozen=True, eq=False)
+class Sweep:
+    """Validated points of one sweep, in measurement order.
+
+    Attributes
+    ----------
+    vgs, id : ndarray
+        Gate-source voltage (V) and drain current (A > 0) of every fittable point.
+    direction : ndarray of str
+        ``up`` or ``down`` per point.
+    rows : ndarray of int
+        1-based data row of each point in its file (or index + 1 for arrays).
+    source : str or None
+        The file the points came from.
+    skipped : dict
+        Rows left out of the fit, counted by reason (``over_range``, ``compliance``,
+        ``unsettled``, ``not_conducting``).
+    """
+
+    vgs: np.ndarray
+    id: np.ndarray
+    direction: np.ndarray
+    rows: np.ndarray
+    source: str | None = None
+    skipped: dict = field(default_factory=dict)
+
+    def select(self, direction: str) -> tuple[np.ndarray, np.ndarray]:
+        """VGS and ID of one direction's points, sorted by rising current (then VGS)."""
+        keep = self.direction == direction
+        order = np.lexsort((self.vgs[keep], self.id[keep]))
+        return self.vgs[keep][order], self.id[keep][order]
+
+    def in_order(self, direction: str) -> tuple[np.ndarray, np.ndarray]:
+        """VGS and ID of one direction's points in measurement order."""
+        keep = self.direction == direction
+        return self.vgs[keep], self.id[keep]
+
+    def fit_points(self) -> tuple[np.ndarray, np.ndarray]:
+        """Points a fit uses: the up sweep (the coolest pass) when there is one, else the down sweep."""
+        return self.select("up" if np.any(self.direction == "up") else "down")
+
+    @property
+    def has_both_directions(self) -> bool:
+        return bool(np.any(self.direction == "up") and np.any(self.direction == "down"))
+
+
+def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None = None,
+                    skipped: dict | None = None) -> Sweep:
+    """Check measured points and wrap them as a :class:`Sweep`.
+
+    Parameters
+    ----------
+    vgs, i_d : array_like
+        Gate-source voltage (V) and drain current (A), in measurement order.
+    direction : array_like of str, optional
+        ``up``/``down`` per point. Without it the order is inferred: rising VGS is an up
+        sweep, and one turn back down (a repeated, falling pass) is a down sweep.
+    rows : array_like of int, optional
+        Row numbers to name in errors (default: 1-based position).
+    source : str, optional
+        File name to name in errors.
+    skipped : dict, optional
+        Counts of points already left out, carried into the result.
+
+    Returns
+    -------
+    Sweep
+
+    Raises
+    ------
+    InputError
+        Empty data, mismatched lengths, NaN/inf, zero or negative current, numbers that look
+        like mA or mV, unsorted or duplicate points.
+    """
+    vgs = np.asarray(vgs, dtype=float).ravel()
+    i_d = np.asarray(i_d, dtype=float).ravel()
+    rows = np.arange(1, vgs.size + 1) if rows is None else np.asarray(rows, dtype=int).ravel()
+    if vgs.size != i_d.size:
+        raise InputError(f"vgs has {vgs.size} values but id has {i_d.size}", path=source)
+    if vgs.size == 0:
+        raise InputError("no data points to fit", path=source)
+    for name, values in (("vgs", vgs), ("id", i_d)):
+        bad = np.flatnonzero(~np.isfinite(values))
+        if bad.size:
+            raise InputError(f"{name} is not a finite number ({values[bad[0]]})", path=source, row=int(rows[bad[0]]))
+    bad = np.flatnonzero(i_d <= 0)
+    if bad.size:
+        raise InputError(f"drain current {i_d[bad[0]]:g} A is zero or negative; only conducting points "
+                         "(id > 0) can be fitted: remove the row or mark its status", path=source,
+                         row=int(rows[bad[0]]))
+    big = np.flatnonzero(i_d > MAX_PLAUSIBLE_CURRENT_A)
+    if big.size:
+        raise InputError(f"drain current {i_d[big[0]]:g} looks like mA, not A (the id column must be in "
+                         "amperes: divide by 1000)", path=source, row=int(rows[big[0]]))
+    big = np.flatnonzero(np.abs(vgs) > MAX_PLAUSIBLE_VOLTAGE_V)
+    if big.size:
+        raise InputError(f"vgs {vgs[big[0]]:g} looks like mV, not V (the vgs column must be in volts)",
+                         path=source, row=int(rows[big[0]]))
+    if direction is None:
+        direction = _infer_direction(vgs, i_d, rows, source)
+    else:
+        direction = np.asarray([str(d).strip().lower() for d in direction])
+        unknown = np.flatnonzero(~np.isin(direction, DIRECTIONS))
+        if unknown.size:
+            raise InputError(f"direction '{direction[unknown[0]]}' is not 'up' or 'down'", path=source,
+                             row=int(rows[unknown[0]]))
+    for name, sign in (("up", 1.0), ("down", -1.0)):
+        idx = np.flatnonzero(direction == name)
+        dv, di = sign * np.diff(vgs[idx]), sign * np.diff(i_d[idx])
+        same = (dv == 0) & (di == 0)
+        if np.any(same):
+            k = idx[1:][same][0]
+            raise InputError(f"duplicate point: vgs {vgs[k]:g} V, id {i_d[k]:g} A repeats the row before",
+                             path=source, row=int(rows[k]))
+        # VGS alone may step back by meter noise where the part is steep; both VGS and ID
+        # going backwards means the rows are out of order
+        back = (dv < 0) & (di < 0)
+        if np.any(back):
+            k = idx[1:][back][0]
+            raise InputError(f"unsorted point: vgs {vgs[k]:g} V, id {i_d[k]:g} A goes back against the "
+                             f"{name} sweep's order", path=source, row=int(rows[k]))
+    return Sweep(vgs=vgs, id=i_d, direction=direction, rows=rows, source=source, skipped=dict(skipped or {}))
+
+
+def _infer_direction(vgs, i_d, rows, source):
+    # a rising sweep, then at most one turn into a falling pass; a step counts as falling
+    # when both VGS and ID fall (VGS alone can jitter back by meter noise)
+    steps_v, steps_i = np.diff(vgs), np.diff(i_d)
+    falling = (steps_v < 0) & (steps_i < 0)
+    rising = (steps_v > 0) & (steps_i > 0)
+    direction = np.full(vgs.size, "up", dtype=object)
+    if not np.any(falling):
+        return direction.astype(str)
+    turn = int(np.flatnonzero(falling)[0])
+    if turn == 0 and not np.any(rising):
+        direction[:] = "down"
+        return direction.astype(str)
+    later = np.flatnonzero(rising[turn:])
+    if turn == 0 or later.size:
+        k = turn + 1 + (int(later[0]) if turn and later.size else 0)
+        raise InputError(f"unsorted point: vgs {vgs[k]:g} V is out of order (expected a rising sweep, "
+                         "optionally followed by one falling pass)", path=source, row=int(rows[k]))
+    direction[turn + 1:] = "down"
+    return direction.astype(str)
+
+
+def _column_index(header: list[str], path: str) -> dict[str, int]:
+    index = {}
+    for position, raw in enumerate(header):
+        match = _UNIT_SUFFIX.match(raw.strip().lower())
+        if not match:
+            continue
+        name, unit = match.group(1), match.group(2)
+        if name in _SI_UNITS and unit and unit != _SI_UNITS[name]:
+            raise InputError(f"column '{raw.strip()}' is in {unit}; benchlab reads SI units only "
+                             f"({name} in {_SI_UNITS[name].upper()})", path=path)
+        index.setdefault(name, position)
+    missing = [name for name in ("vgs", "id") if name not in index]
+    if missing:
+        found = ", ".join(h.strip() for h in header) or "nothing"
+        raise InputError(f"missing column(s) {', '.join(missing)}: need a header row with 'vgs' (V) and "
+                         f"'id' (A); found {found}", path=path)
+    return index
+
+
+def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
+    """Read a sweep from a CSV file with a header row holding at least ``vgs`` and ``id``.
+
+    Other columns are ignored, except ``status`` (only ``ok`` points are fitted; over-range,
+    compliance and unsettled points never are) and ``direction`` (``up``/``down``).
+
+    Parameters
+    ----------
+    path : str or Path
+        The CSV file (comma-separated, SI units).
+    detect_current : float, optional
+        For session records written by the sweep engine: ``ok`` points below this current
+        (the plan's detection current: the part did not conduct yet) are left out and
+        counted instead of being rejected as zero/negative currents.
+
+    Returns
+    -------
+    Sweep
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, empty file, wrong columns, or bad points (see
+        :func:`validate_points`), naming the file and row.
+    """
+    name = str(path)
+    try:
+        with open(path, newline="", encoding="utf-8-sig") as handle:
+            table = list(csv.reader(handle))
+    except FileNotFoundError:
+        raise InputError("no such file", path=name) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the file ({exc.__class__.__name__}: {exc})", path=name) from None
+    table = [row for row in table if any(cell.strip() for cell in row)]
+    if not table:
+        raise InputError("the file is empty (expected a header row with 'vgs' and 'id')", path=name)
+    header, body = table[0], table[1:]
+    index = _column_index(header, name)
+    if not body:
+        raise InputError("no data rows after the header", path=name)
+    status_col, direction_col = index.get("status"), index.get("direction")
+    vgs, i_d, direction, rows, skipped = [], [], [], [], {}
+    for row_number, row in enumerate(body, start=1):
+        status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
+        if status != "ok":
+            skipped[status] = skipped.get(status, 0) + 1
+            continue
+        values = []
+        for column in ("vgs", "id"):
+            position = index[column]
+            cell = row[position].strip() if position < len(row) else ""
+            try:
+                values.append(float(cell))
+            except ValueError:
+                raise InputError(f"{column} value '{cell}' is not a number", path=name, row=row_number) from None
+        if detect_current is not None and math.isfinite(values[1]) and values[1] < detect_current:
+            skipped["not_conducting"] = skipped.get("not_conducting", 0) + 1
+            continue
+        vgs.append(values[0])
+        i_d.append(values[1])
+        rows.append(row_number)
+        if direction_col is not None:
+            direction.append(row[direction_col] if direction_col < len(row) else "")
+    if not vgs:
+        raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
+    return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
+                           source=name, skipped=skipped)
+
+
+def _describe(skipped: dict) -> str:
+    return ", ".join(f"{count} {reason}" for reason, count in sorted(skipped.items())) or "none"
+

@@ -1,0 +1,218 @@
+"""Fitting service: find sweeps on disk, fit them in one batch, print or store the results.
+
+Inputs are plain CSV files (header row with ``vgs`` and ``id``) or session records
+(docs/session-format.md): a session folder, a part's ``.json`` sidecar or its ``.csv``.
+Every input is read and checked before anything is fitted or written, so bad input
+gets one clear error and leaves every file untouched.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+from benchlab.errors import InputError
+from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv
+from benchlab.extract.fit import DEFAULT_CC_CURRENT
+
+SESSION_FORMAT = "benchlab-session/1"
+SWEEP_FORMAT = "benchlab-sweep/1"
+# the JSON Lines keys every output line carries first (the full result follows)
+SUMMARY_KEYS = ("file", "label", "model", "vth", "kp", "theta", "vth_cc", "gm", "rms_residual", "stderr", "flags")
+
+
+@dataclass(frozen=True)
+class SweepSource:
+    """One sweep on disk: its CSV and, for session records, its JSON sidecar."""
+
+    csv_path: Path
+    sidecar_path: Path | None
+    label: str
+
+
+@dataclass(frozen=True)
+class FitRecord:
+    """A fitted sweep and where it came from."""
+
+    source: SweepSource
+    result: FitResult
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON Lines object: summary keys first (``theta`` 0 when none), then the full result."""
+        full = self.result.to_dict()
+        data = {"file": str(self.source.csv_path), "label": self.source.label}
+        for key in SUMMARY_KEYS[2:]:
+            data[key] = full[key]
+        data["theta"] = data["theta"] or 0.0
+        data.update({k: v for k, v in full.items() if k not in data})
+        return data
+
+
+def _read_json(path: Path) -> dict[str, Any]:
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError("no such file", path=str(path)) from None
+    except (OSError, ValueError) as exc:
+        raise InputError(f"not readable JSON ({exc})", path=str(path)) from None
+    if not isinstance(data, dict):
+        raise InputError("expected a JSON object", path=str(path))
+    return data
+
+
+def _session_sources(folder: Path) -> list[SweepSource]:
+    meta = _read_json(folder / "session.json")
+    if meta.get("format") != SESSION_FORMAT:
+        raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(folder / "session.json"))
+    sources = []
+    for label in meta.get("parts", []):
+        csv_path = folder / f"{label}.csv"
+        if csv_path.exists():
+            sidecar = folder / f"{label}.json"
+            sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label)))
+    if not sources:
+        raise InputError("the session holds no part sweeps yet", path=str(folder))
+    return sources
+
+
+def resolve_inputs(paths) -> list[SweepSource]:
+    """Turn command-line paths into sweep sources (a session folder gives all its parts).
+
+    Raises
+    ------
+    InputError
+        A path that does not exist or is neither a CSV, a part sidecar nor a session.
+    """
+    sources: list[SweepSource] = []
+    for raw in paths:
+        path = Path(raw)
+        if path.is_dir():
+            if not (path / "session.json").exists():
+                raise InputError("a folder must be a benchlab session (it has no session.json)", path=str(path))
+            sources += _session_sources(path)
+        elif not path.exists():
+            raise InputError("no such file", path=str(path))
+        elif path.suffix.lower() == ".json":
+            data = _read_json(path)
+            if data.get("format") == SESSION_FORMAT:
+                sources += _session_sources(path.parent)
+            elif data.get("format") == SWEEP_FORMAT:
+                csv_path = path.with_suffix(".csv")
+                if not csv_path.exists():
+                    raise InputError(f"the sidecar's raw points {csv_path.name} are missing", path=str(path))
+                sources.append(SweepSource(csv_path, path, str(data.get("label") or path.stem)))
+            else:
+                raise InputError("not a benchlab sweep sidecar or session file", path=str(path))
+        else:
+            sidecar = path.with_suffix(".json")
+            is_record = sidecar.exists() and _read_json(sidecar).get("format") == SWEEP_FORMAT
+            sources.append(SweepSource(path, sidecar if is_record else None, path.stem))
+    if not sources:
+        raise InputError("no input files given")
+    return sources
+
+
+def load_source(source: SweepSource) -> Sweep:
+    """Read and check one sweep; a session record leaves out the points taken before the part conducted."""
+    detect = None
+    if source.sidecar_path is not None:
+        plan = _read_json(source.sidecar_path).get("plan") or {}
+        value = plan.get("detect_current_a")
+        # the sweep engine records its search steps too; below its detection current they are not data
+        detect = float(value) if isinstance(value, (int, float)) and value > 0 else None
+    return load_sweep_csv(source.csv_path, detect_current=detect)
+
+
+def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
+              cc_current: float = DEFAULT_CC_CURRENT, window=None, bootstrap: int = 0,
+              save: bool = False) -> list[FitRecord]:
+    """Fit every sweep found in ``paths`` (one batch) and optionally store the fits in the sidecars.
+
+    Parameters
+    ----------
+    paths : sequence of str or Path
+        CSV files, part sidecars, session files or session folders.
+    model, at_current, cc_current, window, bootstrap
+        See :func:`benchlab.extract.fit_batch`.
+    save : bool
+        Append each fit (with the options that produced it) to ``fits`` in its sidecar.
+
+    Returns
+    -------
+    list of FitRecord
+
+    Raises
+    ------
+    InputError
+        Bad paths or data, or ``save`` with a plain CSV (no sidecar); raised before anything
+        is written.
+    """
+    sources = resolve_inputs(paths)
+    if save:
+        plain = [s for s in sources if s.sidecar_path is None]
+        if plain:
+            raise InputError("--save stores fits in a session record's sidecar; this CSV has none "
+                             "(fit it without --save, or fit the session)", path=str(plain[0].csv_path))
+    sweeps = [load_source(s) for s in sources]
+    results = fit_batch(sweeps, model, at_current=at_current, cc_current=cc_current, window=window,
+                        bootstrap=bootstrap)
+    records = [FitRecord(s, r) for s, r in zip(sources, results)]
+    if save:
+        options = {"model": model, "at_current": at_current, "cc_current": cc_current,
+                   "window": list(window) if window else None, "bootstrap": int(bootstrap)}
+        for record in records:
+            store_fit(record, options)
+    return records
+
+
+def store_fit(record: FitRecord, options: dict[str, Any]) -> None:
+    """Append ``record``'s result to its sidecar's ``fits`` (atomic replace of the sidecar)."""
+    from benchlab.sweep.session import write_json_atomic
+
+    path = record.source.sidecar_path
+    data = _read_json(path)
+    entry = record.result.to_dict()
+    entry["fitted_at"] = datetime.now(timezone.utc).isoformat(timespec="seconds")
+    entry["options"] = options
+    data.setdefault("fits", []).append(entry)
+    write_json_atomic(path, data)
+
+
+def json_lines(records: list[FitRecord]) -> str:
+    """One JSON object per sweep, one per line (no NaN: undefined numbers are null)."""
+    return "\n".join(json.dumps(r.to_dict(), allow_nan=False) for r in records)
+
+
+def _num(value, fmt: str, scale: float = 1.0) -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "-"
+    return format(value * scale, fmt)
+
+
+def format_table(records: list[FitRecord]) -> str:
+    """A readable table of the fits, then the reason and any warnings of each sweep."""
+    head = ("sweep", "model", "Vth V", "+-mV", "KP A/V2", "THETA", "n", "VGS@Icc V", "gm A/V", "rms %", "flags")
+    rows = []
+    for rec in records:
+        r = rec.result
+        kp = r.params.gm if r.model == "linear" else r.kp
+        rows.append((rec.source.label, r.model, _num(r.vth, ".4f"), _num(r.stderr.get("vth"), ".2f", 1e3),
+                     _num(kp, ".4g") + (" gm" if r.model == "linear" else ""), _num(r.theta, ".3g"),
+                     _num(r.n if r.model == "ekv" else None, ".3f"), _num(r.vth_cc, ".4f"), _num(r.gm, ".4g"),
+                     _num(r.rms_relative, ".2f", 100.0), str(len(r.flags)) if r.flags else ""))
+    widths = [max(len(str(x)) for x in col) for col in zip(head, *rows)]
+    lines = ["  ".join(str(x).ljust(w) for x, w in zip(row, widths)).rstrip() for row in (head, *rows)]
+    first = records[0].result if records else None
+    if first is not None:
+        lines.append(f"(Icc = {first.cc_current * 1e6:g} uA" +
+                     (f"; gm at {first.at_current:g} A)" if first.at_current is not None else ")"))
+    for rec in records:
+        r = rec.result
+        lines.append(f"{rec.source.label}: {r.reason}; {r.window['points']} points "
+                     f"{r.window['i_min']:.3g}..{r.window['i_max']:.3g} A")
+        lines += [f"  warning: {note}" for note in r.notes]
+    return "\n".join(lines)
