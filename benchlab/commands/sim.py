@@ -10,7 +10,7 @@ from benchlab.sim.faults import FAULT_KINDS, parse_fault
 
 _FAULT_HELP = (
     "inject a fault, KIND[@ROLE][=VALUE]; ROLE is supply, meter, source_meter or all (default). "
-    "Kinds: slow=S (replies S seconds late), mute=N (no replies after N messages), hang=N (neither "
+    "Kinds: slow=S[/N] (replies S seconds late, after N messages), mute=N (no replies after N messages), hang=N (neither "
     "executes nor replies after N messages), drop=N (connection closed at message N), "
     "error=HEADER[/CODE] (that command refused with CODE, default -240), garble=N (N-th reply garbled), "
     "open=N / short=N (the part fails open / short after N readings). Repeat for several."

@@ -3,7 +3,7 @@
 A fault is written ``KIND[@ROLE][=VALUE]`` (on the command line: ``--fault mute@meter=12``).
 ROLE is ``supply``, ``meter``, ``source_meter`` or ``all`` (the default). Kinds:
 
-``slow=S``       every reply is held back S extra (real) seconds.
+``slow=S[/N]``  every reply (after the first N messages, default 0) is held back S extra real seconds.
 ``mute=N``       after N messages the instrument still executes commands but sends no replies.
 ``hang=N``       after N messages the instrument neither executes nor replies (until the bench stops).
 ``drop=N``       the N-th message is executed, then the connection is closed without a reply (once).
@@ -46,7 +46,13 @@ class FaultSpec:
     @property
     def seconds(self) -> float:
         """The S of ``slow``."""
-        return float(self.value)
+        return float(self.value.split("/", 1)[0])
+
+    @property
+    def slow_after(self) -> int:
+        """The N of ``slow=S/N`` (0 when not given)."""
+        parts = self.value.split("/", 1)
+        return int(parts[1]) if len(parts) == 2 else 0
 
     @property
     def error_header(self) -> str:
@@ -84,12 +90,14 @@ def parse_fault(text: str) -> FaultSpec:
     if kind == "garble" and not has_value:
         value = "1"
     if kind == "slow":
+        seconds, _, after = value.partition("/")
         try:
-            ok = float(value) >= 0
+            ok = float(seconds) >= 0 and (not after or after.isdigit())
         except ValueError:
             ok = False
         if not ok:
-            raise InputError(f"fault '{raw}': slow needs a number of seconds >= 0, e.g. slow=0.5")
+            raise InputError(f"fault '{raw}': slow needs seconds >= 0 and an optional whole count, "
+                             "e.g. slow=0.5 or slow=0.5/20")
     elif kind == "error":
         header, _, code = value.partition("/")
         if not header:
@@ -113,7 +121,7 @@ class RoleFaults:
     def __init__(self, role: str, faults: tuple[FaultSpec, ...]):
         mine = [f for f in faults if f.applies_to(role)]
         self.role = role
-        self.extra_delay_s = sum(f.seconds for f in mine if f.kind == "slow")
+        self._slow = [(f.slow_after, f.seconds) for f in mine if f.kind == "slow"]
         self.mute_after = min((f.count for f in mine if f.kind == "mute"), default=None)
         self.hang_after = min((f.count for f in mine if f.kind == "hang"), default=None)
         self.drop_at = min((f.count for f in mine if f.kind == "drop"), default=None)
@@ -127,6 +135,10 @@ class RoleFaults:
         """Count one received message; returns its 1-based number."""
         self.messages_seen += 1
         return self.messages_seen
+
+    def extra_delay_s(self, number: int) -> float:
+        """Extra real delay for the reply to message ``number``."""
+        return sum(seconds for after, seconds in self._slow if number > after)
 
     def hung(self, number: int) -> bool:
         return self.hang_after is not None and number > self.hang_after

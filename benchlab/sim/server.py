@@ -171,8 +171,9 @@ class InstrumentServer:
         if self.faults.garble_next_reply():
             self._log("fault", f"garble: reply to message {number} garbled")
             reply = garble(reply)
-        if self.faults.extra_delay_s > 0:
-            time.sleep(self.faults.extra_delay_s)
+        delay = self.faults.extra_delay_s(number)
+        if delay > 0:
+            time.sleep(delay)
         try:
             conn.sendall(reply.encode("ascii", errors="replace") + b"\n")
         except OSError:

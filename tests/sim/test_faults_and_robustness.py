@@ -103,7 +103,8 @@ def test_fault_specs_parse_and_reject_bad_ones():
     assert (spec.kind, spec.role, spec.count) == ("mute", "meter", 12)
     assert parse_fault("error@supply=OUTP/-222").error_code == -222
     assert parse_fault("slow=0.5").role == "all"
-    for bad in ("explode=1", "mute@oven=3", "mute=x", "slow=-1", "error=", "garble=0"):
+    assert (parse_fault("slow=0.5/20").seconds, parse_fault("slow=0.5/20").slow_after) == (0.5, 20)
+    for bad in ("explode=1", "mute@oven=3", "mute=x", "slow=-1", "slow=1/x", "error=", "garble=0"):
         with pytest.raises(InputError):
             parse_fault(bad)
     with pytest.raises(InputError):
@@ -117,6 +118,15 @@ def test_slow_replies_make_a_short_timeout_expire(make_bench, rm):
         inst.query("*IDN?")
     meter = open_client(rm, bench.resources["meter"], timeout_ms=200)
     assert meter.query("*IDN?").startswith("BENCHLAB-SIM")  # other roles unaffected
+
+
+def test_slow_after_n_messages(make_bench, rm):
+    bench = make_bench(faults=("slow@meter=1.5/2",))
+    inst = open_client(rm, bench.resources["meter"], timeout_ms=200)
+    assert inst.query("*IDN?").startswith("BENCHLAB-SIM")
+    assert inst.query("*OPC?") == "1"
+    with pytest.raises(VisaIOError):
+        inst.query("*IDN?")
 
 
 def test_mute_stops_replies_but_commands_still_run(make_bench, rm):
