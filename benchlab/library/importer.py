@@ -65,8 +65,9 @@ def fit_outcome(result: Any) -> FitOutcome:
         data = result.to_dict() if hasattr(result, "to_dict") else {}
     if not isinstance(params, DeviceParams):
         raise LibraryError("the fit function returned no DeviceParams")
-    clean_stderr = {str(k): finite_or_none(v) for k, v in (stderr or {}).items()
-                    if v is None or isinstance(v, (int, float))}
+    # only known, finite numbers: a missing key means "unknown" to the designer's Monte Carlo
+    clean_stderr = {str(k): float(v) for k, v in (stderr or {}).items()
+                    if isinstance(v, (int, float)) and not isinstance(v, bool) and finite_or_none(v) is not None}
     return FitOutcome(params=params, stderr=clean_stderr, flags=tuple(str(f) for f in flags or ()),
                       result=data, fitter_version=None if version is None else str(version))
 

@@ -58,9 +58,10 @@ def _row_to_part(row: Sequence[Any]) -> PartRecord:
     (pid, lot, label, polarity, state, reason, package, notes, classification,
      fit_id, params_json, stderr_json, flags_json) = row
     params = DeviceParams.from_dict(json.loads(params_json)) if params_json else None
+    stderr = {k: v for k, v in (json.loads(stderr_json) if stderr_json else {}).items() if v is not None}
     return PartRecord(
         id=pid, lot=lot, label=label, polarity=polarity, state=state, reason=reason, package=package,
-        notes=notes, params=params, stderr=json.loads(stderr_json) if stderr_json else {},
+        notes=notes, params=params, stderr=stderr,
         flags=tuple(json.loads(flags_json)) if flags_json else (), fit_id=fit_id,
         classification=classification,
     )

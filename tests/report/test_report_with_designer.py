@@ -40,3 +40,19 @@ def html_to_text(page: str) -> str:
     parser.handle_data = chunks.append
     parser.feed(page)
     return "".join(chunks)
+
+
+def test_fitted_parts_from_an_import_feed_the_designer(tmp_path):
+    pytest.importorskip("benchlab.extract")
+    from session_builder import demo_bag, write_session
+
+    session = write_session(tmp_path, "s1", "demo-bag", demo_bag(4))
+    with Library.open(tmp_path / "lib.db") as lib:
+        lib.import_session(session)  # the real fitter: its stderr has keys it could not estimate
+        records = lib.parts(lot="demo-bag")
+        assert all(r.stderr and all(isinstance(v, float) for v in r.stderr.values()) for r in records)
+        parts = [design_parts.Part(r.label, r.params, r.stderr, lot=r.lot, part_id=r.id) for r in records]
+        design = sink.synthesize_sink(24.0, 0.05, parts[0], parts[1:3])
+        design_id = lib.record_design(design.to_dict(), records[:3])
+        assert lib.design(design_id)["ref"] == "demo-bag/Q01"
+        assert [p.label for p in lib.parts(lot="demo-bag")] == ["Q04"]
