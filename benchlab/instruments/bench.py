@@ -103,6 +103,8 @@ def open_bench(config: BenchConfig, resource_manager: Any = None, *,
         connection opened so far is closed again and no output has been touched.
     """
     if transport_factory is None:
+        # Not closed with the bench: pyvisa shares one manager session between all instances, so
+        # closing it would also close every other open resource in the process.
         manager = resource_manager if resource_manager is not None else make_resource_manager(config.visa_library)
 
         def transport_factory(spec: InstrumentSpec, profile: Profile) -> Transport:

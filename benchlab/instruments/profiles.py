@@ -102,7 +102,7 @@ _ROLE_LIMITS: dict[str, tuple[str, ...]] = {
     "meter": ("max_voltage", "max_current", "min_nplc", "max_nplc"),
     "source_meter": ("max_voltage", "max_current", "min_nplc", "max_nplc"),
 }
-_CONNECTION_KEYS = ("read_termination", "write_termination")
+_CONNECTION_KEYS = {"read_termination": str, "write_termination": str, "baud_rate": int}
 _READING_FIELDS = ("volts", "amps")
 _SAMPLE_VALUES = {"volts": 1.25, "amps": 0.0125, "range": 10.0, "nplc": 1.0, "seconds": 0.01, "values": "1,2"}
 
@@ -120,7 +120,7 @@ class Profile:
     description: str
     commands: Mapping[str, tuple[str, ...]]
     limits: Mapping[str, float]
-    connection: Mapping[str, str] = field(default_factory=dict)
+    connection: Mapping[str, Any] = field(default_factory=dict)
     reading_fields: tuple[str, ...] = ("volts", "amps")
     list_commands: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
     list_settings: Mapping[str, Any] = field(default_factory=dict)
@@ -360,13 +360,15 @@ def _parse_limits(table: Mapping[str, Any], names: tuple[str, ...], fail) -> dic
     return limits
 
 
-def _parse_connection(table: Any, fail) -> dict[str, str]:
+def _parse_connection(table: Any, fail) -> dict[str, Any]:
     if not isinstance(table, dict):
         raise fail("connection", "must be a table")
     _reject_unknown(table, set(_CONNECTION_KEYS), "connection.", fail)
     for key, value in table.items():
-        if not isinstance(value, str):
+        if _CONNECTION_KEYS[key] is str and not isinstance(value, str):
             raise fail(f"connection.{key}", "must be a string, e.g. \"\\n\"")
+        if _CONNECTION_KEYS[key] is int and (type(value) is not int or value <= 0):
+            raise fail(f"connection.{key}", f"must be a positive whole number, got {value!r}")
     return dict(table)
 
 

@@ -135,6 +135,7 @@ class VisaTransport:
         self._options = {**self.kind.open_options, **dict(options or {})}
         self._handle: Any = None
         self._lock = threading.RLock()
+        self._interrupted = False
         self.reopen_count = 0  # how many times the connection was reopened (for reports and tests)
         self.retry_count = 0  # how many timed-out queries were sent again
 
@@ -230,11 +231,20 @@ class VisaTransport:
     def _run(self, action: Callable[[Any], Any], command: str, idempotent: bool, allow_retry: bool) -> Any:
         if self._handle is None:
             self.open()
+        if self._interrupted:
+            # An exchange was cut short (Ctrl-C, SIGTERM): its reply may still arrive and would be
+            # read as the answer to this message, so discard it first.
+            self._interrupted = False
+            if not self._peer_closed():
+                self._clear()
         reopened = retried = False
         while True:
             try:
                 return action(self._handle)
-            except Exception as exc:
+            except BaseException as exc:
+                if not isinstance(exc, Exception):
+                    self._interrupted = True
+                    raise
                 timed_out = _is_timeout(exc)
                 if not timed_out and not isinstance(exc, OSError) and not _is_visa_error(exc):
                     raise

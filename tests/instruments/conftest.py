@@ -16,9 +16,9 @@ TEST_TIMEOUT_MS = 250
 @pytest.fixture(scope="session")
 def resource_manager():
     pyvisa = pytest.importorskip("pyvisa")
-    manager = pyvisa.ResourceManager("@py")
-    yield manager
-    manager.close()
+    # Never closed here: pyvisa shares the manager session between instances, so closing it would
+    # close resources other tests in this process still use.
+    return pyvisa.ResourceManager("@py")
 
 
 @pytest.fixture

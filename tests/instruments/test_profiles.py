@@ -110,6 +110,8 @@ BAD_PROFILES = [
     (lambda t: t.replace("[limits]", "[limits]\nmax_power = 90.0"), "limits.max_power", "unknown key"),
     (lambda t: t + '\n[connection]\nread_termination = 10\n', "connection.read_termination", "must be a string"),
     (lambda t: t.replace("[commands]", "[commands]\nread = \"READ?\""), "commands.read", "unknown key"),
+    (lambda t: t + '\n[connection]\nbaud_rate = "9600"\n', "connection.baud_rate", "positive whole number"),
+    (lambda t: t + '\n[connection]\nparity = "none"\n', "connection.parity", "unknown key"),
 ]
 
 

@@ -150,3 +150,29 @@ def test_close_sends_nothing(resource_manager, server):
     link.close()
     link.close()  # twice is harmless
     assert server.lines() == ["*IDN?"]
+
+
+class _InterruptAfterWrite:
+    """Stands in for the pyvisa resource: sends the query, then is 'interrupted' like a Ctrl-C."""
+
+    def __init__(self, real):
+        self._real = real
+
+    def __getattr__(self, name):
+        return getattr(self._real, name)
+
+    def query(self, message):
+        self._real.write(message)
+        raise KeyboardInterrupt
+
+
+def test_reply_of_an_interrupted_query_is_discarded(transport, server):
+    server.replies["MEAS:VOLT?"] = "1.0"
+    real = transport._handle
+    transport._handle = _InterruptAfterWrite(real)
+    with pytest.raises(KeyboardInterrupt):
+        transport.query("MEAS:VOLT?")
+    transport._handle = real
+    # The late "1.0" must not be taken as the answer to the next query.
+    assert transport.query("*IDN?") == server.identity
+    assert server.lines() == ["MEAS:VOLT?", "*IDN?"]
