@@ -167,3 +167,48 @@ def test_header_matching_table_is_data():
     with pytest.raises(ScpiError) as info:
         parse_unit("VOLT 1,")
     assert info.value.code == -102
+
+
+def test_source_meter_lists_compliance_and_list_errors(make_bench, rm):
+    # SCPI-1999 vol. 2, 21.8.3: -221 settings conflict (INIT with the output off), -226 lists not same length
+    from tests.sim.conftest import open_client
+
+    bench = make_bench(fixture="smu")
+    smu = open_client(rm, bench.resources["source_meter"])
+    smu.write("FUNC VOLT;:SENS:CURR:PROT 10 MA;:LIST:VOLT 1,2,8;:VOLT:MODE LIST")
+    assert smu.query("LIST:VOLT:POIN?;:VOLT:MODE?;:FUNC?") == "3;LIST;VOLT"
+    assert float(smu.query("SENS:CURR:PROT?")) == pytest.approx(0.01)
+    smu.write("INIT")
+    assert drain_errors(smu) == [-221]  # output off
+    smu.write("OUTP ON;:LIST:DWEL 0.1,0.2")
+    smu.write("INIT")
+    assert drain_errors(smu) == [-226]  # two dwell values for three points
+    smu.write("LIST:DWEL 0;:INIT")
+    data = [float(x) for x in smu.query("TRAC:DATA?").split(",")]
+    assert len(data) == 6 and smu.query("TRAC:POIN:ACT?") == "3"
+    # 8 V is far above threshold: the current is held at the 10 mA compliance and VGS drops to carry it
+    assert data[5] == pytest.approx(0.01, rel=1e-3) and 2.0 < data[4] < 4.0
+    assert smu.query("SENS:CURR:PROT:TRIP?") == "1"
+    smu.write("TRAC:CLE")
+    assert smu.query("TRAC:POIN:ACT?") == "0"
+    smu.write("*TRG")  # in LIST mode a bus trigger runs the list again
+    assert smu.query("TRAC:POIN:ACT?") == "3"
+    smu.write("VOLT:MODE FIX;:VOLT 1.0;:INIT")
+    assert smu.query("TRAC:POIN:ACT?") == "4"
+    assert smu.query("SENS:CURR:PROT:TRIP?") == "0"
+    assert smu.query("OUTP OFF;*OPC?") == "1"
+    assert drain_errors(smu) == []
+
+
+def test_meter_configuration_queries(meter):
+    meter.write("CONF:CURR 0.05")
+    assert meter.query("CONF?") == '"CURR +1.000000000E-01"'  # smallest range holding 50 mA
+    assert meter.query("FUNC?") == '"CURR"'
+    meter.write("CURR:RANG:AUTO ON;:VOLT:NPLC 10")
+    assert meter.query("CURR:RANG:AUTO?;:VOLT:NPLC?") == "1;+1.000000000E+01"
+    meter.write("VOLT:NPLC 1000")
+    assert drain_errors(meter) == [-222]
+    meter.write("FUNC VOLT")  # must be a quoted string
+    assert drain_errors(meter) == [-104]
+    meter.write("*TRG")
+    assert float(meter.query("FETC?")) < 1e-3  # the output is off: about 0 A
