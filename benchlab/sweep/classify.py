@@ -70,7 +70,13 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
     usable = [p for p in points if p.usable]
     if not usable:
         return Classification("unstable", "no usable reading (every reading was over range or not a number)")
-    conducting = [p for p in usable if p.id >= detect_current_a and p.status != "compliance"]
+    carrying = [p for p in usable if p.id >= detect_current_a]  # compliance points included: a short hits it
+    if carrying:
+        peak = max(carrying, key=lambda p: p.id)
+        if peak.vgs < SHORT_VGS_V:
+            return Classification("shorted", f"carries {_fmt_a(peak.id)} with only {peak.vgs * 1e3:.0f} mV across "
+                                             f"it: drain-source short")
+    conducting = [p for p in carrying if p.status != "compliance"]
     if not conducting:
         top = max(usable, key=lambda p: p.vgs)
         if fixture == "smu" and any(p.status == "compliance" for p in usable):
@@ -79,9 +85,6 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
         return Classification("open", f"no current above {_fmt_a(detect_current_a)} with up to "
                                       f"{top.vgs:.2f} V across the part")
     peak = max(conducting, key=lambda p: p.id)
-    if peak.vgs < SHORT_VGS_V:
-        return Classification("shorted", f"carries {_fmt_a(peak.id)} with only {peak.vgs * 1e3:.0f} mV across it: "
-                                         f"drain-source short")
     unsettled = [p for p in usable if p.status == "unsettled"]
     if unsettled and len(unsettled) >= max(2, UNSETTLED_FRACTION * len(usable)):
         spread = max(abs(p.spread_v) for p in unsettled)

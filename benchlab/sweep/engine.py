@@ -97,7 +97,8 @@ class _Sweep:
             self.source.safe_off()
             self.source.set_current_limit(plan.current_limit())
             self.source.set_voltage(0.0)
-            self.meter.configure_voltage(None, plan.nplc)
+            self.meter_function = ""
+            self.set_meter_function("voltage")
             if plan.mode == "voltages":  # refuse a bad list before anything is switched on
                 for v in plan.voltages:
                     self.source.check_voltage(v)
@@ -113,6 +114,14 @@ class _Sweep:
                 for v in plan.voltages:
                     self.source.check_level(v)
 
+    def set_meter_function(self, function: str) -> None:
+        if function != self.meter_function:
+            if function == "voltage":
+                self.meter.configure_voltage(None, self.plan.nplc)
+            else:
+                self.meter.configure_current(None, self.plan.nplc)
+            self.meter_function = function
+
     def apply(self, level: float, expect_id: float | None, expect_vgs: float | None) -> None:
         if self.plan.fixture == "resistor":
             self.source.set_voltage(level, expect_id, expect_vgs)
@@ -124,10 +133,21 @@ class _Sweep:
     def _read_once(self) -> tuple[float, float, float, float, bool]:
         """(vgs, id, v_source, i_source, compliance) from one reading."""
         if self.plan.fixture == "resistor":
-            vgs = float(self.meter.read())
-            v_src = float(self.source.measure_voltage())
-            i_src = float(self.source.measure_current())
-            i_d = (v_src - vgs) / self.plan.series_resistor_ohm
+            if self.plan.current_from == "meter":
+                # read in whichever function the meter is in first: one function switch per point
+                first = self.meter_function
+                values = {first: float(self.meter.read())}
+                second = "current" if first == "voltage" else "voltage"
+                self.set_meter_function(second)
+                values[second] = float(self.meter.read())
+                vgs, i_d = values["voltage"], values["current"]
+                v_src = float(self.source.measure_voltage())
+                i_src = float(self.source.measure_current())
+            else:
+                vgs = float(self.meter.read())
+                v_src = float(self.source.measure_voltage())
+                i_src = float(self.source.measure_current())
+                i_d = (v_src - vgs) / self.plan.series_resistor_ohm
             # in constant-current mode the supply sits at its limit: the part no longer sets the current
             at_limit = self.source.current_limit_a is not None and i_src >= 0.98 * self.source.current_limit_a
             return vgs, i_d, v_src, i_src, at_limit
@@ -179,7 +199,19 @@ class _Sweep:
     def store(self, point: SweepPoint) -> None:
         self.recorder.append(point)  # durable before the next setpoint
         self.points.append(point)
-        self.on_event(PointMeasured(self.label, point, len(self.points), self.plan.points, self.clock() - self.t0))
+        self.on_event(PointMeasured(self.label, point, len(self.points), self.plan.points, self.clock() - self.t0,
+                                    self.progress(point)))
+
+    def progress(self, point: SweepPoint) -> float:
+        """How far along the sweep is, 0-1 (for progress bars)."""
+        plan = self.plan
+        if point.direction == "down":
+            return 1.0
+        if plan.mode == "voltages":
+            return min(1.0, len(self.points) / len(plan.voltages))
+        if not (point.usable and point.id > plan.min_current_a):
+            return 0.0
+        return min(1.0, math.log(point.id / plan.min_current_a) / math.log(plan.max_current_a / plan.min_current_a))
 
     # ------------------------------------------------------------------ checks after each reading
     def check_reading(self, point: SweepPoint, previous: list[SweepPoint]) -> None:
@@ -224,6 +256,8 @@ class _Sweep:
             conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= plan.detect_current_a]
             last_vgs = ups[-1].vgs if math.isfinite(ups[-1].vgs) else level
             if not conducting:
+                if math.isfinite(ups[-1].vgs) and ups[-1].vgs >= plan.max_search_v:
+                    raise _Stop(f"no conduction with {ups[-1].vgs:.2f} V across the part (max_search_v)")
                 nxt = level + plan.search_step_v
                 # a monotone part cannot let more than (Vs - VGS_last)/R through: the search's own bound
                 expect_id = max(nxt - max(last_vgs, 0.0), 0.0) / r if resistor else None

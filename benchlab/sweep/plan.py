@@ -27,6 +27,7 @@ from benchlab.errors import InputError, SafetyError
 
 FIXTURES = ("resistor", "smu")
 MODES = ("targets", "voltages", "currents")
+CURRENT_FROM = ("meter", "resistor")
 REFERENCE_CURRENT_A = 250e-6  # datasheet VGS(th) test current with VDS = VGS (common practice)
 
 
@@ -63,7 +64,13 @@ class SweepPlan:
     voltages : tuple of float
         Explicit source voltages (``voltages`` mode), applied in order.
     series_resistor_ohm : float
-        Measured series resistor (resistor fixture); the drain current is the drop across it over R.
+        Measured series resistor (resistor fixture).
+    current_from : str
+        Resistor fixture: where the drain current comes from. ``"meter"``: the meter switches to DC
+        amps for a second reading at each point (its amps input in series with the part's source, its
+        volts input across the part: both share the meter's LO terminal). ``"resistor"``: the drop
+        across the series resistor, (supply readback - VGS) / R, which needs no rewiring but resolves
+        only about (supply readback resolution) / R, e.g. 1 mV / 47 ohm = 21 uA.
     settle_s : float
         Wait after each setpoint before reading (s).
     nplc : float
@@ -74,6 +81,9 @@ class SweepPlan:
     search_step_v : float
         Source step while the part does not yet conduct (V). Through a series resistor R a step of
         dV can raise the current by at most about dV / R, which bounds the first conducting point.
+    max_search_v : float
+        Give up looking for conduction once this much is across the part (V): the part is open.
+        Power-MOSFET datasheets put VGS(th) below about 5 V (common practice), so 10 V is generous.
     max_step_v : float
         Largest source increase between two adaptive points (V).
     detect_current_a : float
@@ -107,10 +117,12 @@ class SweepPlan:
     max_current_a: float = 0.1
     voltages: tuple[float, ...] = ()
     series_resistor_ohm: float = 0.0
+    current_from: str = "meter"
     settle_s: float = 0.05
     nplc: float = 1.0
     start_v: float = 0.0
     search_step_v: float = 0.1
+    max_search_v: float = 10.0
     max_step_v: float = 0.5
     detect_current_a: float = 2e-6
     pulsed_duty: float | None = None
@@ -185,7 +197,7 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
     lim = plan.limits
     for name in ("max_supply_v", "max_drain_a", "max_power_w"):
         _positive(f"limit {name}", getattr(lim, name))
-    for name in ("min_current_a", "max_current_a", "search_step_v", "max_step_v", "detect_current_a",
+    for name in ("min_current_a", "max_current_a", "search_step_v", "max_step_v", "max_search_v", "detect_current_a",
                  "settle_tolerance", "leak_current_a", "nplc"):
         _positive(name, getattr(plan, name))
     if not (math.isfinite(plan.settle_s) and plan.settle_s >= 0):
@@ -201,6 +213,8 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
                           f"{lim.max_drain_a:g} A")
     if plan.pulsed_duty is not None and not (0 < plan.pulsed_duty <= 1):
         raise InputError(f"pulsed duty cycle must be in (0, 1], got {plan.pulsed_duty!r}")
+    if plan.pulsed_duty is not None and plan.use_list:
+        raise InputError("a pulsed sweep cannot run as an uploaded list (the output must switch per point)")
     if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
     if plan.fixture == "resistor":
@@ -209,6 +223,9 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
             raise InputError("forcing currents needs a source-measure unit (fixture 'smu')")
         if plan.use_list:
             raise InputError("list sweeps need a source-measure unit (fixture 'smu')")
+        if plan.current_from not in CURRENT_FROM:
+            raise InputError(f"unknown current source '{plan.current_from}' (expected one of "
+                             f"{', '.join(CURRENT_FROM)})")
     if plan.mode == "voltages":
         if not plan.voltages:
             raise InputError("a voltage-list sweep needs at least one voltage")

@@ -104,10 +104,11 @@ class PointMeasured:
     count: int  # points measured so far in this sweep
     planned: int  # the plan's target count (adaptive sweeps may take a few more)
     elapsed_s: float
+    progress: float = 0.0  # 0-1: how far along (adaptive: log(current) between the first and last target)
 
     def to_dict(self) -> dict[str, Any]:
         return {"event": "point", "label": self.label, "point": self.point.to_dict(), "count": self.count,
-                "planned": self.planned, "elapsed_s": self.elapsed_s}
+                "planned": self.planned, "elapsed_s": self.elapsed_s, "progress": self.progress}
 
 
 @dataclass(frozen=True)

@@ -144,11 +144,15 @@ class _Meter:
     def __init__(self, bench: FakeBench):
         self.b = bench
 
+    function = "volt"
+
     def configure_voltage(self, range_volts=None, nplc=1.0):
         self.b.log.append(("meter", "volt", nplc))
+        self.function = "volt"
 
     def configure_current(self, range_amps=None, nplc=1.0):
         self.b.log.append(("meter", "curr", nplc))
+        self.function = "curr"
 
     def read(self):
         self.b._maybe_fail("read")
@@ -156,6 +160,8 @@ class _Meter:
         if self.b.on_read:
             self.b.on_read(self.b)
         v, i = self.b.operating_point()
+        if self.function == "curr":
+            return i
         if self.b.noise_v and i > 1e-4:  # a part that oscillates once it conducts
             v += self.b.noise_v * (1 if self.b.reads % 2 else -1)
         return v

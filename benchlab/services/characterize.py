@@ -1,0 +1,327 @@
+"""Characterize parts on a bench: sweep one part or a whole bag into a session.
+
+Used by ``benchlab sweep``, ``benchlab bag`` and ``benchlab demo`` (and later the terminal UI).
+Order of work, so bad input never writes or powers anything: load the bench config, build and
+validate the plan, connect (nothing is switched on), only then create the session folder and sweep.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import signal
+import threading
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable, Iterator
+
+from benchlab.errors import BenchlabError, InputError, SweepCancelled
+from benchlab.sweep.engine import run
+from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
+from benchlab.sweep.records import SweepOutcome
+from benchlab.sweep.session import SessionWriter, check_name
+
+DEFAULT_SESSIONS_DIR = "sessions"
+CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
+           "voltage; switch the output off before touching or changing a part. Follow local electrical codes and "
+           "licensed practice for anything mains-powered.")
+DEMO_STORY = ("Demo (an invented scenario): a workshop building an 8-channel constant-current LED driver for a "
+              "plant-growing rack characterizes a bag of 40 N-channel power MOSFETs on the simulated bench.")
+
+
+@dataclass(frozen=True)
+class BagResult:
+    """Where a bag's session went and how each part came out."""
+
+    session_path: Path
+    outcomes: tuple[SweepOutcome, ...]
+    skipped: tuple[str, ...] = ()  # labels already complete in a resumed session
+    stopped_early: str | None = None  # why the bag ended before its count, in words
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"session_path": str(self.session_path), "outcomes": [o.to_dict() for o in self.outcomes],
+                "skipped": list(self.skipped), "stopped_early": self.stopped_early}
+
+
+@dataclass(frozen=True)
+class SimOptions:
+    """The in-process simulated bench (``--sim``)."""
+
+    fixture: str = "resistor"
+    seed: int = 1
+    bag_size: int = 40
+    time_scale: float = 0.0
+    faults: tuple[str, ...] = ()
+    log_path: str | None = None
+
+
+@dataclass
+class BenchHandle:
+    """An open bench and, when simulated, the simulator serving it."""
+
+    bench: Any
+    config: Any
+    simulator: Any = None
+    extra: dict = field(default_factory=dict)
+
+    def close(self) -> None:
+        try:
+            self.bench.safe_off()  # belt and braces: the engine already switched off
+        except BaseException:  # noqa: BLE001 - closing must go on
+            pass
+        try:
+            self.bench.close()
+        finally:
+            if self.simulator is not None:
+                self.simulator.stop()
+
+
+# --------------------------------------------------------------------------------------------- plans
+def build_plan(config: Any, **options: Any) -> SweepPlan:
+    """A validated plan for ``config`` (a ``BenchConfig``) with option overrides (``None`` = default).
+
+    Raises
+    ------
+    InputError, SafetyError
+        One clear message for the first bad value; nothing has been connected or powered.
+    """
+    values = {k: v for k, v in options.items() if v is not None}
+    if "voltages" in values:
+        values["voltages"] = tuple(float(v) for v in values["voltages"])
+        values.setdefault("mode", "voltages")
+    base = SweepPlan(fixture=config.fixture, limits=Limits.from_safety_limits(config.limits),
+                     series_resistor_ohm=float(config.series_resistor_ohm) if config.fixture == "resistor" else 0.0,
+                     settle_s=float(config.settle_s), nplc=float(config.nplc))
+    try:
+        plan = replace(base, **values)
+    except TypeError as exc:
+        raise InputError(f"unknown sweep option: {exc}") from None
+    if "max_current_a" not in values:
+        plan = replace(plan, max_current_a=min(plan.max_current_a, plan.limits.max_drain_a))
+    return validate_plan(plan)
+
+
+# --------------------------------------------------------------------------------------------- benches
+def load_config(path: str) -> Any:
+    """Read and validate a bench file (one :class:`ConfigError` on a problem)."""
+    from benchlab.instruments.config import load_bench_config
+
+    return load_bench_config(path)
+
+
+def start_simulator(options: SimOptions) -> tuple[Any, Any]:
+    """Start the simulated bench in this process on free loopback ports; return ``(simulator, config)``."""
+    from benchlab.instruments.config import simulator_bench_config
+    from benchlab.sim.bench import SimBench, SimConfig
+
+    sim = SimBench(SimConfig(fixture=options.fixture, seed=options.seed, bag_size=options.bag_size,
+                             time_scale=options.time_scale, faults=tuple(options.faults), log_path=options.log_path))
+    try:
+        resources = sim.start(first_port=0)
+        config = simulator_bench_config(resources, fixture=options.fixture,
+                                        series_resistor_ohm=sim.series_resistor_actual_ohm)
+    except BaseException:
+        sim.stop()
+        raise
+    return sim, config
+
+
+def connect(config: Any, simulator: Any = None) -> BenchHandle:
+    """Open every instrument of ``config`` (identifies them; nothing is switched on)."""
+    from benchlab.instruments.bench import open_bench
+
+    try:
+        bench = open_bench(config)
+    except BaseException:
+        if simulator is not None:
+            simulator.stop()
+        raise
+    return BenchHandle(bench=bench, config=config, simulator=simulator)
+
+
+def source_instrument(bench: Any) -> Any:
+    """The instrument that sources the part (supply or SMU): the one simulator commands are sent to."""
+    return bench.source_meter if bench.config.fixture == "smu" else bench.supply
+
+
+# --------------------------------------------------------------------------------------------- part loaders
+class SimPartLoader:
+    """Loads parts from the simulated bag with ``SIMulation:PART:NEXT`` (the output must be off)."""
+
+    def __init__(self, bench: Any):
+        self.instrument = source_instrument(bench)
+        self.started = False
+
+    def _query(self, command: str) -> str:
+        reply = self.instrument.transport.query(command)
+        self.instrument.check_errors(command)
+        return reply.strip().strip('"')
+
+    def label(self) -> str | None:
+        """Label of the part in the fixture, or None when the bag is used up."""
+        if int(float(self._query("SIMulation:PART:INDex?"))) < 0:
+            return None
+        return self._query("SIMulation:PART:LABel?")
+
+    def next(self) -> str | None:
+        """Put the next part in the fixture (the first call keeps the part already there)."""
+        if self.started:
+            self.instrument.send("SIMulation:PART:NEXT")
+        self.started = True
+        return self.label()
+
+    def seek(self, label: str, limit: int = 10000) -> None:
+        """Advance to the part labelled ``label``; InputError when the bag has none."""
+        for _ in range(limit):
+            found = self.next()
+            if found is None:
+                raise InputError(f"no part labelled '{label}' in the simulated bag")
+            if found == label:
+                self.started = True
+                return
+        raise InputError(f"no part labelled '{label}' in the simulated bag")
+
+
+class PromptPartLoader:
+    """Asks the operator for each part in turn: type its label, Enter to measure, ``q`` to stop."""
+
+    def __init__(self, ask: Callable[[str], str] = input, say: Callable[[str], None] = print):
+        self.ask, self.say = ask, say
+        self.number = 0
+
+    def next(self) -> str | None:
+        self.number += 1
+        default = f"Q{self.number:02d}"
+        while True:
+            try:
+                answer = self.ask(f"Part {self.number}: put it in the fixture (output is off), type its label "
+                                  f"[{default}] and press Enter, or q to stop: ").strip()
+            except EOFError:
+                return None
+            if answer.lower() in ("q", "quit"):
+                return None
+            label = answer or default
+            try:
+                return check_name("part label", label)
+            except InputError as exc:
+                self.say(str(exc))
+
+
+# --------------------------------------------------------------------------------------------- sweeping
+@contextlib.contextmanager
+def sigterm_as_exception() -> Iterator[None]:
+    """Turn SIGTERM into :class:`SweepCancelled` in the main thread while the block runs."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def handler(signum, frame):
+        raise SweepCancelled("stopped by SIGTERM; the output is off and the sweep is marked incomplete")
+
+    previous = signal.signal(signal.SIGTERM, handler)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+
+
+def session_meta(handle: BenchHandle) -> dict[str, Any]:
+    return {"bench": handle.config.to_dict(), "instruments": dict(handle.bench.identities)}
+
+
+def sweep_part(handle: BenchHandle, plan: SweepPlan, session: SessionWriter, label: str,
+               on_event: Callable[[Any], None] | None = None, cancel=None) -> SweepOutcome:
+    """Sweep the part in the fixture into ``session`` under ``label``."""
+    recorder = session.start_part(label, plan.to_dict())
+    return run(plan, handle.bench, on_event, cancel, label=label, recorder=recorder)
+
+
+def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path = DEFAULT_SESSIONS_DIR,
+              lot: str = "bag", count: int | None = None, operator: str = "", ambient_c: float | None = None,
+              loader: Any = None, resume: str | Path | None = None, on_event: Callable[[Any], None] | None = None,
+              cancel=None, on_session: Callable[[Path], None] | None = None) -> BagResult:
+    """Sweep parts one after another into one session (a new one, or ``resume`` an earlier one).
+
+    Parameters
+    ----------
+    handle : BenchHandle
+        The open bench.
+    plan : SweepPlan
+        Validated plan used for every part.
+    sessions_root, lot, operator, ambient_c
+        Where and under which names the new session goes.
+    count : int, optional
+        Parts to measure (a resumed session keeps its own count unless given).
+    loader : object, optional
+        ``next() -> label or None``; default: the simulator's bag when simulated, else prompts.
+    resume : path, optional
+        A session folder: parts already complete are skipped.
+    on_event, cancel
+        Passed to the engine. ``on_session`` gets the session folder as soon as it exists.
+
+    Returns
+    -------
+    BagResult
+    """
+    if count is not None and (not isinstance(count, int) or count < 1):
+        raise InputError(f"count must be a whole number >= 1, got {count!r}")
+    if resume is not None:
+        session = SessionWriter.reopen(resume)
+        count = count or session.meta.get("planned_count")
+    else:
+        check_name("lot name", lot)
+        session = SessionWriter.create(sessions_root, lot, operator=operator, ambient_c=ambient_c,
+                                       planned_count=count, **session_meta(handle))
+    if on_session:
+        on_session(session.path)
+    if loader is None:
+        loader = SimPartLoader(handle.bench) if handle.simulator is not None else PromptPartLoader()
+    done = session.completed_labels()
+    skipped, outcomes, stopped = [], [], None
+    try:
+        while count is None or len(done) < count:
+            if cancel is not None and cancel.is_set():
+                stopped = "cancelled"
+                break
+            label = loader.next()
+            if label is None:
+                stopped = "no more parts (bag used up or the operator stopped)"
+                break
+            if label in done:
+                skipped.append(label)
+                continue
+            outcome = sweep_part(handle, plan, session, label, on_event, cancel)
+            outcomes.append(outcome)
+            if not outcome.complete:
+                stopped = outcome.stop_reason
+                break
+            done.add(label)
+    finally:
+        session.finish()
+    return BagResult(session.path, tuple(outcomes), tuple(skipped), stopped)
+
+
+def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 12, seed: int = 1,
+             on_event: Callable[[Any], None] | None = None, time_scale: float = 0.0,
+             on_session: Callable[[Path], None] | None = None) -> BagResult:
+    """The invented demo: sweep ``count`` parts of the 40-part simulated bag into a new session.
+
+    The simulator runs in this process on free loopback ports; the first 12 parts of the seed-1
+    bag include a leaky dud.
+    """
+    if not isinstance(count, int) or not 1 <= count <= 40:
+        raise InputError(f"the demo sweeps 1 to 40 parts, got {count!r}")
+    sim, config = start_simulator(SimOptions(seed=seed, bag_size=40, time_scale=time_scale))
+    handle = connect(config, sim)
+    try:
+        plan = build_plan(config, points=20, max_current_a=0.1, down_sweep=False)
+        with sigterm_as_exception():
+            return sweep_bag(handle, plan, sessions_root=sessions_root, lot="demo-led-rack", count=count,
+                             operator="demo (invented scenario)", ambient_c=23.0, on_event=on_event,
+                             on_session=on_session)
+    finally:
+        handle.close()
+
+
+__all__ = ["BagResult", "BenchHandle", "SimOptions", "PromptPartLoader", "SimPartLoader", "build_plan", "connect",
+           "load_config", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
+           "CAUTION", "DEMO_STORY", "BenchlabError"]

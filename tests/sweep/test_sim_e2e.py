@@ -1,0 +1,116 @@
+"""End to end against the simulated bench over TCP (pyvisa-py): bags, duds, sessions, every simulator fault."""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.errors import BenchlabError, InstrumentError
+from benchlab.services.characterize import sweep_bag, sweep_part
+from benchlab.sim.physics import voltage_at_current
+from benchlab.sweep.session import SessionWriter, read_session, read_sweep
+
+from .simhelp import EXPECTED_CLASS, only_session, plan_for, sim_bench, source_role
+
+
+@pytest.mark.parametrize("fixture", ["resistor", "smu"])
+def test_bag_swept_duds_classified_session_reread(tmp_path, fixture):
+    # bag of 6: the simulator places one open, one shorted and one leaky part in it
+    with sim_bench(fixture, bag_size=6, seed=3) as (sim, handle):
+        truth = {p.label: p for p in sim.bag}
+        temps = {}
+        result = sweep_bag(handle, plan_for(handle), sessions_root=tmp_path, lot="e2e", count=6,
+                           on_event=lambda e: temps.setdefault(e.label, sim.temperature_k))
+        assert sim.log.last_output_state(source_role(handle)) is False
+    assert {p.kind for p in truth.values()} >= {"open", "short", "leaky", "good"}
+    by_label = {o.label: o for o in result.outcomes}
+    assert list(by_label) == [f"Q0{k}" for k in range(1, 7)]
+    for label, outcome in by_label.items():
+        assert outcome.complete
+        assert outcome.classification == EXPECTED_CLASS[truth[label].kind], (label, outcome.reason)
+        if truth[label].kind == "good":
+            # VGS(th) as datasheets define it: VGS at 250 uA with VDS = VGS (common practice); the
+            # simulator's part at its temperature during the sweep is the reference
+            expected = voltage_at_current(truth[label], 250e-6, temps[label])
+            assert outcome.vgs_at_ref == pytest.approx(expected, abs=0.01)
+    session = read_session(result.session_path)
+    assert session.meta["parts"] == list(by_label)
+    assert session.meta["instruments"][source_role(handle)].startswith("BENCHLAB-SIM,")
+    for label, sweep in session.sweeps.items():
+        assert sweep.complete and not sweep.truncated
+        assert len(sweep.vgs) == len(by_label[label].points) == sweep.meta["points"]
+        assert sweep.meta["classification"] == by_label[label].classification
+        assert list(sweep.vgs) == pytest.approx([p.vgs for p in by_label[label].points])
+
+
+def test_resume_sweeps_only_the_parts_not_done(tmp_path):
+    with sim_bench(bag_size=6, seed=3) as (sim, handle):
+        first = sweep_bag(handle, plan_for(handle), sessions_root=tmp_path, lot="resume", count=2)
+    with sim_bench(bag_size=6, seed=3) as (sim, handle):
+        second = sweep_bag(handle, plan_for(handle), resume=first.session_path, count=4)
+    assert [o.label for o in first.outcomes] == ["Q01", "Q02"]
+    assert second.skipped == ("Q01", "Q02")
+    assert [o.label for o in second.outcomes] == ["Q03", "Q04"]
+    assert read_session(first.session_path).meta["parts"] == ["Q01", "Q02", "Q03", "Q04"]
+
+
+def run_faulted(tmp_path, faults, *, timeout_ms=400, fixture="resistor", **plan_options):
+    """Sweep one part with ``faults`` injected; return (was on, last output state, error, outcome, sweep)."""
+    with sim_bench(fixture, timeout_ms=timeout_ms, faults=faults) as (sim, handle):
+        session = SessionWriter.create(tmp_path, "fault")
+        error = outcome = None
+        try:
+            outcome = sweep_part(handle, plan_for(handle, **plan_options), session, "Q01")
+        except BenchlabError as exc:
+            error = exc
+        role = source_role(handle)
+        was_on = sim.log.output_was_ever_on(role)
+        last = sim.log.last_output_state(role)
+    sweep = read_sweep(only_session(tmp_path) / "Q01.csv")
+    return was_on, last, error, outcome, sweep
+
+
+# (fault spec, text the one-line error must hold). Counts are messages, placed so the fault lands mid-sweep.
+INSTRUMENT_FAULTS = [
+    ("mute@meter=150", "no reply"),  # the meter stops replying
+    ("mute@supply=250", "no reply"),  # the supply still executes but stops replying: off must still happen
+    ("hang@meter=150", "no reply"),  # the meter neither executes nor replies
+    ("error@meter=CONF:CURR/-221", "-221"),  # a command refused with an SCPI error, once the output is on
+    ("garble@meter=40", "unexpected"),  # one reply turned to junk
+]
+
+
+@pytest.mark.parametrize("fault,message", INSTRUMENT_FAULTS)
+def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, message):
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [fault])
+    assert was_on, "the fault must strike after the output was switched on"
+    assert last is False  # proved from the simulator's own log
+    assert isinstance(error, InstrumentError)
+    assert message in str(error) and "\n" not in str(error)  # one clear line
+    assert sweep.meta["complete"] is False and sweep.meta["error"]
+    assert len(sweep.vgs) == sweep.meta["points"]  # every point measured before the fault is on disk
+
+
+def test_slow_replies_within_the_timeout_still_complete(tmp_path):
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, ["slow@supply=0.01"], start_v=2.0)
+    assert error is None and was_on and last is False
+    assert outcome.complete and sweep.meta["complete"] and outcome.classification == "good"
+
+
+def test_dropped_connection_is_survived_or_reported_with_output_off(tmp_path):
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, ["drop@meter=120"])
+    assert was_on and last is False
+    if error is None:  # the transport reopened the connection and the sweep went on
+        assert outcome.complete and sweep.meta["complete"] and outcome.classification == "good"
+    else:
+        assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
+
+
+@pytest.mark.parametrize("kind,expected", [("open", "open"), ("short", "shorted")])
+@pytest.mark.parametrize("fixture", ["resistor", "smu"])
+def test_part_failing_mid_sweep_is_classified_and_stopped(tmp_path, kind, expected, fixture):
+    readings = 300 if fixture == "resistor" else 75  # readings per point differ: land it above threshold
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [f"{kind}={readings}"], fixture=fixture)
+    assert error is None and was_on and last is False
+    assert outcome.classification == expected
+    assert f"failed {kind}" in outcome.reason and "during the sweep" in outcome.reason
+    assert sweep.meta["classification"] == expected and len(sweep.vgs) == len(outcome.points)
