@@ -116,6 +116,11 @@ class SimInstrument:
                     self.status.push(exc.code, exc.text)
                     if exc.is_command_error:
                         break
+                except Exception as exc:  # a simulator bug must not take the connection down
+                    self.status.push(-300, f"Device-specific error; {type(exc).__name__}")
+                    self.core.log.add(self.ROLE, "fault", f"internal error on '{text[:80]}': {exc!r}",
+                                      self.core.now())
+                    break
             return replies
 
     def _resolve(self, unit, path: tuple[str, ...]) -> tuple[CommandSpec, tuple[str, ...]]:

@@ -202,3 +202,31 @@ def test_part_fails_mid_sweep(make_bench, rm, kind):
     else:
         assert abs(after_v) < 0.02 and after_i > 0.2  # ~0 V, current set by the resistor
     assert any(e.kind == "fault" for e in bench.log.entries("bench"))
+
+
+def test_internal_error_becomes_minus_300_and_connection_survives(bench, supply):
+    def broken(params):
+        raise ZeroDivisionError("simulated bug")
+
+    bench.instruments["supply"].query_voltage = broken
+    supply.write("VOLT?")
+    assert drain_errors(supply) == [-300]
+    assert supply.query("*IDN?").startswith("BENCHLAB-SIM")
+
+
+from hypothesis import HealthCheck, given, settings, strategies as st  # noqa: E402
+
+
+@settings(max_examples=300, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+@given(st.text(max_size=80) | st.binary(max_size=80).map(lambda b: b.decode("latin-1")))
+def test_any_text_only_ever_queues_errors(bench, text):
+    # whatever arrives, executing it returns replies or queues standard command/execution errors
+    # (SCPI-1999 vol. 2, 21.8); it never raises
+    line = text.replace("\n", " ")
+    for role, instrument in bench.instruments.items():
+        replies = instrument.execute(line)
+        assert isinstance(replies, list)
+        while instrument.status.count:
+            code, _ = instrument.status.pop()
+            assert -299 <= code <= -100 or code == -350  # -300 would mean a simulator bug
+        instrument.execute("OUTP OFF") if role != "meter" else None
