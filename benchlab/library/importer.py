@@ -44,7 +44,7 @@ class PreparedSweep:
 
 
 def default_fit_function() -> Callable:
-    """``benchlab.extract.fit_sweep`` with its automatic model choice."""
+    """``benchlab.extract.fit_sweep`` with its automatic model choice (called as ``f(vgs, id, direction=...)``)."""
     try:
         from benchlab.extract import fit_sweep
     except ImportError as exc:
@@ -79,10 +79,10 @@ def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
         return PreparedSweep(session, sweep, lot, None, "")
     try:
         if refit:
-            vgs, ids = sweep.fit_points()
+            vgs, ids, direction = sweep.fit_points()
             if len(vgs) < MIN_FIT_POINTS:
                 return PreparedSweep(session, sweep, lot, None, f"only {len(vgs)} usable points, no fit")
-            outcome = fit_outcome(fit_function(vgs, ids))
+            outcome = fit_outcome(fit_function(vgs, ids, direction=direction))
         else:
             stored = sweep.sidecar.get("fits") or []
             if not stored:

@@ -46,19 +46,31 @@ class SessionSweep:
     def reason(self) -> str:
         return str(self.sidecar.get("reason") or "")
 
-    def fit_points(self) -> tuple[list[float], list[float]]:
-        """VGS and ID of the points a fit may use: status ``ok``, finite, and of the up-sweep only.
+    @property
+    def detect_current(self) -> float | None:
+        """The plan's detection current (A): below it the part was not conducting yet."""
+        value = (self.sidecar.get("plan") or {}).get("detect_current_a")
+        return float(value) if isinstance(value, (int, float)) and value > 0 else None
 
-        A down-sweep repeats the VGS range backwards (for self-heating checks); the fitter takes one
-        monotonic sweep, so only the up-going points are passed on.
+    def fit_points(self) -> tuple[list[float], list[float], list[str] | None]:
+        """VGS, ID and direction of the points a fit may use (the same rules as ``benchlab fit``).
+
+        Status ``ok`` and finite only; points below the plan's detection current (or, without a plan,
+        at zero or negative current) are the search before the part conducted, not data. The direction
+        is None when the CSV has no direction column (the fitter then infers it).
         """
-        vgs, ids = [], []
+        floor = self.detect_current
+        vgs, ids, dirs = [], [], []
         directions = self.direction or ("",) * len(self.vgs)
         for v, i, s, d in zip(self.vgs, self.id, self.status, directions):
-            if s == "ok" and d in ("", "up") and v is not None and i is not None and math.isfinite(v) and math.isfinite(i):
-                vgs.append(v)
-                ids.append(i)
-        return vgs, ids
+            if s != "ok" or v is None or i is None or not (math.isfinite(v) and math.isfinite(i)):
+                continue
+            if (floor is not None and i < floor) or i <= 0:
+                continue
+            vgs.append(v)
+            ids.append(i)
+            dirs.append(d)
+        return vgs, ids, (dirs if any(dirs) else None)
 
 
 @dataclass(frozen=True)

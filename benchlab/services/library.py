@@ -53,14 +53,14 @@ def hand_params(vth: float | None, gm: float | None = None, kp: float | None = N
 
 
 def fit_function(model: str = "auto") -> Callable:
-    """The fitter as the library's import expects it: ``f(vgs, id) -> FitResult``."""
+    """The fitter as the library's import expects it: ``f(vgs, id, direction=None) -> FitResult``."""
     try:
         from benchlab.extract import fit_sweep
     except ImportError as exc:
         raise LibraryError(f"the fitter is not available ({exc}); use --no-refit") from exc
 
-    def fit(vgs: Sequence[float], i_d: Sequence[float]):
-        return fit_sweep(vgs, i_d, model=model)
+    def fit(vgs: Sequence[float], i_d: Sequence[float], direction: Sequence[str] | None = None):
+        return fit_sweep(vgs, i_d, model=model, direction=direction)
 
     return fit
 

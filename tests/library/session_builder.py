@@ -77,14 +77,17 @@ def demo_bag(count: int, *, seed: int = 7, duds: Sequence[int] = ()) -> list[dic
     return parts
 
 
-def curve_fit_square(vgs, i_d):
-    """An independent fitter for tests: scipy's curve_fit on sqrt(ID) = sqrt(KP/2) (VGS - Vth).
+def curve_fit_square(vgs, i_d, direction=None):
+    """An independent fitter for tests: scipy's curve_fit on sqrt(ID) = sqrt(KP/2) (VGS - Vth), up-sweep only.
 
     Returns the plain-dict form the library accepts from a fit function.
     """
     from scipy.optimize import curve_fit
 
     vgs, i_d = np.asarray(vgs, float), np.asarray(i_d, float)
+    if direction is not None:
+        up = np.asarray(direction) == "up"
+        vgs, i_d = vgs[up], i_d[up]
     popt, pcov = curve_fit(lambda v, vth, kp: np.sqrt(kp / 2.0) * np.maximum(v - vth, 0.0),
                            vgs, np.sqrt(i_d), p0=(float(vgs.min()) - 0.1, 1.0))
     err = np.sqrt(np.diag(pcov))

@@ -40,15 +40,14 @@ def test_engine_written_session_imports_with_up_sweep_fitted(lib, tmp_path):
     writer.finish()
     seen = []
 
-    def fit(vgs, i_d):
-        seen.append(len(vgs))
-        assert list(vgs) == sorted(vgs)  # only the monotonic up-sweep reaches the fitter
-        return curve_fit_square(vgs, i_d)
+    def fit(vgs, i_d, direction=None):
+        seen.append((len(vgs), direction.count("up"), direction.count("down")))
+        return curve_fit_square(vgs, i_d, direction)
 
     summary = lib.import_session(writer.path, fit_function=fit)
     assert sorted((s.label, s.action) for s in summary.sweeps) == [
         ("Q01", "fitted"), ("Q02", "rejected"), ("Q03", "fitted")]
-    assert seen == [20, 20]
+    assert seen == [(40, 20, 20), (40, 20, 20)]  # both passes reach the fitter, labelled (Q02 is a dud)
     q01 = lib.get_part("demo-bag/Q01")
     assert q01.params.vth == pytest.approx(3.05, abs=1e-3) and q01.params.kp == pytest.approx(1.15, rel=5e-3)
     assert len(lib.sweeps(q01)[0]["vgs"]) == 40  # both directions stored

@@ -55,9 +55,9 @@ def test_points_not_ok_are_not_fitted_and_stored_as_null(lib, tmp_path):
     status = ["ok"] * 12 + ["over_range"]
     seen = {}
 
-    def fit(v, i):
+    def fit(v, i, direction=None):
         seen["n"] = len(v)
-        return curve_fit_square(v, i)
+        return curve_fit_square(v, i, direction)
 
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "vgs": vgs, "id": ids, "status": status}])
     lib.import_session(session, fit_function=fit)
@@ -96,7 +96,7 @@ def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
 def test_a_fit_that_fails_keeps_the_sweep_without_a_fit(lib, tmp_path):
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "params": DeviceParams("square", vth=3, kp=1)}])
 
-    def failing(v, i):
+    def failing(v, i, direction=None):
         raise ValueError("curve too flat")
 
     summary = lib.import_session(session, fit_function=failing)

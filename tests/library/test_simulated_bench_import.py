@@ -1,0 +1,33 @@
+"""End to end: the simulated bench sweeps a bag, the library imports it, and its fits equal `benchlab fit`'s."""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.library import Library
+from benchlab.services import library as library_service
+
+characterize = pytest.importorskip("benchlab.services.characterize")
+fitting = pytest.importorskip("benchlab.services.fitting")
+
+
+@pytest.mark.slow
+def test_demo_session_imports_with_the_same_fits_as_the_fit_command(tmp_path):
+    result = characterize.run_demo(tmp_path / "sessions", count=5, seed=1)
+    session = next((tmp_path / "sessions").iterdir())
+    db = tmp_path / "lib.db"
+    summary = library_service.import_sessions(db, [str(session)])
+    records = {r.source.label: r.result for r in fitting.fit_files([str(session)])}
+    with Library.open(db) as lib:
+        parts = {p.label: p for p in lib.parts(state=None)}
+        assert len(parts) == 5 and summary.fitted + summary.rejected == 5
+        assert summary.rejected >= 1  # the seed-1 bag's first parts hold a dud
+        for label, part in parts.items():
+            sidecar_class = part.classification
+            if sidecar_class != "good":
+                assert part.state == "rejected" and part.reason.startswith(sidecar_class)
+                continue
+            # the library's re-fit reads the record with the same rules as the fit command
+            assert part.params == records[label].params
+            assert len(lib.sweeps(part)[0]["vgs"]) > 10
+    assert result is not None
