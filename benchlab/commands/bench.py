@@ -29,6 +29,7 @@ See docs/profiles.md to write a profile for your own instrument.
 
 
 def register(subparsers) -> None:
+    """Add `benchlab bench check` and `benchlab bench profiles` to the CLI."""
     parser = subparsers.add_parser("bench", help="check a bench's instruments; list instrument profiles",
                                    description="Instrument bench: check the connection to each instrument "
                                                "and list the instrument profiles on the search path.")

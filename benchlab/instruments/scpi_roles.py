@@ -12,7 +12,8 @@ from __future__ import annotations
 
 from typing import Any, Sequence
 
-from benchlab.errors import ConnectionLost, InputError, InstrumentError, InstrumentReportedError
+from benchlab.errors import (BenchlabError, ConnectionLost, InputError, InstrumentError,
+                             InstrumentReportedError, InstrumentTimeout)
 from benchlab.instruments.profiles import Profile
 from benchlab.instruments.scpi import parse_bool, parse_error_reply, parse_reading, parse_readings
 from benchlab.instruments.transport import Transport
@@ -126,11 +127,25 @@ class ScpiInstrument:
         return errors
 
     def ask(self, operation: str, *, idempotent: bool = True, timeout_ms: int | None = None) -> str:
-        """Send a one-line query operation and return the reply."""
+        """Send a query operation and return the reply.
+
+        An instrument that refuses a query queues an error and sends nothing, which looks like a
+        timeout; the error queue is read then, so the user sees the instrument's code and text.
+        """
         lines = self.profile.lines(operation)
         for line in lines[:-1]:
             self.send(line)
-        return self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
+        try:
+            return self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
+        except InstrumentTimeout as timeout:
+            try:
+                errors = self.read_error_queue()
+            except BenchlabError:
+                raise timeout from None
+            if not errors:
+                raise
+            code, text = errors[0]
+            raise InstrumentReportedError(code, text, command=lines[-1], resource=self.resource) from timeout
 
     def ask_float(self, operation: str) -> float:
         """A numeric query (SCPI special values -> inf/nan)."""

@@ -170,3 +170,18 @@ def test_common_commands_default_to_ieee_488_2(tmp_path):
     assert profile.lines("reset") == ["*RST"]
     assert profile.lines("error_query") == ["SYST:ERR?"]
     assert not profile.has("get_voltage")
+
+
+def test_installed_package_location_wins_over_the_source_tree(tmp_path, monkeypatch):
+    # pyproject maps drivers/ to the package benchlab.drivers; when installed, its folder is used.
+    import importlib.machinery
+    import importlib.util
+
+    spec = importlib.machinery.ModuleSpec("benchlab.drivers", None, is_package=True)
+    spec.submodule_search_locations = [str(tmp_path)]
+    real_find_spec = importlib.util.find_spec
+    monkeypatch.setattr(importlib.util, "find_spec",
+                        lambda name, *a: spec if name == "benchlab.drivers" else real_find_spec(name, *a))
+    assert bundled_drivers_dir() == tmp_path
+    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None)
+    assert bundled_drivers_dir() == Path(__file__).resolve().parents[2] / "drivers"

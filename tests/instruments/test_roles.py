@@ -239,3 +239,52 @@ def test_a_user_profile_changes_the_text_without_code(role_setup):
     assert server.lines() == [":SOURce:CURRent:PROTection:STATe ON", ":SYSTem:ERRor:NEXT?",
                               ":SOURce:CURRent 0.1250", ":SYSTem:ERRor:NEXT?",
                               ":SOURce:VOLTage:LEVel:IMMediate:AMPLitude 5.0000", ":SYSTem:ERRor:NEXT?"]
+
+
+def test_refused_query_reports_the_instruments_error_not_a_bare_timeout(role_setup):
+    server, supply = role_setup("supply")
+    # The fake, like an instrument, queues -113 for an unknown query and sends no reply.
+    with pytest.raises(InstrumentReportedError) as caught:
+        supply.voltage_setpoint()  # "VOLT?" before any VOLT was set: unknown to the fake
+    assert (caught.value.code, caught.value.text, caught.value.command) == (-113, "Undefined header", "VOLT?")
+
+
+def test_role_classes_satisfy_the_role_interfaces(role_setup):
+    from benchlab.instruments.roles import Meter, SourceMeter, Supply
+
+    assert isinstance(role_setup("supply")[1], Supply)
+    assert isinstance(role_setup("meter")[1], Meter)
+    assert isinstance(role_setup("source_meter")[1], SourceMeter)
+
+
+class ScriptedTransport:
+    """An in-memory transport: replies from a dict, every message recorded (no pyvisa, no socket)."""
+
+    resource = "memory://meter"
+
+    def __init__(self, replies):
+        self.replies = replies
+        self.sent = []
+
+    def write(self, command, *, idempotent=True):
+        self.sent.append(command)
+
+    def query(self, command, *, idempotent=True, timeout_ms=None):
+        self.sent.append(command)
+        return self.replies.get(command, '+0,"No error"')
+
+    def close(self):
+        self.sent.append("<closed>")
+
+
+def test_transport_is_injected(profiles):
+    from benchlab.instruments.transport import Transport
+
+    link = ScriptedTransport({"*IDN?": "BENCHLAB-SIM,DMM-1,9,1", "READ?": "-9.9E37"})
+    assert isinstance(link, Transport)
+    meter = ScpiMeter(link, profiles["meter"])
+    assert meter.connect() == "BENCHLAB-SIM,DMM-1,9,1"
+    meter.configure_current(3, nplc=1)
+    assert meter.read() == -math.inf
+    meter.close()
+    assert link.sent == ["*IDN?", "*CLS", E, "CONF:CURR:DC 3", E, "CURR:DC:NPLC 1", E, "READ?", "<closed>"]
