@@ -11,6 +11,8 @@ Public API (other parts and tests code against it)::
 Command set: ``docs/scpi.md``; defaults, faults and physics: ``docs/sim.md``.
 """
 
+import json
+
 from benchlab.sim.bench import DEFAULT_FIRST_PORT, DEFAULT_SERIES_RESISTOR_OHM, ROLES, SimBench, SimConfig
 from benchlab.sim.faults import FaultSpec, parse_fault
 from benchlab.sim.log import BenchLog, LogEntry
@@ -20,8 +22,6 @@ from benchlab.sim.scpi import unquote_string
 
 def parse_truth_reply(reply: str) -> dict:
     """Decode the reply of ``SIMulation:PART:TRUTh?`` (a quoted JSON string) into a dict."""
-    import json
-
     return json.loads(unquote_string(reply))
 
 

@@ -169,7 +169,7 @@ class SimBench:
                 self._log_stream = open(self.config.log_path, "a", encoding="utf-8")
             except OSError as exc:
                 raise InputError(f"cannot open the log file: {exc.strerror}", path=self.config.log_path) from exc
-            self.log._stream = self._log_stream
+            self.log.attach(self._log_stream)
         for offset, role in enumerate(ROLES):
             port = first_port + offset if first_port else 0
             try:
@@ -189,7 +189,7 @@ class SimBench:
             server.stop()
         self._started = False
         if self._log_stream is not None:
-            self.log._stream = None
+            self.log.attach(None)
             self._log_stream.close()
             self._log_stream = None
 

@@ -51,6 +51,11 @@ class BenchLog:
         self._lock = threading.Lock()
         self._stream = stream
 
+    def attach(self, stream: IO[str] | None) -> None:
+        """Write every later entry through to ``stream`` (None detaches)."""
+        with self._lock:
+            self._stream = stream
+
     def add(self, role: str, kind: str, text: str, virtual_s: float = 0.0) -> LogEntry:
         """Append one entry (and write it through when a stream is attached)."""
         entry = LogEntry(time.time(), virtual_s, role, kind, text)

@@ -168,3 +168,24 @@ def test_cli_help_lists_every_option():
     for option in ("--host", "--port", "--fixture", "--seed", "--bag-size", "--time-scale", "--latency",
                    "--fault", "--log"):
         assert option in run.stdout
+
+
+def test_defaults_make_a_sensible_resistor_sweep(make_bench, rm):
+    # the documented defaults: 47 ohm +/-1 %, a 0-30 V supply and a 2-4 V part give roughly half an ampere
+    bench = make_bench(rth_k_per_w=0.0)
+    assert bench.series_resistor_nominal_ohm == 47.0
+    assert bench.series_resistor_actual_ohm != 47.0
+    assert abs(bench.series_resistor_actual_ohm / 47.0 - 1) <= 0.01
+    supply = open_client(rm, bench.resources["supply"])
+    meter = open_client(rm, bench.resources["meter"])
+    assert supply.query("CURR 1;VOLT MAX;OUTP ON;*OPC?") == "1"
+    amps = float(meter.query("MEAS:CURR?"))
+    assert supply.query("OUTP OFF;*OPC?") == "1"
+    assert 0.4 < amps < 0.7
+
+
+def test_seed_changes_resistor_and_bag_but_same_seed_repeats():
+    a, b, c = (SimBench(SimConfig(seed=s, time_scale=0.0)) for s in (1, 1, 2))
+    assert a.series_resistor_actual_ohm == b.series_resistor_actual_ohm != c.series_resistor_actual_ohm
+    assert a.bag == b.bag and a.bag != c.bag
+    assert a.current_part.label == "Q01"
