@@ -32,6 +32,7 @@ class SweepSource:
     csv_path: Path
     sidecar_path: Path | None
     label: str
+    classification: str | None = None  # the sweep engine's verdict (good, open, shorted, leaky, unstable)
 
 
 @dataclass(frozen=True)
@@ -44,7 +45,8 @@ class FitRecord:
     def to_dict(self) -> dict[str, Any]:
         """The JSON Lines object: summary keys first (``theta`` 0 when none), then the full result."""
         full = self.result.to_dict()
-        data = {"file": str(self.source.csv_path), "label": self.source.label}
+        data = {"file": str(self.source.csv_path), "label": self.source.label,
+                "classification": self.source.classification}
         for key in SUMMARY_KEYS[2:]:
             data[key] = full[key]
         data["theta"] = data["theta"] or 0.0
@@ -73,7 +75,8 @@ def _session_sources(folder: Path) -> list[SweepSource]:
         csv_path = folder / f"{label}.csv"
         if csv_path.exists():
             sidecar = folder / f"{label}.json"
-            sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label)))
+            verdict = _read_json(sidecar).get("classification") if sidecar.exists() else None
+            sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict))
     if not sources:
         raise InputError("the session holds no part sweeps yet", path=str(folder))
     return sources
@@ -104,13 +107,16 @@ def resolve_inputs(paths) -> list[SweepSource]:
                 csv_path = path.with_suffix(".csv")
                 if not csv_path.exists():
                     raise InputError(f"the sidecar's raw points {csv_path.name} are missing", path=str(path))
-                sources.append(SweepSource(csv_path, path, str(data.get("label") or path.stem)))
+                sources.append(SweepSource(csv_path, path, str(data.get("label") or path.stem),
+                                           data.get("classification")))
             else:
                 raise InputError("not a benchlab sweep sidecar or session file", path=str(path))
         else:
             sidecar = path.with_suffix(".json")
-            is_record = sidecar.exists() and _read_json(sidecar).get("format") == SWEEP_FORMAT
-            sources.append(SweepSource(path, sidecar if is_record else None, path.stem))
+            data = _read_json(sidecar) if sidecar.exists() else {}
+            is_record = data.get("format") == SWEEP_FORMAT
+            sources.append(SweepSource(path, sidecar if is_record else None, path.stem,
+                                       data.get("classification") if is_record else None))
     if not sources:
         raise InputError("no input files given")
     return sources
@@ -214,5 +220,8 @@ def format_table(records: list[FitRecord]) -> str:
         r = rec.result
         lines.append(f"{rec.source.label}: {r.reason}; {r.window['points']} points "
                      f"{r.window['i_min']:.3g}..{r.window['i_max']:.3g} A")
+        if rec.source.classification not in (None, "good"):
+            lines.append(f"  note: the sweep classified this part '{rec.source.classification}'; its fit "
+                         "does not describe a working transistor")
         lines += [f"  warning: {note}" for note in r.notes]
     return "\n".join(lines)
