@@ -6,7 +6,7 @@ import argparse
 
 from benchlab.sim.bag import DEFAULT_BAG_SIZE
 from benchlab.sim.bench import DEFAULT_FIRST_PORT, DEFAULT_SERIES_RESISTOR_OHM, SimConfig
-from benchlab.sim.faults import FAULT_KINDS, parse_fault
+from benchlab.sim.faults import parse_fault
 
 _FAULT_HELP = (
     "inject a fault, KIND[@ROLE][=VALUE]; ROLE is supply, meter, source_meter or all (default). "
@@ -66,4 +66,4 @@ def run(args: argparse.Namespace) -> int:
     return serve_until_signalled(config, args.host, args.port)
 
 
-__all__ = ["register", "run", "FAULT_KINDS"]
+__all__ = ["register", "run"]

@@ -12,7 +12,7 @@ import numpy as np
 
 from benchlab.sim.clock import VirtualClock
 from benchlab.sim.faults import FaultSpec
-from benchlab.sim.fixture import Fixture, OperatingPoint, SupplyError
+from benchlab.sim.fixture import Fixture, OperatingPoint
 from benchlab.sim.log import BenchLog
 from benchlab.sim.physics import PartPhysics
 

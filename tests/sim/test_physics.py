@@ -17,7 +17,7 @@ from benchlab.sim import parse_truth_reply
 from benchlab.sim.bag import make_bag
 from benchlab.sim.fixture import solve_resistor_fixture
 from benchlab.sim.physics import (
-    BOLTZMANN_OVER_CHARGE, PartPhysics, channel_current, kp_at, part_current, threshold_at,
+    BOLTZMANN_OVER_CHARGE, PartPhysics, kp_at, part_current, threshold_at,
     voltage_at_current,
 )
 from tests.sim.conftest import open_client
