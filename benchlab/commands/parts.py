@@ -46,6 +46,7 @@ def register(subparsers) -> None:
 
     show = sub.add_parser("show", parents=[lib], help="show one part: curve, fits, sweeps, history")
     show.add_argument("part", help="LABEL or LOT/LABEL")
+    show.add_argument("--json", action="store_true", help="everything as one JSON object")
     show.set_defaults(func=_show)
 
     reject = sub.add_parser("reject", parents=[lib], help="mark a part rejected")
@@ -80,7 +81,11 @@ def _list(args) -> int:
 
 
 def _show(args) -> int:
-    print(json.dumps(service.show_part(args.library, args.part), indent=1, default=json_default))
+    details = service.show_part(args.library, args.part)
+    if args.json:
+        print(json.dumps(details, indent=1, default=json_default))
+    else:
+        print(service.format_part_details(details))
     return 0
 
 

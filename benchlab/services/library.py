@@ -195,3 +195,35 @@ def format_parts_table(parts: Sequence[PartRecord]) -> str:
         lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {gm} {theta}  {note or ''}")
     lines.append(f"{len(parts)} part(s)")
     return "\n".join(lines)
+
+
+def format_part_details(details: dict[str, Any]) -> str:
+    """Readable text of :func:`show_part`'s result: identity, curve, fits, sweeps and history."""
+    part = details["part"]
+    lines = [f"{part['lot']}/{part['label']}  ({part['polarity']}-channel)  state: {part['state']}"
+             + (f"  reason: {part['reason']}" if part.get("reason") else "")]
+    for key in ("package", "notes", "classification"):
+        if part.get(key):
+            lines.append(f"  {key}: {part[key]}")
+    params = part.get("params")
+    if params:
+        stderr = part.get("stderr") or {}
+        shown = ["vth", "gm"] if params["model"] == "linear" else ["vth", "kp", "theta", "n"]
+        units = {"vth": "V", "gm": "A/V", "kp": "A/V^2", "theta": "1/V", "n": ""}
+        values = [f"{k}={params[k]:.6g} {units[k]}".rstrip() + (f" (+/- {stderr[k]:.2g})" if stderr.get(k) else "")
+                  for k in shown if params.get(k) or k == "vth"]
+        lines.append(f"  curve ({params['model']}): " + ", ".join(values))
+    if part.get("flags"):
+        lines.append("  flags: " + ", ".join(part["flags"]))
+    lines.append(f"  fits: {len(details['fits'])}")
+    for fit in details["fits"]:
+        lines.append(f"    {fit['fitted_at']}  {fit['source']:<8} {fit['model']:<7} vth={fit['params']['vth']:.6g} V"
+                     + (f"  fitter {fit['fitter_version']}" if fit.get("fitter_version") else ""))
+    lines.append(f"  sweeps: {len(details['sweeps'])}")
+    for sweep in details["sweeps"]:
+        lines.append(f"    {sweep['session_id']}  {sweep['classification'] or '-'}"
+                     f"{'' if sweep['complete'] else ' (incomplete)'}  {sweep['csv_path']}")
+    for change in details["history"]:
+        lines.append(f"  {change['changed_at']}: {change['old_state']} -> {change['new_state']}"
+                     + (f" ({change['reason']})" if change.get("reason") else ""))
+    return "\n".join(lines)

@@ -35,8 +35,10 @@ def test_parts_commands(capsys, tmp_path):
     code, out, err = run(capsys, "parts", "show", "Q07", "--library", db)
     assert code == 2 and out == "" and err.count("\n") == 1  # one line, no traceback
     assert "ambiguous" in err and "demo-bag/Q07" in err and "other/Q07" in err
-    code, out, _ = run(capsys, "parts", "show", "demo-bag/Q07", "--library", db)
+    code, out, _ = run(capsys, "parts", "show", "demo-bag/Q07", "--library", db, "--json")
     assert json.loads(out)["part"]["params"]["gm"] == 0.544
+    code, out, _ = run(capsys, "parts", "show", "demo-bag/Q07", "--library", db)
+    assert code == 0 and "curve (linear): vth=3.9 V, gm=0.544 A/V" in out and "hand" in out
 
     code, _, err = run(capsys, "parts", "add", "Q09", "--vth", "3", "--gm", "0.5", "--kp", "1", "--library", db)
     assert code == 2 and "not both" in err

@@ -120,3 +120,41 @@ def test_readers_never_see_a_part_without_its_fit_or_half_an_import(tmp_path):
     assert not problems, problems[:5]
     assert observations[0] >= 2
     assert _check(db) == 96
+
+
+READER = textwrap.dedent("""
+    import os, sys
+    from benchlab.library import Library
+    db, stop, size = sys.argv[1], sys.argv[2], int(sys.argv[3])
+    seen = problems = 0
+    print("ready", flush=True)
+    with Library.open(db) as lib:
+        while not os.path.exists(stop):
+            per_lot = {}
+            for part in lib.parts(state=None):
+                per_lot[part.lot] = per_lot.get(part.lot, 0) + 1
+                problems += part.params is None
+            problems += sum(1 for n in per_lot.values() if n != size)
+            seen += 1
+    print("seen", seen, "problems", problems, flush=True)
+""")
+
+
+def test_a_reader_process_sees_only_whole_imports(tmp_path):
+    sessions = [write_session(tmp_path, f"s{k}", f"lot-{k}", demo_bag(8, seed=k)) for k in range(10)]
+    db, stop = tmp_path / "lib.db", tmp_path / "stop"
+    Library.open(db).close()
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.Popen([sys.executable, "-c", READER, str(db), str(stop), "8"], cwd=REPO, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "ready"
+        with Library.open(db) as writer:
+            for session in sessions:
+                writer.import_session(session, refit=False)
+    finally:
+        stop.touch()
+        out, err = proc.communicate(timeout=60)
+    words = out.split()
+    assert proc.returncode == 0, err
+    assert words[0] == "seen" and int(words[1]) >= 1 and words[2:] == ["problems", "0"]
