@@ -71,6 +71,21 @@ def test_temperature_laws():
     assert part_current(part, 7.5, T0 + 30) < part_current(part, 7.5, T0)
 
 
+def test_zero_temperature_coefficient_point():
+    # with KP ~ T^-1.5 and dVT/dT = -alpha, the square law has d ln ID / dT = -1.5/T + 2 alpha / Vov, zero at
+    # Vov = 2 alpha T / 1.5 (derived from the two laws; the ZTC point behind power-MOSFET thermal instability,
+    # Spirito et al., MIEL 2002, doi:10.1109/MIEL.2002.1003144)
+    from scipy.optimize import brentq
+
+    part = make_part(theta=0.0, slope_n=1.0, leak_siemens=0.0)
+
+    def temperature_slope(volts: float) -> float:
+        return part_current(part, volts, T0 + 0.5) - part_current(part, volts, T0 - 0.5)
+
+    ztc = brentq(temperature_slope, 3.5, 8.0)
+    assert ztc - 3.0 == pytest.approx(2 * 5e-3 * T0 / 1.5, rel=2e-3)
+
+
 def test_duds():
     # common practice: an open part conducts nothing, a shorted one shows ~0 V at any current,
     # a leaky one conducts well below threshold
