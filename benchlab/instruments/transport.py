@@ -100,6 +100,11 @@ def resource_kind(resource: str) -> ResourceKind:
     raise ConfigError(f"'{resource}' is not a VISA resource string benchlab can open ({kinds})", key="resource")
 
 
+def _one_line(exc: BaseException) -> str:
+    # Library messages may span lines; benchlab errors are printed on one.
+    return " ".join(str(exc).split()) or type(exc).__name__
+
+
 def _is_timeout(exc: BaseException) -> bool:
     # Duck-typed so this module needs pyvisa only where a resource manager is made.
     code = getattr(exc, "error_code", None)
@@ -151,7 +156,7 @@ class VisaTransport:
         try:
             handle = self._manager.open_resource(self.resource, timeout=self.timeout_ms, **self._options)
         except Exception as exc:  # pyvisa-py raises bare Exception("could not connect") here
-            raise ConnectionLost(f"cannot open: {exc}", resource=self.resource) from exc
+            raise ConnectionLost(f"cannot open: {_one_line(exc)}", resource=self.resource) from exc
         try:
             if self.kind.after_open is not None:
                 self.kind.after_open(handle)
@@ -259,7 +264,11 @@ class VisaTransport:
                         f"no reply to '{command}' within {self.timeout_ms} ms"
                         + (" (asked twice)" if retried else ""), resource=self.resource) from exc
                 if reopened:
-                    raise ConnectionLost(f"connection lost again after reopening, at '{command}': {exc}",
+                    if isinstance(exc, ConnectionRefusedError):
+                        raise ConnectionLost(f"connection refused at '{command}': nothing answers at that "
+                                             f"address and port (is the instrument on and its LAN port enabled?)",
+                                             resource=self.resource) from exc
+                    raise ConnectionLost(f"connection lost again after reopening, at '{command}': {_one_line(exc)}",
                                          resource=self.resource) from exc
                 reopened = True
                 self._reopen()

@@ -43,7 +43,8 @@ class InstrumentCheck:
     identity: str
     output_was_on: bool | None  # None for a meter (no output)
     round_trips: tuple[RoundTrip, ...] = ()
-    problems: tuple[str, ...] = ()
+    problems: tuple[str, ...] = ()  # each makes the check fail
+    notes: tuple[str, ...] = ()  # worth knowing, not a failure
 
     @property
     def ok(self) -> bool:
@@ -128,6 +129,8 @@ def _check_instrument(bench: Bench, role: str, instrument: ScpiInstrument) -> In
     output_was_on: bool | None = None
     trips: list[RoundTrip] = []
     problems: list[str] = []
+    notes = identity_notes(base["identity"])
+    base["notes"] = tuple(notes)
     try:
         if isinstance(instrument, (ScpiSupply, ScpiSourceMeter)):
             output_was_on = instrument.output_is_on()
@@ -142,6 +145,20 @@ def _check_instrument(bench: Bench, role: str, instrument: ScpiInstrument) -> In
     except BenchlabError as exc:
         problems.append(str(exc))
     return InstrumentCheck(output_was_on=output_was_on, round_trips=tuple(trips), problems=tuple(problems), **base)
+
+
+def identity_notes(identity: str) -> list[str]:
+    """Remarks on an ``*IDN?`` reply that does not have the shape IEEE 488.2 asks for.
+
+    IEEE 488.2 sec. 10.14 defines the reply as four comma-separated fields: maker, model,
+    serial number (or 0), firmware level (or 0).
+    """
+    fields = identity.split(",")
+    if len(fields) != 4:
+        return [f"the *IDN? reply has {len(fields)} field(s), not the 4 of IEEE 488.2 (maker,model,serial,firmware)"]
+    if not fields[0].strip() or not fields[1].strip():
+        return ["the *IDN? reply leaves the maker or model field empty"]
+    return []
 
 
 def _trip(setting: str, sent: float, operation: str, instrument: ScpiInstrument,
@@ -199,6 +216,8 @@ def format_check_report(report: BenchCheckReport) -> str:
             lines.append(f"    {trip.setting}: sent {trip.sent:g}, read {back}  {mark} {trip.note}".rstrip())
         for problem in check.problems:
             lines.append(f"    problem: {problem}")
+        for note in check.notes:
+            lines.append(f"    note: {note}")
     lines.append("result: " + ("all instruments answered and round-tripped; no output was enabled" if report.ok
                                else "problems found (see above); no output was enabled"))
     return "\n".join(lines)

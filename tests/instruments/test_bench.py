@@ -183,3 +183,70 @@ def test_cli_bench_help_and_profiles(capsys):
     listing = json.loads(capsys.readouterr().out)
     assert {entry["name"] for entry in listing["profiles"]} >= {"generic-scpi-supply", "generic-scpi-meter",
                                                                 "generic-scpi-smu"}
+
+
+LONG_FORM_SUPPLY = """\
+format_version = 1
+role = "supply"
+description = "workshop supply that wants long-form commands (test profile)"
+
+[limits]
+max_voltage = 60.0
+max_current = 5.0
+
+[commands]
+set_voltage = ":SOURce:VOLTage:LEVel {volts:.3f}"
+get_voltage = ":SOURce:VOLTage:LEVel?"
+set_current_limit = ":SOURce:CURRent:LEVel {amps:.4f}"
+get_current_limit = ":SOURce:CURRent:LEVel?"
+output_on = ":OUTPut:STATe ON"
+output_off = ":OUTPut:STATe OFF"
+output_state = ":OUTPut:STATe?"
+measure_voltage = ":MEASure:VOLTage:DC?"
+measure_current = ":MEASure:CURRent:DC?"
+error_query = ":SYSTem:ERRor:NEXT?"
+"""
+
+
+def test_a_user_profile_on_the_search_path_drives_a_bench(tmp_path, monkeypatch, resource_manager, pair):
+    supply, meter = pair
+    folder = tmp_path / "my-drivers"
+    folder.mkdir()
+    (folder / "workshop-psu.toml").write_text(LONG_FORM_SUPPLY)
+    monkeypatch.setenv("BENCHLAB_DRIVERS", str(folder))
+    supply.settings[":OUTPUT:STATE"] = "0"
+    data = _bench_data(supply.resource, meter.resource)
+    data["instruments"]["supply"]["profile"] = "workshop-psu"
+    report = check_bench(parse_bench_config(data), resource_manager)
+    assert report.ok, format_check_report(report)
+    assert report.instruments[0].profile == "workshop-psu"
+    assert ":SOURce:CURRent:LEVel 0.2500" in supply.lines()
+    assert ":SOURce:VOLTage:LEVel 0.000" in supply.lines()
+    assert "SYST:ERR?" not in supply.lines()
+
+
+@pytest.mark.parametrize("identity, remark", [
+    # IEEE 488.2 sec. 10.14: <maker>,<model>,<serial or 0>,<firmware or 0>.
+    ("BENCHLAB-SIM,PSU-1,SIM0001-1,0.1", None),
+    ("BENCHLAB-SIM,PSU-1,0,0", None),
+    ("HTTP/1.1 400 Bad Request", "1 field(s)"),
+    ("BENCHLAB-SIM,PSU-1,SIM0001-1", "3 field(s)"),
+    (",PSU-1,1,1", "maker or model field empty"),
+])
+def test_identity_shape_notes(identity, remark):
+    from benchlab.services.bench import identity_notes
+
+    notes = identity_notes(identity)
+    if remark is None:
+        assert notes == []
+    else:
+        assert len(notes) == 1 and remark in notes[0]
+
+
+def test_odd_identity_is_noted_without_failing_the_check(resource_manager, pair):
+    supply, meter = pair
+    meter.identity = "DMM"
+    report = check_bench(parse_bench_config(_bench_data(supply.resource, meter.resource)), resource_manager)
+    assert report.ok
+    assert report.instruments[1].notes and not report.instruments[0].notes
+    assert "note: the *IDN? reply has 1 field(s)" in format_check_report(report)

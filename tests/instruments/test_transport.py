@@ -126,7 +126,7 @@ def test_refused_port_raises_connection_lost(resource_manager):
     port = probe.getsockname()[1]
     probe.close()  # nothing listens there now: connect is refused at first I/O
     link = VisaTransport(resource_manager, f"TCPIP0::127.0.0.1::{port}::SOCKET", timeout_ms=TEST_TIMEOUT_MS)
-    with pytest.raises(ConnectionLost) as caught:
+    with pytest.raises(ConnectionLost, match="connection refused") as caught:
         link.open()
         link.query("*IDN?")
     assert f"127.0.0.1::{port}" in str(caught.value)
