@@ -184,8 +184,10 @@ class SimPartLoader:
 class PromptPartLoader:
     """Asks the operator for each part in turn: type its label, Enter to measure, ``q`` to stop."""
 
-    def __init__(self, ask: Callable[[str], str] = input, say: Callable[[str], None] = print):
-        self.ask, self.say = ask, say
+    def __init__(self, ask: Callable[[str], str] | None = None, say: Callable[[str], None] | None = None):
+        # looked up at call time so a caller (or a test) replacing input/print is honoured
+        self.ask = ask or (lambda prompt: input(prompt))
+        self.say = say or (lambda text: print(text))
         self.number = 0
 
     def next(self) -> str | None:

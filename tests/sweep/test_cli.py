@@ -1,0 +1,110 @@
+"""The sweep, bag and demo commands: one clear error for bad input (nothing written or powered), summaries."""
+
+from __future__ import annotations
+
+import builtins
+
+import pytest
+
+from benchlab.cli import main
+from benchlab.sim.bench import SimBench, SimConfig
+from benchlab.sweep.session import read_session
+
+from .simhelp import only_session, write_bench_file
+
+
+@pytest.fixture
+def sim():
+    bench = SimBench(SimConfig(time_scale=0.0, bag_size=6, seed=3))
+    bench.start(first_port=0)
+    yield bench
+    bench.stop()
+
+
+def one_error_line(capsys) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("benchlab: error: "), err
+    return err[0]
+
+
+def test_bad_bench_file_one_error_nothing_written(tmp_path, capsys):
+    bad = tmp_path / "bench.toml"
+    bad.write_text('format_version = 1\nfixture = "resistor"\n[limits]\nmax_supply_v = "12 V"\n')
+    code = main(["sweep", "--part", "Q01", "--bench", str(bad), "--sessions", str(tmp_path / "s")])
+    assert code == 2
+    assert "bench.toml" in one_error_line(capsys)
+    assert not (tmp_path / "s").exists()
+
+
+def test_bad_limits_in_bench_file_refused_before_connecting(tmp_path, capsys, sim):
+    path = write_bench_file(tmp_path / "bench.toml", sim.resources, 47.0, max_drain="-0.5 A")
+    assert main(["sweep", "--part", "Q01", "--bench", str(path), "--sessions", str(tmp_path / "s")]) == 2
+    assert "max_drain_a" in one_error_line(capsys)
+    assert sim.log.commands("supply") == []  # not even connected
+    assert not (tmp_path / "s").exists()
+
+
+@pytest.mark.parametrize("options,needle", [(["--max-current", "0.9"], "max_drain_a"),
+                                            (["--pulsed", "2"], "duty"),
+                                            (["--mode", "currents"], "source-measure unit"),
+                                            (["--voltages", "1,2,40"], "max_supply_v"),
+                                            (["--points", "1"], "points")])
+def test_bad_sweep_options_one_error_nothing_powered(tmp_path, capsys, sim, options, needle):
+    path = write_bench_file(tmp_path / "bench.toml", sim.resources, 47.0)
+    code = main(["sweep", "--part", "Q01", "--bench", str(path), "--sessions", str(tmp_path / "s"), *options])
+    assert code == 2
+    assert needle in one_error_line(capsys)
+    assert not sim.log.output_was_ever_on("supply")
+    assert not any(c.upper().startswith("VOLT") for c in sim.log.commands("supply"))
+    assert not (tmp_path / "s").exists()
+
+
+def test_unknown_option_value_is_refused_by_the_parser(tmp_path):
+    with pytest.raises(SystemExit) as exc:
+        main(["sweep", "--part", "Q01", "--sim", "--mode", "sideways", "--sessions", str(tmp_path / "s")])
+    assert exc.value.code == 2 and not (tmp_path / "s").exists()
+
+
+def test_unknown_part_on_the_simulator_writes_nothing(tmp_path, capsys):
+    code = main(["sweep", "--part", "Q99", "--sim", "--sessions", str(tmp_path / "s")])
+    assert code == 2 and "Q99" in one_error_line(capsys)
+    assert not (tmp_path / "s").exists()
+
+
+def test_sweep_command_prints_a_summary_line(tmp_path, capsys):
+    assert main(["sweep", "--part", "Q02", "--sim", "--sessions", str(tmp_path), "--points", "10"]) == 0
+    out = capsys.readouterr().out
+    assert "Q02: good" in out and "at 250 uA" in out
+    assert (only_session(tmp_path) / "Q02.csv").exists()
+
+
+def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkeypatch):
+    answers = iter(["A-1", "", "q"])
+    prompts = []
+
+    def fake_input(prompt):
+        prompts.append(prompt)
+        return next(answers)
+
+    monkeypatch.setattr(builtins, "input", fake_input)
+    path = write_bench_file(tmp_path / "bench.toml", sim.resources, sim.series_resistor_actual_ohm)
+    code = main(["bag", "--lot", "bench-bag", "--count", "5", "--bench", str(path), "--sessions", str(tmp_path / "s"),
+                 "--points", "8"])
+    captured = capsys.readouterr()
+    assert code == 0 and len(prompts) == 3 and "q to stop" in prompts[0]
+    assert "Caution" in captured.err  # the usual cautions before powering a real fixture
+    session = read_session(only_session(tmp_path / "s"))
+    assert session.meta["parts"] == ["A-1", "Q02"]  # Enter takes the suggested label
+    assert "2 parts swept" in captured.out and sim.log.last_output_state("supply") is False
+
+
+def test_demo_sweeps_an_invented_bag_with_a_dud(tmp_path, capsys):
+    assert main(["demo", "--sessions", str(tmp_path)]) == 0
+    out = capsys.readouterr().out
+    assert "invented" in out
+    session = read_session(only_session(tmp_path))
+    assert len(session.sweeps) == 12 and all(s.complete for s in session.sweeps.values())
+    classes = {s.meta["classification"] for s in session.sweeps.values()}
+    assert "good" in classes and classes - {"good"}  # at least one dud to set aside
+    for line in [line for line in out.splitlines() if line.startswith("Q")]:
+        assert " points, " in line
