@@ -83,11 +83,17 @@ def migrate(connection: sqlite3.Connection, target: int | None = None, *, path: 
             f"({len(migrations)}); upgrade benchlab to open it"
         )
     for migration in migrations[current:target]:
-        # version bump inside the same transaction: a crash leaves the database at the previous version
-        script = (f"BEGIN IMMEDIATE;\n{migration.sql}\n"
-                  f"PRAGMA user_version = {int(migration.version)};\nCOMMIT;")
         try:
-            connection.executescript(script)
+            connection.execute("BEGIN IMMEDIATE")
+            # another process may have migrated while this one waited for the write lock
+            if schema_version(connection) >= migration.version:
+                connection.execute("COMMIT")
+                continue
+            for statement in split_statements(migration.sql):
+                connection.execute(statement)
+            # the version bump shares the transaction: a crash leaves the previous version intact
+            connection.execute(f"PRAGMA user_version = {int(migration.version)}")
+            connection.execute("COMMIT")
         except sqlite3.Error as exc:
             if connection.in_transaction:
                 connection.execute("ROLLBACK")
@@ -95,3 +101,16 @@ def migrate(connection: sqlite3.Connection, target: int | None = None, *, path: 
                 f"{path or 'library'}: migration {migration.version} ({migration.name}) failed: {exc}"
             ) from exc
     return schema_version(connection)
+
+
+def split_statements(script: str) -> list[str]:
+    """The complete SQL statements of a migration script, in order (comments kept with their statement)."""
+    statements, buffer = [], ""
+    for line in script.splitlines(keepends=True):
+        buffer += line
+        if sqlite3.complete_statement(buffer):
+            statements.append(buffer.strip())
+            buffer = ""
+    if buffer.strip() and not all(l.strip().startswith("--") or not l.strip() for l in buffer.splitlines()):
+        raise RuntimeError(f"incomplete SQL statement at the end of a migration: {buffer.strip()[:60]}")
+    return statements

@@ -85,3 +85,32 @@ def test_default_path_follows_the_environment(monkeypatch, tmp_path):
     monkeypatch.delenv("BENCHLAB_LIBRARY")
     path = default_library_path()
     assert path.name == "library.db" and "benchlab" in str(path.parent)
+
+
+def test_several_programs_creating_the_same_library_at_once(tmp_path):
+    import threading
+
+    path = tmp_path / "fresh.db"
+    barrier = threading.Barrier(4)
+    errors = []
+
+    def opener():
+        barrier.wait()
+        try:
+            with Library.open(path) as lib:
+                assert lib.info()["schema_version"] == schema.latest_version()
+        except Exception as exc:  # any failure is the finding
+            errors.append(repr(exc))
+
+    threads = [threading.Thread(target=opener) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(timeout=60)
+    assert errors == []
+
+
+def test_statement_splitter_keeps_every_statement():
+    script = "-- a comment; with a semicolon\nCREATE TABLE a (x TEXT DEFAULT ';');\nCREATE INDEX i ON a(x);\n"
+    assert [s.splitlines()[-1] for s in schema.split_statements(script)] == [
+        "CREATE TABLE a (x TEXT DEFAULT ';');", "CREATE INDEX i ON a(x);"]
