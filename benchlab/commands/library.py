@@ -17,7 +17,8 @@ def register(subparsers) -> None:
                          description="Store every sweep of the session folders with its raw points, re-fit each "
                                      "good sweep and store the fit; duds are stored as rejected with their "
                                      "classification as the reason. All folders go in one transaction.")
-    imp.add_argument("sessions", nargs="+", metavar="SESSION_DIR")
+    imp.add_argument("sessions", nargs="+", metavar="SESSION_DIR",
+                     help="a session folder, or a folder of them (e.g. ./sessions)")
     imp.add_argument("--lot", help="store the parts in this lot (default: the session's lot)")
     imp.add_argument("--no-refit", dest="refit", action="store_false",
                      help="use the fits stored in the session instead of fitting again")

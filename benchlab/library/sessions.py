@@ -191,3 +191,24 @@ def read_session(path: str | Path) -> Session:
                                    json_path=json_path, sidecar=sidecar, point=point, vgs=vgs, id=ids,
                                    status=status, direction=direction))
     return Session(path=folder, meta=meta, sweeps=tuple(sweeps))
+
+
+def find_sessions(paths) -> list[Path]:
+    """Session folders named by ``paths``: each is a session folder, or a folder of session folders.
+
+    Raises
+    ------
+    InputError
+        For a path that is neither (nothing is imported then).
+    """
+    found: list[Path] = []
+    for raw in paths:
+        folder = Path(raw)
+        if (folder / "session.json").is_file():
+            found.append(folder)
+            continue
+        inner = sorted(p for p in folder.iterdir() if (p / "session.json").is_file()) if folder.is_dir() else []
+        if not inner:
+            raise InputError("not a session folder (no session.json here or in its subfolders)", path=str(folder))
+        found += inner
+    return found

@@ -98,10 +98,13 @@ def set_state(path, spec: str, state: str, reason: str | None = None) -> PartRec
 
 def import_sessions(path, session_dirs: Sequence[str], *, lot: str | None = None, refit: bool = True,
                     model: str = "auto"):
-    """Import session folders (re-fitting each good sweep with the fitter unless ``refit`` is False)."""
+    """Import session folders, or folders of them (re-fitting each good sweep unless ``refit`` is False)."""
+    from benchlab.library.sessions import find_sessions
+
+    folders = find_sessions(session_dirs)  # checked before the library file is opened or created
     fit = fit_function(model) if refit else None
     with open_library(path, create=True) as lib:
-        return lib.import_sessions(session_dirs, refit=refit, lot=lot, fit_function=fit)
+        return lib.import_sessions(folders, refit=refit, lot=lot, fit_function=fit)
 
 
 def import_json_file(path, json_file: str) -> dict[str, int]:
