@@ -15,6 +15,7 @@ Recovery rules (each raises a :mod:`benchlab.errors` class once its one chance i
 from __future__ import annotations
 
 import re
+import select
 import socket
 import threading
 from dataclasses import dataclass, field
@@ -34,6 +35,13 @@ class Transport(Protocol):
     def close(self) -> None: ...
 
 
+def _session_of(resource: Any) -> Any:
+    sessions = getattr(getattr(resource, "visalib", None), "sessions", None)
+    if not isinstance(sessions, Mapping):
+        return None
+    return sessions.get(getattr(resource, "session", None))
+
+
 def find_socket(resource: Any) -> socket.socket | None:
     """Return the TCP socket behind an open pyvisa-py resource, or ``None`` when there is none.
 
@@ -41,11 +49,7 @@ def find_socket(resource: Any) -> socket.socket | None:
     socket itself, a VXI-11 (INSTR) client keeps it as ``interface.sock``. Other backends
     (a system VISA library) expose no socket, and ``None`` is returned.
     """
-    sessions = getattr(getattr(resource, "visalib", None), "sessions", None)
-    if not isinstance(sessions, Mapping):
-        return None
-    session = sessions.get(getattr(resource, "session", None))
-    interface = getattr(session, "interface", None)
+    interface = getattr(_session_of(resource), "interface", None)
     for candidate in (interface, getattr(interface, "sock", None)):
         if isinstance(candidate, socket.socket):
             return candidate
@@ -72,6 +76,8 @@ class ResourceKind:
     after_open: Callable[[Any], None] | None = None
 
 
+# A late reply is taken as finished once the line has been quiet this long (pyvisa-py uses the same).
+_CLEAR_QUIET_S = 0.1
 _LINE_ENDINGS = {"read_termination": "\n", "write_termination": "\n"}
 
 # Checked in order; the first pattern that matches wins (VISA resource-string grammar, VPP-4.3).
@@ -222,7 +228,7 @@ class VisaTransport:
         """
         with self._lock:
             return self._run(lambda handle: self._timed_query(handle, command, timeout_ms), command,
-                             idempotent, allow_retry=idempotent)
+                             idempotent, allow_retry=idempotent, timeout_ms=timeout_ms)
 
     def _timed_query(self, handle: Any, command: str, timeout_ms: int | None) -> str:
         if timeout_ms is None:
@@ -233,7 +239,8 @@ class VisaTransport:
         finally:
             handle.timeout = self.timeout_ms
 
-    def _run(self, action: Callable[[Any], Any], command: str, idempotent: bool, allow_retry: bool) -> Any:
+    def _run(self, action: Callable[[Any], Any], command: str, idempotent: bool, allow_retry: bool,
+             timeout_ms: int | None = None) -> Any:
         if self._handle is None:
             self.open()
         if self._interrupted:
@@ -261,7 +268,7 @@ class VisaTransport:
                         self.retry_count += 1
                         continue
                     raise InstrumentTimeout(
-                        f"no reply to '{command}' within {self.timeout_ms} ms"
+                        f"no reply to '{command}' within {timeout_ms or self.timeout_ms} ms"
                         + (" (asked twice)" if retried else ""), resource=self.resource) from exc
                 if reopened:
                     if isinstance(exc, ConnectionRefusedError):
@@ -291,9 +298,27 @@ class VisaTransport:
         return data == b""
 
     def _clear(self) -> None:
-        # Device clear discards any late reply; pyvisa-py's socket clear loops forever on a
-        # closed peer, which _peer_closed has ruled out before we get here.
-        try:
-            self._handle.clear()
-        except Exception:
-            pass
+        """Discard any late reply (device clear).
+
+        On a raw socket the socket is drained here instead of through pyvisa-py's ``clear()``,
+        which loops forever once the peer has closed after sending part of a reply.
+        """
+        sock = find_socket(self._handle)
+        if sock is None:
+            try:
+                self._handle.clear()
+            except Exception:  # a failed clear leaves the next exchange to find the problem
+                pass
+            return
+        pending = getattr(_session_of(self._handle), "_pending_buffer", None)
+        if isinstance(pending, bytearray):
+            pending.clear()
+        while True:
+            ready, _, _ = select.select([sock], [], [], _CLEAR_QUIET_S)
+            if not ready:
+                return
+            try:
+                if not sock.recv(65536):
+                    return  # the peer closed; the next exchange will reopen
+            except OSError:
+                return

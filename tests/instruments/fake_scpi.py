@@ -61,7 +61,8 @@ class FakeScpiServer:
         """Misbehave once at the next line starting with ``prefix``.
 
         ``action``: ``"silent"`` (no reply), ``"late"`` (reply after ``seconds``), ``"reset"``
-        (abort the connection with RST), ``"close"`` (close it cleanly).
+        (abort the connection with RST), ``"close"`` (close it cleanly), ``"partial"`` (send part
+        of a reply, then close).
         """
         self.faults.append((prefix.upper(), action, seconds))
 
@@ -142,6 +143,12 @@ class FakeScpiServer:
         if action == "reset":
             # SO_LINGER with 0 s makes close() send RST: the client sees ConnectionResetError.
             conn.setsockopt(socket.SOL_SOCKET, socket.SO_LINGER, struct.pack("ii", 1, 0))
+            conn.close()
+            return False
+        if action == "partial":
+            # Half a reply, no terminator, then a clean close.
+            conn.sendall(b"1.23")
+            conn.shutdown(socket.SHUT_RDWR)
             conn.close()
             return False
         if action == "close":

@@ -112,6 +112,13 @@ def test_reset_after_a_write_is_noticed_by_the_next_query(transport, server):
     assert "VOLT" not in server.settings
 
 
+def test_half_a_reply_then_close_is_reopened_not_misread(transport, server):
+    server.replies["MEAS:VOLT?"] = "4.56"
+    server.fault("MEAS:VOLT?", "partial")
+    assert transport.query("MEAS:VOLT?") == "4.56"
+    assert transport.reopen_count == 1
+
+
 def test_lost_twice_raises_connection_lost(transport, server):
     server.fault("*IDN?", "reset")
     server.fault("*IDN?", "reset")
