@@ -22,10 +22,64 @@ All functions are pure; they take the points of one sweep sorted by rising VGS.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
 PEAK_SIGNIFICANCE = 6.0  # standard errors; our choice
+
+
+@dataclass(frozen=True)
+class LocalFits:
+    """Least-squares parabolas through each run of ``2 half_width + 1`` neighbouring points.
+
+    Attributes
+    ----------
+    x : ndarray
+        The abscissa the parabolas were fitted on.
+    centres : ndarray of int
+        Index into ``x`` of each parabola's centre.
+    value, slope, curvature : ndarray
+        Smoothed y, dy/dx and d2y/dx2 at the centres.
+    curvature_se : ndarray
+        Standard error of ``curvature``: the noise of y pooled over the sweep (median of the
+        parabolas' residual RMS, robust to the few windows that straddle a kink) carried
+        through each window's least-squares geometry.
+    """
+
+    x: np.ndarray
+    centres: np.ndarray
+    value: np.ndarray
+    slope: np.ndarray
+    curvature: np.ndarray
+    curvature_se: np.ndarray
+
+
+def _fit_parabolas(x, y, half_width: int) -> LocalFits:
+    width = 2 * half_width + 1
+    if x.size < width:
+        empty = np.empty(0)
+        return LocalFits(x, np.empty(0, dtype=int), empty, empty, empty, empty)
+    xs = np.lib.stride_tricks.sliding_window_view(x, width)
+    ys = np.lib.stride_tricks.sliding_window_view(y, width)
+    centres = np.arange(half_width, x.size - half_width)
+    dx = xs - x[centres][:, None]
+    scale = np.maximum(np.abs(dx).max(axis=1), 1e-12)
+    u = dx / scale[:, None]  # conditioned abscissa in [-1, 1]
+    u2 = u * u
+    m1, m2, m3, m4 = u.sum(1), u2.sum(1), (u2 * u).sum(1), (u2 * u2).sum(1)
+    m0 = np.full_like(m1, float(width))
+    normal = np.stack([np.stack([m0, m1, m2], -1), np.stack([m1, m2, m3], -1), np.stack([m2, m3, m4], -1)], -2)
+    inverse = np.linalg.inv(normal + 1e-12 * np.eye(3))
+    rhs = np.stack([ys.sum(1), (u * ys).sum(1), (u2 * ys).sum(1)], -1)
+    coef = np.einsum("wpq,wq->wp", inverse, rhs)
+    resid = ys - (coef[:, :1] + coef[:, 1:2] * u + coef[:, 2:3] * u2)
+    noise = float(np.median(np.sqrt((resid * resid).sum(1) / max(width - 3, 1))))
+    s2 = scale * scale
+    return LocalFits(x=x, centres=centres, value=coef[:, 0], slope=coef[:, 1] / scale,
+                     curvature=2.0 * coef[:, 2] / s2,
+                     curvature_se=2.0 * noise * np.sqrt(np.abs(inverse[:, 2, 2])) / s2)
 
 
 def local_quadratic(x, y, half_width: int = 2):
@@ -47,48 +101,13 @@ def local_quadratic(x, y, half_width: int = 2):
     value, slope, curvature : ndarray
         Smoothed y, dy/dx and d2y/dx2 at those points.
     """
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    width = 2 * half_width + 1
-    if x.size < width:
-        empty = np.empty(0)
-        return np.empty(0, dtype=int), empty, empty, empty
-    xs = np.lib.stride_tricks.sliding_window_view(x, width)
-    ys = np.lib.stride_tricks.sliding_window_view(y, width)
-    centres = np.arange(half_width, x.size - half_width)
-    dx = xs - x[centres][:, None]
-    scale = np.maximum(np.abs(dx).max(axis=1, keepdims=True), 1e-12)
-    u = dx / scale  # conditioned abscissa in [-1, 1]
-    powers = np.stack([np.ones_like(u), u, u * u], axis=-1)
-    normal = np.einsum("wkp,wkq->wpq", powers, powers)
-    rhs = np.einsum("wkp,wk->wp", powers, ys)
-    coef = np.linalg.solve(normal + 1e-12 * np.eye(3), rhs[..., None])[..., 0]
-    s = scale[:, 0]
-    return centres, coef[:, 0], coef[:, 1] / s, 2.0 * coef[:, 2] / (s * s)
+    fits = _fit_parabolas(np.asarray(x, dtype=float), np.asarray(y, dtype=float), half_width)
+    return fits.centres, fits.value, fits.slope, fits.curvature
 
 
-def curvature_noise(x, y, half_width: int = 2):
-    """Standard error of :func:`local_quadratic`'s curvature at each centre.
-
-    The noise of y is pooled over the whole sweep (median of the parabolas' residual RMS,
-    robust to the few windows that straddle a kink) and carried through each window's
-    least-squares geometry.
-    """
-    x = np.asarray(x, dtype=float)
-    y = np.asarray(y, dtype=float)
-    width = 2 * half_width + 1
-    xs = np.lib.stride_tricks.sliding_window_view(x, width)
-    ys = np.lib.stride_tricks.sliding_window_view(y, width)
-    dx = xs - x[half_width:x.size - half_width][:, None]
-    scale = np.maximum(np.abs(dx).max(axis=1, keepdims=True), 1e-12)
-    u = dx / scale
-    powers = np.stack([np.ones_like(u), u, u * u], axis=-1)
-    normal = np.einsum("wkp,wkq->wpq", powers, powers) + 1e-12 * np.eye(3)
-    coef = np.linalg.solve(normal, np.einsum("wkp,wk->wp", powers, ys)[..., None])[..., 0]
-    resid = ys - np.einsum("wkp,wp->wk", powers, coef)
-    noise = float(np.median(np.sqrt((resid ** 2).sum(axis=1) / max(width - 3, 1))))
-    inverse = np.linalg.inv(normal)
-    return 2.0 * noise * np.sqrt(inverse[:, 2, 2]) / (scale[:, 0] ** 2)
+def local_fits(vgs, y, half_width: int = 2) -> LocalFits:
+    """:class:`LocalFits` of ``y(vgs)`` after :func:`binned` (the input of the derivative methods)."""
+    return _fit_parabolas(*binned(vgs, y), half_width)
 
 
 def binned(x, y, bins: int = 60):
@@ -110,7 +129,7 @@ def binned(x, y, bins: int = 60):
     return (np.bincount(index, x, bins)[keep] / count[keep], np.bincount(index, y, bins)[keep] / count[keep])
 
 
-def max_slope_extrapolation(vgs, y, half_width: int = 2) -> float | None:
+def max_slope_extrapolation(vgs, y, half_width: int = 2, fits: LocalFits | None = None) -> float | None:
     """Intercept with y = 0 of the tangent to ``y(vgs)`` at its maximum slope.
 
     Pass ``sqrt(ID)`` for saturation data (ESR method) or ``ID`` for linear-region data
@@ -121,15 +140,14 @@ def max_slope_extrapolation(vgs, y, half_width: int = 2) -> float | None:
     float or None
         The threshold (V); None when there are too few points for a tangent.
     """
-    vgs, y = binned(vgs, y)
-    centres, value, slope, _ = local_quadratic(vgs, y, half_width)
-    if centres.size == 0 or not np.any(slope > 0):
+    fits = fits if fits is not None else local_fits(vgs, y, half_width)
+    if fits.centres.size == 0 or not np.any(fits.slope > 0):
         return None
-    best = int(np.argmax(slope))
-    return float(vgs[centres[best]] - value[best] / slope[best])
+    best = int(np.argmax(fits.slope))
+    return float(fits.x[fits.centres[best]] - fits.value[best] / fits.slope[best])
 
 
-def second_derivative_peak(vgs, y, half_width: int = 2) -> float | None:
+def second_derivative_peak(vgs, y, half_width: int = 2, fits: LocalFits | None = None) -> float | None:
     """VGS at the maximum of d2y/dVGS2, refined between points by a parabola.
 
     Pass ``sqrt(ID)`` for saturation data, ``ID`` for linear-region data.
@@ -141,22 +159,27 @@ def second_derivative_peak(vgs, y, half_width: int = 2) -> float | None:
         standard errors), or lies at the edge of the data (the threshold is not inside the
         measured range, e.g. a sweep that starts above threshold) or there are too few points.
     """
-    vgs, y = binned(vgs, y)
-    centres, _, _, curvature = local_quadratic(vgs, y, half_width)
+    fits = fits if fits is not None else local_fits(vgs, y, half_width)
+    centres, curvature = fits.centres, fits.curvature
     if centres.size < 3:
         return None
     best = int(np.argmax(curvature))
     # a peak must stand out of the curvature noise, else the data hold no threshold kink
-    noise = curvature_noise(vgs, y, half_width)[best]
-    if best == 0 or best == centres.size - 1 or curvature[best] <= PEAK_SIGNIFICANCE * noise:
+    if best == 0 or best == centres.size - 1 or curvature[best] <= PEAK_SIGNIFICANCE * fits.curvature_se[best]:
         return None
-    x3 = vgs[centres[best - 1:best + 2]]
-    c3 = curvature[best - 1:best + 2]
-    a, b, _ = np.polyfit(x3 - x3[1], c3, 2)
+    vgs = fits.x
+    x0, x1, x2 = vgs[centres[best - 1:best + 2]]
+    c0, c1, c2 = curvature[best - 1:best + 2]
+    # vertex of the parabola through the peak and its neighbours
+    h0, h2, d0, d2 = x0 - x1, x2 - x1, c0 - c1, c2 - c1
+    det = h0 * h2 * (h0 - h2)
+    if det == 0:
+        return float(x1)
+    a = (d0 * h2 - d2 * h0) / det
+    b = (h0 * h0 * d2 - h2 * h2 * d0) / det
     if a >= 0:
-        return float(x3[1])
-    offset = float(np.clip(-b / (2.0 * a), x3[0] - x3[1], x3[2] - x3[1]))
-    return float(x3[1] + offset)
+        return float(x1)
+    return float(x1 + np.clip(-b / (2.0 * a), h0, h2))
 
 
 def constant_current_threshold(vgs, i_d, current: float) -> float | None:
@@ -217,9 +240,9 @@ def all_thresholds(vgs, i_d, cc_current: float) -> dict[str, float | None]:
     Keys: ``extrapolation_sqrt_max_slope`` (ESR), ``second_derivative_sqrt`` (SD on
     sqrt(ID)), ``constant_current`` (VGS at ``cc_current``).
     """
-    root = np.sqrt(np.asarray(i_d, dtype=float))
+    fits = local_fits(vgs, np.sqrt(np.asarray(i_d, dtype=float)))
     return {
-        "extrapolation_sqrt_max_slope": max_slope_extrapolation(vgs, root),
-        "second_derivative_sqrt": second_derivative_peak(vgs, root),
+        "extrapolation_sqrt_max_slope": max_slope_extrapolation(None, None, fits=fits),
+        "second_derivative_sqrt": second_derivative_peak(None, None, fits=fits),
         "constant_current": constant_current_threshold(vgs, i_d, cc_current),
     }
