@@ -8,6 +8,7 @@ from typing import Sequence
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from benchlab.library import PartRecord
 from benchlab.models import DeviceParams, solve_resistor_line
@@ -66,6 +67,7 @@ def histograms_figure(parts: Sequence[PartRecord]) -> Figure:
             ax.text(0.5, 0.5, "no values", ha="center", va="center", transform=ax.transAxes)
         ax.set_xlabel(label)
         ax.set_ylabel("parts")
+        ax.yaxis.set_major_locator(MaxNLocator(integer=True))
         ax.set_title(f"{label.split(' (')[0]}: {len(values)} part(s)")
     return fig
 
@@ -95,7 +97,8 @@ def scatter_figure(parts: Sequence[PartRecord], sets: Sequence[Sequence[str]]) -
     ax.set_ylabel("KP (A/V^2)")
     ax.set_title("KP against threshold")
     ax.grid(True, alpha=0.3)
-    ax.legend(fontsize=7)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=7)
     return fig
 
 
