@@ -28,7 +28,7 @@ def register(subparsers) -> None:
     add.add_argument("label")
     add.add_argument("--lot", default="default", help="lot (bag) the part belongs to (default: %(default)s)")
     add.add_argument("--polarity", choices=("N", "P"), default="N")
-    add.add_argument("--vth", type=float, metavar="V", help="threshold voltage (V)")
+    add.add_argument("--vth", type=float, metavar="V", help="threshold voltage (V; its magnitude for P-channel parts)")
     add.add_argument("--gm", type=float, metavar="A/V", help="transconductance of the linear model (A/V)")
     add.add_argument("--kp", type=float, metavar="A/V2", help="KP of the square law (A/V^2, SPICE level-1, W=L=1)")
     add.add_argument("--theta", type=float, metavar="1/V", help="mobility degradation THETA (1/V), with --kp")

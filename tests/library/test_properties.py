@@ -1,0 +1,41 @@
+"""Property tests: any printable label, lot and note survives the library and its JSON exchange."""
+
+from __future__ import annotations
+
+import json
+import tempfile
+from pathlib import Path
+
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from benchlab.errors import LibraryError
+from benchlab.library import Library
+from benchlab.models import DeviceParams
+
+names = st.text(st.characters(blacklist_categories=("Cc", "Cs")), min_size=1, max_size=24).filter(
+    lambda s: s.strip() == s and s != "")
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(label=names, lot=names, notes=st.text(max_size=40), vth=st.floats(0.3, 6.0), kp=st.floats(0.01, 20.0))
+def test_any_text_round_trips_through_sql_and_json(label, lot, notes, vth, kp):
+    with tempfile.TemporaryDirectory() as tmp:
+        with Library.open(Path(tmp) / "a.db") as lib:
+            added = lib.add_part(label, lot=lot, notes=notes, params=DeviceParams("square", vth=vth, kp=kp))
+            assert lib.get_part(f"{lot}/{label}") == added
+            assert lib.get_part(label) == added
+            data = json.loads(json.dumps(lib.export(), allow_nan=False))
+        with Library.open(Path(tmp) / "b.db") as copy:
+            copy.import_json(data)
+            back = copy.get_part(f"{lot}/{label}")
+            assert (back.label, back.lot, back.notes, back.params) == (label, lot, notes, added.params)
+            assert copy.connection.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+
+
+def test_two_readings_of_one_slashed_name_are_reported_as_ambiguous(lib):
+    lib.add_part("b/c", lot="a")
+    lib.add_part("c", lot="a/b")
+    with pytest.raises(LibraryError, match=r"ambiguous: lot 'a' label 'b/c', lot 'a/b' label 'c'"):
+        lib.get_part("a/b/c")
