@@ -13,11 +13,12 @@ from .fake_scpi import FakeScpiServer
 TEST_TIMEOUT_MS = 250
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture
 def resource_manager():
     pyvisa = pytest.importorskip("pyvisa")
-    # Never closed here: pyvisa shares the manager session between instances, so closing it would
-    # close resources other tests in this process still use.
+    # A fresh one per test, never closed here: pyvisa shares the manager session between
+    # instances, so a test elsewhere that closes its manager ends every older one in the process,
+    # and closing ours would end theirs.
     return pyvisa.ResourceManager("@py")
 
 
