@@ -52,6 +52,7 @@ class InstrumentServer:
 
     def start(self, host: str, port: int) -> int:
         """Bind and start accepting; returns the port actually bound (``port`` 0 picks a free one)."""
+        self._stopping.clear()  # a stopped server may be started again
         listener = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
         listener.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
         try:

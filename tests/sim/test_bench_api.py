@@ -188,3 +188,11 @@ def test_seed_changes_resistor_and_bag_but_same_seed_repeats():
     assert a.series_resistor_actual_ohm == b.series_resistor_actual_ohm != c.series_resistor_actual_ohm
     assert a.bag == b.bag and a.bag != c.bag
     assert a.current_part.label == "Q01"
+
+
+def test_bench_can_be_stopped_and_started_again(rm):
+    with SimBench(SimConfig(time_scale=0.0)) as bench:
+        bench.start()
+        bench.stop()
+        resources = bench.start()
+        assert open_client(rm, resources["meter"]).query("*IDN?").startswith("BENCHLAB-SIM")
