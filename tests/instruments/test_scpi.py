@@ -5,6 +5,8 @@ from __future__ import annotations
 import math
 
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from benchlab.instruments.scpi import (STANDARD_ERRORS, describe_error, parse_bool, parse_error_reply,
                                        parse_reading, parse_readings, render, template_fields)
@@ -104,3 +106,20 @@ def test_templates():
         template_fields("VOLT {0}")
     with pytest.raises(ValueError):
         template_fields("VOLT {volts")
+
+
+
+@given(st.floats(min_value=-1e6, max_value=1e6, allow_nan=False).filter(lambda v: v == 0 or abs(v) > 1e-30))
+def test_six_significant_digits_round_trip(value):
+    # Rounding to 6 significant digits leaves a relative error of at most half a unit in the
+    # 6th digit, 5e-6 (definition of significant-figure rounding; common practice).
+    sent = render("VOLT {volts:.6g}", volts=value).split()[1]
+    assert parse_reading(sent) == pytest.approx(value, rel=5e-6, abs=0)
+
+
+@given(st.integers(min_value=-499, max_value=999),
+       st.text(alphabet=st.characters(blacklist_categories=("Cs", "Cc"), blacklist_characters='"'), max_size=40))
+def test_error_reply_round_trip(code, text):
+    parsed_code, parsed_text = parse_error_reply(f'{code:+d},"{text}"')
+    assert parsed_code == code
+    assert parsed_text == (text or describe_error(code))
