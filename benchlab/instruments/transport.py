@@ -244,8 +244,8 @@ class VisaTransport:
         if self._handle is None:
             self.open()
         if self._interrupted:
-            # An exchange was cut short (Ctrl-C, SIGTERM): its reply may still arrive and would be
-            # read as the answer to this message, so discard it first.
+            # An exchange was cut short: its reply may still arrive and would be read as the
+            # answer to this message, so discard it first.
             self._interrupted = False
             if not self._peer_closed():
                 self._clear()
@@ -254,11 +254,11 @@ class VisaTransport:
             try:
                 return action(self._handle)
             except BaseException as exc:
-                if not isinstance(exc, Exception):
+                timed_out = isinstance(exc, Exception) and _is_timeout(exc)
+                if not (timed_out or isinstance(exc, OSError) or (isinstance(exc, Exception) and _is_visa_error(exc))):
+                    # Cut short by something else (Ctrl-C, a signal handler's exception): the
+                    # exchange's reply may still come, so the next message clears it first.
                     self._interrupted = True
-                    raise
-                timed_out = _is_timeout(exc)
-                if not timed_out and not isinstance(exc, OSError) and not _is_visa_error(exc):
                     raise
                 lost = not timed_out or self._peer_closed()
                 if not lost:

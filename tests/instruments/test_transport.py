@@ -6,7 +6,7 @@ import socket
 
 import pytest
 
-from benchlab.errors import ConfigError, ConnectionLost, InstrumentTimeout
+from benchlab.errors import ConfigError, ConnectionLost, InstrumentTimeout, SweepCancelled
 from benchlab.instruments.transport import RESOURCE_KINDS, VisaTransport, find_socket, resource_kind
 
 from .conftest import TEST_TIMEOUT_MS
@@ -160,24 +160,26 @@ def test_close_sends_nothing(resource_manager, server):
 
 
 class _InterruptAfterWrite:
-    """Stands in for the pyvisa resource: sends the query, then is 'interrupted' like a Ctrl-C."""
+    """Stands in for the pyvisa resource: sends the query, then is interrupted by ``error``."""
 
-    def __init__(self, real):
+    def __init__(self, real, error):
         self._real = real
+        self._error = error
 
     def __getattr__(self, name):
         return getattr(self._real, name)
 
     def query(self, message):
         self._real.write(message)
-        raise KeyboardInterrupt
+        raise self._error
 
 
-def test_reply_of_an_interrupted_query_is_discarded(transport, server):
+@pytest.mark.parametrize("interruption", [KeyboardInterrupt, SweepCancelled])  # Ctrl-C; a SIGTERM handler's error
+def test_reply_of_an_interrupted_query_is_discarded(transport, server, interruption):
     server.replies["MEAS:VOLT?"] = "1.0"
     real = transport._handle
-    transport._handle = _InterruptAfterWrite(real)
-    with pytest.raises(KeyboardInterrupt):
+    transport._handle = _InterruptAfterWrite(real, interruption("stop"))
+    with pytest.raises(interruption):
         transport.query("MEAS:VOLT?")
     transport._handle = real
     # The late "1.0" must not be taken as the answer to the next query.
