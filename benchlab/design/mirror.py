@@ -1,0 +1,137 @@
+"""Exact operating point of a MOSFET current sink / mirror (pure functions, scalar and vectorised).
+
+Circuit: the supply feeds a diode-connected reference part through a resistor R; each output
+part's gate sits on the reference's gate node. An optional resistor Rs in every source
+(degeneration). All solves are exact roots of the two lines, never a rounded hand value.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Sequence
+
+import numpy as np
+from scipy.optimize import brentq
+
+from benchlab.design.parts import PartArrays
+from benchlab.errors import DesignError
+from benchlab.models import DeviceParams, solve_resistor_line
+
+
+@dataclass(frozen=True)
+class MirrorPoint:
+    """Operating point: gate node ``vg``, reference ``vgs_ref``/``i_ref``, output currents and VGS."""
+
+    vg: float
+    vgs_ref: float
+    i_ref: float
+    i_out: tuple[float, ...]
+    vgs_out: tuple[float, ...]
+
+
+def output_current(params: DeviceParams, gate_v: float, source_resistor_ohm: float = 0.0) -> tuple[float, float]:
+    """Current and VGS of an output part whose gate is at ``gate_v`` with ``source_resistor_ohm`` in its source.
+
+    Solves VGS(I) + I Rs = VG exactly. Returns ``(i_out, vgs)``.
+    """
+    if source_resistor_ohm <= 0:
+        return float(params.current(gate_v)), float(gate_v)
+    if gate_v <= 0 or float(params.current(gate_v)) <= 0:
+        return 0.0, float(gate_v)
+
+    def excess(i_d: float) -> float:
+        return float(params.vgs_at(i_d)) + i_d * source_resistor_ohm - gate_v
+
+    hi = gate_v / source_resistor_ohm
+    lo = min(1e-18, hi * 1e-12)
+    if excess(lo) >= 0:
+        return lo, float(params.vgs_at(lo))
+    i_d = brentq(excess, lo, hi, xtol=1e-18, rtol=8.9e-16, maxiter=500)
+    return float(i_d), float(params.vgs_at(i_d))
+
+
+def solve_mirror(supply_v: float, resistor_ohm: float, ref: DeviceParams, outputs: Sequence[DeviceParams],
+                 source_resistor_ohm: float = 0.0) -> MirrorPoint:
+    """Operating point of the whole sink for a given supply and resistor.
+
+    Parameters
+    ----------
+    supply_v : float
+        Supply feeding the reference branch (V).
+    resistor_ohm : float
+        Reference branch resistor (ohm).
+    ref : DeviceParams
+        Reference part (diode-connected).
+    outputs : sequence of DeviceParams
+        Output parts, gates on the reference gate node, assumed in saturation.
+    source_resistor_ohm : float
+        Degeneration resistor in every source (ohm), 0 for none.
+
+    Returns
+    -------
+    MirrorPoint
+    """
+    if supply_v <= 0:
+        raise DesignError(f"the supply must be positive, got {supply_v} V")
+    if resistor_ohm <= 0:
+        raise DesignError(f"the resistor must be positive, got {resistor_ohm} ohm")
+    vgs_ref, i_ref = solve_resistor_line(ref, supply_v, resistor_ohm, source_resistor_ohm)
+    vg = vgs_ref + i_ref * source_resistor_ohm
+    solved = [output_current(p, vg, source_resistor_ohm) for p in outputs]
+    return MirrorPoint(vg=vg, vgs_ref=vgs_ref, i_ref=i_ref, i_out=tuple(s[0] for s in solved),
+                       vgs_out=tuple(s[1] for s in solved))
+
+
+def resistor_for_current(supply_v: float, target_a: float, ref: DeviceParams,
+                         source_resistor_ohm: float = 0.0) -> tuple[float, float]:
+    """Exact resistor that sets ``target_a`` in the reference: R = (Vs - VGS(I) - I Rs) / I.
+
+    Returns ``(r_exact, vgs)``; a :class:`DesignError` when the supply cannot reach the current.
+    """
+    if not target_a > 0:
+        raise DesignError(f"the target current must be positive, got {target_a} A")
+    vgs = float(ref.vgs_at(target_a))
+    headroom = supply_v - vgs - target_a * source_resistor_ohm
+    if headroom <= 0:
+        raise DesignError(f"a {supply_v:g} V supply cannot drive {target_a:g} A: the reference alone needs "
+                          f"{vgs + target_a * source_resistor_ohm:.3f} V at that current")
+    return headroom / target_a, vgs
+
+
+def _bisect(func, lo, hi, iterations: int = 90):
+    # vectorised bisection for a function decreasing in x on [lo, hi] (root where func crosses 0)
+    lo = np.array(lo, dtype=float)
+    hi = np.array(hi, dtype=float)
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        positive = func(mid) > 0
+        lo = np.where(positive, mid, lo)
+        hi = np.where(positive, hi, mid)
+    return 0.5 * (lo + hi)
+
+
+def solve_mirror_batch(supply_v: float, resistor_ohm, ref: PartArrays, outputs: Sequence[PartArrays],
+                       source_resistor_ohm=None) -> tuple[np.ndarray, np.ndarray, list[np.ndarray]]:
+    """Vectorised :func:`solve_mirror` over samples (Monte Carlo).
+
+    ``resistor_ohm`` has one entry per sample; ``ref`` and each element of ``outputs`` hold one
+    parameter set per sample; ``source_resistor_ohm`` is None or an array of shape
+    (samples, 1 + outputs). Returns ``(vg, i_ref, [i_out per output])``.
+    """
+    resistor_ohm = np.asarray(resistor_ohm, dtype=float)
+    samples = resistor_ohm.shape[0]
+    rs = np.zeros((samples, 1 + len(outputs))) if source_resistor_ohm is None else np.asarray(source_resistor_ohm)
+    total = resistor_ohm + rs[:, 0]
+    i_ref = _bisect(lambda i: supply_v - i * total - ref.vgs_at(np.maximum(i, 1e-300)),
+                    np.zeros(samples), supply_v / total)
+    vg = ref.vgs_at(i_ref) + i_ref * rs[:, 0]
+    currents = []
+    for k, out in enumerate(outputs, start=1):
+        rs_k = rs[:, k]
+        if not np.any(rs_k > 0):
+            currents.append(out.current(vg))
+            continue
+        hi = np.where(rs_k > 0, np.maximum(vg, 0.0) / np.where(rs_k > 0, rs_k, 1.0), 0.0) + 1e-300
+        solved = _bisect(lambda i: vg - out.vgs_at(np.maximum(i, 1e-300)) - i * rs_k, np.zeros(samples), hi)
+        currents.append(np.where(rs_k > 0, solved, out.current(vg)))
+    return vg, i_ref, currents

@@ -1,0 +1,105 @@
+"""Seeded Monte Carlo of a current sink over resistor tolerance and fit uncertainties.
+
+Resistors are drawn uniformly inside their tolerance band (a worst-case-like choice; real
+resistor lots are often narrower). Each fitted parameter is drawn from a normal law with the
+fit's standard error, independently (the fitter's covariance is not used, so correlated
+VTH/KP errors make this spread somewhat pessimistic). Parameters are clipped to their valid
+ranges (KP, gm > 0, THETA >= 0, n >= 1).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Sequence
+
+import numpy as np
+
+from benchlab.design.mirror import solve_mirror_batch
+from benchlab.design.parts import Part, PartArrays
+
+_PERTURBED = ("vth", "kp", "theta", "n", "gm")
+
+
+def _spread(values: np.ndarray) -> dict[str, float]:
+    lo, hi = np.percentile(values, [2.5, 97.5])
+    return {"mean": float(np.mean(values)), "std": float(np.std(values, ddof=1)) if values.size > 1 else 0.0,
+            "p2_5": float(lo), "p97_5": float(hi), "min": float(np.min(values)), "max": float(np.max(values))}
+
+
+@dataclass(frozen=True)
+class MonteCarloResult:
+    """Spread of the sink's currents: ``i_ref`` and, per output, ``i_out`` and ``error`` (vs the reference)."""
+
+    samples: int
+    seed: int
+    resistor_tolerance: float
+    i_ref: dict
+    outputs: tuple[dict, ...]
+    worst_error_p97_5: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"samples": self.samples, "seed": self.seed, "resistor_tolerance": self.resistor_tolerance,
+                "i_ref": dict(self.i_ref), "outputs": [dict(o) for o in self.outputs],
+                "worst_error_p97_5": self.worst_error_p97_5}
+
+
+def perturbed_arrays(part: Part, samples: int, rng: np.random.Generator) -> PartArrays:
+    """``samples`` copies of ``part``'s curve with each parameter drawn from N(value, stderr)."""
+    base = PartArrays.from_params([part.params]).take(np.zeros(samples, dtype=int))
+    fields = {}
+    for name in _PERTURBED:
+        values = getattr(base, name).copy()
+        sigma = float(part.stderr.get(name, 0.0) or 0.0)
+        if sigma > 0 and np.isfinite(sigma):
+            values = values + rng.normal(0.0, sigma, samples)
+        fields[name] = values
+    used = part.params.model
+    fields["kp"] = np.maximum(fields["kp"], 1e-12) if used != "linear" else fields["kp"]
+    fields["gm"] = np.maximum(fields["gm"], 1e-12) if used == "linear" else fields["gm"]
+    fields["theta"] = np.maximum(fields["theta"], 0.0)
+    fields["n"] = np.maximum(fields["n"], 1.0) if used == "ekv" else fields["n"]
+    return PartArrays(code=base.code, ut=base.ut, **fields)
+
+
+def run_monte_carlo(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part], *,
+                    samples: int, seed: int, resistor_tolerance: float,
+                    source_resistor_ohm: float = 0.0) -> MonteCarloResult:
+    """Spread of the reference and output currents.
+
+    Parameters
+    ----------
+    supply_v, resistor_ohm : float
+        The design's supply and chosen resistor.
+    ref, outputs : Part
+        The design's parts (``stderr`` gives each parameter's standard deviation).
+    samples : int
+        Number of draws (>= 2).
+    seed : int
+        Seed of ``numpy.random.default_rng``: the same seed gives the same numbers.
+    resistor_tolerance : float
+        Relative half-width of the resistors' tolerance band (0.05 for 5 %).
+    source_resistor_ohm : float
+        Nominal degeneration resistor (each drawn independently with the same tolerance).
+
+    Returns
+    -------
+    MonteCarloResult
+    """
+    if samples < 2:
+        raise ValueError("the Monte Carlo needs at least 2 samples")
+    rng = np.random.default_rng(seed)
+    resistors = resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, samples))
+    source = None
+    if source_resistor_ohm > 0:
+        source = source_resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, (samples, 1 + len(outputs))))
+    ref_arrays = perturbed_arrays(ref, samples, rng)
+    out_arrays = [perturbed_arrays(p, samples, rng) for p in outputs]
+    _, i_ref, i_outs = solve_mirror_batch(supply_v, resistors, ref_arrays, out_arrays, source)
+    per_output = []
+    worst = 0.0
+    for part, i_out in zip(outputs, i_outs):
+        error = i_out / i_ref - 1.0
+        per_output.append({"part": part.name, "i_out": _spread(i_out), "error": _spread(error)})
+        worst = max(worst, float(np.percentile(np.abs(error), 97.5)))
+    return MonteCarloResult(samples=samples, seed=seed, resistor_tolerance=resistor_tolerance,
+                            i_ref=_spread(i_ref), outputs=tuple(per_output), worst_error_p97_5=worst)

@@ -1,0 +1,304 @@
+"""Current-sink design: a diode-connected reference fed through a resistor, outputs sharing its gate.
+
+Synthesis (:func:`synthesize_sink`): from supply, target current and parts, solve the reference
+for VGS, compute the exact resistor, take the nearest preferred value (E24 by default) and
+recompute everything with it. Analysis (:func:`analyze_sink`): from supply, resistor and parts,
+solve the operating point exactly. Both report per output: current, error vs the reference,
+compliance, dissipation, supply sensitivity, temperature drift, optionally a Monte Carlo spread,
+and the cautions with this design's numbers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+from benchlab.design.cautions import OutputHeat, sink_cautions
+from benchlab.design.eseries import nearest_preferred, series_decade, series_tolerance, series_values
+from benchlab.design.mirror import output_current, resistor_for_current, solve_mirror
+from benchlab.design.montecarlo import run_monte_carlo
+from benchlab.design.parts import Part
+from benchlab.errors import DesignError, InputError
+
+
+@dataclass(frozen=True)
+class SinkOptions:
+    """Design choices; every default is stated in the result.
+
+    Parameters
+    ----------
+    series : str
+        E-series for the resistors (E24 default, E96 for 1 % parts).
+    load_voltage : float or None
+        Voltage across each output (drain to ground) for dissipation and compliance; None means
+        the supply voltage (the load drops nothing: the worst case for dissipation).
+    source_resistor_ohm : float
+        Degeneration resistor in every source (0: none).
+    mismatch_target : float or None
+        If set, the smallest preferred source resistor that brings the worst |error| under it
+        is found and used (overrides ``source_resistor_ohm``).
+    compliance_margin_v : float
+        Added to VGS - Vth (+ I Rs) in the compliance voltage.
+    vth_tempco : float
+        Threshold temperature coefficient (V/K) for the drift figures.
+    delta_t_k : float
+        Temperature step for the drift figures (K).
+    monte_carlo : int
+        Number of Monte Carlo samples (0: none).
+    seed : int
+        Monte Carlo seed.
+    resistor_tolerance : float or None
+        Tolerance band of the resistors (None: the one usually sold with the series).
+    """
+
+    series: str = "E24"
+    load_voltage: float | None = None
+    source_resistor_ohm: float = 0.0
+    mismatch_target: float | None = None
+    compliance_margin_v: float = 0.2
+    vth_tempco: float = -5e-3
+    delta_t_k: float = 25.0
+    monte_carlo: int = 0
+    seed: int = 1
+    resistor_tolerance: float | None = None
+
+    def validated(self) -> "SinkOptions":
+        series_decade(self.series)
+        if self.source_resistor_ohm < 0:
+            raise InputError("the source (degeneration) resistor must be >= 0 ohm")
+        if self.mismatch_target is not None and not 0 < self.mismatch_target < 1:
+            raise InputError("the mismatch target is a fraction between 0 and 1 (0.01 for 1 %)")
+        if self.monte_carlo < 0 or self.monte_carlo == 1:
+            raise InputError("the Monte Carlo needs 0 (off) or at least 2 samples")
+        if self.load_voltage is not None and self.load_voltage < 0:
+            raise InputError("the load voltage must be >= 0 V")
+        if self.resistor_tolerance is not None and not 0 <= self.resistor_tolerance < 1:
+            raise InputError("the resistor tolerance is a fraction between 0 and 1")
+        return self
+
+
+@dataclass(frozen=True)
+class OutputResult:
+    """One output of the sink (currents in A, voltages in V, powers in W, drifts relative)."""
+
+    part: str
+    i_out: float
+    error: float
+    vgs: float
+    v_compliance: float
+    in_compliance: bool
+    p_part: float
+    p_source_resistor: float
+    di_dvsupply: float
+    drift_per_k: float
+    tc_fixed_vgs: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(self.__dict__)
+
+
+@dataclass(frozen=True)
+class SinkDesign:
+    """A designed (or analysed) current sink; ``to_dict()`` is the ``--json`` output."""
+
+    mode: str
+    supply: float
+    i_target: float | None
+    r_exact: float | None
+    r_chosen: float
+    series: str
+    resistor_tolerance: float
+    source_resistor: float
+    vg: float
+    vgs: float
+    i_ref: float
+    ref: str
+    load_voltage: float
+    compliance_margin: float
+    p_ref: float
+    p_resistor: float
+    di_ref_dvsupply: float
+    drift_ref_per_k: float
+    vth_tempco: float
+    outputs: tuple[OutputResult, ...]
+    cautions: tuple[str, ...]
+    parts: tuple[Part, ...] = field(repr=False)
+    monte_carlo: dict | None = None
+    degeneration: dict | None = None
+
+    @property
+    def worst_error(self) -> float:
+        """Largest |error| among the outputs (0 with no outputs)."""
+        return max((abs(o.error) for o in self.outputs), default=0.0)
+
+    def to_dict(self) -> dict[str, Any]:
+        data = {k: getattr(self, k) for k in (
+            "mode", "supply", "i_target", "r_exact", "r_chosen", "series", "resistor_tolerance", "source_resistor",
+            "vg", "vgs", "i_ref", "ref", "load_voltage", "compliance_margin", "p_ref", "p_resistor",
+            "di_ref_dvsupply", "drift_ref_per_k", "vth_tempco")}
+        data["worst_error"] = self.worst_error
+        data["outputs"] = [o.to_dict() for o in self.outputs]
+        data["cautions"] = list(self.cautions)
+        data["parts"] = [p.to_dict() for p in self.parts]
+        data["monte_carlo"] = self.monte_carlo
+        data["degeneration"] = self.degeneration
+        return data
+
+
+def _check_parts(ref: Part, outputs: Sequence[Part]) -> None:
+    names = [ref.name, *(p.name for p in outputs)]
+    if len(set(names)) != len(names):
+        raise InputError("a part cannot be used twice in one sink (reference and outputs must differ)")
+
+
+def _supply_sensitivity(ref: Part, outputs: Sequence[Part], i_ref: float, i_outs: Sequence[float],
+                        r: float, rs: float) -> tuple[float, list[float]]:
+    # Vs = I (R + Rs) + VGS(I): dI/dVs = 1 / (R + Rs + 1/gm); outputs follow the gate node.
+    inv_gm_ref = 1.0 / float(ref.params.gm_at(i_ref))
+    d_ref = 1.0 / (r + rs + inv_gm_ref)
+    dvg = (inv_gm_ref + rs) * d_ref
+    d_out = []
+    for part, i_out in zip(outputs, i_outs):
+        gm = float(part.params.gm_at(i_out)) if i_out > 0 else 0.0
+        d_out.append(dvg / (1.0 / gm + rs) if gm > 0 else 0.0)
+    return d_ref, d_out
+
+
+def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part],
+                 options: SinkOptions = SinkOptions(), *, i_target: float | None = None,
+                 r_exact: float | None = None) -> SinkDesign:
+    """Exact operating point and figures of a sink with a given resistor.
+
+    Parameters
+    ----------
+    supply_v : float
+        Supply of the reference branch (V).
+    resistor_ohm : float
+        Reference branch resistor (ohm).
+    ref : Part
+        Diode-connected reference part.
+    outputs : sequence of Part
+        Output parts.
+    options : SinkOptions
+        Load voltage, degeneration, temperature and Monte Carlo settings.
+    i_target, r_exact : float, optional
+        Filled in by :func:`synthesize_sink` (None for a plain analysis).
+
+    Returns
+    -------
+    SinkDesign
+    """
+    options = options.validated()
+    _check_parts(ref, outputs)
+    rs = float(options.source_resistor_ohm)
+    point = solve_mirror(supply_v, resistor_ohm, ref.params, [p.params for p in outputs], rs)
+    if point.i_ref <= 0:
+        raise DesignError(f"the reference part {ref.name} does not conduct on {supply_v:g} V through {resistor_ohm:g} ohm")
+    load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
+    d_ref, d_outs = _supply_sensitivity(ref, outputs, point.i_ref, point.i_out, resistor_ohm, rs)
+
+    # Everything at +delta_t: resistors assumed not to drift, all parts at the same temperature.
+    hot = [p.params.with_temperature(p.params.temperature_k + options.delta_t_k, options.vth_tempco)
+           for p in (ref, *outputs)]
+    hot_point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs)
+    drift_ref = (hot_point.i_ref / point.i_ref - 1.0) / options.delta_t_k
+
+    results = []
+    heat = []
+    for k, part in enumerate(outputs):
+        i_out, vgs = point.i_out[k], point.vgs_out[k]
+        compliance = max(vgs - part.params.vth, 0.0) + i_out * rs + options.compliance_margin_v
+        p_rs = i_out * i_out * rs
+        # one output warming alone by 1 K at a fixed gate voltage (its own self-heating)
+        warm = part.params.with_temperature(part.params.temperature_k + 1.0, options.vth_tempco)
+        i_warm = output_current(warm, point.vg, rs)[0]
+        tc = (i_warm / i_out - 1.0) if i_out > 0 else 0.0
+        drift = (hot_point.i_out[k] / i_out - 1.0) / options.delta_t_k if i_out > 0 else 0.0
+        result = OutputResult(part=part.name, i_out=i_out, error=i_out / point.i_ref - 1.0, vgs=vgs,
+                              v_compliance=compliance, in_compliance=load_v >= compliance,
+                              p_part=max(load_v - i_out * rs, 0.0) * i_out, p_source_resistor=p_rs,
+                              di_dvsupply=d_outs[k], drift_per_k=drift, tc_fixed_vgs=tc)
+        results.append(result)
+        heat.append(OutputHeat(part.name, result.p_part, tc, result.in_compliance, compliance))
+
+    p_ref = point.vgs_ref * point.i_ref
+    p_resistor = point.i_ref ** 2 * resistor_ohm
+    p_sources = point.i_ref ** 2 * rs + sum(r.p_source_resistor for r in results)
+    tolerance = series_tolerance(options.series) if options.resistor_tolerance is None else options.resistor_tolerance
+    cautions = sink_cautions(supply_v=supply_v, load_voltage=load_v, p_ref=p_ref, p_resistor=p_resistor,
+                             r_chosen=resistor_ohm, outputs=heat, p_source_resistors=p_sources)
+    monte_carlo = None
+    if options.monte_carlo:
+        monte_carlo = run_monte_carlo(supply_v, resistor_ohm, ref, outputs, samples=options.monte_carlo,
+                                      seed=options.seed, resistor_tolerance=tolerance,
+                                      source_resistor_ohm=rs).to_dict()
+    return SinkDesign(
+        mode="synthesis" if i_target is not None else "analysis", supply=float(supply_v), i_target=i_target,
+        r_exact=r_exact, r_chosen=float(resistor_ohm), series=options.series.upper(), resistor_tolerance=tolerance,
+        source_resistor=rs, vg=point.vg, vgs=point.vgs_ref, i_ref=point.i_ref, ref=ref.name, load_voltage=load_v,
+        compliance_margin=options.compliance_margin_v, p_ref=p_ref, p_resistor=p_resistor, di_ref_dvsupply=d_ref,
+        drift_ref_per_k=drift_ref, vth_tempco=options.vth_tempco, outputs=tuple(results), cautions=cautions,
+        parts=(ref, *outputs), monte_carlo=monte_carlo)
+
+
+def _synthesize_once(supply_v: float, target_a: float, ref: Part, outputs: Sequence[Part],
+                     options: SinkOptions) -> SinkDesign:
+    r_exact, _ = resistor_for_current(supply_v, target_a, ref.params, options.source_resistor_ohm)
+    r_chosen = nearest_preferred(r_exact, options.series)
+    return analyze_sink(supply_v, r_chosen, ref, outputs, options, i_target=target_a, r_exact=r_exact)
+
+
+def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequence[Part],
+                    options: SinkOptions = SinkOptions()) -> SinkDesign:
+    """Design the sink for a target current: exact resistor, nearest preferred value, recomputed.
+
+    With ``options.mismatch_target`` the smallest preferred source resistor (same series,
+    from 0.1 ohm up) that brings the worst output error under the target is found and used;
+    the search and its outcome are reported in ``degeneration``.
+
+    Parameters
+    ----------
+    supply_v : float
+        Supply of the reference branch (V).
+    target_a : float
+        Wanted reference current (A).
+    ref, outputs : Part
+        The reference and output parts.
+    options : SinkOptions
+
+    Returns
+    -------
+    SinkDesign
+    """
+    options = options.validated()
+    _check_parts(ref, outputs)
+    if options.mismatch_target is None:
+        return _synthesize_once(supply_v, target_a, ref, outputs, options)
+    from dataclasses import replace
+
+    target = options.mismatch_target
+    cheap = replace(options, monte_carlo=0)
+    plain = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=0.0))
+    tried = [(0.0, plain.worst_error)]
+    chosen = 0.0 if plain.worst_error <= target else None
+    if chosen is None:
+        # largest Rs the supply can afford at the target current (the reference still needs its VGS)
+        limit = (supply_v - float(ref.params.vgs_at(target_a))) / target_a
+        for rs in series_values(options.series, 0.1, max(limit, 0.1)):
+            try:
+                design = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=rs))
+            except DesignError:
+                break
+            tried.append((rs, design.worst_error))
+            if design.worst_error <= target:
+                chosen = rs
+                break
+    if chosen is None:
+        best_rs, best_err = min(tried, key=lambda t: t[1])
+        raise DesignError(f"no {options.series.upper()} source resistor brings the worst mismatch under "
+                          f"{target * 100:g} % at {target_a:g} A from {supply_v:g} V (best {best_err * 100:.2f} % "
+                          f"with {best_rs:g} ohm)")
+    final = _synthesize_once(supply_v, target_a, ref, outputs, replace(options, source_resistor_ohm=chosen))
+    suggestion = {"target": target, "suggested_ohm": chosen, "worst_error": final.worst_error,
+                  "worst_error_without": plain.worst_error, "tried": len(tried)}
+    return replace(final, degeneration=suggestion)
