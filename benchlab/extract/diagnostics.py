@@ -1,6 +1,7 @@
-"""Checks that say how far a fit can be trusted; each returns (flag, note) pairs or numbers.
+"""Checks that say how far a fit can be trusted.
 
-Pure functions on the points of one sweep and its fitted curve. The limits below are
+Pure functions. Most work on many sweeps at once (rows of ``(B, N)`` arrays with a mask) and
+return, per sweep, a list of (flag, note) pairs; the hysteresis check takes one sweep. The limits below are
 our own engineering choices (stated so a user can judge them), not published values.
 """
 
@@ -24,48 +25,65 @@ DRIFT_MIN_POWER_W = 0.05
 DRIFT_T_LIMIT = 4.0
 
 
-def window_checks(model: str, vgs, i_d, vth: float) -> list[tuple[str, str]]:
-    """Too few points above threshold, or too narrow a current range for ``model``."""
-    found = []
-    above = int(np.sum(np.asarray(vgs) > vth))
-    if above < MIN_POINTS_ABOVE_THRESHOLD:
-        found.append((FLAG_FEW_POINTS, f"only {above} fitted points above the threshold "
-                                       f"(want {MIN_POINTS_ABOVE_THRESHOLD} or more)"))
-    decades = float(np.log10(np.max(i_d) / np.min(i_d))) if len(i_d) else 0.0
-    if decades < MIN_DECADES[model]:
-        found.append((FLAG_NARROW_RANGE, f"fitted currents span {decades:.2f} decades; the {model} model "
-                                         f"needs about {MIN_DECADES[model]:g}"))
+def _rows(count):
+    return [[] for _ in range(count)]
+
+
+def window_checks(model: str, vgs, i_d, mask, vth) -> list[list[tuple[str, str]]]:
+    """Per sweep (rows of ``(B, N)`` arrays, ``mask`` marks fitted points): too few points above
+    threshold, or too narrow a current range for ``model``."""
+    vgs, i_d, mask = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(mask, bool)
+    found = _rows(vgs.shape[0])
+    above = (mask & (vgs > np.asarray(vth, float)[:, None])).sum(axis=1)
+    i_hi = np.where(mask, i_d, -np.inf).max(axis=1)
+    i_lo = np.where(mask, i_d, np.inf).min(axis=1)
+    with np.errstate(all="ignore"):
+        decades = np.where(mask.any(axis=1), np.log10(i_hi / i_lo), 0.0)
+    for row in np.flatnonzero(above < MIN_POINTS_ABOVE_THRESHOLD):
+        found[row].append((FLAG_FEW_POINTS, f"only {above[row]} fitted points above the threshold "
+                                            f"(want {MIN_POINTS_ABOVE_THRESHOLD} or more)"))
+    for row in np.flatnonzero(decades < MIN_DECADES[model]):
+        found[row].append((FLAG_NARROW_RANGE, f"fitted currents span {decades[row]:.2f} decades; the {model} "
+                                              f"model needs about {MIN_DECADES[model]:g}"))
     return found
 
 
-def fit_quality(rms_relative: float) -> list[tuple[str, str]]:
-    """Poor fit when the relative residuals' RMS passes :data:`POOR_FIT_RELATIVE_RMS`."""
-    if rms_relative > POOR_FIT_RELATIVE_RMS:
-        return [(FLAG_POOR_FIT, f"residuals are {100 * rms_relative:.1f} % RMS of the current "
-                                f"(limit {100 * POOR_FIT_RELATIVE_RMS:g} %)")]
-    return []
+def fit_quality(rms_relative) -> list[list[tuple[str, str]]]:
+    """Poor fit where the relative residuals' RMS passes :data:`POOR_FIT_RELATIVE_RMS`."""
+    rms_relative = np.atleast_1d(np.asarray(rms_relative, float))
+    found = _rows(rms_relative.size)
+    for row in np.flatnonzero(rms_relative > POOR_FIT_RELATIVE_RMS):
+        found[row].append((FLAG_POOR_FIT, f"residuals are {100 * rms_relative[row]:.1f} % RMS of the current "
+                                          f"(limit {100 * POOR_FIT_RELATIVE_RMS:g} %)"))
+    return found
 
 
-def monotonic_check(vgs, i_d) -> list[tuple[str, str]]:
-    """Current falling by more than :data:`NON_MONOTONIC_DROP` while VGS rises, in measurement order."""
-    vgs = np.asarray(vgs, dtype=float)
-    i_d = np.asarray(i_d, dtype=float)
-    drops = np.flatnonzero((i_d[1:] < (1.0 - NON_MONOTONIC_DROP) * i_d[:-1]) & (vgs[1:] > vgs[:-1]))
-    if drops.size:
-        k = int(drops[0]) + 1
-        return [(FLAG_NON_MONOTONIC, f"current falls while VGS rises ({drops.size} place(s), first at "
-                                     f"VGS={float(np.asarray(vgs)[k]):.4f} V)")]
-    return []
+def monotonic_check(vgs, i_d, valid) -> list[list[tuple[str, str]]]:
+    """Current falling by more than :data:`NON_MONOTONIC_DROP` while VGS rises, in measurement order
+    (rows of a rising pass; ``valid`` marks real points, padding at the end)."""
+    vgs, i_d, valid = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(valid, bool)
+    found = _rows(vgs.shape[0])
+    pairs = valid[:, 1:] & valid[:, :-1]
+    drops = pairs & (i_d[:, 1:] < (1.0 - NON_MONOTONIC_DROP) * i_d[:, :-1]) & (vgs[:, 1:] > vgs[:, :-1])
+    counts = drops.sum(axis=1)
+    for row in np.flatnonzero(counts):
+        k = int(np.argmax(drops[row])) + 1
+        found[row].append((FLAG_NON_MONOTONIC, f"current falls while VGS rises ({counts[row]} place(s), first "
+                                               f"at VGS={vgs[row, k]:.4f} V)"))
+    return found
 
 
-def bound_checks(model: str, theta: float, n: float) -> list[tuple[str, str]]:
+def bound_checks(model: str, theta, n) -> list[list[tuple[str, str]]]:
     """Parameters resting on their physical bound (THETA = 0, n = 1)."""
-    found = []
-    if model in ("theta", "ekv") and theta <= 0.0:
-        found.append((FLAG_AT_BOUND, "THETA rests at 0: the curve bends upward (heating, or a smaller model "
-                                     "fits as well)"))
-    if model == "ekv" and n <= 1.0:
-        found.append((FLAG_AT_BOUND, "n rests at 1: the data hold no weak-inversion slope"))
+    theta, n = np.atleast_1d(np.asarray(theta, float)), np.atleast_1d(np.asarray(n, float))
+    found = _rows(theta.size)
+    if model in ("theta", "ekv"):
+        for row in np.flatnonzero(theta <= 0.0):
+            found[row].append((FLAG_AT_BOUND, "THETA rests at 0: the curve bends upward (heating, or a smaller "
+                                              "model fits as well)"))
+    if model == "ekv":
+        for row in np.flatnonzero(n <= 1.0):
+            found[row].append((FLAG_AT_BOUND, "n rests at 1: the data hold no weak-inversion slope"))
     return found
 
 
@@ -101,27 +119,39 @@ def hysteresis_check(shift_v: float | None) -> list[tuple[str, str]]:
                               f"likely {why}")]
 
 
-def power_drift_check(vgs, i_d, relative_residuals) -> list[tuple[str, str]]:
+def power_drift_check(vgs, i_d, mask, relative_residuals) -> list[list[tuple[str, str]]]:
     """Residuals that trend with dissipated power VGS*ID: the fitted curve cannot follow a heating part.
 
-    Compares the mean relative residual of the points in the top third of power against the
-    middle third (Welch t statistic); only judged when the sweep dissipates at least
-    :data:`DRIFT_MIN_POWER_W`, since without power there is no heating.
+    Compares the mean relative residual of the fitted points in the top third of power against
+    the middle third (Welch t statistic); only judged when a sweep dissipates at least
+    :data:`DRIFT_MIN_POWER_W`, since without power there is no heating. Rows of ``(B, N)`` arrays.
     """
-    power = np.asarray(vgs, dtype=float) * np.asarray(i_d, dtype=float)
-    r = np.asarray(relative_residuals, dtype=float)
-    if power.size < 9 or power.max() < DRIFT_MIN_POWER_W:
-        return []
-    order = np.argsort(power)
-    third = power.size // 3
-    middle, top = r[order[third:2 * third]], r[order[-third:]]
-    spread = np.sqrt(middle.var(ddof=1) / middle.size + top.var(ddof=1) / top.size)
-    if spread <= 0:
-        return []
-    t_stat = (top.mean() - middle.mean()) / spread
-    if abs(t_stat) > DRIFT_T_LIMIT:
-        sign = "more" if t_stat > 0 else "less"
-        return [(FLAG_POWER_DRIFT, f"at the highest dissipation (up to {power.max():.3g} W) the part carries "
-                                   f"{sign} current than the fitted curve (t={t_stat:.1f}): likely self-heating; "
-                                   "use a heat sink or a pulsed sweep")]
-    return []
+    mask = np.asarray(mask, bool)
+    power = np.where(mask, np.asarray(vgs, float) * np.asarray(i_d, float), -np.inf)
+    r = np.asarray(relative_residuals, float)
+    found = _rows(mask.shape[0])
+    count = mask.sum(axis=1)
+    rank = np.argsort(np.argsort(np.where(mask, power, np.inf), axis=1, kind="stable"), axis=1)
+    third = (count // 3)[:, None]
+    middle = mask & (rank >= third) & (rank < 2 * third)
+    top = mask & (rank >= count[:, None] - third)
+
+    def mean_var(sel):
+        k = sel.sum(axis=1)
+        mean = np.where(sel, r, 0.0).sum(axis=1) / np.maximum(k, 1)
+        var = np.where(sel, (r - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(k - 1, 1)
+        return mean, var, np.maximum(k, 1)
+
+    m_mid, v_mid, k_mid = mean_var(middle)
+    m_top, v_top, k_top = mean_var(top)
+    spread = np.sqrt(v_mid / k_mid + v_top / k_top)
+    with np.errstate(all="ignore"):
+        t_stat = np.where(spread > 0, (m_top - m_mid) / spread, 0.0)
+    p_max = power.max(axis=1)
+    judged = (count >= 9) & (p_max >= DRIFT_MIN_POWER_W)
+    for row in np.flatnonzero(judged & (np.abs(t_stat) > DRIFT_T_LIMIT)):
+        sign = "more" if t_stat[row] > 0 else "less"
+        found[row].append((FLAG_POWER_DRIFT, f"at the highest dissipation (up to {p_max[row]:.3g} W) the part "
+                                             f"carries {sign} current than the fitted curve (t={t_stat[row]:.1f}): "
+                                             "likely self-heating; use a heat sink or a pulsed sweep"))
+    return found

@@ -103,6 +103,10 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
     vgs = np.asarray(vgs, dtype=float).ravel()
     i_d = np.asarray(i_d, dtype=float).ravel()
     rows = np.arange(1, vgs.size + 1) if rows is None else np.asarray(rows, dtype=int).ravel()
+    if direction is None and _plainly_good(vgs, i_d):
+        # the common case (a clean rising sweep) in one pass; anything else gets the full checks
+        return Sweep(vgs=vgs, id=i_d, direction=np.full(vgs.size, "up"), rows=rows, source=source,
+                     skipped=dict(skipped or {}))
     if vgs.size != i_d.size:
         raise InputError(f"vgs has {vgs.size} values but id has {i_d.size}", path=source)
     if vgs.size == 0:
@@ -148,6 +152,15 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
             raise InputError(f"unsorted point: vgs {vgs[k]:g} V, id {i_d[k]:g} A goes back against the "
                              f"{name} sweep's order", path=source, row=int(rows[k]))
     return Sweep(vgs=vgs, id=i_d, direction=direction, rows=rows, source=source, skipped=dict(skipped or {}))
+
+
+def _plainly_good(vgs, i_d) -> bool:
+    if vgs.size == 0 or vgs.size != i_d.size:
+        return False
+    rising = (np.diff(vgs) > 0) & (np.diff(i_d) > 0)
+    return bool(rising.all() and i_d[0] > 0 and i_d[-1] <= MAX_PLAUSIBLE_CURRENT_A
+                and abs(vgs[0]) <= MAX_PLAUSIBLE_VOLTAGE_V and abs(vgs[-1]) <= MAX_PLAUSIBLE_VOLTAGE_V
+                and np.isfinite(vgs[-1]) and np.isfinite(i_d[-1]))
 
 
 def _infer_direction(vgs, i_d, rows, source):

@@ -1,0 +1,212 @@
+"""Turn a batched solve into :class:`FitResult` objects: uncertainties, thresholds, flags.
+
+Everything that can be is computed for all sweeps of a batch at once (numpy over rows);
+only the hysteresis check of sweeps with both directions, the optional bootstrap and the
+final construction of each result run per sweep.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from benchlab.extract import diagnostics
+from benchlab.extract.batch_thresholds import thresholds_batch
+from benchlab.extract.engine import PARAM_NAMES, BatchFit, model_current, solve_batch
+from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NOT_CONVERGED,
+                                     FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
+from benchlab.models import DeviceParams, overdrive_at_current, thermal_voltage
+
+
+def vgs_and_gm(model: str, params: np.ndarray, current: float, ut: float = thermal_voltage()):
+    """VGS (V) and gm (A/V) at ``current`` for each row of ``params`` (the formulas of :mod:`benchlab.models`)."""
+    vth = params[:, 0]
+    if model == "linear":
+        gm = params[:, 1]
+        return vth + current / gm, gm.copy()
+    kp = params[:, 1]
+    theta = params[:, 2] if model in ("theta", "ekv") else np.zeros_like(kp)
+    q = overdrive_at_current(current, kp, theta)
+    di_dq = 0.5 * kp * q * (2.0 + theta * q) / (1.0 + theta * q) ** 2
+    if model != "ekv":
+        return vth + q, di_dq
+    scale = 2.0 * params[:, 3] * ut
+    y = q / scale
+    with np.errstate(divide="ignore"):
+        vov = scale * (y + np.log(-np.expm1(-y)))  # inverse of the softplus overdrive
+    return vth + vov, di_dq * 0.5 * (1.0 + np.tanh(0.5 * vov / scale))
+
+
+def _delta_stderr(model, params, covariance, current):
+    # linearised propagation of VGS and gm at the operating current (forward differences keep
+    # every parameter inside its physical range)
+    v0, g0 = vgs_and_gm(model, params, current)
+    grad_v = np.zeros_like(params)
+    grad_g = np.zeros_like(params)
+    for j in range(params.shape[1]):
+        step = 1e-6 * np.maximum(np.abs(params[:, j]), 1e-3)
+        moved = params.copy()
+        moved[:, j] += step
+        v1, g1 = vgs_and_gm(model, moved, current)
+        grad_v[:, j], grad_g[:, j] = (v1 - v0) / step, (g1 - g0) / step
+    var_v = np.einsum("bp,bpq,bq->b", grad_v, covariance, grad_v)
+    var_g = np.einsum("bp,bpq,bq->b", grad_g, covariance, grad_g)
+    return np.sqrt(np.clip(var_v, 0, None)), np.sqrt(np.clip(var_g, 0, None))
+
+
+def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current):
+    # residual bootstrap: resample the relative residuals onto the fitted curve and refit all
+    # resamples in one batched solve
+    used = mask > 0
+    v = vgs[used]
+    fitted = model_current(model, v[None], p[None])[0]
+    rel = i_d[used] / fitted - 1.0
+    rel = rel - rel.mean()
+    draws = np.random.default_rng(seed).choice(rel, size=(resamples, rel.size), replace=True)
+    synthetic = np.maximum(fitted[None, :] * (1.0 + draws), 1e-30)
+    fit = solve_batch(model, np.broadcast_to(v, synthetic.shape).copy(), synthetic, np.ones_like(synthetic),
+                      np.tile(p, (resamples, 1)))
+    spread = fit.params.std(axis=0, ddof=1)
+    if at_current is None:
+        return spread, None, None
+    v_at, g_at = vgs_and_gm(model, fit.params, at_current)
+    return spread, float(np.std(g_at, ddof=1)), float(np.std(v_at, ddof=1))
+
+
+def _optional(value) -> float | None:
+    return float(value) if value is not None and np.isfinite(value) else None
+
+
+def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *, at_current, cc_current,
+             reasons: list[str], criteria: list[dict], bootstrap: int, seed: int) -> list[FitResult]:
+    """Results of one model's batched fit.
+
+    Parameters
+    ----------
+    model : str
+    sweeps : list of Sweep
+        The sweeps, in the rows' order.
+    fit : BatchFit
+    stacked : (vgs, id, mask, valid) ndarrays, shape (B, N)
+        Each sweep's points (its fitted direction), the window as ``mask``, real (not padding)
+        points as ``valid``.
+    chosen_by : list of str
+        ``default`` or ``user`` per sweep (how the window was chosen).
+    at_current, cc_current, bootstrap, seed
+        As :func:`benchlab.extract.fit_batch`.
+    reasons, criteria : list
+        The model-choice explanation and AICc table per sweep.
+    """
+    vgs, i_d, mask, points = stacked
+    used = mask > 0
+    params = fit.params
+    names = PARAM_NAMES[model]
+    fitted = model_current(model, vgs, params)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rel = np.where(used, fitted / i_d - 1.0, 0.0)
+    n_used = used.sum(axis=1)
+    rms_rel = np.sqrt(fit.rss / np.maximum(n_used, 1))
+    rms_abs = np.sqrt(np.where(used, (fitted - i_d) ** 2, 0.0).sum(axis=1) / np.maximum(n_used, 1))
+    param_sd = np.sqrt(np.clip(np.diagonal(fit.covariance, axis1=1, axis2=2), 0.0, None))
+    vth = params[:, 0]
+    theta = params[:, 2] if model in ("theta", "ekv") else np.zeros_like(vth)
+    slope_n = params[:, 3] if model == "ekv" else np.zeros_like(vth)
+    if at_current is not None:
+        vgs_at, gm_at = vgs_and_gm(model, params, at_current)
+        v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current)
+    thresholds = thresholds_batch(vgs, i_d, points, cc_current)
+    # VGS error of an interpolated point: one reading's relative noise over the local log-slope
+    if model != "linear":
+        _, gm_cc = vgs_and_gm(model, params, cc_current)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            vth_cc_sd = rms_rel / (gm_cc / cc_current)
+    else:
+        vth_cc_sd = np.full(vth.shape, np.nan)
+    i_lo = np.where(points, i_d, np.inf).min(axis=1)
+    i_hi = np.where(points, i_d, -np.inf).max(axis=1)
+    found = [[] for _ in sweeps]
+    order_v, order_i, order_valid = _rising_pass_in_order(sweeps)
+    for checks in (diagnostics.window_checks(model, vgs, i_d, used, vth), diagnostics.fit_quality(rms_rel),
+                   diagnostics.monotonic_check(order_v, order_i, order_valid),
+                   diagnostics.bound_checks(model, theta, slope_n),
+                   diagnostics.power_drift_check(vgs, i_d, used, rel)):
+        for row, items in enumerate(checks):
+            found[row] += items
+    results = []
+    for row, sweep in enumerate(sweeps):
+        p = params[row]
+        device = DeviceParams(model=model, **dict(zip(names, (float(x) for x in p))))
+        sd = dict(zip(names, (float(x) for x in param_sd[row])))
+        gm = v_at = gm_sd = vgs_sd = None
+        if at_current is not None:
+            gm, v_at = float(gm_at[row]), float(vgs_at[row])
+            gm_sd, vgs_sd = _optional(g_sd[row]), _optional(v_sd[row])
+        elif model == "linear":
+            gm = float(device.gm)  # the linear model's own slope
+        method = "covariance"
+        if bootstrap:
+            spread, gm_sd, vgs_sd = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
+                                               at_current)
+            sd = dict(zip(names, (float(x) for x in spread)))
+            method = f"bootstrap/{int(bootstrap)}"
+        row_thresholds = {"model": float(device.vth)}
+        row_thresholds.update({k: _optional(v[row]) for k, v in thresholds.items()})
+        vth_cc = row_thresholds["constant_current"]
+        flags_found = list(found[row])
+        if vth_cc is None:
+            flags_found.append((FLAG_CC_OUTSIDE, f"{cc_current * 1e6:g} uA lies outside the measured currents "
+                                                 f"({i_lo[row]:.3g} to {i_hi[row]:.3g} A); not extrapolated"))
+        if at_current is not None and not (i_lo[row] <= at_current <= i_hi[row]):
+            flags_found.append((FLAG_AT_CURRENT_OUTSIDE, f"gm at {at_current:g} A comes from the model outside "
+                                                         "the measured currents"))
+        shift = None
+        if sweep.has_both_directions:
+            up_v, up_i = sweep.select("up")
+            down_v, down_i = sweep.select("down")
+            shift = diagnostics.hysteresis(up_v, up_i, down_v, down_i)
+            flags_found += diagnostics.hysteresis_check(shift)
+        if not fit.converged[row]:
+            flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {int(fit.iterations[row])} "
+                                                    "iterations"))
+        size = {"vth": 1.0, "kp": device.kp, "gm": device.gm}
+        if any(name in sd and sd[name] > 0.5 * abs(ref) for name, ref in size.items() if ref):
+            flags_found.append((FLAG_UNCERTAIN, "a standard error exceeds half its parameter (vth: 0.5 V)"))
+        stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
+                  "theta": sd.get("theta"), "n": sd.get("n"),
+                  "gm": gm_sd if at_current is not None else sd.get("gm"),
+                  "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd}
+        u = used[row]
+        window = {"i_min": float(i_d[row][u].min()), "i_max": float(i_d[row][u].max()),
+                  "vgs_min": float(vgs[row][u].min()), "vgs_max": float(vgs[row][u].max()),
+                  "points": int(n_used[row]), "chosen_by": chosen_by[row]}
+        n_value = float(slope_n[row])
+        results.append(FitResult(
+            model=model, params=device, vth=float(device.vth), kp=float(device.kp), theta=float(theta[row]),
+            n=n_value, slope_mv_per_decade=n_value * thermal_voltage() * math.log(10.0) * 1e3 if model == "ekv" else None,
+            gm=gm, at_current=at_current, vgs_at_current=v_at, vth_cc=vth_cc, cc_current=float(cc_current),
+            rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]), stderr=stderr, stderr_method=method,
+            flags=tuple(dict.fromkeys(code for code, _ in flags_found)), notes=tuple(n for _, n in flags_found),
+            thresholds=row_thresholds, window=window, reason=reasons[row],
+            criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()},
+            points_used=int(n_used[row]), points_skipped=int(sum(sweep.skipped.values())), hysteresis_v=shift,
+            fitter_version=FITTER_VERSION))
+    return results
+
+
+def _rising_pass_in_order(sweeps):
+    # the fitted pass in measurement order, a falling pass read backwards
+    passes = []
+    for sweep in sweeps:
+        if np.any(sweep.direction == "up"):
+            passes.append(sweep.in_order("up"))
+        else:
+            v, i = sweep.in_order("down")
+            passes.append((v[::-1], i[::-1]))
+    width = max(v.size for v, _ in passes)
+    vgs = np.zeros((len(passes), width))
+    i_d = np.ones((len(passes), width))
+    valid = np.zeros((len(passes), width), dtype=bool)
+    for row, (v, i) in enumerate(passes):
+        vgs[row, :v.size], i_d[row, :i.size], valid[row, :v.size] = v, i, True
+    return vgs, i_d, valid

@@ -1,0 +1,180 @@
+"""The data-based thresholds of :mod:`benchlab.extract.thresholds`, for many sweeps at once.
+
+Same definitions and sources as the one-sweep functions there (which stay the readable
+reference; a test checks both agree), computed on stacked ``(B, N)`` arrays with a validity
+mask so that :func:`benchlab.extract.fit_batch` needs no Python loop over sweeps.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from benchlab.extract.thresholds import PEAK_SIGNIFICANCE
+
+BINS = 60
+HALF_WIDTH = 2
+
+
+def _sorted_rows(key, valid, *arrays):
+    # sort each row by key, invalid entries last
+    order = np.argsort(np.where(valid, key, np.inf), axis=1, kind="stable")
+    return [np.take_along_axis(a, order, axis=1) for a in (valid, *arrays)]
+
+
+def _binned_rows(x, y, valid):
+    """Rows with more than BINS points averaged into BINS equal-width bins, compacted to the left."""
+    count_row = valid.sum(axis=1)
+    rows, width = x.shape
+    lo = np.where(valid, x, np.inf).min(axis=1, keepdims=True)
+    hi = np.where(valid, x, -np.inf).max(axis=1, keepdims=True)
+    span = np.where(hi > lo, hi - lo, 1.0)
+    index = np.minimum(((x - lo) / span * BINS).astype(int), BINS - 1)
+    flat = (np.arange(rows)[:, None] * BINS + np.clip(index, 0, BINS - 1))[valid]
+    counts = np.bincount(flat, minlength=rows * BINS).reshape(rows, BINS)
+    sum_x = np.bincount(flat, x[valid], rows * BINS).reshape(rows, BINS)
+    sum_y = np.bincount(flat, y[valid], rows * BINS).reshape(rows, BINS)
+    full = counts > 0
+    with np.errstate(invalid="ignore", divide="ignore"):
+        bx, by = sum_x / counts, sum_y / counts
+    # bins are in rising x already; move the empty ones to the end
+    order = np.argsort(~full, axis=1, kind="stable")
+    bx, by, full = (np.take_along_axis(a, order, axis=1) for a in (bx, by, full))
+    use_bins = (count_row > BINS)[:, None]
+    k = min(width, BINS)
+    out_x = np.where(use_bins, bx[:, :k], x[:, :k])
+    out_y = np.where(use_bins, by[:, :k], y[:, :k])
+    out_valid = np.where(use_bins, full[:, :k], valid[:, :k])
+    return np.where(out_valid, out_x, 0.0), np.where(out_valid, out_y, 0.0), out_valid
+
+
+def _parabolas(x, y, valid):
+    width = 2 * HALF_WIDTH + 1
+    xs = np.lib.stride_tricks.sliding_window_view(x, width, axis=1)
+    ys = np.lib.stride_tricks.sliding_window_view(y, width, axis=1)
+    ok = np.lib.stride_tricks.sliding_window_view(valid, width, axis=1).all(axis=2)
+    centre = xs[:, :, HALF_WIDTH:HALF_WIDTH + 1]
+    dx = xs - centre
+    scale = np.maximum(np.abs(dx).max(axis=2), 1e-12)
+    u = dx / scale[..., None]
+    u2 = u * u
+    m1, m2, m3, m4 = u.sum(2), u2.sum(2), (u2 * u).sum(2), (u2 * u2).sum(2)
+    m0 = np.full_like(m1, float(width))
+    normal = np.stack([np.stack([m0, m1, m2], -1), np.stack([m1, m2, m3], -1), np.stack([m2, m3, m4], -1)], -2)
+    normal = np.where(ok[..., None, None], normal, np.eye(3)) + 1e-12 * np.eye(3)
+    inverse = np.linalg.inv(normal)
+    rhs = np.stack([ys.sum(2), (u * ys).sum(2), (u2 * ys).sum(2)], -1)
+    coef = np.einsum("bwpq,bwq->bwp", inverse, rhs)
+    resid = ys - (coef[..., :1] + coef[..., 1:2] * u + coef[..., 2:3] * u2)
+    rms = np.sqrt((resid * resid).sum(2) / max(width - 3, 1))
+    with np.errstate(all="ignore"):
+        noise = np.nanmedian(np.where(ok, rms, np.nan), axis=1, keepdims=True) if ok.any() else rms[:, :1]
+    s2 = scale * scale
+    return {"x": centre[..., 0], "ok": ok, "value": coef[..., 0], "slope": coef[..., 1] / scale,
+            "curvature": 2.0 * coef[..., 2] / s2,
+            "curvature_se": 2.0 * noise * np.sqrt(np.abs(inverse[..., 2, 2])) / s2}
+
+
+def _derivative_thresholds(vgs, i_d, valid):
+    valid, vgs, root = _sorted_rows(vgs, valid, vgs, np.sqrt(np.where(valid, i_d, 0.0)))
+    x, y, ok_points = _binned_rows(vgs, root, valid)
+    rows = np.arange(x.shape[0])
+    esr = np.full(x.shape[0], np.nan)
+    sd = np.full(x.shape[0], np.nan)
+    if x.shape[1] < 2 * HALF_WIDTH + 1:
+        return esr, sd
+    fit = _parabolas(x, y, ok_points)
+    ok = fit["ok"]
+    slope = np.where(ok, fit["slope"], -np.inf)
+    best = np.argmax(slope, axis=1)
+    steep = slope[rows, best]
+    with np.errstate(all="ignore"):
+        esr = np.where(steep > 0, fit["x"][rows, best] - fit["value"][rows, best] / steep, np.nan)
+    curvature = np.where(ok, fit["curvature"], -np.inf)
+    n_windows = ok.sum(axis=1)
+    peak = np.argmax(curvature, axis=1)
+    inner = (n_windows >= 3) & (peak > 0) & (peak < n_windows - 1)
+    lo, hi = np.clip(peak - 1, 0, None), np.minimum(peak + 1, curvature.shape[1] - 1)
+    c1 = curvature[rows, peak]
+    significant = inner & (c1 > PEAK_SIGNIFICANCE * fit["curvature_se"][rows, peak])
+    x0, x1, x2 = fit["x"][rows, lo], fit["x"][rows, peak], fit["x"][rows, hi]
+    c0, c2 = curvature[rows, lo], curvature[rows, hi]
+    with np.errstate(all="ignore"):
+        h0, h2, d0, d2 = x0 - x1, x2 - x1, c0 - c1, c2 - c1
+        det = h0 * h2 * (h0 - h2)
+        a = (d0 * h2 - d2 * h0) / det
+        b = (h0 * h0 * d2 - h2 * h2 * d0) / det
+        vertex = x1 + np.clip(-b / (2.0 * a), h0, h2)
+    refined = np.where((det != 0) & (a < 0) & np.isfinite(vertex), vertex, x1)
+    sd = np.where(significant, refined, np.nan)
+    return esr, sd
+
+
+def _pchip_end_slope(h0, h1, m0, m1):
+    # scipy's PchipInterpolator end condition (a one-sided three-point estimate, shape-preserving)
+    d = ((2.0 * h0 + h1) * m0 - h0 * m1) / (h0 + h1)
+    d = np.where(np.sign(d) != np.sign(m0), 0.0, d)
+    return np.where((np.sign(m0) != np.sign(m1)) & (np.abs(d) > 3.0 * np.abs(m0)), 3.0 * m0, d)
+
+
+def _pchip_slope(x, y, n, j):
+    """Fritsch-Carlson derivative of the monotone cubic at index j of each row (rows of n >= 3 points)."""
+    rows = np.arange(x.shape[0])
+    last = n - 1
+
+    def at(k):
+        return np.clip(k, 0, x.shape[1] - 1)
+
+    h = lambda k: x[rows, at(k + 1)] - x[rows, at(k)]  # noqa: E731
+    m = lambda k: (y[rows, at(k + 1)] - y[rows, at(k)]) / h(k)  # noqa: E731
+    with np.errstate(all="ignore"):
+        h_prev, h_next, m_prev, m_next = h(j - 1), h(j), m(j - 1), m(j)
+        w1, w2 = 2.0 * h_next + h_prev, h_next + 2.0 * h_prev
+        interior = np.where(m_prev * m_next > 0, (w1 + w2) / (w1 / m_prev + w2 / m_next), 0.0)
+        start = _pchip_end_slope(h(0), h(1), m(0), m(1))
+        end = _pchip_end_slope(h(last - 1), h(last - 2), m(last - 1), m(last - 2))
+    return np.where(j <= 0, start, np.where(j >= last, end, interior))
+
+
+def constant_current_batch(vgs, i_d, valid, current: float) -> np.ndarray:
+    """VGS at ``current`` per row (NaN outside the data), as :func:`~benchlab.extract.thresholds.constant_current_threshold`."""
+    valid, i_s, v_s = _sorted_rows(i_d, valid, i_d, vgs)
+    n = valid.sum(axis=1)
+    rows = np.arange(v_s.shape[0])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_i = np.where(valid, np.log(np.where(valid, i_s, 1.0)), np.inf)
+    target = np.log(current)
+    i_min = np.where(valid, i_s, np.inf).min(axis=1)
+    i_max = np.where(valid, i_s, -np.inf).max(axis=1)
+    inside = (n > 0) & (i_min <= current) & (current <= i_max)
+    k = np.clip((valid & (i_s < current)).sum(axis=1), 0, max(v_s.shape[1] - 1, 0))
+    a = np.clip(k - 1, 0, None)
+    xa, xb, ya, yb = log_i[rows, a], log_i[rows, k], v_s[rows, a], v_s[rows, k]
+    with np.errstate(all="ignore"):
+        steps = np.diff(np.where(valid, log_i, np.nan), axis=1)
+        strictly = np.all(np.where(np.isnan(steps), 1.0, steps) > 0, axis=1) & (n >= 3)
+        t = (target - xa) / (xb - xa)
+        linear = ya + t * (yb - ya)
+        span = xb - xa
+        da, db = _pchip_slope(log_i, v_s, n, a), _pchip_slope(log_i, v_s, n, k)
+        t2, t3 = t * t, t * t * t
+        cubic = ((2 * t3 - 3 * t2 + 1) * ya + (t3 - 2 * t2 + t) * span * da + (-2 * t3 + 3 * t2) * yb
+                 + (t3 - t2) * span * db)
+    value = np.where(k == 0, v_s[rows, 0], np.where(strictly, cubic, linear))
+    return np.where(inside, value, np.nan)
+
+
+def thresholds_batch(vgs, i_d, valid, cc_current: float) -> dict[str, np.ndarray]:
+    """ESR, SD and constant-current thresholds of every row (NaN where a method gives none).
+
+    Parameters
+    ----------
+    vgs, i_d : ndarray, shape (B, N)
+        Points of each sweep's fitted direction (any order; padding anywhere).
+    valid : ndarray of bool, shape (B, N)
+    cc_current : float
+        The constant-current criterion (A).
+    """
+    valid = np.asarray(valid, dtype=bool)
+    esr, sd = _derivative_thresholds(vgs, i_d, valid)
+    return {"extrapolation_sqrt_max_slope": esr, "second_derivative_sqrt": sd,
+            "constant_current": constant_current_batch(vgs, i_d, valid, cc_current)}
