@@ -130,47 +130,70 @@ class _Sweep:
         else:
             self.source.set_level(level, expect_vgs)
 
-    def _read_once(self) -> tuple[float, float, float, float, bool]:
-        """(vgs, id, v_source, i_source, compliance) from one reading."""
+    def _resistor_rest(self, vgs: float) -> tuple[float, float, float, bool]:
+        """Resistor fixture, once VGS has settled: (id, v_source, i_source, at the current limit)."""
+        if self.plan.current_from == "meter":
+            self.set_meter_function("current")
+            i_d = float(self.meter.read())
+            v_src = self.source.setpoint_v  # the drain current is measured: no need to read the supply volts
+            i_src = float(self.source.measure_current())
+        else:
+            v_src = float(self.source.measure_voltage())
+            i_src = float(self.source.measure_current())
+            i_d = (v_src - vgs) / self.plan.series_resistor_ohm
+        # in constant-current mode the supply sits at its limit: the part no longer sets the current
+        at_limit = self.source.current_limit_a is not None and i_src >= 0.98 * self.source.current_limit_a
+        return i_d, v_src, i_src, at_limit
+
+    def _primary(self) -> tuple[float, float]:
+        """The reading whose repeat decides settling: (VGS, 0) on the resistor fixture, the SMU's (V, I)."""
         if self.plan.fixture == "resistor":
-            if self.plan.current_from == "meter":
-                # read in whichever function the meter is in first: one function switch per point
-                first = self.meter_function
-                values = {first: float(self.meter.read())}
-                second = "current" if first == "voltage" else "voltage"
-                self.set_meter_function(second)
-                values[second] = float(self.meter.read())
-                vgs, i_d = values["voltage"], values["current"]
-                v_src = float(self.source.measure_voltage())
-                i_src = float(self.source.measure_current())
-            else:
-                vgs = float(self.meter.read())
-                v_src = float(self.source.measure_voltage())
-                i_src = float(self.source.measure_current())
-                i_d = (v_src - vgs) / self.plan.series_resistor_ohm
-            # in constant-current mode the supply sits at its limit: the part no longer sets the current
-            at_limit = self.source.current_limit_a is not None and i_src >= 0.98 * self.source.current_limit_a
-            return vgs, i_d, v_src, i_src, at_limit
+            self.set_meter_function("voltage")
+            return float(self.meter.read()), 0.0
         v, i = self.source.measure()
-        return float(v), float(i), float(v), float(i), bool(self.source.in_compliance())
+        return float(v), float(i)
+
+    def _settled(self, first: tuple[float, float], second: tuple[float, float]) -> bool:
+        (v1, i1), (v2, i2) = first, second
+        v_ok = abs(v2 - v1) <= max(self.plan.settle_tolerance * abs(v2), ABS_SETTLE_V)
+        if self.plan.fixture == "resistor" or self.source.mode == "current":
+            return v_ok
+        # forcing volts, the current is what moves: allow the current change that the VGS tolerance implies
+        # in sub-threshold (dI/I = dV / (n UT), n UT about 40 mV; Enz, Krummenacher, Vittoz 1995)
+        rel = max(self.plan.settle_tolerance * abs(v2), ABS_SETTLE_V) / 0.04
+        return abs(i2 - i1) <= rel * max(abs(i1), abs(i2)) + 1e-9
 
     def read_point(self, direction: str) -> SweepPoint:
         """Read (and re-read until settled) at the present setpoint; the point is not yet stored."""
-        vgs, i_d, v_src, i_src, at_limit = self._read_once()
+        reading = self._primary()
         status, spread = "ok", 0.0
-        if not (math.isfinite(vgs) and math.isfinite(i_d)) or abs(vgs) > 1e30:
+        finite = all(math.isfinite(x) and abs(x) < 1e30 for x in reading)
+        if not finite:
             status = "over_range"
         elif self.plan.repeat_reading:
             for _ in range(self.plan.max_rereads + 1):
-                vgs2, i2, v2, is2, lim2 = self._read_once()
-                if not (math.isfinite(vgs2) and math.isfinite(i2)):
+                again = self._primary()
+                if not all(math.isfinite(x) and abs(x) < 1e30 for x in again):
                     break
-                spread = vgs2 - vgs
-                vgs, i_d, v_src, i_src, at_limit = vgs2, i2, v2, is2, lim2
-                if abs(spread) <= max(self.plan.settle_tolerance * abs(vgs), ABS_SETTLE_V):
+                spread = again[0] - reading[0]
+                settled = self._settled(reading, again)
+                reading = again
+                if settled:
                     break
             else:
                 status = "unsettled"
+        if self.plan.fixture == "resistor":
+            vgs = reading[0]
+            i_d, v_src, i_src, at_limit = self._resistor_rest(vgs)
+            if at_limit and math.isfinite(vgs):
+                # the supply went constant-current after VGS was read (a part failing short does that):
+                # read VGS again so the point describes one state of the part
+                vgs = self._primary()[0]
+            if status == "ok" and not (math.isfinite(i_d) and abs(i_d) < 1e30):
+                status = "over_range"
+        else:
+            (vgs, i_d), (v_src, i_src) = reading, reading
+            at_limit = bool(self.source.in_compliance())
         if status == "ok" and at_limit:
             status = "compliance"
         return SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=vgs, id=i_d, v_source=v_src,

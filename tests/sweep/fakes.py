@@ -73,7 +73,7 @@ class FakeBench:
         if self.part is None and not self.leak_ohm:
             return self.voltage, 0.0
         lo, hi = 0.0, self.voltage
-        for _ in range(200):  # bisection: (Vs - v)/R = I(v)
+        for _ in range(60):  # bisection: (Vs - v)/R = I(v)
             mid = 0.5 * (lo + hi)
             if (self.voltage - mid) / self.r > self.part_current(mid):
                 lo = mid
@@ -84,7 +84,7 @@ class FakeBench:
         if i > self.limit:  # constant-current mode: the supply drops its voltage
             i = self.limit
             lo, hi = 0.0, self.voltage
-            for _ in range(200):
+            for _ in range(60):
                 mid = 0.5 * (lo + hi)
                 if self.part_current(mid) < i:
                     lo = mid
@@ -211,7 +211,7 @@ class _SMU:
         if b.part_current(b.smu_compliance) < level:
             return b.smu_compliance, b.part_current(b.smu_compliance), True
         lo, hi = 0.0, b.smu_compliance
-        for _ in range(200):
+        for _ in range(60):
             mid = 0.5 * (lo + hi)
             if b.part_current(mid) < level:
                 lo = mid

@@ -72,7 +72,7 @@ def run_faulted(tmp_path, faults, *, timeout_ms=400, fixture="resistor", **plan_
 # (fault spec, text the one-line error must hold). Counts are messages, placed so the fault lands mid-sweep.
 INSTRUMENT_FAULTS = [
     ("mute@meter=150", "no reply"),  # the meter stops replying
-    ("mute@supply=250", "no reply"),  # the supply still executes but stops replying: off must still happen
+    ("mute@supply=100", "no reply"),  # the supply still executes but stops replying: off must still happen
     ("hang@meter=150", "no reply"),  # the meter neither executes nor replies
     ("error@meter=CONF:CURR/-221", "-221"),  # a command refused with an SCPI error, once the output is on
     ("garble@meter=40", "unexpected"),  # one reply turned to junk
@@ -108,7 +108,7 @@ def test_dropped_connection_is_survived_or_reported_with_output_off(tmp_path):
 @pytest.mark.parametrize("kind,expected", [("open", "open"), ("short", "shorted")])
 @pytest.mark.parametrize("fixture", ["resistor", "smu"])
 def test_part_failing_mid_sweep_is_classified_and_stopped(tmp_path, kind, expected, fixture):
-    readings = 300 if fixture == "resistor" else 75  # readings per point differ: land it above threshold
+    readings = 150 if fixture == "resistor" else 75  # readings per point differ: land it above threshold
     was_on, last, error, outcome, sweep = run_faulted(tmp_path, [f"{kind}={readings}"], fixture=fixture)
     assert error is None and was_on and last is False
     assert outcome.classification == expected
