@@ -61,8 +61,11 @@ def sink_cautions(*, supply_v: float, load_voltage: float, p_ref: float, p_resis
         base += (f" In this design {len(runaway)} of {len(outputs)} outputs sit below that point: at a fixed gate "
                  f"voltage {worst.part} conducts {worst.tc_fixed_vgs * 100:+.2f} % per K. Share one heat sink between "
                  "reference and outputs, consider source resistors (degeneration), and derate.")
+    elif outputs:
+        base += (" This design's outputs sit above it at the stated threshold temperature coefficient; check again "
+                 "if that coefficient is a guess.")
     else:
-        base += " This design's outputs sit above it at the stated temperature coefficient; check again if that coefficient is a guess."
+        base += " Check each output part you add against it."
     out.append(base)
 
     out.append(f"Start-up: when the {supply_v:g} V supply or the load supply comes up, the gate node and the load can "

@@ -1,0 +1,154 @@
+"""``benchlab design sink|match|bin``: current-sink design, matched sets and VGS bins from the device library."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+from benchlab.design.eseries import SERIES_NAMES
+from benchlab.design.sink import SinkOptions
+from benchlab.design.text import format_bins, format_match, format_sink_report, parse_quantity
+from benchlab.services import design as service
+
+
+def _quantity(text: str) -> float:
+    try:
+        return parse_quantity(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number: '{text}' (examples: 0.02, 20m, 4.7k)") from None
+
+
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a whole number: '{text}'") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"must be >= 0: {value}")
+    return value
+
+
+def _common() -> argparse.ArgumentParser:
+    parent = argparse.ArgumentParser(add_help=False)
+    parent.add_argument("--library", metavar="PATH",
+                        help="library file (default: $BENCHLAB_LIBRARY, else library.db in the user data folder)")
+    parent.add_argument("--json", action="store_true", help="print the result as JSON")
+    return parent
+
+
+INLINE_HELP = ('inline curve, no library needed: comma-separated key=value with vth and gm (linear), kp (square), '
+               'kp+theta (theta) or kp+n[+theta] (ekv); optional label=NAME, model=NAME. Example: "vth=3.9,gm=0.544"')
+
+
+def register(subparsers) -> None:
+    common = _common()
+    parser = subparsers.add_parser("design", help="design current sinks, pick matched sets, bin parts by VGS",
+                                   description="Design work on measured parts: current sinks (reference + outputs), "
+                                               "matched sets and VGS bins. Every sink design prints its cautions.")
+    sub = parser.add_subparsers(dest="design_command", metavar="ACTION", required=True)
+
+    sink = sub.add_parser("sink", parents=[common], help="design (or analyse) a resistor-fed current sink / mirror",
+                          description="A diode-connected reference part fed from the supply through a resistor; "
+                                      "output parts share its gate voltage. With --current the resistor is designed "
+                                      "(exact value, then the nearest preferred value, then everything recomputed); "
+                                      "with --resistor the given circuit is analysed. Values accept SI prefixes "
+                                      "(20m = 0.02).")
+    sink.add_argument("--supply", type=_quantity, required=True, metavar="V", help="supply of the reference branch")
+    what = sink.add_mutually_exclusive_group(required=True)
+    what.add_argument("--current", type=_quantity, metavar="A", help="target reference current (design the resistor)")
+    what.add_argument("--resistor", type=_quantity, metavar="OHMS", help="given resistor (analyse the circuit)")
+    sink.add_argument("--ref", metavar="PART", help="reference part from the library (LABEL or LOT/LABEL)")
+    sink.add_argument("--ref-model", metavar="TEXT", help="reference " + INLINE_HELP)
+    sink.add_argument("--out", metavar="PART[,PART...]", help="output parts from the library, comma-separated")
+    sink.add_argument("--out-model", action="append", default=[], metavar="TEXT",
+                      help="an output given inline (repeat for several); same syntax as --ref-model")
+    sink.add_argument("--outputs", type=_count, metavar="N",
+                      help="let the tool pick N outputs from the in-stock parts (and the reference too when --ref is "
+                           "not given: the best matched set at the operating current)")
+    sink.add_argument("--lot", help="pick parts only from this lot")
+    sink.add_argument("--series", type=str.upper, choices=SERIES_NAMES, default="E24",
+                      help="IEC 60063 series for resistors (default: %(default)s; E96 for 1 %% parts)")
+    sink.add_argument("--load-voltage", type=_quantity, metavar="V",
+                      help="voltage across each output, for dissipation and compliance (default: the supply)")
+    degen = sink.add_mutually_exclusive_group()
+    degen.add_argument("--degeneration", type=_quantity, metavar="OHMS", default=0.0,
+                       help="resistor in every source (default: none)")
+    degen.add_argument("--mismatch-target", type=_quantity, metavar="FRACTION",
+                       help="find the smallest preferred source resistor that brings the worst mismatch under this "
+                            "fraction (0.01 = 1 %%) and use it")
+    sink.add_argument("--monte-carlo", type=_count, default=0, metavar="N",
+                      help="Monte Carlo samples over resistor tolerance and fit errors (default: off)")
+    sink.add_argument("--seed", type=int, default=1, help="Monte Carlo seed (default: %(default)s)")
+    sink.add_argument("--tolerance", type=_quantity, metavar="FRACTION",
+                      help="resistor tolerance (default: 5 %% for E24, 1 %% for E96 ...)")
+    sink.add_argument("--vth-tempco", type=_quantity, default=-5e-3, metavar="V/K",
+                      help="threshold temperature coefficient for the drift figures (default: %(default)s)")
+    sink.add_argument("--compliance-margin", type=_quantity, default=0.2, metavar="V",
+                      help="margin added to VGS - Vth in the compliance voltage (default: %(default)s)")
+    sink.add_argument("--spice", metavar="FILE", help="also write an ngspice netlist of the design (.op) to FILE")
+    sink.add_argument("--save", action="store_true",
+                      help="record the design in the library and reserve its parts")
+    sink.set_defaults(func=_sink)
+
+    match = sub.add_parser("match", parents=[common], help="pick matched sets from the in-stock parts",
+                           description="Sets of one reference and N outputs whose currents agree best over the "
+                                       "operating current (or range), using each part's whole fitted curve. Pairs "
+                                       "are exactly optimal best-first; larger sets are a heuristic.")
+    match.add_argument("--current", type=_quantity, required=True, metavar="A", help="operating current")
+    match.add_argument("--current-max", type=_quantity, metavar="A", help="top of the operating current range")
+    match.add_argument("--size", type=_count, required=True, metavar="N",
+                       help="parts per set: 2 for a simple mirror, N+1 for one reference and N outputs")
+    match.add_argument("--lot", help="only parts of this lot")
+    match.add_argument("--count", type=_count, metavar="K", help="how many sets (default: as many as possible)")
+    match.add_argument("--polarity", choices=("N", "P"), default="N", help="which parts (default: %(default)s)")
+    match.set_defaults(func=_match)
+
+    bins = sub.add_parser("bin", parents=[common], help="bin the in-stock parts by VGS at an operating current")
+    bins.add_argument("--current", type=_quantity, required=True, metavar="A", help="operating current")
+    bins.add_argument("--width", type=_quantity, required=True, metavar="V", help="bin width (e.g. 0.02)")
+    bins.add_argument("--lot", help="only parts of this lot")
+    bins.add_argument("--save", action="store_true", help="record the binning in the library")
+    bins.set_defaults(func=_bin)
+
+
+def _print_json(data) -> None:
+    print(json.dumps(data, indent=2))
+
+
+def _sink(args) -> int:
+    options = SinkOptions(series=args.series, load_voltage=args.load_voltage, source_resistor_ohm=args.degeneration or 0.0,
+                          mismatch_target=args.mismatch_target, compliance_margin_v=args.compliance_margin,
+                          vth_tempco=args.vth_tempco, monte_carlo=args.monte_carlo, seed=args.seed,
+                          resistor_tolerance=args.tolerance)
+    out = tuple(s.strip() for s in args.out.split(",") if s.strip()) if args.out else ()
+    request = service.SinkRequest(supply=args.supply, current=args.current, resistor=args.resistor, ref=args.ref,
+                                  out=out, outputs=args.outputs, ref_model=args.ref_model,
+                                  out_models=tuple(args.out_model), lot=args.lot, options=options, save=args.save)
+    design, design_id = service.design_sink(request, args.library, spice_path=args.spice)
+    if args.json:
+        _print_json(dict(design.to_dict(), design_id=design_id))
+    else:
+        print(format_sink_report(design, design_id), end="")
+        if args.spice:
+            print(f"wrote {args.spice}")
+    return 0
+
+
+def _match(args) -> int:
+    result = service.match_parts(args.library, args.current, args.size, current_max=args.current_max, lot=args.lot,
+                                 count=args.count, polarity=args.polarity)
+    if args.json:
+        _print_json(result.to_dict())
+    else:
+        print(format_match(result), end="")
+    return 0
+
+
+def _bin(args) -> int:
+    bins, binning_id = service.bin_parts(args.library, args.current, args.width, lot=args.lot, save=args.save)
+    if args.json:
+        _print_json({"current": args.current, "width": args.width, "lot": args.lot, "binning_id": binning_id,
+                     "bins": [b.to_dict() for b in bins]})
+    else:
+        print(format_bins(bins, args.current, args.width, binning_id), end="")
+    return 0

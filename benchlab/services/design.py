@@ -1,0 +1,221 @@
+"""Service behind ``benchlab design sink|match|bin``: resolve parts (library or inline), run the design, save.
+
+Parts come from the device library (``--ref``, ``--out``, ``--outputs N``) or inline
+(``--ref-model "vth=3.9,gm=0.544"``); the design itself is pure code in ``benchlab.design``.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from typing import Any, Sequence
+
+import numpy as np
+
+from benchlab.design.matching import MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
+from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
+from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, synthesize_sink
+from benchlab.errors import DesignError, InputError, LibraryError
+
+
+@dataclass(frozen=True)
+class SinkRequest:
+    """What ``benchlab design sink`` was asked (plain data, straight from the command line)."""
+
+    supply: float
+    current: float | None = None
+    resistor: float | None = None
+    ref: str | None = None
+    out: tuple[str, ...] = ()
+    outputs: int | None = None
+    ref_model: str | None = None
+    out_models: tuple[str, ...] = ()
+    lot: str | None = None
+    options: SinkOptions = field(default_factory=SinkOptions)
+    save: bool = False
+
+
+def part_from_record(record) -> Part:
+    """A library :class:`PartRecord` as a design :class:`Part` (it must have a curve)."""
+    if record.params is None:
+        raise LibraryError(f"part '{record.spec}' has no fitted or hand-entered curve; fit or enter it first")
+    return Part(label=record.label, params=record.params, stderr=dict(record.stderr or {}), lot=record.lot,
+                part_id=record.id)
+
+
+def _open(library_path):
+    from benchlab.services.library import open_library
+
+    return open_library(library_path)
+
+
+def _stock(lib, lot: str | None, polarity: str = "N") -> list:
+    records = [r for r in lib.parts(lot=lot, state="in_stock") if r.params is not None and r.polarity == polarity]
+    return records
+
+
+def _check_request(req: SinkRequest) -> None:
+    if not (req.supply and req.supply > 0):
+        raise InputError("--supply must be a positive voltage")
+    if (req.current is None) == (req.resistor is None):
+        raise InputError("give exactly one of --current (design the resistor) or --resistor (analyse it)")
+    if req.current is not None and not req.current > 0:
+        raise InputError("--current must be positive")
+    if req.resistor is not None and not req.resistor > 0:
+        raise InputError("--resistor must be positive")
+    if req.ref and req.ref_model:
+        raise InputError("give the reference either from the library (--ref) or inline (--ref-model), not both")
+    picks = sum(bool(x) for x in (req.out, req.out_models, req.outputs is not None))
+    if picks > 1:
+        raise InputError("give the outputs one way: --out, --out-model, or --outputs N")
+    if req.outputs is not None and req.outputs < 1:
+        raise InputError("--outputs must be at least 1")
+    if not (req.ref or req.ref_model) and req.outputs is None:
+        raise InputError("name a reference (--ref PART or --ref-model) or let the tool pick a set with --outputs N")
+
+
+def _operating_current(req: SinkRequest, candidates: Sequence[Part]) -> float:
+    if req.current is not None:
+        return req.current
+    # resistor given: estimate the current from the median part on that line (good enough to pick a set)
+    vgs = np.array([float(p.params.vgs_at(1e-3)) for p in candidates])
+    median = candidates[int(np.argsort(vgs)[len(vgs) // 2])]
+    from benchlab.models import solve_resistor_line
+
+    return solve_resistor_line(median.params, req.supply, req.resistor, req.options.source_resistor_ohm)[1]
+
+
+def best_outputs_for(ref: Part, candidates: Sequence[Part], count: int, current: float) -> list[Part]:
+    """The ``count`` candidates whose current at the reference's VGS is closest to ``current`` (exact metric)."""
+    pool = [p for p in candidates if p.name != ref.name]
+    if len(pool) < count:
+        raise DesignError(f"only {len(pool)} other part(s) in stock; {count} output(s) asked")
+    arrays = parts_to_arrays([ref, *pool])
+    errors = orientation_errors(arrays, np.zeros(len(pool), dtype=int), np.arange(1, len(pool) + 1),
+                                np.array([current]))[:, 0]
+    order = np.argsort(np.abs(errors), kind="stable")[:count]
+    return [pool[i] for i in order]
+
+
+def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
+    """The reference and outputs the request names, and the library records among them (for saving)."""
+    records: dict[str, Any] = {}
+
+    def from_library(spec: str) -> Part:
+        if lib is None:
+            raise InputError("naming parts needs a device library (use --ref-model / --out-model without one)")
+        record = lib.get_part(spec)
+        part = part_from_record(record)
+        records[part.name] = record
+        return part
+
+    ref = None
+    if req.ref_model:
+        ref = parse_inline_model(req.ref_model, "REF")
+    elif req.ref:
+        ref = from_library(req.ref)
+    outputs: list[Part] = []
+    if req.out_models:
+        outputs = [parse_inline_model(text, f"OUT{k}") for k, text in enumerate(req.out_models, start=1)]
+    elif req.out:
+        outputs = [from_library(s) for s in req.out]
+    elif req.outputs is not None:
+        if lib is None:
+            raise InputError("--outputs N picks parts from the device library; name the library or give parts inline")
+        stock = [part_from_record(r) for r in _stock(lib, req.lot)]
+        by_name = {part_from_record(r).name: r for r in _stock(lib, req.lot)}
+        if ref is not None:
+            stock = [p for p in stock if p.name != ref.name]
+            current = _operating_current(req, [ref])
+            outputs = best_outputs_for(ref, stock, req.outputs, current)
+        else:
+            if len(stock) < req.outputs + 1:
+                raise DesignError(f"{len(stock)} part(s) with curves in stock; a set of {req.outputs + 1} is needed")
+            current = _operating_current(req, stock)
+            best = match_sets(stock, current_grid(current), req.outputs + 1, count=1).sets[0]
+            ref = stock[best.ref_index]
+            outputs = [stock[i] for i in best.output_indices]
+        for p in [ref, *outputs]:
+            if p.name in by_name:
+                records[p.name] = by_name[p.name]
+    return ref, outputs, [records[p.name] for p in [ref, *outputs] if p.name in records]
+
+
+def sink_netlist_text(design: SinkDesign) -> str:
+    """The ngspice netlist (``.op``) of a design, linear parts made exact at their design currents."""
+    from benchlab.design.spice import sink_netlist
+
+    return sink_netlist(design.supply, design.r_chosen, design.parts[0], design.parts[1:], design.load_voltage,
+                        source_resistor_ohm=design.source_resistor,
+                        operating_currents=[design.i_ref, *(o.i_out for o in design.outputs)])
+
+
+def design_sink(req: SinkRequest, library_path: str | os.PathLike | None = None, *,
+                spice_path: str | None = None) -> tuple[SinkDesign, int | None]:
+    """Run ``benchlab design sink``: returns the design and, with ``save``, the library design id.
+
+    The library is opened only when parts are named from it (or ``save`` is asked). With
+    ``spice_path`` the design's netlist is written there. Every check runs before anything is
+    written: a request that fails writes no file and reserves no part.
+    """
+    _check_request(req)
+    needs_library = bool(req.ref or req.out or req.outputs is not None or req.save)
+    lib = _open(library_path) if needs_library else None
+    try:
+        ref, outputs, records = resolve_parts(req, lib)
+        if req.current is not None:
+            design = synthesize_sink(req.supply, req.current, ref, outputs, req.options)
+        else:
+            design = analyze_sink(req.supply, req.resistor, ref, outputs, req.options)
+        if req.save:
+            if len(records) != 1 + len(outputs):
+                raise InputError("--save records the design in the library and reserves its parts: every part must "
+                                 "come from the library (not --ref-model / --out-model); nothing was saved")
+            busy = [r.spec for r in records if r.state != "in_stock"]
+            if busy:
+                raise LibraryError(f"not in stock: {', '.join(busy)}; nothing was saved")
+        if spice_path:
+            write_text(spice_path, sink_netlist_text(design))
+        design_id = None
+        if req.save:
+            design_id = lib.record_design(dict(design.to_dict(), kind="sink"), records, state="reserved")
+        return design, design_id
+    finally:
+        if lib is not None:
+            lib.close()
+
+
+def match_parts(library_path, current: float, size: int, *, current_max: float | None = None,
+                lot: str | None = None, count: int | None = None, polarity: str = "N") -> MatchResult:
+    """Run ``benchlab design match`` on the in-stock parts of the library (one polarity)."""
+    currents = current_grid(current, current_max)
+    if count is not None and count < 1:
+        raise InputError("--count must be at least 1")
+    with _open(library_path) as lib:
+        stock = [part_from_record(r) for r in _stock(lib, lot, polarity)]
+    if len(stock) < size:
+        where = f" in lot '{lot}'" if lot else ""
+        raise DesignError(f"{len(stock)} in-stock part(s) with curves{where}; a set needs {size}")
+    return match_sets(stock, currents, size, count)
+
+
+def bin_parts(library_path, current: float, width: float, *, lot: str | None = None,
+              save: bool = False) -> tuple[tuple[VgsBin, ...], int | None]:
+    """Run ``benchlab design bin``: VGS windows at ``current``; with ``save`` the binning is stored."""
+    with _open(library_path) as lib:
+        stock = [part_from_record(r) for r in lib.parts(lot=lot, state="in_stock") if r.params is not None]
+        if not stock:
+            raise DesignError("no in-stock parts with curves to bin" + (f" in lot '{lot}'" if lot else ""))
+        bins = bin_by_vgs(stock, current, width)
+        binning_id = None
+        if save:
+            members = {f"{b.low:.4f}-{b.high:.4f}": list(b.parts) for b in bins if b.count}
+            binning_id = lib.record_binning({"current": current, "width": width, "lot": lot, "by": "vgs"}, members)
+    return bins, binning_id
+
+
+def write_text(path: str, text: str) -> None:
+    """Write ``text`` to ``path`` (via a temporary file, so a failed write leaves nothing half-written)."""
+    from benchlab.services.library import write_output
+
+    write_output(text, path)

@@ -1,0 +1,151 @@
+"""``benchlab design`` end to end: inline parts, a real device library, saving, bad input."""
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from benchlab.cli import main
+from benchlab.design.matching import brute_force_pairs, current_grid
+from benchlab.design.parts import Part
+from benchlab.library import Library
+from benchlab.models import DeviceParams
+
+
+@pytest.fixture
+def bag_library(tmp_path):
+    """An invented demo bag: 16 N-channel power MOSFETs measured for a plant-rack LED driver (invented data)."""
+    path = tmp_path / "lib.db"
+    rng = np.random.default_rng(2026)
+    with Library.open(path) as lib:
+        for i in range(16):
+            params = DeviceParams("theta", float(rng.normal(3.0, 0.08)), kp=float(rng.uniform(0.8, 1.1)),
+                                  theta=float(rng.uniform(0.05, 0.2)))
+            lib.add_part(f"Q{i + 1:02d}", lot="grow-rack", params=params, stderr={"vth": 0.002, "kp": 0.01})
+    return path
+
+
+def run(capsys, *argv):
+    code = main(list(argv))
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def test_inline_sink_json_has_the_documented_shape(capsys):
+    code, out, _ = run(capsys, "design", "sink", "--supply", "12", "--resistor", "1k",
+                       "--ref-model", "vth=3.9,gm=0.544", "--out-model", "vth=3.9,gm=0.544,label=TWIN",
+                       "--load-voltage", "5", "--json")
+    assert code == 0
+    data = json.loads(out)
+    # common practice hand example: 12 V through 1 kOhm into Vth 3.9 V, gm 0.544 A/V -> 8.085 mA
+    assert data["i_ref"] == pytest.approx(8.085e-3, abs=5e-7)
+    assert data["vgs"] == pytest.approx(3.91486, abs=5e-6)
+    assert data["r_chosen"] == 1000.0 and data["r_exact"] is None and data["series"] == "E24"
+    assert data["outputs"][0]["part"] == "TWIN"
+    assert data["outputs"][0]["error"] == pytest.approx(0.0, abs=1e-12)
+    assert {"part", "i_out", "error", "v_compliance", "p_part"} <= set(data["outputs"][0])
+    assert len(data["cautions"]) >= 5
+
+
+def test_text_report_ends_with_the_cautions(capsys):
+    code, out, _ = run(capsys, "design", "sink", "--supply", "12", "--current", "20m", "--ref-model", "vth=2.5,kp=0.8",
+                       "--out-model", "vth=2.52,kp=0.8", "--series", "E96")
+    assert code == 0
+    tail = out.strip().split("CAUTIONS", 1)
+    assert len(tail) == 2 and "licensed practice" in tail[1] and "Spirito" in tail[1]
+    assert "E96" in tail[0]
+
+
+def test_match_from_the_library_equals_brute_force(capsys, bag_library):
+    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--current", "50m",
+                       "--current-max", "0.2", "--size", "2", "--json")
+    assert code == 0
+    data = json.loads(out)
+    with Library.open(bag_library) as lib:
+        parts = [Part(r.label, r.params, lot=r.lot) for r in lib.parts()]
+    # outside check: exhaustive search over every pair
+    expected = brute_force_pairs(parts, current_grid(0.05, 0.2))
+    assert [s["worst_error"] for s in data["sets"]] == pytest.approx(expected, rel=1e-12)
+    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--current", "50m", "--size", "4",
+                       "--count", "2")
+    assert code == 0 and out.count("ref grow-rack/") == 2
+
+
+def test_sink_picks_a_set_saves_it_and_reserves_the_parts(capsys, bag_library, tmp_path):
+    netlist = tmp_path / "sink.cir"
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
+                       "--outputs", "3", "--load-voltage", "6", "--save", "--json", "--spice", str(netlist))
+    assert code == 0
+    data = json.loads(out)
+    assert isinstance(data["design_id"], int) and len(data["outputs"]) == 3
+    assert ".op" in netlist.read_text() and "VLOAD3" in netlist.read_text()
+    with Library.open(bag_library) as lib:
+        reserved = lib.parts(state="reserved")
+        assert len(reserved) == 4
+        stored = lib.design(data["design_id"])
+        assert stored["cautions"] == data["cautions"]
+        assert [f"{p['lot']}/{p['label']}" for p in stored["recorded_parts"]][0] == data["ref"]
+    # the same parts again: not in stock any more, one clear error, nothing saved
+    ref = data["ref"]
+    outs = ",".join(o["part"] for o in data["outputs"])
+    code, out, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
+                         "--ref", ref, "--out", outs, "--save")
+    assert code != 0 and "not in stock" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    with Library.open(bag_library) as lib:
+        assert len(lib.designs()) == 1
+
+
+def test_sink_with_a_named_reference_picks_its_closest_outputs(capsys, bag_library):
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
+                       "--ref", "Q05", "--outputs", "2", "--json")
+    assert code == 0
+    data = json.loads(out)
+    with Library.open(bag_library) as lib:
+        ref = lib.get_part("Q05").params
+        others = [r for r in lib.parts() if r.label != "Q05"]
+    vgs = float(ref.vgs_at(0.3))
+    errors = sorted(abs(float(r.params.current(vgs)) / 0.3 - 1) for r in others)
+    # the chosen outputs are the two with the smallest error at the target current (checked by hand here)
+    chosen = sorted(abs(float(next(r for r in others if f"{r.lot}/{r.label}" == o["part"]).params.current(vgs)) / 0.3 - 1)
+                    for o in data["outputs"])
+    assert chosen == pytest.approx(errors[:2])
+
+
+def test_bin_counts_and_save(capsys, bag_library):
+    code, out, _ = run(capsys, "design", "bin", "--library", str(bag_library), "--current", "0.1", "--width", "0.05",
+                       "--save", "--json")
+    assert code == 0
+    data = json.loads(out)
+    assert sum(b["count"] for b in data["bins"]) == 16
+    with Library.open(bag_library) as lib:
+        stored = lib.binning(data["binning_id"])
+    assert sum(len(v) for v in stored["bins"].values()) == 16
+
+
+@pytest.mark.parametrize("argv,needle", [
+    (["--supply", "12", "--ref-model", "vth=2.5,kp=0.8"], "required"),
+    (["--supply", "12", "--current", "0.02", "--resistor", "100", "--ref-model", "vth=2.5,kp=0.8"], "not allowed"),
+    (["--supply", "12", "--current", "abc", "--ref-model", "vth=2.5,kp=0.8"], "not a number"),
+])
+def test_usage_errors_exit_before_doing_anything(capsys, argv, needle):
+    with pytest.raises(SystemExit) as info:
+        main(["design", "sink", *argv])
+    assert info.value.code == 2
+    assert needle in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("argv,needle", [
+    (["--supply", "12", "--current", "0.02"], "name a reference"),
+    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5"], "KP"),
+    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8,bogus=1"], "expected key=value"),
+    (["--supply", "1", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8"], "cannot drive"),
+    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--save"], "library"),
+])
+def test_bad_requests_give_one_line_and_write_nothing(capsys, tmp_path, monkeypatch, argv, needle):
+    monkeypatch.setenv("BENCHLAB_LIBRARY", str(tmp_path / "nothing.db"))
+    spice = tmp_path / "x.cir"
+    code, out, err = run(capsys, "design", "sink", *argv, "--spice", str(spice))
+    assert code == 2 and needle in err
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert not spice.exists()
