@@ -66,7 +66,7 @@ def _read_json(path: Path) -> dict[str, Any]:
     return data
 
 
-def _session_sources(folder: Path) -> list[SweepSource]:
+def _session_sources(folder: Path, allow_empty: bool = False) -> list[SweepSource]:
     meta = _read_json(folder / "session.json")
     if meta.get("format") != SESSION_FORMAT:
         raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(folder / "session.json"))
@@ -77,13 +77,14 @@ def _session_sources(folder: Path) -> list[SweepSource]:
             sidecar = folder / f"{label}.json"
             verdict = _read_json(sidecar).get("classification") if sidecar.exists() else None
             sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict))
-    if not sources:
+    if not sources and not allow_empty:
         raise InputError("the session holds no part sweeps yet", path=str(folder))
     return sources
 
 
 def resolve_inputs(paths) -> list[SweepSource]:
-    """Turn command-line paths into sweep sources (a session folder gives all its parts).
+    """Turn command-line paths into sweep sources (a session folder gives all its parts, a folder
+    of sessions all of theirs).
 
     Raises
     ------
@@ -94,9 +95,16 @@ def resolve_inputs(paths) -> list[SweepSource]:
     for raw in paths:
         path = Path(raw)
         if path.is_dir():
-            if not (path / "session.json").exists():
-                raise InputError("a folder must be a benchlab session (it has no session.json)", path=str(path))
-            sources += _session_sources(path)
+            if (path / "session.json").exists():
+                sources += _session_sources(path)
+                continue
+            # a folder of sessions (e.g. ./sessions)
+            inner = sorted(p for p in path.iterdir() if (p / "session.json").exists())
+            if not inner:
+                raise InputError("not a benchlab session nor a folder of sessions (no session.json found)",
+                                 path=str(path))
+            for folder in inner:
+                sources += _session_sources(folder, allow_empty=True)
         elif not path.exists():
             raise InputError("no such file", path=str(path))
         elif path.suffix.lower() == ".json":

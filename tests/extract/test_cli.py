@@ -116,3 +116,14 @@ def test_bootstrap_option(tmp_path, capsys):
     row = json.loads(capsys.readouterr().out)
     assert row["stderr_method"] == "bootstrap/40"
     assert 0 < row["stderr"]["vth"] < 0.01
+
+
+def test_folder_of_sessions(tmp_path, capsys):
+    _session(tmp_path)
+    empty = tmp_path / "20261202-120000-empty"
+    empty.mkdir()
+    (empty / "session.json").write_text(json.dumps({"format": "benchlab-session/1", "parts": []}))
+    assert main(["fit", str(tmp_path), "--json"]) == 0
+    assert len(capsys.readouterr().out.strip().splitlines()) == 2
+    assert main(["fit", str(empty)]) == 2
+    assert "no part sweeps" in capsys.readouterr().err
