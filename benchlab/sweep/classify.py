@@ -96,7 +96,7 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
     low = [p for p in usable if p.direction == "up" and p.vgs <= LEAK_VGS_FRACTION * scale_v and p.vgs > 0]
     if low:
         worst = max(low, key=lambda p: p.id)
-        if worst.id >= leak_current_a:
+        if worst.id >= max(leak_current_a, detect_current_a):  # nothing below the bench's floor counts
             return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, far below its "
                                            f"threshold (about {scale_v:.2f} V)")
     if vref is not None:

@@ -244,10 +244,10 @@ class _Sweep:
             if len(recent) == 3 and all(s == "over_range" for s in recent):
                 raise _Stop("three readings in a row over range")
             return
-        conducting = [p for p in previous if p.id >= max(10 * plan.detect_current_a, 1e-5) and p.status == "ok"]
+        conducting = [p for p in previous if p.id >= max(10 * plan.detect_floor_a(), 1e-5) and p.status == "ok"]
         if conducting and point.status in ("ok", "compliance"):  # an unsettled reading proves no failure
             last = conducting[-1]
-            if point.id < plan.detect_current_a and point.vgs > last.vgs:
+            if point.id < plan.detect_floor_a() and point.vgs > last.vgs:
                 raise _Stop("part failed open", f"failed open during the sweep at point {point.point}: it carried "
                                                 f"{last.id:.3g} A at {last.vgs:.3f} V, then nothing at {point.vgs:.3f} V")
             if last.vgs > 0.5 and point.vgs < 0.3 * last.vgs and point.id > last.id:
@@ -276,7 +276,7 @@ class _Sweep:
         while True:
             if len(ups) >= plan.max_measured_points:
                 raise _Stop(f"stopped after {len(ups)} points (max_measured_points) below the top current")
-            conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= plan.detect_current_a]
+            conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= plan.detect_floor_a()]
             last_vgs = ups[-1].vgs if math.isfinite(ups[-1].vgs) else level
             if not conducting:
                 if math.isfinite(ups[-1].vgs) and ups[-1].vgs >= plan.max_search_v:
@@ -360,7 +360,7 @@ class _Sweep:
 
     def down_sweep(self) -> None:
         """Replay the up-sweep's setpoints in reverse (the top one excluded)."""
-        ups = [p for p in self.points if p.direction == "up" and p.usable and p.id >= self.plan.detect_current_a]
+        ups = [p for p in self.points if p.direction == "up" and p.usable and p.id >= self.plan.detect_floor_a()]
         if len(ups) < 2:
             return
         if self.plan.mode == "currents":
@@ -394,7 +394,7 @@ class _Sweep:
     def outcome(self, complete: bool, stop_reason: str, failure: str | None, error: str | None,
                 problems: list[str]) -> SweepOutcome:
         plan = self.plan
-        verdict = classify(self.points, detect_current_a=plan.detect_current_a, leak_current_a=plan.leak_current_a,
+        verdict = classify(self.points, detect_current_a=plan.detect_floor_a(), leak_current_a=plan.leak_current_a,
                            reference_current_a=REFERENCE_CURRENT_A, failure=failure, fixture=plan.fixture)
         reason = verdict.reason if complete else f"{verdict.reason} (sweep interrupted: {stop_reason})"
         return SweepOutcome(label=self.label, complete=complete, stop_reason=stop_reason,

@@ -28,7 +28,8 @@ from benchlab.errors import InputError, SafetyError
 FIXTURES = ("resistor", "smu")
 MODES = ("targets", "voltages", "currents")
 CURRENT_FROM = ("meter", "resistor")
-REFERENCE_CURRENT_A = 250e-6  # datasheet VGS(th) test current with VDS = VGS (common practice)
+REFERENCE_CURRENT_A = 250e-6
+READBACK_RESOLUTION_V = 1e-3  # datasheet VGS(th) test current with VDS = VGS (common practice)
 
 
 @dataclass(frozen=True)
@@ -138,6 +139,14 @@ class SweepPlan:
     def target_currents(self) -> np.ndarray:
         """The target currents (A), evenly spread in log(current), ascending."""
         return target_currents(self.min_current_a, self.max_current_a, self.points)
+
+    def detect_floor_a(self) -> float:
+        """Smallest current (A) the bench can tell from zero: ``detect_current_a``, or, when the current
+        comes from the resistor drop, three steps of a 1 mV supply readback over R (a typical readback
+        resolution, common practice)."""
+        if self.fixture == "resistor" and self.current_from == "resistor" and self.series_resistor_ohm > 0:
+            return max(self.detect_current_a, 3 * READBACK_RESOLUTION_V / self.series_resistor_ohm)
+        return self.detect_current_a
 
     def current_limit(self) -> float:
         """Supply current limit / SMU compliance (A): a margin above the top target, never above the limit."""
