@@ -66,7 +66,7 @@ def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current):
     draws = np.random.default_rng(seed).choice(rel, size=(resamples, rel.size), replace=True)
     synthetic = np.maximum(fitted[None, :] * (1.0 + draws), 1e-30)
     fit = solve_batch(model, np.broadcast_to(v, synthetic.shape).copy(), synthetic, np.ones_like(synthetic),
-                      np.tile(p, (resamples, 1)))
+                      np.tile(p, (resamples, 1)), with_covariance=False)
     spread = fit.params.std(axis=0, ddof=1)
     if at_current is None:
         return spread, None, None

@@ -168,7 +168,8 @@ def _cost(model, vgs, inv, mask, params, ut):
 
 
 def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray, *,
-                ut: float = thermal_voltage(), max_iter: int = 100, tol: float = 1e-8) -> BatchFit:
+                ut: float = thermal_voltage(), max_iter: int = 100, tol: float = 1e-8,
+                with_covariance: bool = True) -> BatchFit:
     """Levenberg-Marquardt on relative residuals for B stacked sweeps at once.
 
     Parameters
@@ -187,6 +188,8 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         Iteration cap per sweep.
     tol : float
         Stop when a step changes every parameter by less than ``tol`` relative to its size.
+    with_covariance : bool
+        Compute the covariance (False leaves it NaN: for starting-value fits).
 
     Returns
     -------
@@ -243,12 +246,14 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         # a sweep that stalls with a tiny gradient is at its optimum too
         converged[active[stalled]] = True
         active = active[~done]
-    r, columns = _residuals(model, vgs, inv, mask, params, ut)
-    normal, _ = _normal_equations(r, columns)
     n_points = mask.sum(axis=1)
-    dof = np.maximum(n_points - n_par, 1.0)
-    scale = cost / dof
-    covariance = np.linalg.pinv(normal) * scale[:, None, None]
+    if with_covariance:
+        r, columns = _residuals(model, vgs, inv, mask, params, ut)
+        normal, _ = _normal_equations(r, columns)
+        scale = cost / np.maximum(n_points - n_par, 1.0)
+        covariance = np.linalg.pinv(normal) * scale[:, None, None]
+    else:
+        covariance = np.full((n_batch, n_par, n_par), np.nan)
     return BatchFit(model=model, params=params, covariance=covariance, rss=cost, n_points=n_points,
                     iterations=iterations, converged=converged)
 
@@ -308,7 +313,7 @@ def initial_guess(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndar
     strong = mask * (i_pos >= 0.02 * i_max)
     strong = np.where(strong.sum(axis=1, keepdims=True) >= 4, strong, mask)
     theta_fit = solve_batch("theta", vgs, np.where(mask > 0, i_pos, 1.0), strong,
-                            np.stack([vth, kp, theta], axis=1), ut=ut, max_iter=60)
+                            np.stack([vth, kp, theta], axis=1), ut=ut, max_iter=60, with_covariance=False)
     vth, kp, theta = theta_fit.params.T
     log_i = np.log(np.where(mask > 0, i_pos, 1.0))
     dv = np.diff(vgs, axis=1)
@@ -324,7 +329,8 @@ def initial_guess(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndar
 def _theta_start(vgs, i_meas, mask, vth, kp, ut):
     # A square-law fit pins the threshold (the near-threshold points dominate relative
     # residuals); then Vov^2 / (2 ID) = 1/KP + (THETA/KP) Vov is a straight line in Vov.
-    square = solve_batch("square", vgs, i_meas, mask, np.stack([vth, kp], axis=1), ut=ut, max_iter=3)
+    square = solve_batch("square", vgs, i_meas, mask, np.stack([vth, kp], axis=1), ut=ut, max_iter=3,
+                         with_covariance=False)
     vth = square.params[:, 0]
     vov = vgs - vth[:, None]
     above = mask * (vov > 0)
