@@ -85,5 +85,8 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
             if candidates:
                 reference = lib.get_part(candidates[0])
     sets = _design_sets(design) if design else ()
+    if reference is not None:  # the scatter marks the first part of each set as the reference
+        sets = tuple((reference.label, *[x for x in s if x != reference.label]) if reference.label in s else s
+                     for s in sets)
     return ReportData(lot=lot, parts=tuple(parts), traces=tuple(traces), design=design, design_sets=sets,
                       reference=reference, library_path=lib.path)

@@ -117,3 +117,12 @@ def test_report_command_and_its_errors(lot_with_design, tmp_path, capsys):
     assert "lot 'nope' has no parts" in err and err.count("\n") == 1
     assert main(["report", "--lot", "demo-bag", "--design", "99", "--out", str(out), "--library", lib.path]) == 2
     assert "no design 99" in capsys.readouterr().err
+
+
+def test_reference_named_by_the_design_leads_its_set(tmp_path):
+    with Library.open(tmp_path / "lib.db") as lib:
+        out = lib.add_part("Q1", lot="bag", params=DeviceParams("square", vth=3.0, kp=1.0))
+        ref = lib.add_part("Q2", lot="bag", params=DeviceParams("square", vth=3.1, kp=1.1))
+        design_id = lib.record_design({"supply": 12.0, "r_chosen": 1000.0, "ref": "bag/Q2"}, [out, ref])
+        data = collect(lib, "bag", design_id)
+    assert data.reference.label == "Q2" and data.design_sets == (("Q2", "Q1"),)
