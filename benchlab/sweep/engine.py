@@ -299,6 +299,7 @@ class _Sweep:
                     vgs_pred = predict_vgs(sorted(conducting, key=lambda c: c[1]), target)
                 nxt = min(max(vgs_pred + target * r, level + MIN_STEP_V), level + plan.max_step_v)
                 expect_id, expect_vgs = min(target, lim.max_drain_a), vgs_pred
+            nxt = round(nxt, 6)  # 1 uV steps: keeps the recorded setpoints readable (0.3, not 0.30000000000000004)
             if nxt > lim.max_supply_v:
                 if level >= lim.max_supply_v * (1 - 1e-9):
                     raise _Stop(f"reached max_supply_v ({lim.max_supply_v:g} V)")

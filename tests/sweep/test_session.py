@@ -119,3 +119,17 @@ def test_bad_names_are_refused_before_anything_is_written(tmp_path, name):
     with pytest.raises(InputError):
         SessionWriter.create(tmp_path / "s", name)
     assert not (tmp_path / "s").exists()
+
+
+def test_the_committed_example_session_reads_back():
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2] / "sessions"
+    (folder,) = [p for p in root.iterdir() if p.is_dir() and p.name.endswith("example-led-rack")]
+    data = read_session(folder)
+    assert list(data.sweeps) == ["Q01", "Q02", "Q03"] and "invented" in data.meta["operator"]
+    assert [s.meta["classification"] for s in data.sweeps.values()] == ["good", "good", "leaky"]
+    for sweep in data.sweeps.values():
+        assert sweep.complete and not sweep.truncated and len(sweep.vgs) == sweep.meta["points"]
+        up = sweep.usable_mask()
+        assert (sweep.id[up][sweep.id[up] > 1e-4] > 0).all()
