@@ -48,13 +48,22 @@ def current_grid(i_min: float, i_max: float | None = None, points: int = DEFAULT
     return np.geomspace(i_min, i_max, max(int(points), 2))
 
 
-def orientation_errors(arrays: PartArrays, ref, out, currents: np.ndarray) -> np.ndarray:
-    """Errors e(ref[k], out[k], I) for index arrays ``ref``/``out``, shape (len(ref), len(currents))."""
-    ref = np.asarray(ref)[:, None]
+def orientation_errors(arrays: PartArrays, ref, out, currents: np.ndarray, vgs_table: np.ndarray | None = None):
+    """Errors e(ref[k], out[k], I) for index arrays ``ref``/``out``, shape (len(ref), len(currents)).
+
+    ``vgs_table`` (parts x currents, from :func:`vgs_table`) saves solving VGS again.
+    """
+    ref = np.asarray(ref)
     out = np.asarray(out)[:, None]
     currents = np.asarray(currents, dtype=float)[None, :]
-    vgs = arrays.vgs_at(currents, ref)
+    vgs = vgs_table[ref] if vgs_table is not None else arrays.vgs_at(currents, ref[:, None])
     return arrays.current(vgs, out) / currents - 1.0
+
+
+def vgs_table(arrays: PartArrays, currents: np.ndarray) -> np.ndarray:
+    """VGS of every part at every current of the grid, shape (parts, currents)."""
+    currents = np.asarray(currents, dtype=float)
+    return arrays.vgs_at(currents[None, :], np.arange(len(arrays))[:, None])
 
 
 def signed_worst(errors: np.ndarray) -> np.ndarray:
@@ -63,10 +72,11 @@ def signed_worst(errors: np.ndarray) -> np.ndarray:
     return np.take_along_axis(errors, pick[..., None], axis=-1)[..., 0]
 
 
-def pair_costs(arrays: PartArrays, a, b, currents: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def pair_costs(arrays: PartArrays, a, b, currents: np.ndarray,
+               table: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Cost of pairs (a[k], b[k]) and whether a[k] is the better reference."""
-    cost_ab = np.max(np.abs(orientation_errors(arrays, a, b, currents)), axis=1)
-    cost_ba = np.max(np.abs(orientation_errors(arrays, b, a, currents)), axis=1)
+    cost_ab = np.max(np.abs(orientation_errors(arrays, a, b, currents, table)), axis=1)
+    cost_ba = np.max(np.abs(orientation_errors(arrays, b, a, currents, table)), axis=1)
     return np.minimum(cost_ab, cost_ba), cost_ab <= cost_ba
 
 
@@ -120,10 +130,12 @@ def _lower_bound(d: np.ndarray, t: np.ndarray, delta: np.ndarray, s: np.ndarray)
     return np.minimum(d * t, np.minimum(d, delta) * s)
 
 
-def _radius_bound(r: float, terms: list[tuple[np.ndarray, np.ndarray, np.ndarray]], idle: np.ndarray) -> float:
-    # A pair that is not within r of each other in every coordinate is more than r apart in VGS at
-    # some anchor current; at that current its error is at least the weakest part's convexity bound.
-    return float(min(np.min(_lower_bound(r, t[idle], delta[idle], s[idle])) for t, delta, s in terms))
+def _radius_bound(r: float, terms: list[tuple[np.ndarray, np.ndarray, np.ndarray]], scales: Sequence[float],
+                  idle: np.ndarray) -> float:
+    # A pair that is not within r of each other in every (scaled) coordinate is more than r / scale
+    # apart in VGS at some anchor current; there its error is at least the weakest part's convexity bound.
+    return float(min(np.min(_lower_bound(r / k, t[idle], delta[idle], s[idle]))
+                     for (t, delta, s), k in zip(terms, scales)))
 
 
 def match_pairs(parts: Sequence[Part], currents: np.ndarray, count: int | None = None, *,
@@ -160,15 +172,21 @@ def match_pairs(parts: Sequence[Part], currents: np.ndarray, count: int | None =
     n = len(arrays)
     currents = np.asarray(currents, dtype=float)
     anchors = sorted({float(currents[0]), float(currents[len(currents) // 2]), float(currents[-1])})
-    coords = np.column_stack([arrays.vgs_at(i) for i in anchors])
     terms = [_bound_terms(arrays, i) for i in anchors]
-    vgs0 = coords[:, len(anchors) // 2]
+    # scale each VGS coordinate by the typical error per volt at its current, so one radius means
+    # about the same error at every anchor (a speed choice; the bound below uses the true minima)
+    scales = [float(np.median(np.minimum(t, s))) for t, _, s in terms]
+    scales = [k if np.isfinite(k) and k > 0 else 1.0 for k in scales]
+    raw = np.column_stack([arrays.vgs_at(i) for i in anchors])
+    coords = raw * np.array(scales)[None, :]
+    vgs0 = raw[:, len(anchors) // 2]
+    table = vgs_table(arrays, currents)
     free = np.ones(n, dtype=bool)
     limit = n // 2 if count is None else min(int(count), n // 2)
-    chosen: list[MatchedSet] = []
-    spread = float(np.subtract(*np.percentile(vgs0, [90, 10]))) if n > 1 else 0.0
+    pairs: list[tuple[int, int, float]] = []
+    spread = float(np.subtract(*np.percentile(coords[:, len(anchors) // 2], [90, 10]))) if n > 1 else 0.0
     radius = max(neighbours * spread / max(0.8 * n, 1.0), 1e-9)
-    while len(chosen) < limit:
+    while len(pairs) < limit:
         idle = np.flatnonzero(free)
         m = idle.size
         if m < 2:
@@ -181,23 +199,31 @@ def match_pairs(parts: Sequence[Part], currents: np.ndarray, count: int | None =
         else:
             found = cKDTree(coords[idle]).query_pairs(radius, p=np.inf, output_type="ndarray")
             a, b = idle[found[:, 0]], idle[found[:, 1]]
-            bound = _radius_bound(radius, terms, idle)
-        cost, a_is_ref = pair_costs(arrays, a, b, currents)
+            bound = _radius_bound(radius, terms, scales, idle)
+        cost, a_is_ref = pair_costs(arrays, a, b, currents, table)
         ranked = np.lexsort((np.maximum(a, b), np.minimum(a, b), cost))
+        ranked = ranked[cost[ranked] <= bound]  # only these are proven; the rest waits for a wider search
         accepted = 0
-        for e in ranked:
-            if cost[e] > bound or len(chosen) >= limit:
+        is_free = free.tolist()
+        for ea, eb, ec, ref_first in zip(a[ranked].tolist(), b[ranked].tolist(), cost[ranked].tolist(),
+                                         a_is_ref[ranked].tolist()):
+            if len(pairs) >= limit:
                 break
-            if free[a[e]] and free[b[e]]:
-                ref, out = (a[e], b[e]) if a_is_ref[e] else (b[e], a[e])
-                free[ref] = free[out] = False
-                err = signed_worst(orientation_errors(arrays, [ref], [out], currents))[0]
-                chosen.append(MatchedSet(ref=parts[ref].name, outputs=(parts[out].name,), worst_error=float(cost[e]),
-                                         errors=(float(err),), ref_index=int(ref), output_indices=(int(out),),
-                                         vgs_ref=float(vgs0[ref])))
+            if is_free[ea] and is_free[eb]:
+                is_free[ea] = is_free[eb] = False
+                pairs.append((ea, eb, ec) if ref_first else (eb, ea, ec))
                 accepted += 1
+        free = np.array(is_free, dtype=bool)
         if accepted * 8 < m:
             radius *= 2.0  # too few pairs proven: search wider
+    chosen: list[MatchedSet] = []
+    if pairs:
+        refs = np.array([p[0] for p in pairs])
+        outs = np.array([p[1] for p in pairs])
+        signed = signed_worst(orientation_errors(arrays, refs, outs, currents))
+        chosen = [MatchedSet(ref=parts[r].name, outputs=(parts[o].name,), worst_error=c, errors=(float(e),),
+                             ref_index=r, output_indices=(o,), vgs_ref=float(vgs0[r]))
+                  for (r, o, c), e in zip(pairs, signed)]
     return MatchResult(currents=tuple(float(c) for c in currents), size=2, method="exact greedy",
                        objective="pairs taken best first; each is the pair of smallest worst-case error among the "
                                  "parts still free (exact)",

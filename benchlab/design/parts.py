@@ -147,30 +147,35 @@ class PartArrays:
     def current(self, vgs, index=None):
         """Drain current of part ``index[k]`` at ``vgs[k]`` (broadcast), same laws as ``DeviceParams.current``."""
         p = self._shape(index)
-        vgs = np.asarray(vgs, dtype=float)
-        vov = vgs - p.vth
-        lin = p.gm * np.maximum(vov, 0.0)
+        vov = np.asarray(vgs, dtype=float) - p.vth
+        hard = np.maximum(vov, 0.0)
+        q = hard
         ekv = p.code == 3
-        scale = np.where(ekv, 2.0 * np.maximum(p.n, 1.0) * p.ut, 1.0)
-        q = np.where(ekv, scale * np.logaddexp(0.0, vov / scale), np.maximum(vov, 0.0))
+        if ekv.any():  # the soft overdrive costs a log and an exp: only when a part needs it
+            scale = np.where(ekv, 2.0 * np.maximum(p.n, 1.0) * p.ut, 1.0)
+            q = np.where(ekv, scale * np.logaddexp(0.0, vov / scale), hard)
         sat = 0.5 * p.kp * q * q / (1.0 + p.theta * q)
-        return np.where(p.code == 0, lin, sat)
+        linear = p.code == 0
+        return np.where(linear, p.gm * hard, sat) if linear.any() else sat
 
     def vgs_at(self, i_d, index=None):
         """VGS at which part ``index[k]`` carries ``i_d[k]`` (> 0), same as ``DeviceParams.vgs_at``."""
         p = self._shape(index)
         i_d = np.asarray(i_d, dtype=float)
-        safe_gm = np.where(p.code == 0, p.gm, 1.0)
-        safe_kp = np.where(p.code == 0, 1.0, p.kp)
-        lin = p.vth + i_d / safe_gm
+        linear = p.code == 0
+        any_linear = linear.any()
+        safe_kp = np.where(linear, 1.0, p.kp) if any_linear else p.kp
         q = (i_d * p.theta + np.sqrt((i_d * p.theta) ** 2 + 2.0 * safe_kp * i_d)) / safe_kp
         ekv = p.code == 3
-        scale = np.where(ekv, 2.0 * np.maximum(p.n, 1.0) * p.ut, 1.0)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            y = q / scale
-            q_ekv = scale * (y + np.log(-np.expm1(-y)))
-        sat = p.vth + np.where(ekv, q_ekv, q)
-        return np.where(p.code == 0, lin, sat)
+        if ekv.any():
+            scale = np.where(ekv, 2.0 * np.maximum(p.n, 1.0) * p.ut, 1.0)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                y = q / scale
+                q = np.where(ekv, scale * (y + np.log(-np.expm1(-y))), q)
+        sat = p.vth + q
+        if not any_linear:
+            return sat
+        return np.where(linear, p.vth + i_d / np.where(linear, p.gm, 1.0), sat)
 
     def gm_at(self, i_d, index=None):
         """Transconductance dID/dVGS at current ``i_d`` (by the analytic derivative of each law)."""
