@@ -55,10 +55,13 @@ def register(subparsers) -> None:
 
 
 def _fit(args) -> int:
-    records = service.fit_files(args.files, model=args.model, at_current=args.at_current,
-                                cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
-                                bootstrap=args.bootstrap, save=args.save)
-    print(service.json_lines(records) if args.json else service.format_table(records))
+    run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
+                            cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
+                            bootstrap=args.bootstrap, save=args.save)
+    if run.records:
+        print(service.json_lines(run.records) if args.json else service.format_table(run.records))
+    for source, why in run.skipped:
+        print(f"skipped {source.label} (classified {source.classification}): {why}", file=sys.stderr)
     if args.save:
-        print(f"saved {len(records)} fit(s) to their session sidecars", file=sys.stderr)
+        print(f"saved {len(run.records)} fit(s) to their session sidecars", file=sys.stderr)
     return 0

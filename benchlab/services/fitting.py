@@ -15,7 +15,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from benchlab.errors import InputError
+from benchlab.errors import FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 
@@ -134,22 +134,38 @@ def load_source(source: SweepSource) -> Sweep:
     """Read and check one sweep; a session record leaves out the points taken before the part conducted."""
     detect = None
     if source.sidecar_path is not None:
-        plan = _read_json(source.sidecar_path).get("plan") or {}
-        value = plan.get("detect_current_a")
+        plan = _read_json(source.sidecar_path).get("plan")
+        value = plan.get("detect_current_a") if isinstance(plan, dict) else None
         # the sweep engine records its search steps too; below its detection current they are not data
         detect = float(value) if isinstance(value, (int, float)) and value > 0 else None
     return load_sweep_csv(source.csv_path, detect_current=detect)
 
 
+@dataclass(frozen=True)
+class FitRun:
+    """The outcome of :func:`fit_files`: the fits, and the dud parts that could not be fitted."""
+
+    records: list[FitRecord]
+    skipped: list[tuple[SweepSource, str]]
+
+
+def _is_dud(source: SweepSource) -> bool:
+    return source.classification not in (None, "good")
+
+
 def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
               cc_current: float = DEFAULT_CC_CURRENT, window=None, bootstrap: int = 0,
-              save: bool = False) -> list[FitRecord]:
+              save: bool = False) -> FitRun:
     """Fit every sweep found in ``paths`` (one batch) and optionally store the fits in the sidecars.
+
+    A part the sweep classified as a dud (open, shorted, leaky, unstable) that has too few
+    conducting points to fit is skipped with its reason rather than stopping the run; bad
+    input anywhere else is an error.
 
     Parameters
     ----------
     paths : sequence of str or Path
-        CSV files, part sidecars, session files or session folders.
+        CSV files, part sidecars, session files, session folders or folders of sessions.
     model, at_current, cc_current, window, bootstrap
         See :func:`benchlab.extract.fit_batch`.
     save : bool
@@ -157,13 +173,15 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
 
     Returns
     -------
-    list of FitRecord
+    FitRun
 
     Raises
     ------
     InputError
         Bad paths or data, or ``save`` with a plain CSV (no sidecar); raised before anything
         is written.
+    FitError
+        A (non-dud) sweep has too few points in the window for the model.
     """
     sources = resolve_inputs(paths)
     if save:
@@ -171,16 +189,30 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         if plain:
             raise InputError("--save stores fits in a session record's sidecar; this CSV has none "
                              "(fit it without --save, or fit the session)", path=str(plain[0].csv_path))
-    sweeps = [load_source(s) for s in sources]
-    results = fit_batch(sweeps, model, at_current=at_current, cc_current=cc_current, window=window,
-                        bootstrap=bootstrap)
-    records = [FitRecord(s, r) for s, r in zip(sources, results)]
+    loaded, skipped = [], []
+    for source in sources:
+        try:
+            loaded.append((source, load_source(source)))
+        except InputError as exc:
+            if not _is_dud(source):
+                raise
+            skipped.append((source, str(exc)))
+    options = dict(at_current=at_current, cc_current=cc_current, window=window, bootstrap=bootstrap)
+    regular = [(s, w) for s, w in loaded if not _is_dud(s)]
+    fitted = dict(zip((id(s) for s, _ in regular), fit_batch([w for _, w in regular], model, **options)))
+    for source, sweep in loaded:
+        if _is_dud(source):  # one by one, so a dud that cannot be fitted stops nothing
+            try:
+                fitted[id(source)] = fit_batch([sweep], model, **options)[0]
+            except (FitError, InputError) as exc:
+                skipped.append((source, str(exc)))
+    records = [FitRecord(s, fitted[id(s)]) for s in sources if id(s) in fitted]
     if save:
-        options = {"model": model, "at_current": at_current, "cc_current": cc_current,
-                   "window": list(window) if window else None, "bootstrap": int(bootstrap)}
+        stored = {"model": model, "at_current": at_current, "cc_current": cc_current,
+                  "window": list(window) if window else None, "bootstrap": int(bootstrap)}
         for record in records:
-            store_fit(record, options)
-    return records
+            store_fit(record, stored)
+    return FitRun(records, skipped)
 
 
 def store_fit(record: FitRecord, options: dict[str, Any]) -> None:

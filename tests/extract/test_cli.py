@@ -127,3 +127,25 @@ def test_folder_of_sessions(tmp_path, capsys):
     assert len(capsys.readouterr().out.strip().splitlines()) == 2
     assert main(["fit", str(empty)]) == 2
     assert "no part sweeps" in capsys.readouterr().err
+
+
+def test_dud_without_conducting_points_is_skipped_not_fatal(tmp_path, capsys):
+    folder = _session(tmp_path)
+    meta = json.loads((folder / "session.json").read_text())
+    meta["parts"].append("Q03")
+    (folder / "session.json").write_text(json.dumps(meta))
+    lines = ["point,time_s,vgs,id,v_source,i_source,status,direction"]
+    lines += [f"{k},{k * 0.1},{0.5 * k},{1e-10 * k},{0.5 * k},0,ok,up" for k in range(1, 20)]
+    (folder / "Q03.csv").write_text("\n".join(lines) + "\n")
+    (folder / "Q03.json").write_text(json.dumps({"format": "benchlab-sweep/1", "label": "Q03",
+                                                 "classification": "open", "plan": {"detect_current_a": 2e-6}}))
+    assert main(["fit", str(folder), "--json"]) == 0
+    captured = capsys.readouterr()
+    assert [json.loads(line)["label"] for line in captured.out.strip().splitlines()] == ["Q01", "Q02"]
+    assert "skipped Q03 (classified open)" in captured.err
+    # a good part with nothing to fit is still an error
+    sidecar = json.loads((folder / "Q03.json").read_text())
+    sidecar["classification"] = "good"
+    (folder / "Q03.json").write_text(json.dumps(sidecar))
+    assert main(["fit", str(folder)]) == 2
+    assert "Q03.csv: no fittable points" in capsys.readouterr().err
