@@ -51,7 +51,7 @@ def utc_now() -> str:
 
 def natural_key(text: str) -> tuple:
     """Sort key that puts Q2 before Q10."""
-    return tuple(int(p) if p.isdigit() else p.lower() for p in re.split(r"(\d+)", text))
+    return tuple(int(p) if p.isdecimal() else p.lower() for p in re.split(r"(\d+)", text))
 
 
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
