@@ -30,6 +30,17 @@ img { max-width: 100%; border: 1px solid #ddd; margin: 0.5em 0; }
 """
 
 
+# SI units of the numbers a sink design records (keys of benchlab.design's result); others are shown bare
+UNITS = {"supply": "V", "i_target": "A", "r_exact": "ohm", "r_chosen": "ohm", "source_resistor": "ohm", "vg": "V",
+         "vgs": "V", "i_ref": "A", "load_voltage": "V", "compliance_margin": "V", "p_ref": "W", "p_resistor": "W",
+         "di_ref_dvsupply": "A/V", "drift_ref_per_k": "A/K", "vth_tempco": "V/K", "i_out": "A", "v_compliance": "V",
+         "p_part": "W", "p_source_resistor": "W", "drift_per_k": "A/K", "di_dvsupply": "A/V", "tc_fixed_vgs": "1/K"}
+
+
+def _key(name: str) -> str:
+    return f"{name} ({UNITS[name]})" if name in UNITS else name
+
+
 def esc(value: Any) -> str:
     """Text made safe for HTML content and attribute values."""
     return html.escape("" if value is None else str(value), quote=True)
@@ -78,12 +89,12 @@ def design_section(design: dict, figure_names: dict[str, str]) -> str:
                if isinstance(v, (int, float, str)) and not isinstance(v, bool)
                and k not in ("design_id", "recorded_at")]
     if scalars:
-        out.append("<table>" + "".join(f'<tr><td class="t">{esc(k)}</td><td class="t">{esc(_fmt(v))}</td></tr>'
+        out.append("<table>" + "".join(f'<tr><td class="t">{esc(_key(k))}</td><td class="t">{esc(_fmt(v))}</td></tr>'
                                        for k, v in scalars) + "</table>")
     outputs = design.get("outputs")
     if isinstance(outputs, list) and outputs and all(isinstance(o, dict) for o in outputs):
         keys = [k for k in outputs[0] if not isinstance(outputs[0][k], (dict, list))]
-        out.append("<h3>Outputs</h3><table><tr>" + "".join(f"<th>{esc(k)}</th>" for k in keys) + "</tr>")
+        out.append("<h3>Outputs</h3><table><tr>" + "".join(f"<th>{esc(_key(k))}</th>" for k in keys) + "</tr>")
         for o in outputs:
             out.append("<tr>" + "".join(f'<td class="t">{esc(_fmt(o.get(k)))}</td>' for k in keys) + "</tr>")
         out.append("</table>")
