@@ -9,8 +9,10 @@ from benchlab.instruments.transport import VisaTransport
 
 from .fake_scpi import FakeScpiServer
 
-# Short enough to keep the suite quick, long enough for a loopback reply on a busy machine.
-TEST_TIMEOUT_MS = 250
+# Normal replies: generous, so a loaded machine never causes a spurious retry.
+TEST_TIMEOUT_MS = 1500
+# Tests that provoke a timeout on purpose wait this long per attempt.
+SHORT_TIMEOUT_MS = 250
 
 
 @pytest.fixture
@@ -31,6 +33,13 @@ def server():
 @pytest.fixture
 def transport(resource_manager, server):
     link = VisaTransport(resource_manager, server.resource, timeout_ms=TEST_TIMEOUT_MS).open()
+    yield link
+    link.close()
+
+
+@pytest.fixture
+def short_transport(resource_manager, server):
+    link = VisaTransport(resource_manager, server.resource, timeout_ms=SHORT_TIMEOUT_MS).open()
     yield link
     link.close()
 

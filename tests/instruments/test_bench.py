@@ -13,10 +13,11 @@ from benchlab.instruments.bench import open_bench
 from benchlab.instruments.config import parse_bench_config
 from benchlab.services.bench import check_bench, format_check_report
 
+from .conftest import SHORT_TIMEOUT_MS, TEST_TIMEOUT_MS
 from .fake_scpi import FakeScpiServer
 
 
-def _bench_data(supply: str, meter: str, timeout_ms: int = 250) -> dict:
+def _bench_data(supply: str, meter: str, timeout_ms: int = TEST_TIMEOUT_MS) -> dict:
     return {"fixture": "resistor",
             "limits": {"max_supply_v": 12, "max_drain_a": 0.25, "max_power_w": 2},
             "measurement": {"nplc": 2},
@@ -67,7 +68,7 @@ def test_silent_instrument_gives_one_clear_error_and_nothing_is_enabled(resource
     supply, meter = pair
     meter.fault("*IDN?", "silent")
     meter.fault("*IDN?", "silent")
-    config = parse_bench_config(_bench_data(supply.resource, meter.resource))
+    config = parse_bench_config(_bench_data(supply.resource, meter.resource, timeout_ms=SHORT_TIMEOUT_MS))
     with pytest.raises(InstrumentTimeout, match=r"meter did not answer: no reply to '\*IDN\?'") as caught:
         open_bench(config, resource_manager)
     assert caught.value.resource == meter.resource
@@ -81,7 +82,7 @@ def test_refused_port_gives_one_clear_error(resource_manager, pair):
     probe.bind(("127.0.0.1", 0))
     dead = f"TCPIP0::127.0.0.1::{probe.getsockname()[1]}::SOCKET"
     probe.close()
-    config = parse_bench_config(_bench_data(supply.resource, dead))
+    config = parse_bench_config(_bench_data(supply.resource, dead, timeout_ms=SHORT_TIMEOUT_MS))
     with pytest.raises(ConnectionLost, match="meter did not answer"):
         open_bench(config, resource_manager)
     assert not _enabled_output(supply)
@@ -147,8 +148,8 @@ def _write_bench(tmp_path, supply, meter) -> str:
     path.write_text(
         'fixture = "resistor"\n[limits]\nmax_supply_v = "12 V"\nmax_drain_a = "250 mA"\nmax_power_w = "2 W"\n'
         '[series_resistor]\nohms = "47 ohm"\n'
-        f'[instruments.supply]\nresource = "{supply.resource}"\nprofile = "generic-scpi-supply"\ntimeout_ms = 250\n'
-        f'[instruments.meter]\nresource = "{meter.resource}"\nprofile = "generic-scpi-meter"\ntimeout_ms = 250\n')
+        f'[instruments.supply]\nresource = "{supply.resource}"\nprofile = "generic-scpi-supply"\ntimeout_ms = {TEST_TIMEOUT_MS}\n'
+        f'[instruments.meter]\nresource = "{meter.resource}"\nprofile = "generic-scpi-meter"\ntimeout_ms = {TEST_TIMEOUT_MS}\n')
     return str(path)
 
 

@@ -15,7 +15,7 @@ from benchlab.instruments.profiles import parse_profile
 from benchlab.instruments.scpi_roles import ScpiMeter, ScpiSourceMeter, ScpiSupply
 from benchlab.instruments.transport import VisaTransport
 
-from .conftest import TEST_TIMEOUT_MS
+from .conftest import SHORT_TIMEOUT_MS, TEST_TIMEOUT_MS
 from .fake_scpi import FakeScpiServer
 
 E = "SYST:ERR?"  # read after every setting
@@ -44,9 +44,9 @@ def _server_for(role: str) -> FakeScpiServer:
 def role_setup(resource_manager, profiles):
     opened = []
 
-    def make(role: str, profile=None):
+    def make(role: str, profile=None, timeout_ms: int = TEST_TIMEOUT_MS):
         server = _server_for(role).start()
-        link = VisaTransport(resource_manager, server.resource, timeout_ms=TEST_TIMEOUT_MS).open()
+        link = VisaTransport(resource_manager, server.resource, timeout_ms=timeout_ms).open()
         opened.append((server, link))
         return server, CLASSES[role](link, profile or profiles[role])
 
@@ -242,7 +242,7 @@ def test_a_user_profile_changes_the_text_without_code(role_setup):
 
 
 def test_refused_query_reports_the_instruments_error_not_a_bare_timeout(role_setup):
-    server, supply = role_setup("supply")
+    server, supply = role_setup("supply", timeout_ms=SHORT_TIMEOUT_MS)
     # The fake, like an instrument, queues -113 for an unknown query and sends no reply.
     with pytest.raises(InstrumentReportedError) as caught:
         supply.voltage_setpoint()  # "VOLT?" before any VOLT was set: unknown to the fake

@@ -9,7 +9,7 @@ import pytest
 from benchlab.errors import ConfigError, ConnectionLost, InstrumentTimeout, SweepCancelled
 from benchlab.instruments.transport import RESOURCE_KINDS, VisaTransport, find_socket, resource_kind
 
-from .conftest import TEST_TIMEOUT_MS
+from .conftest import SHORT_TIMEOUT_MS, TEST_TIMEOUT_MS
 
 
 @pytest.mark.parametrize("resource, kind", [
@@ -54,36 +54,36 @@ def test_query_and_write(transport, server):
     assert server.lines() == ["VOLT 1.5", "VOLT?"]
 
 
-def test_timed_out_query_is_retried_once_after_clear(transport, server):
+def test_timed_out_query_is_retried_once_after_clear(short_transport, server):
     server.fault("*IDN?", "silent")
-    assert transport.query("*IDN?") == server.identity
-    assert transport.retry_count == 1
+    assert short_transport.query("*IDN?") == server.identity
+    assert short_transport.retry_count == 1
     assert server.lines() == ["*IDN?", "*IDN?"]
 
 
-def test_two_timeouts_raise_instrument_timeout(transport, server):
+def test_two_timeouts_raise_instrument_timeout(short_transport, server):
     server.fault("MEAS:VOLT?", "silent")
     server.fault("MEAS:VOLT?", "silent")
     server.replies["MEAS:VOLT?"] = "1.0"
     with pytest.raises(InstrumentTimeout, match="no reply to 'MEAS:VOLT\\?'.*asked twice"):
-        transport.query("MEAS:VOLT?")
+        short_transport.query("MEAS:VOLT?")
     assert server.lines() == ["MEAS:VOLT?", "MEAS:VOLT?"]
 
 
-def test_late_reply_is_not_taken_for_the_next_answer(transport, server):
+def test_late_reply_is_not_taken_for_the_next_answer(short_transport, server):
     server.replies["MEAS:VOLT?"] = "1.0"
     server.replies["MEAS:CURR?"] = "0.002"
     # The first reply arrives after the timeout; clear() must discard it before the retry.
-    server.fault("MEAS:VOLT?", "late", seconds=TEST_TIMEOUT_MS / 1000 * 1.2)
-    assert transport.query("MEAS:VOLT?") == "1.0"
-    assert transport.query("MEAS:CURR?") == "0.002"
+    server.fault("MEAS:VOLT?", "late", seconds=SHORT_TIMEOUT_MS / 1000 * 1.2)
+    assert short_transport.query("MEAS:VOLT?") == "1.0"
+    assert short_transport.query("MEAS:CURR?") == "0.002"
 
 
-def test_non_idempotent_query_is_not_repeated(transport, server):
+def test_non_idempotent_query_is_not_repeated(short_transport, server):
     server.fault("INIT;*OPC?", "silent")
     server.replies["INIT;*OPC?"] = "1"
     with pytest.raises(InstrumentTimeout):
-        transport.query("INIT;*OPC?", idempotent=False)
+        short_transport.query("INIT;*OPC?", idempotent=False)
     assert server.lines() == ["INIT;*OPC?"]
 
 
@@ -94,12 +94,12 @@ def test_reset_connection_is_reopened_once(transport, server):
     assert server.connections == 2
 
 
-def test_cleanly_closed_peer_is_reopened(transport, server):
+def test_cleanly_closed_peer_is_reopened(short_transport, server):
     # pyvisa-py shows a clean close as a timeout; the transport tells them apart.
     server.fault("*IDN?", "close")
-    assert transport.query("*IDN?") == server.identity
-    assert transport.reopen_count == 1
-    assert transport.retry_count == 0
+    assert short_transport.query("*IDN?") == server.identity
+    assert short_transport.reopen_count == 1
+    assert short_transport.retry_count == 0
 
 
 def test_reset_after_a_write_is_noticed_by_the_next_query(transport, server):
@@ -112,11 +112,11 @@ def test_reset_after_a_write_is_noticed_by_the_next_query(transport, server):
     assert "VOLT" not in server.settings
 
 
-def test_half_a_reply_then_close_is_reopened_not_misread(transport, server):
+def test_half_a_reply_then_close_is_reopened_not_misread(short_transport, server):
     server.replies["MEAS:VOLT?"] = "4.56"
     server.fault("MEAS:VOLT?", "partial")
-    assert transport.query("MEAS:VOLT?") == "4.56"
-    assert transport.reopen_count == 1
+    assert short_transport.query("MEAS:VOLT?") == "4.56"
+    assert short_transport.reopen_count == 1
 
 
 def test_lost_twice_raises_connection_lost(transport, server):
@@ -132,7 +132,7 @@ def test_refused_port_raises_connection_lost(resource_manager):
     probe.bind(("127.0.0.1", 0))
     port = probe.getsockname()[1]
     probe.close()  # nothing listens there now: connect is refused at first I/O
-    link = VisaTransport(resource_manager, f"TCPIP0::127.0.0.1::{port}::SOCKET", timeout_ms=TEST_TIMEOUT_MS)
+    link = VisaTransport(resource_manager, f"TCPIP0::127.0.0.1::{port}::SOCKET", timeout_ms=SHORT_TIMEOUT_MS)
     with pytest.raises(ConnectionLost, match="connection refused") as caught:
         link.open()
         link.query("*IDN?")
