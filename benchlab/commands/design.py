@@ -128,9 +128,9 @@ def _sink(args) -> int:
     if args.json:
         _print_json(dict(design.to_dict(), design_id=design_id))
     else:
-        print(format_sink_report(design, design_id), end="")
         if args.spice:
             print(f"wrote {args.spice}")
+        print(format_sink_report(design, design_id), end="")
     return 0
 
 

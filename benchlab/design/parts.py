@@ -51,7 +51,7 @@ class Part:
 
     def to_dict(self) -> dict[str, Any]:
         return {"label": self.label, "lot": self.lot, "part_id": self.part_id,
-                "params": self.params.to_dict(), "stderr": {k: float(v) for k, v in self.stderr.items()}}
+                "params": self.params.to_dict(), "stderr": {k: (float(v) if v is not None else None) for k, v in self.stderr.items()}}
 
 
 _INLINE_KEYS = {"vth", "kp", "theta", "n", "gm", "model", "label", "temperature_k"}

@@ -50,8 +50,8 @@ def _open(library_path):
 
 
 def _stock(lib, lot: str | None, polarity: str = "N") -> list:
-    records = [r for r in lib.parts(lot=lot, state="in_stock") if r.params is not None and r.polarity == polarity]
-    return records
+    # in-stock parts of one polarity that have a curve: the only ones design may pick
+    return [r for r in lib.parts(lot=lot, state="in_stock") if r.params is not None and r.polarity == polarity]
 
 
 def _check_request(req: SinkRequest) -> None:
@@ -122,8 +122,9 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
     elif req.outputs is not None:
         if lib is None:
             raise InputError("--outputs N picks parts from the device library; name the library or give parts inline")
-        stock = [part_from_record(r) for r in _stock(lib, req.lot)]
-        by_name = {part_from_record(r).name: r for r in _stock(lib, req.lot)}
+        stock_records = _stock(lib, req.lot)
+        stock = [part_from_record(r) for r in stock_records]
+        by_name = {p.name: r for p, r in zip(stock, stock_records)}
         if ref is not None:
             stock = [p for p in stock if p.name != ref.name]
             current = _operating_current(req, [ref])

@@ -204,3 +204,14 @@ def test_bad_requests_raise_one_clear_error():
         synthesize_sink(12.0, 0.01, ref, [], SinkOptions(series="E25"))
     with pytest.raises(DesignError):
         analyze_sink(12.0, -5.0, ref, [])
+
+
+def test_monte_carlo_accepts_unknown_standard_errors_from_the_fitter():
+    # the fitter reports None where a standard error does not apply; those parameters are held fixed
+    ref = Part("R", DeviceParams("theta", 2.5, kp=0.8, theta=0.1), stderr={"vth": 0.003, "theta": None, "n": None})
+    out = Part("O", DeviceParams("theta", 2.51, kp=0.8, theta=0.1), stderr={"vth": None, "kp": 0.0})
+    design = analyze_sink(12.0, 100.0, ref, [out], SinkOptions(monte_carlo=200, seed=3))
+    import json
+    data = json.loads(json.dumps(design.to_dict()))
+    assert data["parts"][0]["stderr"]["theta"] is None
+    assert data["monte_carlo"]["outputs"][0]["error"]["std"] > 0
