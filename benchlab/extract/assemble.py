@@ -11,6 +11,7 @@ import math
 
 import numpy as np
 
+from benchlab.errors import FitError
 from benchlab.extract import diagnostics
 from benchlab.extract.batch_thresholds import thresholds_batch
 from benchlab.extract.engine import PARAM_NAMES, BatchFit, model_current, solve_batch
@@ -100,6 +101,11 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     """
     vgs, i_d, mask, points = stacked
     used = mask > 0
+    broken = np.flatnonzero(~np.all(np.isfinite(fit.params), axis=1))
+    if broken.size:
+        where = sweeps[broken[0]].source or f"sweep {broken[0] + 1}"
+        raise FitError(f"{where}: the {model} fit diverged (parameters are not finite); try another model "
+                       "or a window")
     params = fit.params
     names = PARAM_NAMES[model]
     fitted = model_current(model, vgs, params)
