@@ -205,6 +205,11 @@ def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, p
     if lim.max_drain_a > source.limits["max_current"]:
         raise fail("limits.max_drain_a", f"{lim.max_drain_a:g} A is above the instrument's "
                                          f"{source.limits['max_current']:g} A ({where})")
+    if config.fixture == "resistor" and lim.max_supply_v > profiles["meter"].limits["max_voltage"]:
+        # With the part open the meter sees the whole supply voltage: keep it within the meter's input.
+        raise fail("limits.max_supply_v", f"{lim.max_supply_v:g} V is above the meter's "
+                                          f"{profiles['meter'].limits['max_voltage']:g} V (profile "
+                                          f"'{profiles['meter'].name}'); an open part puts the full supply across it")
     measuring = profiles[_NPLC_ROLE[config.fixture]]
     low, high = measuring.limits["min_nplc"], measuring.limits["max_nplc"]
     if not low <= config.nplc <= high:

@@ -159,6 +159,15 @@ def test_profile_path_relative_to_the_bench_file(tmp_path):
     assert config.instruments["meter"].profile == str(own / "workshop-meter.toml")
 
 
+def test_meter_must_stand_the_full_supply_voltage(tmp_path):
+    # An open part leaves the whole supply across the meter (Kirchhoff's voltage law, no current in R).
+    low = (REPO / "drivers" / "generic-scpi-meter.toml").read_text().replace("max_voltage = 1000.0", "max_voltage = 10.0")
+    (tmp_path / "low-meter.toml").write_text(low)
+    with pytest.raises(ConfigError, match="above the meter's 10 V") as caught:
+        load(tmp_path, RESISTOR_BENCH.replace('"generic-scpi-meter"', '"low-meter.toml"'))
+    assert caught.value.key == "limits.max_supply_v"
+
+
 def test_simulator_bench_config_needs_no_file():
     resources = {role: f"TCPIP0::127.0.0.1::{port}::SOCKET"
                  for role, port in (("supply", 50001), ("meter", 50002), ("source_meter", 50003))}
