@@ -48,6 +48,8 @@ def register(subparsers) -> None:
                         help="fit only points with LOW <= ID <= HIGH (A)")
     parser.add_argument("--bootstrap", type=_count, default=0, metavar="N",
                         help="standard errors from N residual-bootstrap resamples (default: from the fit covariance)")
+    parser.add_argument("--curve", type=_count, default=0, metavar="N",
+                        help="also give VGS, gm and gm/ID of the fit at N currents across the fitted window")
     parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
     parser.add_argument("--save", action="store_true",
                         help="append each fit to 'fits' in its session sidecar (session records only)")
@@ -58,8 +60,12 @@ def _fit(args) -> int:
     run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
                             cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
                             bootstrap=args.bootstrap, save=args.save)
-    if run.records:
-        print(service.json_lines(run.records) if args.json else service.format_table(run.records))
+    if run.records and args.json:
+        print(service.json_lines(run.records, args.curve))
+    elif run.records:
+        print(service.format_table(run.records))
+        for record in run.records if args.curve else ():
+            print(service.format_curve(record, args.curve))
     for source, why in run.skipped:
         print(f"skipped {source.label} (classified {source.classification}): {why}", file=sys.stderr)
     if args.save:

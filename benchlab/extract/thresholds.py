@@ -234,6 +234,20 @@ def gm_over_id_from_params(params, i_d):
     return np.asarray(params.gm_at(i_d), dtype=float) / i_d
 
 
+def operating_curve(params, i_min: float, i_max: float, count: int = 12) -> dict[str, list[float]]:
+    """VGS, gm and gm/ID of a fitted part at ``count`` currents spread evenly in log between ``i_min`` and ``i_max``.
+
+    Returns
+    -------
+    dict
+        ``id`` (A), ``vgs`` (V), ``gm`` (A/V), ``gm_over_id`` (1/V), each a list (plain JSON).
+    """
+    currents = np.geomspace(i_min, i_max, int(count))
+    gm = np.asarray(params.gm_at(currents), dtype=float)
+    return {"id": currents.tolist(), "vgs": np.asarray(params.vgs_at(currents), dtype=float).tolist(),
+            "gm": gm.tolist(), "gm_over_id": (gm / currents).tolist()}
+
+
 def all_thresholds(vgs, i_d, cc_current: float) -> dict[str, float | None]:
     """Every data-based threshold of one up sweep (sorted by VGS), keyed by method name.
 

@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from benchlab.errors import FitError, InputError
-from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv
+from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 
 SESSION_FORMAT = "benchlab-session/1"
@@ -228,9 +228,31 @@ def store_fit(record: FitRecord, options: dict[str, Any]) -> None:
     write_json_atomic(path, data)
 
 
-def json_lines(records: list[FitRecord]) -> str:
-    """One JSON object per sweep, one per line (no NaN: undefined numbers are null)."""
-    return "\n".join(json.dumps(r.to_dict(), allow_nan=False) for r in records)
+def curve_of(record: FitRecord, count: int) -> dict[str, list[float]]:
+    """The fitted part's VGS, gm and gm/ID at ``count`` currents across its fitted window."""
+    window = record.result.window
+    return operating_curve(record.result.params, window["i_min"], window["i_max"], count)
+
+
+def json_lines(records: list[FitRecord], curve_points: int = 0) -> str:
+    """One JSON object per sweep, one per line (no NaN: undefined numbers are null); with
+    ``curve_points`` each carries ``curve`` (see :func:`curve_of`)."""
+    lines = []
+    for record in records:
+        data = record.to_dict()
+        if curve_points:
+            data["curve"] = curve_of(record, curve_points)
+        lines.append(json.dumps(data, allow_nan=False))
+    return "\n".join(lines)
+
+
+def format_curve(record: FitRecord, count: int) -> str:
+    """The operating-point table of one fit (ID, VGS, gm, gm/ID), for humans."""
+    curve = curve_of(record, count)
+    lines = [f"{record.source.label} ({record.result.model} fit)", "  ID A        VGS V     gm A/V      gm/ID 1/V"]
+    for i, v, g, e in zip(curve["id"], curve["vgs"], curve["gm"], curve["gm_over_id"]):
+        lines.append(f"  {i:<11.4g} {v:<9.4f} {g:<11.4g} {e:.3f}")
+    return "\n".join(lines)
 
 
 def _num(value, fmt: str, scale: float = 1.0) -> str:

@@ -149,3 +149,20 @@ def test_dud_without_conducting_points_is_skipped_not_fatal(tmp_path, capsys):
     (folder / "Q03.json").write_text(json.dumps(sidecar))
     assert main(["fit", str(folder)]) == 2
     assert "Q03.csv: no fittable points" in capsys.readouterr().err
+
+
+def test_operating_curve_output(tmp_path, capsys):
+    folder = _session(tmp_path)
+    assert main(["fit", str(folder / "Q01.csv"), "--json", "--curve", "5"]) == 0
+    row = json.loads(capsys.readouterr().out)
+    part = PARTS["Q01"]
+    curve = row["curve"]
+    assert len(curve["id"]) == 5
+    assert curve["id"][0] == pytest.approx(row["window"]["i_min"]) and curve["id"][-1] == pytest.approx(
+        row["window"]["i_max"])
+    for i, v, g, e in zip(curve["id"], curve["vgs"], curve["gm"], curve["gm_over_id"]):
+        assert v == pytest.approx(float(part.vgs_at(i)), abs=2e-3)
+        assert g == pytest.approx(float(part.gm_at(i)), rel=0.02)
+        assert e == pytest.approx(g / i)
+    assert main(["fit", str(folder / "Q01.csv"), "--curve", "4"]) == 0
+    assert "gm/ID 1/V" in capsys.readouterr().out
