@@ -11,7 +11,7 @@ import math
 import string
 from typing import Iterable, Mapping
 
-# SCPI-1999 vol. 2 ch. 21 "Error/Event queue": the standard negative codes and their texts.
+# SCPI-1999 vol. 2, SYSTem:ERRor error/event list: the standard negative codes and their texts.
 STANDARD_ERRORS: Mapping[int, str] = {
     0: "No error",
     -100: "Command error",
@@ -82,7 +82,7 @@ STANDARD_ERRORS: Mapping[int, str] = {
     -440: "Query UNTERMINATED after indefinite response",
 }
 
-# IEEE 488.2 / SCPI-1999 vol. 1 sec. 7.2.1: the values an instrument sends for +INF, -INF and NaN.
+# SCPI-1999 vol. 1, numeric data: the values an instrument sends for +INF, -INF and NaN.
 _POSITIVE_INFINITY = 9.9e37
 _NOT_A_NUMBER = 9.91e37
 

@@ -150,7 +150,7 @@ def _check_instrument(bench: Bench, role: str, instrument: ScpiInstrument) -> In
 def identity_notes(identity: str) -> list[str]:
     """Remarks on an ``*IDN?`` reply that does not have the shape IEEE 488.2 asks for.
 
-    IEEE 488.2 sec. 10.14 defines the reply as four comma-separated fields: maker, model,
+    IEEE 488.2 (*IDN?, section 10.14 from memory) defines the reply as four comma-separated fields: maker, model,
     serial number (or 0), firmware level (or 0).
     """
     fields = identity.split(",")

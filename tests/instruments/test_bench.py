@@ -49,7 +49,8 @@ def test_open_bench_identifies_each_instrument(resource_manager, pair):
         assert bench.source_meter is None
         assert bench.supply.identity == supply.identity
         assert bench.profiles["meter"].name == "generic-scpi-meter"
-    # On connect: *IDN?, then *CLS (IEEE 488.2 sec. 10.3 / 10.14), then the error queue.
+    # On connect: *IDN?, then *CLS (IEEE 488.2 common commands; section numbers from memory: 10.3, 10.14), then
+    # the error queue.
     assert supply.lines() == ["*IDN?", "*CLS", "SYST:ERR?"]
     assert meter.lines() == ["*IDN?", "*CLS", "SYST:ERR?"]
 
@@ -227,7 +228,7 @@ def test_a_user_profile_on_the_search_path_drives_a_bench(tmp_path, monkeypatch,
 
 
 @pytest.mark.parametrize("identity, remark", [
-    # IEEE 488.2 sec. 10.14: <maker>,<model>,<serial or 0>,<firmware or 0>.
+    # IEEE 488.2 *IDN? reply (section from memory: 10.14): <maker>,<model>,<serial or 0>,<firmware or 0>.
     ("BENCHLAB-SIM,PSU-1,SIM0001-1,0.1", None),
     ("BENCHLAB-SIM,PSU-1,0,0", None),
     ("HTTP/1.1 400 Bad Request", "1 field(s)"),

@@ -163,7 +163,8 @@ def test_multi_line_operation_and_extra_reading_fields(tmp_path):
 
 
 def test_common_commands_default_to_ieee_488_2(tmp_path):
-    # IEEE 488.2 sec. 10: *IDN?, *CLS, *RST, *OPC? are the common commands; SYSTem:ERRor? is SCPI-1999's queue.
+    # IEEE 488.2 common commands (section from memory: 10): *IDN?, *CLS, *RST, *OPC? are the common commands;
+    # SYSTem:ERRor? is SCPI-1999's queue.
     profile = load_profile(str(write(tmp_path, "psu", SUPPLY)))
     assert profile.lines("identify") == ["*IDN?"]
     assert profile.lines("clear_status") == ["*CLS"]

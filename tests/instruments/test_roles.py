@@ -144,7 +144,7 @@ def test_several_queued_errors_are_all_read_and_counted(role_setup):
     server.rejects["VOLT:DC:NPLC 500"] = [(-221, "Settings conflict"), (-222, "Data out of range")]
     with pytest.raises(InstrumentReportedError, match="and 1 more") as caught:
         meter.configure_voltage(None, nplc=500)
-    assert caught.value.code == -221  # oldest first (SCPI-1999 Vol. 2 sec. 21.1: the queue is FIFO)
+    assert caught.value.code == -221  # oldest first (SCPI-1999 Vol. 2, error/event queue: the queue is FIFO)
     assert server.lines()[-3:] == [E, E, E]
 
 
@@ -157,7 +157,8 @@ def test_instrument_specific_code_keeps_its_own_text(role_setup):
 
 
 @pytest.mark.parametrize("reply, check", [
-    # SCPI-1999 Vol. 1 sec. 7.2.1.5: over-range reads +INF (9.9E37), -INF (-9.9E37), NaN (9.91E37).
+    # SCPI-1999 Vol. 1, numeric data (INF/NINF/NAN; section number from memory: 7.2.1.5): over-range reads +INF
+    # (9.9E37), -INF (-9.9E37), NaN (9.91E37).
     ("9.9E37", lambda v: v == math.inf),
     ("-9.9E37", lambda v: v == -math.inf),
     ("9.91E37", math.isnan),

@@ -13,7 +13,8 @@ from benchlab.instruments.scpi import (STANDARD_ERRORS, describe_error, parse_bo
 
 
 @pytest.mark.parametrize("code, text", [
-    # SCPI-1999 Vol. 2, ch. 21.8 (command errors), 21.9 (execution errors), 21.11 (query errors).
+    # SCPI-1999 Vol. 2, SYSTem:ERRor error/event lists: command, execution, device and query errors (chapter
+    # from memory: 21).
     (-102, "Syntax error"),
     (-113, "Undefined header"),
     (-221, "Settings conflict"),
@@ -26,18 +27,18 @@ from benchlab.instruments.scpi import (STANDARD_ERRORS, describe_error, parse_bo
     (-420, "Query UNTERMINATED"),
 ])
 def test_standard_error_texts(code, text):
-    # Source: SCPI-1999 Vol. 2 ch. 21 error list.
+    # Source: SCPI-1999 Vol. 2, SYSTem:ERRor error/event list.
     assert STANDARD_ERRORS[code] == text
     assert describe_error(code) == text
 
 
 def test_error_classes_fall_back_to_their_hundreds():
-    # SCPI-1999 Vol. 2 ch. 21: -1xx command, -2xx execution, -3xx device-specific, -4xx query errors.
+    # SCPI-1999 Vol. 2, error/event numbering: -1xx command, -2xx execution, -3xx device-specific, -4xx query errors.
     assert describe_error(-199) == "Command error"
     assert describe_error(-299) == "Execution error"
     assert describe_error(-399) == "Device-specific error"
     assert describe_error(-499) == "Query error"
-    # Positive codes belong to the instrument (SCPI-1999 Vol. 2 ch. 21.1).
+    # Positive codes belong to the instrument (SCPI-1999 Vol. 2, error/event queue).
     assert describe_error(101) == "Device-specific error"
 
 
@@ -47,7 +48,8 @@ def test_error_classes_fall_back_to_their_hundreds():
     ('0,"No error"', (0, "No error")),
     ('-113,"Undefined header;VOLTA 1"', (-113, "Undefined header;VOLTA 1")),
     ('-221', (-221, "Settings conflict")),        # no text: the standard's text is used
-    ('201,"Output ""A"" overheated"', (201, 'Output "A" overheated')),  # IEEE 488.2 7.7.5: doubled quotes
+    # IEEE 488.2 string data: a quote inside is doubled
+    ('201,"Output ""A"" overheated"', (201, 'Output "A" overheated')),
 ])
 def test_parse_error_reply(reply, expected):
     assert parse_error_reply(reply) == expected
@@ -59,7 +61,8 @@ def test_parse_error_reply_rejects_garbage():
 
 
 @pytest.mark.parametrize("text, expected", [
-    # SCPI-1999 Vol. 1 sec. 7.2.1.5: 9.9E37 is +INFinity, -9.9E37 -INFinity, 9.91E37 Not A Number.
+    # SCPI-1999 Vol. 1, numeric data (INF/NINF/NAN; section number from memory: 7.2.1.5): 9.9E37 is +INFinity,
+    # -9.9E37 -INFinity, 9.91E37 Not A Number.
     ("9.9E37", math.inf),
     ("+9.90000000E+37", math.inf),
     ("-9.9E37", -math.inf),
@@ -72,7 +75,7 @@ def test_parse_reading_special_values(text, expected):
 
 
 def test_parse_reading_not_a_number():
-    # SCPI-1999 Vol. 1 sec. 7.2.1.5: 9.91E37 represents NaN.
+    # SCPI-1999 Vol. 1, numeric data (INF/NINF/NAN; section number from memory: 7.2.1.5): 9.91E37 represents NaN.
     assert math.isnan(parse_reading("9.91E37"))
     assert math.isnan(parse_reading("+9.910000E+37"))
 
@@ -88,7 +91,7 @@ def test_parse_readings_list():
 
 @pytest.mark.parametrize("text, expected", [("1", True), ("0", False), ("ON", True), ("off", False), ("+1", True)])
 def test_parse_bool(text, expected):
-    # IEEE 488.2 / SCPI-1999 Vol. 1 sec. 7.3: boolean program data ON|OFF|1|0; responses are 0 or 1.
+    # IEEE 488.2 / SCPI-1999 Vol. 1, boolean data: boolean program data ON|OFF|1|0; responses are 0 or 1.
     assert parse_bool(text) is expected
 
 

@@ -13,7 +13,7 @@ from .conftest import SHORT_TIMEOUT_MS, TEST_TIMEOUT_MS
 
 
 @pytest.mark.parametrize("resource, kind", [
-    # Resource-string forms from the VISA specification (IVI VPP-4.3, sec. 4.3.1.1).
+    # Resource-string forms from the VISA specification (IVI VPP-4.3, resource names; section from memory).
     ("TCPIP0::192.168.1.20::5025::SOCKET", "tcpip-socket"),
     ("TCPIP::bench-psu.local::5025::SOCKET", "tcpip-socket"),
     ("TCPIP0::192.168.1.20::inst0::INSTR", "tcpip-instr"),

@@ -69,7 +69,8 @@ def test_resistor_fixture_obeys_ohms_law(start_sim):
             supply_i = lab.supply.measure_current()
         finally:
             lab.safe_off()
-    # Ohm's and Kirchhoff's voltage law (any circuits handbook): the resistor carries the supply's
+    # Ohm's law and Kirchhoff's voltage law (Horowitz & Hill, The Art of Electronics, 3rd ed., ch. 1; from
+    # memory): the resistor carries the supply's
     # current and drops the difference between the supply and the part.
     assert supply_i == pytest.approx((supply_v - part_v) / resistor, rel=0.01, abs=1e-4)
     assert 0 < part_v < supply_v
@@ -90,7 +91,8 @@ def test_meter_over_range_reads_infinity(start_sim):
             reading = lab.meter.read()
         finally:
             lab.safe_off()
-    # SCPI-1999 Vol. 1 sec. 7.2.1.5: over-range is sent as 9.9E37, which is +INF.
+    # SCPI-1999 Vol. 1, numeric data (INF/NINF/NAN; section number from memory: 7.2.1.5): over-range is sent as
+    # 9.9E37, which is +INF.
     assert reading == math.inf
 
 
@@ -113,7 +115,8 @@ def test_smu_list_sweep_of_a_diode_connected_part(start_sim):
     for forced, (v, i) in zip(levels, points):
         assert v == pytest.approx(forced, abs=0.02) or i == pytest.approx(0.2, rel=0.02)
     # A diode-connected enhancement MOSFET conducts nothing at 0 V and more as VGS rises
-    # (Sedra & Smith, Microelectronic Circuits, ch. 5: ID grows monotonically with VGS above Vth).
+    # (Sedra & Smith, Microelectronic Circuits, MOSFET chapter (ch. 5 from memory): ID grows monotonically with
+    # VGS above Vth).
     assert abs(amps[0]) < 1e-6
     assert all(b >= a - 1e-6 for a, b in zip(amps, amps[1:]))
     assert amps[-1] > 1e-3
@@ -125,7 +128,7 @@ def test_out_of_range_setpoint_is_refused_with_the_instruments_code(start_sim):
     with open_bench(_config(bench)) as lab:
         with pytest.raises(InstrumentReportedError) as caught:
             lab.supply.set_voltage(99.0)  # the simulated supply does 0-30 V
-    # SCPI-1999 Vol. 2 ch. 21.9: -222 is "Data out of range".
+    # SCPI-1999 Vol. 2, SYSTem:ERRor execution-error list (chapter from memory: 21): -222 is "Data out of range".
     assert caught.value.code == -222
     assert caught.value.command == "VOLT 99"
 
@@ -135,7 +138,8 @@ def test_injected_error_reaches_the_caller(start_sim):
     with open_bench(_config(bench)) as lab:
         with pytest.raises(InstrumentReportedError) as caught:
             lab.supply.set_voltage(1.0)
-    assert caught.value.code == -240  # SCPI-1999 Vol. 2 ch. 21.9: "Hardware error"
+    # SCPI-1999 Vol. 2, SYSTem:ERRor execution-error list (chapter from memory: 21): "Hardware error"
+    assert caught.value.code == -240
 
 
 def test_dropped_connection_is_reopened(start_sim):
