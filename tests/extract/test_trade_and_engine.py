@@ -100,3 +100,21 @@ def test_result_round_trips_through_plain_json():
     text = json.dumps(result.to_dict(), allow_nan=False)
     back = FitResult.from_dict(json.loads(text))
     assert back == result
+
+
+def test_windows_default_and_user():
+    part = DeviceParams("theta", vth=3.0, kp=2.0, theta=0.2)
+    currents = np.geomspace(1e-6, 1.0, 61)  # six decades, ten points per decade
+    vgs = part.vgs_at(currents)
+    square_family = fit_sweep(vgs, currents, model="theta")
+    assert square_family.window["chosen_by"] == "default"
+    assert square_family.window["i_min"] == pytest.approx(1e-2) and square_family.window["points"] == 21
+    linear = fit_sweep(vgs, currents, model="linear", at_current=0.1)
+    assert 0.05 <= linear.window["i_min"] and linear.window["i_max"] <= 0.2 and linear.window["points"] >= 4
+    # a linear model is only a tangent: its gm matches the part's gm at the operating point within a few %
+    assert linear.gm == pytest.approx(float(part.gm_at(0.1)), rel=0.05)
+    user = fit_sweep(vgs, currents, model="theta", window=(1e-4, 1e-2))
+    assert user.window["chosen_by"] == "user" and user.window["points"] == 21
+    assert user.vth == pytest.approx(3.0, abs=1e-6)
+    ekv = fit_sweep(vgs, currents, model="ekv")
+    assert ekv.window["points"] == 61
