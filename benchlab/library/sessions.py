@@ -126,6 +126,7 @@ def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tup
         raise InputError(f"missing column(s) {', '.join(missing)} in the header", path=str(csv_path))
     col = {name: header.index(name) for name in header}
     points, vgs, ids, status, direction = [], [], [], [], []
+    seen: set[int] = set()
     body = rows[1:]
     for n, row in enumerate(body, start=1):
         if not row:
@@ -140,6 +141,9 @@ def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tup
             if n == len(body):  # the point in flight when the recorder stopped
                 break
             raise InputError(f"unreadable row ({exc})", path=str(csv_path), row=n) from exc
+        if p in seen:
+            raise InputError(f"point number {p} appears twice", path=str(csv_path), row=n)
+        seen.add(p)
         points.append(p)
         vgs.append(v)
         ids.append(i)

@@ -157,6 +157,9 @@ class Library(DesignStore):
         self._in_write = True
         try:
             yield self._conn
+        except sqlite3.Error as exc:
+            self._conn.execute("ROLLBACK")
+            raise LibraryError(f"{self.path}: the library refused the change, nothing was written: {exc}") from exc
         except BaseException:
             self._conn.execute("ROLLBACK")
             raise
@@ -237,6 +240,8 @@ class Library(DesignStore):
                 (lot_id, label, polarity, package or "", notes or "", state, reason, classification,
                  created or utc_now()))
         except sqlite3.IntegrityError as exc:
+            if "UNIQUE" not in str(exc):
+                raise
             lot = self._conn.execute("SELECT name FROM lots WHERE id = ?", (lot_id,)).fetchone()[0]
             raise LibraryError(f"part '{lot}/{label}' already exists in the library") from exc
         return int(cur.lastrowid)

@@ -66,6 +66,10 @@ def test_filtered_export_and_conflicting_import_writes_nothing(filled, tmp_path)
     assert lib.info() == before
     with pytest.raises(LibraryError, match="not a benchlab library export"):
         lib.import_json({"parts": []})
+    one_lot["parts"][0].update(lot="elsewhere", state="misplaced")  # not a part state: the CHECK refuses it
+    with pytest.raises(LibraryError, match="refused the change, nothing was written.*CHECK"):
+        lib.import_json(one_lot)
+    assert lib.info() == before
 
 
 def test_csv_export_reads_back_with_the_csv_module(filled):

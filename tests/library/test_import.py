@@ -87,6 +87,12 @@ def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
     with pytest.raises(InputError, match=r"Q2.csv, row 5"):
         lib.import_sessions([good, bad], fit_function=curve_fit_square)
     assert lib.info()["parts"] == 0
+    lines[5] = "4,0.25,3.1,0.001,1,0.001,ok"
+    lines[6] = "4,0.30,3.2,0.002,1,0.002,ok"  # the point number of the row before, again
+    (bad / "Q2.csv").write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match=r"Q2.csv, row 6: point number 4 appears twice"):
+        lib.import_sessions([good, bad], fit_function=curve_fit_square)
+    assert lib.info()["parts"] == 0
     with pytest.raises(InputError, match="no session.json"):
         lib.import_session(tmp_path, fit_function=curve_fit_square)
     with pytest.raises(LibraryError, match="no session folders"):

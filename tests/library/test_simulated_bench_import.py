@@ -17,7 +17,8 @@ def test_demo_session_imports_with_the_same_fits_as_the_fit_command(tmp_path):
     session = next((tmp_path / "sessions").iterdir())
     db = tmp_path / "lib.db"
     summary = library_service.import_sessions(db, [str(session)])
-    records = {r.source.label: r.result for r in fitting.fit_files([str(session)])}
+    run = fitting.fit_files([str(session)])
+    records = {r.source.label: r.result for r in getattr(run, "records", run)}
     with Library.open(db) as lib:
         parts = {p.label: p for p in lib.parts(state=None)}
         assert len(parts) == 5 and summary.fitted + summary.rejected == 5
