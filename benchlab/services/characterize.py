@@ -14,7 +14,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
-from benchlab.errors import BenchlabError, InputError, SweepCancelled
+from benchlab.errors import InputError, SweepCancelled
 from benchlab.sweep.engine import run
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
@@ -326,4 +326,4 @@ def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 1
 
 __all__ = ["BagResult", "BenchHandle", "SimOptions", "PromptPartLoader", "SimPartLoader", "build_plan", "connect",
            "load_config", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
-           "CAUTION", "DEMO_STORY", "BenchlabError"]
+           "CAUTION", "DEMO_STORY"]

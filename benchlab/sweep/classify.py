@@ -100,6 +100,7 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
             return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, far below its "
                                            f"threshold (about {scale_v:.2f} V)")
     if vref is not None:
-        return Classification("good", f"conducts normally, VGS {vref:.3f} V at {_fmt_a(reference_current_a)}")
+        return Classification("good", f"conducts normally from about {onset.vgs:.2f} V up to {_fmt_a(peak.id)} "
+                                      f"at {peak.vgs:.2f} V; no leakage or unsettled readings")
     return Classification("good", f"conducts normally up to {_fmt_a(peak.id)} at {peak.vgs:.3f} V "
                                   f"({_fmt_a(reference_current_a)} not bracketed)")

@@ -19,22 +19,10 @@ from benchlab.sweep.classify import classify
 from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
 from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply
+from benchlab.sweep.stepping import StopStepping as _Stop
+from benchlab.sweep.stepping import check_reading, next_adaptive_step, predict_vgs
 
-# Sub-threshold slope assumed before two conducting points exist: n UT ln10 with n about 1.7
-# (S = n x 59.5 mV/decade at 300 K; Enz, Krummenacher, Vittoz 1995). A steeper guess would overshoot.
-DEFAULT_SLOPE_V_PER_DECADE = 0.1
-MIN_SLOPE_V_PER_DECADE = 0.04
-MIN_STEP_V = 1e-3
 ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
-
-
-class _Stop(Exception):
-    """Internal: the engine decided to stop stepping (not an error)."""
-
-    def __init__(self, reason: str, failure: str | None = None):
-        super().__init__(reason)
-        self.reason = reason
-        self.failure = failure
 
 
 class _NullRecorder:
@@ -43,22 +31,6 @@ class _NullRecorder:
 
     def finish(self, outcome: SweepOutcome) -> None:
         pass
-
-
-def predict_vgs(conducting: list[tuple[float, float]], target_a: float) -> float:
-    """Predict VGS (V) at ``target_a`` from measured ``(vgs, id)`` pairs (ascending, conducting).
-
-    Straight-line extrapolation of VGS against log(current) through the last two points; with one
-    point, the sub-threshold slope guess. Above threshold VGS grows faster than linearly in
-    log(current), so this under-predicts and the sweep undershoots: the safe side.
-    """
-    vgs1, id1 = conducting[-1]
-    slope = DEFAULT_SLOPE_V_PER_DECADE
-    for vgs0, id0 in reversed(conducting[:-1]):
-        if id1 > id0 * 1.05:
-            slope = max((vgs1 - vgs0) / math.log10(id1 / id0), MIN_SLOPE_V_PER_DECADE)
-            break
-    return vgs1 + slope * math.log10(target_a / id1)
 
 
 class _Sweep:
@@ -202,8 +174,7 @@ class _Sweep:
     def measure(self, level: float, direction: str, expect_id: float | None = None,
                 expect_vgs: float | None = None) -> SweepPoint:
         """Apply one setpoint, wait, read, store the point durably, report it."""
-        if self.cancel is not None and self.cancel.is_set():
-            raise _Stop("cancelled")
+        self.check_interrupt()
         self.apply(level, expect_id, expect_vgs)
         if self.pulsed:
             on_at = self.clock()
@@ -218,6 +189,14 @@ class _Sweep:
             self.sleep(on_time * (1.0 / self.plan.pulsed_duty - 1.0))
         self.store(point)
         return point
+
+    def check_interrupt(self) -> None:
+        """Between points: a cancel request or the plan's time limit stops the sweep (record incomplete)."""
+        if self.cancel is not None and self.cancel.is_set():
+            raise _Stop("cancelled", interrupted=True)
+        limit = self.plan.max_duration_s
+        if limit is not None and self.clock() - self.t0 > limit:
+            raise _Stop(f"timeout: the sweep ran longer than max_duration_s ({limit:g} s)", interrupted=True)
 
     def store(self, point: SweepPoint) -> None:
         self.recorder.append(point)  # durable before the next setpoint
@@ -238,81 +217,28 @@ class _Sweep:
 
     # ------------------------------------------------------------------ checks after each reading
     def check_reading(self, point: SweepPoint, previous: list[SweepPoint]) -> None:
-        plan, lim = self.plan, self.plan.limits
-        if point.status == "over_range":
-            recent = [p.status for p in self.points[-3:]]
-            if len(recent) == 3 and all(s == "over_range" for s in recent):
-                raise _Stop("three readings in a row over range")
-            return
-        conducting = [p for p in previous if p.id >= max(10 * plan.detect_floor_a(), 1e-5) and p.status == "ok"]
-        if conducting and point.status in ("ok", "compliance"):  # an unsettled reading proves no failure
-            last = conducting[-1]
-            if point.id < plan.detect_floor_a() and point.vgs > last.vgs:
-                raise _Stop("part failed open", f"failed open during the sweep at point {point.point}: it carried "
-                                                f"{last.id:.3g} A at {last.vgs:.3f} V, then nothing at {point.vgs:.3f} V")
-            if last.vgs > 0.5 and point.vgs < 0.3 * last.vgs and point.id > last.id:
-                raise _Stop("part failed short", f"failed short during the sweep at point {point.point}: "
-                                                 f"{point.vgs * 1e3:.0f} mV across it at {point.id:.3g} A "
-                                                 f"(was {last.vgs:.3f} V)")
-        if point.status == "compliance":
-            raise _Stop("the source reached its current limit / compliance")
-        if point.id >= lim.max_drain_a:
-            raise _Stop(f"reading reached max_drain_a ({lim.max_drain_a:g} A)")
-        if point.id * point.vgs >= lim.max_power_w:
-            raise _Stop(f"reading reached max_power_w ({lim.max_power_w:g} W)")
+        check_reading(self.plan, point, previous)
 
     # ------------------------------------------------------------------ the sweep modes
     def sweep_targets(self) -> None:
         """Adaptive: aim at log-spaced currents, predicting each next setpoint from the points so far."""
-        plan, lim = self.plan, self.plan.limits
-        resistor = plan.fixture == "resistor"
-        r = plan.series_resistor_ohm if resistor else 0.0
-        targets = plan.target_currents()
-        level, k = plan.start_v, 0
-        ups: list[SweepPoint] = []
+        plan = self.plan
+        level = plan.start_v
         self.source_on_if_continuous()
-        point = self.measure(level, "up")
-        ups.append(point)
+        ups = [self.measure(level, "up")]
         while True:
-            if len(ups) >= plan.max_measured_points:
-                raise _Stop(f"stopped after {len(ups)} points (max_measured_points) below the top current")
-            conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= plan.detect_floor_a()]
-            last_vgs = ups[-1].vgs if math.isfinite(ups[-1].vgs) else level
-            if not conducting:
-                if math.isfinite(ups[-1].vgs) and ups[-1].vgs >= plan.max_search_v:
-                    raise _Stop(f"no conduction with {ups[-1].vgs:.2f} V across the part (max_search_v)")
-                nxt = level + plan.search_step_v
-                # a monotone part cannot let more than (Vs - VGS_last)/R through: the search's own bound
-                expect_id = max(nxt - max(last_vgs, 0.0), 0.0) / r if resistor else None
-                expect_vgs = nxt
-            else:
-                while k < len(targets) and targets[k] <= conducting[-1][1] * 1.05:
-                    k += 1
-                if k == len(targets):
-                    return
-                target = float(targets[k])
-                vgs_pred = predict_vgs(sorted(conducting, key=lambda c: c[1]), target)
-                if target * vgs_pred > lim.max_power_w:
-                    target = 0.95 * lim.max_power_w / vgs_pred
-                    if target <= conducting[-1][1] * 1.02:
-                        raise _Stop(f"next point would exceed max_power_w ({lim.max_power_w:g} W)")
-                    vgs_pred = predict_vgs(sorted(conducting, key=lambda c: c[1]), target)
-                nxt = min(max(vgs_pred + target * r, level + MIN_STEP_V), level + plan.max_step_v)
-                expect_id, expect_vgs = min(target, lim.max_drain_a), vgs_pred
-            nxt = round(nxt, 6)  # 1 uV steps: keeps the recorded setpoints readable (0.3, not 0.30000000000000004)
-            if nxt > lim.max_supply_v:
-                if level >= lim.max_supply_v * (1 - 1e-9):
-                    raise _Stop(f"reached max_supply_v ({lim.max_supply_v:g} V)")
-                nxt = lim.max_supply_v
+            step = next_adaptive_step(plan, ups, level)
+            if step is None:
+                return
             try:
-                if resistor:
-                    self.source.check_voltage(nxt, expect_id, expect_vgs)
+                if plan.fixture == "resistor":
+                    self.source.check_voltage(step.level, step.expect_id, step.expect_vgs)
                 else:
-                    self.source.check_level(nxt, expect_id)
+                    self.source.check_level(step.level, step.expect_id)
             except SafetyError as exc:
                 raise _Stop(f"next setpoint refused by the safety limits ({exc})") from None
-            level = nxt
-            point = self.measure(level, "up", expect_id, expect_vgs)
+            level = step.level
+            point = self.measure(level, "up", step.expect_id, step.expect_vgs)
             previous = list(ups)
             ups.append(point)
             self.check_reading(point, previous)
@@ -343,8 +269,7 @@ class _Sweep:
         self.source.set_output(True)
         levels = list(plan.voltages)
         for start in range(0, len(levels), plan.list_chunk):
-            if self.cancel is not None and self.cancel.is_set():
-                raise _Stop("cancelled")
+            self.check_interrupt()
             chunk = levels[start:start + plan.list_chunk]
             readings = self.source.run_list(chunk, plan.settle_s)
             for v, i in readings:
@@ -452,13 +377,13 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
             complete = True
         except _Stop as stop:
             stop_reason, failure = stop.reason, stop.failure
-            complete = stop.reason != "cancelled"
+            complete = not stop.interrupted
         if complete and plan.down_sweep and failure is None:
             try:
                 sweep.down_sweep()
             except _Stop as stop:
-                if stop.reason == "cancelled":
-                    complete, stop_reason = False, "cancelled"
+                if stop.interrupted:
+                    complete, stop_reason = False, stop.reason
                 else:
                     failure = stop.failure
                     stop_reason = f"down-sweep: {stop.reason}"
@@ -480,4 +405,4 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
     return outcome
 
 
-__all__ = ["run", "predict_vgs"]
+__all__ = ["run"]

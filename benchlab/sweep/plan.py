@@ -108,6 +108,9 @@ class SweepPlan:
         Current that, flowing far below threshold, classifies the part as leaky (A).
     max_measured_points : int
         Hard cap on points per direction (adaptive stepping may need more points than targets).
+    max_duration_s : float or None
+        Time limit of one sweep (s); past it the sweep stops (output off, record incomplete), so slow
+        instruments cannot keep a part powered indefinitely. None: no limit.
     """
 
     fixture: str
@@ -135,6 +138,7 @@ class SweepPlan:
     list_chunk: int = 8
     leak_current_a: float = 20e-6
     max_measured_points: int = 200
+    max_duration_s: float | None = 900.0
 
     def target_currents(self) -> np.ndarray:
         """The target currents (A), evenly spread in log(current), ascending."""
@@ -224,6 +228,8 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
         raise InputError(f"pulsed duty cycle must be in (0, 1], got {plan.pulsed_duty!r}")
     if plan.pulsed_duty is not None and plan.use_list:
         raise InputError("a pulsed sweep cannot run as an uploaded list (the output must switch per point)")
+    if plan.max_duration_s is not None and not (math.isfinite(plan.max_duration_s) and plan.max_duration_s > 0):
+        raise InputError(f"max_duration_s must be a positive number of seconds, got {plan.max_duration_s!r}")
     if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
     if plan.fixture == "resistor":

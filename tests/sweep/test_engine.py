@@ -11,12 +11,13 @@ from hypothesis import given, settings, strategies as st
 
 from benchlab.errors import InputError, InstrumentTimeout, SafetyError, SweepCancelled
 from benchlab.models import DeviceParams, thermal_voltage
-from benchlab.sweep.engine import predict_vgs, run
+from benchlab.sweep.engine import run
+from benchlab.sweep.stepping import predict_vgs
 from benchlab.sweep.plan import Limits, SweepPlan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
 from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply, line_worst_power
 
-from .fakes import PART, FakeBench, FakeClock, applied_voltages
+from .fakes import PART, FakeBench, applied_voltages
 
 LIMITS = Limits(max_supply_v=12.0, max_drain_a=0.5, max_power_w=2.0)
 
@@ -363,3 +364,30 @@ def test_events_report_points_and_done():
     assert isinstance(events[-1], SweepDone) and events[-1].label == "Q07"
     assert "Q07: good" in events[-1].summary
     assert events[-1].to_dict()["event"] == "done"
+
+
+def test_time_limit_stops_the_sweep_incomplete_with_output_off():
+    bench = FakeBench()
+    outcome = sweep(bench, resistor_plan(max_duration_s=0.5, settle_s=0.05))
+    assert outcome.complete is False and outcome.stop_reason.startswith("timeout")
+    assert 0.5 <= outcome.elapsed_s <= 0.5 + 0.05 + 1e-9  # checked before every point
+    assert_off(bench)
+
+
+@settings(max_examples=40, deadline=None)
+@given(level=st.floats(0.0, 15.0), vgs=st.floats(0.0, 15.0), i_d=st.floats(0.0, 0.4), r=st.floats(1.0, 200.0))
+def test_next_adaptive_step_never_leaves_the_limits(level, vgs, i_d, r):
+    from benchlab.sweep.records import SweepPoint
+    from benchlab.sweep.stepping import StopStepping, next_adaptive_step
+
+    plan = resistor_plan(series_resistor_ohm=r)
+    ups = [SweepPoint(0, 0.0, max(vgs - 0.1, 0.0), i_d / 3, level, 0.0), SweepPoint(1, 0.1, vgs, i_d, level, 0.0)]
+    try:
+        step = next_adaptive_step(plan, ups, level)
+    except StopStepping:
+        return
+    if step is not None:
+        assert 0.0 <= step.level <= LIMITS.max_supply_v
+        assert step.level <= level + plan.max_step_v + 1e-6  # bounded step
+        if step.expect_id is not None:
+            assert step.expect_id <= LIMITS.max_drain_a
