@@ -48,6 +48,9 @@ def register(subparsers) -> None:
                         help="fit only points with LOW <= ID <= HIGH (A)")
     parser.add_argument("--bootstrap", type=_count, default=0, metavar="N",
                         help="standard errors from N residual-bootstrap resamples (default: from the fit covariance)")
+    parser.add_argument("--temperature", type=float, metavar="C",
+                        help="the parts' temperature during the sweeps in degC (default: the session's ambient, "
+                             "else 27); sets UT for the ekv slope factor and is stored with the parameters")
     parser.add_argument("--curve", type=_count, default=0, metavar="N",
                         help="also give VGS, gm and gm/ID of the fit at N currents across the fitted window")
     parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
@@ -59,7 +62,7 @@ def register(subparsers) -> None:
 def _fit(args) -> int:
     run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
                             cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
-                            bootstrap=args.bootstrap, save=args.save)
+                            bootstrap=args.bootstrap, save=args.save, temperature_c=args.temperature)
     if run.records and args.json:
         print(service.json_lines(run.records, args.curve))
     elif run.records:

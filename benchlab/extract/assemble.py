@@ -17,7 +17,7 @@ from benchlab.extract.batch_thresholds import thresholds_batch
 from benchlab.extract.engine import PARAM_NAMES, BatchFit, model_current, solve_batch
 from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NOT_CONVERGED,
                                      FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
-from benchlab.models import DeviceParams, overdrive_at_current, thermal_voltage
+from benchlab.models import T_NOMINAL_K, DeviceParams, overdrive_at_current, thermal_voltage
 
 
 def vgs_and_gm(model: str, params: np.ndarray, current: float, ut: float = thermal_voltage()):
@@ -39,39 +39,39 @@ def vgs_and_gm(model: str, params: np.ndarray, current: float, ut: float = therm
     return vth + vov, di_dq * 0.5 * (1.0 + np.tanh(0.5 * vov / scale))
 
 
-def _delta_stderr(model, params, covariance, current):
+def _delta_stderr(model, params, covariance, current, ut):
     # linearised propagation of VGS and gm at the operating current (forward differences keep
     # every parameter inside its physical range)
-    v0, g0 = vgs_and_gm(model, params, current)
+    v0, g0 = vgs_and_gm(model, params, current, ut)
     grad_v = np.zeros_like(params)
     grad_g = np.zeros_like(params)
     for j in range(params.shape[1]):
         step = 1e-6 * np.maximum(np.abs(params[:, j]), 1e-3)
         moved = params.copy()
         moved[:, j] += step
-        v1, g1 = vgs_and_gm(model, moved, current)
+        v1, g1 = vgs_and_gm(model, moved, current, ut)
         grad_v[:, j], grad_g[:, j] = (v1 - v0) / step, (g1 - g0) / step
     var_v = np.einsum("bp,bpq,bq->b", grad_v, covariance, grad_v)
     var_g = np.einsum("bp,bpq,bq->b", grad_g, covariance, grad_g)
     return np.sqrt(np.clip(var_v, 0, None)), np.sqrt(np.clip(var_g, 0, None))
 
 
-def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current):
+def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current, ut):
     # residual bootstrap: resample the relative residuals onto the fitted curve and refit all
     # resamples in one batched solve
     used = mask > 0
     v = vgs[used]
-    fitted = model_current(model, v[None], p[None])[0]
+    fitted = model_current(model, v[None], p[None], ut)[0]
     rel = i_d[used] / fitted - 1.0
     rel = rel - rel.mean()
     draws = np.random.default_rng(seed).choice(rel, size=(resamples, rel.size), replace=True)
     synthetic = np.maximum(fitted[None, :] * (1.0 + draws), 1e-30)
     fit = solve_batch(model, np.broadcast_to(v, synthetic.shape).copy(), synthetic, np.ones_like(synthetic),
-                      np.tile(p, (resamples, 1)), with_covariance=False)
+                      np.tile(p, (resamples, 1)), ut=ut, with_covariance=False)
     spread = fit.params.std(axis=0, ddof=1)
     if at_current is None:
         return spread, None, None
-    v_at, g_at = vgs_and_gm(model, fit.params, at_current)
+    v_at, g_at = vgs_and_gm(model, fit.params, at_current, ut)
     return spread, float(np.std(g_at, ddof=1)), float(np.std(v_at, ddof=1))
 
 
@@ -80,7 +80,8 @@ def _optional(value) -> float | None:
 
 
 def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *, at_current, cc_current,
-             reasons: list[str], criteria: list[dict], bootstrap: int, seed: int) -> list[FitResult]:
+             reasons: list[str], criteria: list[dict], bootstrap: int, seed: int,
+             temperature_k: float = T_NOMINAL_K) -> list[FitResult]:
     """Results of one model's batched fit.
 
     Parameters
@@ -94,13 +95,14 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         points as ``valid``.
     chosen_by : list of str
         ``default`` or ``user`` per sweep (how the window was chosen).
-    at_current, cc_current, bootstrap, seed
+    at_current, cc_current, bootstrap, seed, temperature_k
         As :func:`benchlab.extract.fit_batch`.
     reasons, criteria : list
         The model-choice explanation and AICc table per sweep.
     """
     vgs, i_d, mask, points = stacked
     used = mask > 0
+    ut = thermal_voltage(temperature_k)
     broken = np.flatnonzero(~np.all(np.isfinite(fit.params), axis=1))
     if broken.size:
         where = sweeps[broken[0]].source or f"sweep {broken[0] + 1}"
@@ -108,7 +110,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
                        "or a window")
     params = fit.params
     names = PARAM_NAMES[model]
-    fitted = model_current(model, vgs, params)
+    fitted = model_current(model, vgs, params, ut)
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.where(used, fitted / i_d - 1.0, 0.0)
     n_used = used.sum(axis=1)
@@ -119,12 +121,12 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     theta = params[:, 2] if model in ("theta", "ekv") else np.zeros_like(vth)
     slope_n = params[:, 3] if model == "ekv" else np.zeros_like(vth)
     if at_current is not None:
-        vgs_at, gm_at = vgs_and_gm(model, params, at_current)
-        v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current)
+        vgs_at, gm_at = vgs_and_gm(model, params, at_current, ut)
+        v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current, ut)
     thresholds = thresholds_batch(vgs, i_d, points, cc_current)
     # VGS error of an interpolated point: one reading's relative noise over the local log-slope
     if model != "linear":
-        _, gm_cc = vgs_and_gm(model, params, cc_current)
+        _, gm_cc = vgs_and_gm(model, params, cc_current, ut)
         with np.errstate(divide="ignore", invalid="ignore"):
             vth_cc_sd = rms_rel / (gm_cc / cc_current)
     else:
@@ -142,7 +144,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     results = []
     for row, sweep in enumerate(sweeps):
         p = params[row]
-        device = DeviceParams(model=model, **dict(zip(names, (float(x) for x in p))))
+        device = DeviceParams(model=model, temperature_k=float(temperature_k),
+                              **dict(zip(names, (float(x) for x in p))))
         sd = dict(zip(names, (float(x) for x in param_sd[row])))
         gm = v_at = gm_sd = vgs_sd = None
         if at_current is not None:
@@ -153,7 +156,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         method = "covariance"
         if bootstrap:
             spread, gm_sd, vgs_sd = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
-                                               at_current)
+                                               at_current, ut)
             sd = dict(zip(names, (float(x) for x in spread)))
             method = f"bootstrap/{int(bootstrap)}"
         row_thresholds = {"model": float(device.vth)}
@@ -189,7 +192,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         n_value = float(slope_n[row])
         results.append(FitResult(
             model=model, params=device, vth=float(device.vth), kp=float(device.kp), theta=float(theta[row]),
-            n=n_value, slope_mv_per_decade=n_value * thermal_voltage() * math.log(10.0) * 1e3 if model == "ekv" else None,
+            n=n_value, slope_mv_per_decade=n_value * ut * math.log(10.0) * 1e3 if model == "ekv" else None,
             gm=gm, at_current=at_current, vgs_at_current=v_at, vth_cc=vth_cc, cc_current=float(cc_current),
             rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]), stderr=stderr, stderr_method=method,
             flags=tuple(dict.fromkeys(code for code, _ in flags_found)), notes=tuple(n for _, n in flags_found),

@@ -25,7 +25,7 @@ from benchlab.extract.assemble import assemble
 from benchlab.extract.engine import PARAM_NAMES, initial_guess, solve_batch
 from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
-from benchlab.models import MODEL_NAMES
+from benchlab.models import MODEL_NAMES, T_NOMINAL_K, thermal_voltage
 
 DEFAULT_CC_CURRENT = 250e-6
 MODEL_CHOICES = ("auto",) + MODEL_NAMES
@@ -119,7 +119,8 @@ def _choose(criteria: dict[str, float]) -> tuple[str, str]:
     return chosen, f"{chosen}: {why} (AICc relative to it: {others})"
 
 
-def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start=None):
+def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start=None,
+               ut: float = thermal_voltage()):
     vgs, i_d, mask, valid = _stack(points, masks)
     need = len(PARAM_NAMES[model]) + 1
     for p, m in zip(points, masks):
@@ -128,13 +129,13 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
             raise FitError(f"{where}only {int(m.sum())} points in the fit window; the {model} model needs "
                            f"at least {need}")
     if start is None:
-        start = initial_guess(model, vgs, i_d, mask)
-    return solve_batch(model, vgs, i_d, mask, start), (vgs, i_d, mask, valid)
+        start = initial_guess(model, vgs, i_d, mask, ut=ut)
+    return solve_batch(model, vgs, i_d, mask, start, ut=ut), (vgs, i_d, mask, valid)
 
 
 def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
               cc_current: float = DEFAULT_CC_CURRENT, window=None, bootstrap: int = 0,
-              seed: int = 0) -> list[FitResult]:
+              seed: int = 0, temperature_k: float = T_NOMINAL_K) -> list[FitResult]:
     """Fit many sweeps at once (one vectorised solve per model, not a loop of fits).
 
     Parameters
@@ -155,6 +156,9 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
         Residual-bootstrap resamples for the standard errors (0: from the fit covariance).
     seed : int
         Seed of the bootstrap's random numbers (results are reproducible).
+    temperature_k : float
+        Temperature of the part during the sweep (K): sets UT for the ekv model (so n means
+        the same at any bench temperature) and is stored in the fitted ``DeviceParams``.
 
     Returns
     -------
@@ -169,6 +173,9 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
         A window holds too few points for the model.
     """
     _check_options(model, at_current, cc_current, window, bootstrap)
+    if not (math.isfinite(temperature_k) and 150.0 <= temperature_k <= 600.0):
+        raise InputError(f"temperature {temperature_k} K is not a bench temperature (150-600 K)")
+    ut = thermal_voltage(temperature_k)
     points = []
     for item in sweeps:
         sweep = _as_sweep(item)
@@ -186,7 +193,7 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
             usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
             if not usable:
                 continue
-            fit, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable])
+            fit, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], ut=ut)
             for row, b in enumerate(usable):
                 criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]),
                                                len(PARAM_NAMES[candidate]))
@@ -204,10 +211,11 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
             # reuse the comparison fit as the start (it is the answer when the window is the same)
             fit_c, usable = fits[name]
             start = np.array([fit_c.params[usable.index(b)] for b in group])
-        fit, stacked = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start)
+        fit, stacked = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start, ut=ut)
         done = assemble(name, [points[b].sweep for b in group], fit, stacked, [how for _, how in masks],
                         at_current=at_current, cc_current=cc_current, reasons=[reasons[b] for b in group],
-                        criteria=[criteria[b] for b in group], bootstrap=bootstrap, seed=seed)
+                        criteria=[criteria[b] for b in group], bootstrap=bootstrap, seed=seed,
+                        temperature_k=temperature_k)
         for b, result in zip(group, done):
             results[b] = result
     return results
@@ -215,7 +223,8 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
 
 def fit_sweep(vgs, id=None, *, model: str = "auto", at_current: float | None = None,  # noqa: A002 (trade name)
               cc_current: float = DEFAULT_CC_CURRENT, window=None, bootstrap: int = 0,
-              direction=None, source: str | None = None, seed: int = 0) -> FitResult:
+              direction=None, source: str | None = None, seed: int = 0,
+              temperature_k: float = T_NOMINAL_K) -> FitResult:
     """Fit one sweep of a diode-connected part.
 
     Parameters
@@ -224,7 +233,7 @@ def fit_sweep(vgs, id=None, *, model: str = "auto", at_current: float | None = N
         Gate-source voltages (V), or a validated :class:`Sweep` (then ``id`` is omitted).
     id : array_like
         Drain currents (A > 0).
-    model, at_current, cc_current, window, bootstrap, seed
+    model, at_current, cc_current, window, bootstrap, seed, temperature_k
         See :func:`fit_batch`.
     direction : array_like of str, optional
         ``up``/``down`` per point (enables the hysteresis check).
@@ -242,4 +251,4 @@ def fit_sweep(vgs, id=None, *, model: str = "auto", at_current: float | None = N
             raise InputError("fit_sweep needs both vgs and id")
         sweep = validate_points(vgs, id, direction, source=source)
     return fit_batch([sweep], model, at_current=at_current, cc_current=cc_current, window=window,
-                     bootstrap=bootstrap, seed=seed)[0]
+                     bootstrap=bootstrap, seed=seed, temperature_k=temperature_k)[0]

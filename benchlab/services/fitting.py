@@ -18,6 +18,7 @@ from typing import Any
 from benchlab.errors import FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
+from benchlab.models import T_NOMINAL_K
 
 SESSION_FORMAT = "benchlab-session/1"
 SWEEP_FORMAT = "benchlab-sweep/1"
@@ -33,6 +34,7 @@ class SweepSource:
     sidecar_path: Path | None
     label: str
     classification: str | None = None  # the sweep engine's verdict (good, open, shorted, leaky, unstable)
+    ambient_c: float | None = None  # the session's recorded ambient temperature
 
 
 @dataclass(frozen=True)
@@ -71,15 +73,31 @@ def _session_sources(folder: Path, allow_empty: bool = False) -> list[SweepSourc
     if meta.get("format") != SESSION_FORMAT:
         raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(folder / "session.json"))
     sources = []
+    ambient = _ambient(meta)
     for label in meta.get("parts", []):
         csv_path = folder / f"{label}.csv"
         if csv_path.exists():
             sidecar = folder / f"{label}.json"
             verdict = _read_json(sidecar).get("classification") if sidecar.exists() else None
-            sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict))
+            sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict,
+                                       ambient))
     if not sources and not allow_empty:
         raise InputError("the session holds no part sweeps yet", path=str(folder))
     return sources
+
+
+def _ambient(meta: dict[str, Any]) -> float | None:
+    value = meta.get("ambient_c")
+    return float(value) if isinstance(value, (int, float)) and math.isfinite(value) else None
+
+
+def _folder_ambient(folder: Path) -> float | None:
+    # a part's record inside a session folder takes the session's ambient temperature
+    meta_path = folder / "session.json"
+    if not meta_path.exists():
+        return None
+    meta = _read_json(meta_path)
+    return _ambient(meta) if meta.get("format") == SESSION_FORMAT else None
 
 
 def resolve_inputs(paths) -> list[SweepSource]:
@@ -116,7 +134,7 @@ def resolve_inputs(paths) -> list[SweepSource]:
                 if not csv_path.exists():
                     raise InputError(f"the sidecar's raw points {csv_path.name} are missing", path=str(path))
                 sources.append(SweepSource(csv_path, path, str(data.get("label") or path.stem),
-                                           data.get("classification")))
+                                           data.get("classification"), _folder_ambient(path.parent)))
             else:
                 raise InputError("not a benchlab sweep sidecar or session file", path=str(path))
         else:
@@ -124,7 +142,8 @@ def resolve_inputs(paths) -> list[SweepSource]:
             data = _read_json(sidecar) if sidecar.exists() else {}
             is_record = data.get("format") == SWEEP_FORMAT
             sources.append(SweepSource(path, sidecar if is_record else None, path.stem,
-                                       data.get("classification") if is_record else None))
+                                       data.get("classification") if is_record else None,
+                                       _folder_ambient(path.parent) if is_record else None))
     if not sources:
         raise InputError("no input files given")
     return sources
@@ -155,7 +174,7 @@ def _is_dud(source: SweepSource) -> bool:
 
 def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
               cc_current: float = DEFAULT_CC_CURRENT, window=None, bootstrap: int = 0,
-              save: bool = False) -> FitRun:
+              save: bool = False, temperature_c: float | None = None) -> FitRun:
     """Fit every sweep found in ``paths`` (one batch) and optionally store the fits in the sidecars.
 
     A part the sweep classified as a dud (open, shorted, leaky, unstable) that has too few
@@ -170,6 +189,9 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         See :func:`benchlab.extract.fit_batch`.
     save : bool
         Append each fit (with the options that produced it) to ``fits`` in its sidecar.
+    temperature_c : float, optional
+        The parts' temperature during the sweeps (degC). Default: the session's recorded
+        ambient temperature, else 27 degC (SPICE's nominal temperature).
 
     Returns
     -------
@@ -198,18 +220,28 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
                 raise
             skipped.append((source, str(exc)))
     options = dict(at_current=at_current, cc_current=cc_current, window=window, bootstrap=bootstrap)
+
+    def kelvin(source: SweepSource) -> float:
+        celsius = temperature_c if temperature_c is not None else source.ambient_c
+        return T_NOMINAL_K if celsius is None else celsius + 273.15
+
+    fitted = {}
     regular = [(s, w) for s, w in loaded if not _is_dud(s)]
-    fitted = dict(zip((id(s) for s, _ in regular), fit_batch([w for _, w in regular], model, **options)))
+    for temperature in sorted({kelvin(s) for s, _ in regular}):  # one batch per temperature
+        group = [(s, w) for s, w in regular if kelvin(s) == temperature]
+        results = fit_batch([w for _, w in group], model, temperature_k=temperature, **options)
+        fitted.update(zip((id(s) for s, _ in group), results))
     for source, sweep in loaded:
         if _is_dud(source):  # one by one, so a dud that cannot be fitted stops nothing
             try:
-                fitted[id(source)] = fit_batch([sweep], model, **options)[0]
+                fitted[id(source)] = fit_batch([sweep], model, temperature_k=kelvin(source), **options)[0]
             except (FitError, InputError) as exc:
                 skipped.append((source, str(exc)))
     records = [FitRecord(s, fitted[id(s)]) for s in sources if id(s) in fitted]
     if save:
         stored = {"model": model, "at_current": at_current, "cc_current": cc_current,
-                  "window": list(window) if window else None, "bootstrap": int(bootstrap)}
+                  "window": list(window) if window else None, "bootstrap": int(bootstrap),
+                  "temperature_c": temperature_c}
         for record in records:
             store_fit(record, stored)
     return FitRun(records, skipped)

@@ -166,3 +166,15 @@ def test_operating_curve_output(tmp_path, capsys):
         assert e == pytest.approx(g / i)
     assert main(["fit", str(folder / "Q01.csv"), "--curve", "4"]) == 0
     assert "gm/ID 1/V" in capsys.readouterr().out
+
+
+def test_session_ambient_sets_the_fit_temperature(tmp_path, capsys):
+    folder = _session(tmp_path)
+    meta = json.loads((folder / "session.json").read_text())
+    meta["ambient_c"] = 35.0
+    (folder / "session.json").write_text(json.dumps(meta))
+    assert main(["fit", str(folder / "Q01.json"), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["params"]["temperature_k"] == pytest.approx(308.15)
+    assert main(["fit", str(folder), "--json", "--temperature", "20"]) == 0
+    rows = [json.loads(line) for line in capsys.readouterr().out.strip().splitlines()]
+    assert all(row["params"]["temperature_k"] == pytest.approx(293.15) for row in rows)

@@ -126,3 +126,17 @@ def test_all_definitions_reported_on_a_full_curve():
     assert result.thresholds["constant_current"] == pytest.approx(float(part.vgs_at(250e-6)), abs=1e-4)
     # on an EKV curve d2 sqrt(ID) peaks where the interpolation bends, near VT (within 2 n UT)
     assert abs(result.thresholds["second_derivative_sqrt"] - 2.9) < 2 * 1.5 * thermal_voltage()
+
+
+def test_slope_factor_uses_the_bench_temperature():
+    # Enz et al. 1995: weak-inversion slope n UT with UT = kT/q: the same curve read at another
+    # temperature gives n scaled by the ratio of temperatures, and the swing in mV/decade is unchanged
+    hot = DeviceParams("ekv", vth=2.6, kp=2.0, theta=0.2, n=1.5, temperature_k=350.0)
+    currents = np.geomspace(1e-8, 0.2, 50)
+    vgs = hot.vgs_at(currents)
+    at_350 = fit_sweep(vgs, currents, model="ekv", temperature_k=350.0)
+    assumed_27c = fit_sweep(vgs, currents, model="ekv")
+    assert at_350.n == pytest.approx(1.5, rel=1e-5)
+    assert at_350.params.temperature_k == 350.0
+    assert assumed_27c.n == pytest.approx(1.5 * 350.0 / 300.15, rel=1e-4)
+    assert assumed_27c.slope_mv_per_decade == pytest.approx(at_350.slope_mv_per_decade, rel=1e-5)
