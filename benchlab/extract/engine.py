@@ -327,9 +327,9 @@ def initial_guess(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndar
 
 
 def _theta_start(vgs, i_meas, mask, vth, kp, ut):
-    # A square-law fit pins the threshold (the near-threshold points dominate relative
+    # One square-law step pins the threshold (the near-threshold points dominate relative
     # residuals); then Vov^2 / (2 ID) = 1/KP + (THETA/KP) Vov is a straight line in Vov.
-    square = solve_batch("square", vgs, i_meas, mask, np.stack([vth, kp], axis=1), ut=ut, max_iter=3,
+    square = solve_batch("square", vgs, i_meas, mask, np.stack([vth, kp], axis=1), ut=ut, max_iter=1,
                          with_covariance=False)
     vth = square.params[:, 0]
     vov = vgs - vth[:, None]
