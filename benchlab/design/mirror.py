@@ -36,17 +36,21 @@ def output_current(params: DeviceParams, gate_v: float, source_resistor_ohm: flo
     """
     if source_resistor_ohm <= 0:
         return float(params.current(gate_v)), float(gate_v)
-    if gate_v <= 0 or float(params.current(gate_v)) <= 0:
+    # The answer lies between I1 = ID(VG - I0 Rs) and I0 = ID(VG): the source drop is at most I0 Rs.
+    hi = float(params.current(gate_v))
+    if hi <= 0:
         return 0.0, float(gate_v)
+    lo = float(params.current(gate_v - hi * source_resistor_ohm))
+    if lo <= 0:
+        lo = hi * 1e-200  # hard cut-off laws: any current above zero has its VGS above threshold
 
     def excess(i_d: float) -> float:
         return float(params.vgs_at(i_d)) + i_d * source_resistor_ohm - gate_v
 
-    hi = gate_v / source_resistor_ohm
-    lo = min(1e-18, hi * 1e-12)
-    if excess(lo) >= 0:
+    if lo >= hi or excess(lo) >= 0:
         return lo, float(params.vgs_at(lo))
-    i_d = brentq(excess, lo, hi, xtol=1e-18, rtol=8.9e-16, maxiter=500)
+    # relative tolerance only: in weak inversion an absolute one would be coarse against the current
+    i_d = brentq(excess, lo, hi, xtol=1e-300, rtol=4.5e-15, maxiter=500)
     return float(i_d), float(params.vgs_at(i_d))
 
 

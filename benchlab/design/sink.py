@@ -10,7 +10,7 @@ and the cautions with this design's numbers.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Sequence
 
 from benchlab.design.cautions import OutputHeat, sink_cautions
@@ -274,8 +274,6 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
     _check_parts(ref, outputs)
     if options.mismatch_target is None:
         return _synthesize_once(supply_v, target_a, ref, outputs, options)
-    from dataclasses import replace
-
     target = options.mismatch_target
     cheap = replace(options, monte_carlo=0)
     plain = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=0.0))

@@ -215,3 +215,41 @@ def test_monte_carlo_accepts_unknown_standard_errors_from_the_fitter():
     data = json.loads(json.dumps(design.to_dict()))
     assert data["parts"][0]["stderr"]["theta"] is None
     assert data["monte_carlo"]["outputs"][0]["error"]["std"] > 0
+
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+
+curves = st.one_of(
+    st.builds(lambda v, g: DeviceParams("linear", v, gm=g), st.floats(1.0, 4.0), st.floats(0.05, 2.0)),
+    st.builds(lambda v, k, t: DeviceParams("theta", v, kp=k, theta=t), st.floats(1.0, 4.0), st.floats(0.05, 2.0),
+              st.floats(0.0, 1.0)),
+    st.builds(lambda v, k, t, n: DeviceParams("ekv", v, kp=k, theta=t, n=n), st.floats(1.0, 4.0),
+              st.floats(0.05, 2.0), st.floats(0.0, 1.0), st.floats(1.0, 2.5)),
+)
+
+
+@settings(max_examples=60, deadline=None)
+@given(curves, st.lists(curves, max_size=3), st.floats(5.0, 48.0), st.floats(10.0, 10_000.0),
+       st.sampled_from([0.0, 0.47, 10.0]))
+def test_every_operating_point_satisfies_both_lines(ref_params, out_params, supply, resistor, rs):
+    # Kirchhoff on the reference branch and on each output (exact solve, no rounding anywhere).
+    point = solve_mirror(supply, resistor, ref_params, out_params, rs)
+    assert (supply - point.vg) / resistor == pytest.approx(point.i_ref, rel=1e-9, abs=1e-15)
+    assert float(ref_params.current(point.vgs_ref)) == pytest.approx(point.i_ref, rel=1e-9, abs=1e-15)
+    for params, i_out, vgs in zip(out_params, point.i_out, point.vgs_out):
+        assert vgs + i_out * rs == pytest.approx(point.vg, abs=1e-9)
+        assert float(params.current(vgs)) == pytest.approx(i_out, rel=1e-8, abs=1e-15)
+
+
+@settings(max_examples=40, deadline=None)
+@given(curves, st.floats(1e-3, 0.5), st.floats(12.0, 48.0), st.sampled_from(["E24", "E96"]))
+def test_synthesis_hits_the_target_with_the_exact_resistor(ref_params, target, supply, series):
+    ref = Part("R", ref_params)
+    try:
+        design = synthesize_sink(supply, target, ref, [], SinkOptions(series=series))
+    except DesignError:
+        assert float(ref_params.vgs_at(target)) >= supply  # only when the supply truly cannot reach it
+        return
+    assert design.r_chosen == nearest_preferred(design.r_exact, series)
+    assert analyze_sink(supply, design.r_exact, ref, []).i_ref == pytest.approx(target, rel=1e-8)
