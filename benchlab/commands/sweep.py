@@ -147,9 +147,19 @@ def run_sweep(args: argparse.Namespace) -> int:
 
 
 def run_bag(args: argparse.Namespace) -> int:
-    if args.resume is None:
-        if args.count is None:
-            raise InputError("say how many parts: --count N (or --resume DIR to finish an earlier session)")
+    if args.resume is None and args.count is None:
+        raise InputError("say how many parts: --count N (or --resume DIR to finish an earlier session)")
+    if args.count is not None and args.count < 1:
+        raise InputError(f"--count must be 1 or more, got {args.count}")
+    if args.resume is not None:
+        from pathlib import Path
+
+        if not (Path(args.resume) / "session.json").is_file():
+            raise InputError("not a session folder (no session.json)", path=args.resume)
+    else:
+        from benchlab.sweep.session import check_name
+
+        check_name("lot name", args.lot)
     svc, handle, plan = _prepare(args)
     progress = ProgressBar()
     try:

@@ -108,3 +108,12 @@ def test_demo_sweeps_an_invented_bag_with_a_dud(tmp_path, capsys):
     assert "good" in classes and classes - {"good"}  # at least one dud to set aside
     for line in [line for line in out.splitlines() if line.startswith("Q")]:
         assert " points, " in line
+
+
+@pytest.mark.parametrize("options,needle", [(["--count", "0"], "--count"), ([], "--count N"),
+                                            (["--resume", "nowhere"], "session.json"),
+                                            (["--count", "3", "--lot", "a/b"], "lot name")])
+def test_bad_bag_options_one_error_nothing_written(tmp_path, capsys, options, needle):
+    code = main(["bag", "--sim", "--sessions", str(tmp_path / "s"), *options])
+    assert code == 2 and needle in one_error_line(capsys)
+    assert not (tmp_path / "s").exists()
