@@ -139,3 +139,20 @@ def test_bins_cover_every_part_once_with_edges_on_multiples_of_the_width():
             assert b.low - 1e-9 <= vgs[name] < b.high + 1e-9
     with pytest.raises(InputError):
         bin_by_vgs(bag, 0.02, 0.0)
+
+
+def test_set_heuristic_usually_finds_the_exhaustive_optimum():
+    # Exhaustive search over every subset and reference is the outside check; the heuristic may lose
+    # sometimes, but on small theta/square-law bags over a range it should rarely do so.
+    hits = 0
+    trials = 0
+    for seed in range(10):
+        bag = random_bag(300 + seed, 11, models=("theta", "square"))
+        currents = current_grid(0.01, 0.1)
+        for size in (3, 4):
+            found = match_sets(bag, currents, size, count=1).sets[0].worst_error
+            best = brute_force_best_set(bag, currents, size)
+            assert found >= best - 1e-15
+            hits += found <= best * (1 + 1e-12)
+            trials += 1
+    assert hits >= 0.8 * trials
