@@ -62,10 +62,12 @@ def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current, ut):
     used = mask > 0
     v = vgs[used]
     fitted = model_current(model, v[None], p[None], ut)[0]
-    rel = i_d[used] / fitted - 1.0
-    rel = rel - rel.mean()
-    draws = np.random.default_rng(seed).choice(rel, size=(resamples, rel.size), replace=True)
-    synthetic = np.maximum(fitted[None, :] * (1.0 + draws), 1e-30)
+    on = fitted > 0  # a hard cut-off model predicts nothing below its threshold
+    rel = i_d[used][on] / fitted[on] - 1.0
+    rel = rel - rel.mean() if rel.size else np.zeros(1)
+    draws = np.random.default_rng(seed).choice(rel, size=(resamples, v.size), replace=True)
+    # points the model puts below threshold keep their measured value in every resample
+    synthetic = np.where(on, np.maximum(fitted[None, :] * (1.0 + draws), 1e-30), i_d[used][None, :])
     fit = solve_batch(model, np.broadcast_to(v, synthetic.shape).copy(), synthetic, np.ones_like(synthetic),
                       np.tile(p, (resamples, 1)), ut=ut, with_covariance=False)
     spread = fit.params.std(axis=0, ddof=1)

@@ -39,7 +39,7 @@ LINEAR_HALF_SPAN = 2.0  # the linear model's default window: operating current /
 @dataclass(frozen=True)
 class _Points:
     sweep: Sweep
-    vgs: np.ndarray  # fit points (one direction, sorted by VGS)
+    vgs: np.ndarray  # fit points (one direction, in order of rising current)
     id: np.ndarray
 
 

@@ -42,3 +42,19 @@ def test_any_points_fit_or_fail_cleanly(points, model):
         return
     json.dumps(result.to_dict(), allow_nan=False)  # always plain JSON
     assert result.model in ("linear", "square", "theta", "ekv")
+
+
+def test_bootstrap_with_a_point_below_the_fitted_threshold():
+    # a hard cut-off model predicts zero below Vth: such a point must not poison the resamples
+    from benchlab.models import DeviceParams
+
+    rng = np.random.default_rng(1)
+    part = DeviceParams("square", vth=3.0, kp=2.0)
+    currents = np.geomspace(1e-6, 0.1, 30)
+    vgs = part.vgs_at(currents)
+    vgs[0] -= 0.01
+    ids = currents * (1 + 1e-3 * rng.standard_normal(30))
+    result = fit_sweep(vgs, ids, model="square", bootstrap=30, window=(1e-7, 1.0), at_current=1e-2)
+    assert result.stderr_method == "bootstrap/30"
+    for key in ("vth", "kp", "gm", "vgs_at_current"):
+        assert np.isfinite(result.stderr[key]) and result.stderr[key] >= 0
