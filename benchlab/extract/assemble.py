@@ -153,8 +153,6 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         if at_current is not None:
             gm, v_at = float(gm_at[row]), float(vgs_at[row])
             gm_sd, vgs_sd = _optional(g_sd[row]), _optional(v_sd[row])
-        elif model == "linear":
-            gm = float(device.gm)  # the linear model's own slope
         method = "covariance"
         if bootstrap:
             spread, gm_sd, vgs_sd = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
@@ -185,7 +183,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             flags_found.append((FLAG_UNCERTAIN, "a standard error exceeds half its parameter (vth: 0.5 V)"))
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
                   "theta": sd.get("theta"), "n": sd.get("n"),
-                  "gm": gm_sd if at_current is not None else sd.get("gm"),
+                  "gm": gm_sd,
                   "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd}
         u = used[row]
         window = {"i_min": float(i_d[row][u].min()), "i_max": float(i_d[row][u].max()),
