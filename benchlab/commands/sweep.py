@@ -37,6 +37,10 @@ class ProgressBar:
                 self._drawn = False
             if isinstance(event, SweepDone):
                 print(event.summary, file=self.out, flush=True)
+            elif event.shutdown_problems:
+                print(f"{event.label}: stopped ({event.kind}) after {event.elapsed_s:.1f} s - WARNING: could not "
+                      f"confirm the output is off ({'; '.join(event.shutdown_problems)}); check the instrument "
+                      f"before touching the fixture", file=self.out, flush=True)
             else:
                 print(f"{event.label}: stopped ({event.kind}) after {event.elapsed_s:.1f} s - output switched off",
                       file=self.out, flush=True)

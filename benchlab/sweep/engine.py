@@ -395,7 +395,7 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
         try:
             sweep.recorder.finish(outcome)
         finally:
-            sweep.on_event(SweepFault(label, message, kind, outcome.elapsed_s))
+            sweep.on_event(SweepFault(label, message, kind, outcome.elapsed_s, tuple(problems)))
         raise
     problems = sweep.source.safe_off()
     outcome = sweep.outcome(complete, stop_reason, failure, None, problems)

@@ -135,9 +135,12 @@ class SweepFault:
     message: str
     kind: str  # exception class name
     elapsed_s: float
+    shutdown_problems: tuple[str, ...] = ()  # empty when the output was switched off cleanly
 
     def to_dict(self) -> dict[str, Any]:
-        return {"event": "fault", **asdict(self)}
+        data = asdict(self)
+        data["shutdown_problems"] = list(self.shutdown_problems)
+        return {"event": "fault", **data}
 
 
 def vgs_at_current(points, current_a: float) -> float | None:

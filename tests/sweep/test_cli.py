@@ -117,3 +117,18 @@ def test_bad_bag_options_one_error_nothing_written(tmp_path, capsys, options, ne
     code = main(["bag", "--sim", "--sessions", str(tmp_path / "s"), *options])
     assert code == 2 and needle in one_error_line(capsys)
     assert not (tmp_path / "s").exists()
+
+
+def test_progress_warns_when_the_output_could_not_be_confirmed_off():
+    import io
+
+    from benchlab.commands.sweep import ProgressBar
+    from benchlab.sweep.records import SweepFault
+
+    out = io.StringIO()
+    bar = ProgressBar(stream=io.StringIO(), out=out)
+    bar(SweepFault("Q01", "no reply", "InstrumentTimeout", 1.0))
+    bar(SweepFault("Q02", "no reply", "InstrumentTimeout", 1.0, ("switching the supply output off failed: x",)))
+    first, second = out.getvalue().splitlines()
+    assert first.endswith("output switched off")
+    assert "WARNING: could not confirm the output is off" in second and "output switched off" not in second

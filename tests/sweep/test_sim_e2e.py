@@ -90,6 +90,8 @@ def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, faul
     assert message in str(error) and "\n" not in str(error)  # one clear line
     assert sweep.meta["complete"] is False and sweep.meta["error"]
     assert len(sweep.vgs) == sweep.meta["points"]  # every point measured before the fault is on disk
+    # a supply that does not answer cannot confirm the off command: that is reported, not hidden
+    assert bool(sweep.meta["shutdown_problems"]) == ("@supply" in fault)
 
 
 def test_slow_replies_within_the_timeout_still_complete(tmp_path):
