@@ -44,12 +44,21 @@ class PreparedSweep:
 
 
 def default_fit_function() -> Callable:
-    """``benchlab.extract.fit_sweep`` with its automatic model choice (called as ``f(vgs, id, direction=...)``)."""
+    """``benchlab.extract.fit_sweep`` with its automatic model choice, in the library's calling convention.
+
+    The library calls ``f(vgs, id, direction=..., temperature_k=...)``; ``temperature_k`` is the session's
+    ambient temperature, or None when unknown (the fitter then takes its nominal temperature).
+    """
     try:
         from benchlab.extract import fit_sweep
     except ImportError as exc:
         raise LibraryError(f"the fitter is not available ({exc}); import without re-fitting") from exc
-    return fit_sweep
+
+    def fit(vgs, i_d, direction=None, temperature_k=None):
+        extra = {} if temperature_k is None else {"temperature_k": temperature_k}
+        return fit_sweep(vgs, i_d, direction=direction, **extra)
+
+    return fit
 
 
 def fit_outcome(result: Any) -> FitOutcome:
@@ -82,7 +91,7 @@ def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
             vgs, ids, direction = sweep.fit_points()
             if len(vgs) < MIN_FIT_POINTS:
                 return PreparedSweep(session, sweep, lot, None, f"only {len(vgs)} usable points, no fit")
-            outcome = fit_outcome(fit_function(vgs, ids, direction=direction))
+            outcome = fit_outcome(fit_function(vgs, ids, direction=direction, temperature_k=session.temperature_k))
         else:
             stored = sweep.sidecar.get("fits") or []
             if not stored:

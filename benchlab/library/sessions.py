@@ -89,6 +89,14 @@ class Session:
     def lot(self) -> str | None:
         return self.meta.get("lot")
 
+    @property
+    def temperature_k(self) -> float | None:
+        """The recorded ambient temperature (K), the parts' temperature during the sweeps; None if unknown."""
+        value = self.meta.get("ambient_c")
+        if isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
+            return float(value) + 273.15
+        return None
+
 
 def _read_json(path: Path) -> dict[str, Any]:
     try:

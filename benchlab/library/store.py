@@ -384,8 +384,9 @@ class Library(DesignStore):
         lot : str, optional
             Store the parts in this lot instead of the session's own.
         fit_function : callable, optional
-            ``f(vgs, id, direction=None) -> FitResult`` (``direction``: ``up``/``down`` per point, or None
-            when the record has none); default ``benchlab.extract.fit_sweep``.
+            ``f(vgs, id, direction=None, temperature_k=None) -> FitResult`` (``direction``: ``up``/``down``
+            per point, or None when the record has none; ``temperature_k``: the session's ambient temperature,
+            or None); default ``benchlab.extract.fit_sweep``.
         progress : callable, optional
             Called with each part's label as it is written (inside the transaction).
         """

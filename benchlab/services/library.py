@@ -53,14 +53,17 @@ def hand_params(vth: float | None, gm: float | None = None, kp: float | None = N
 
 
 def fit_function(model: str = "auto") -> Callable:
-    """The fitter as the library's import expects it: ``f(vgs, id, direction=None) -> FitResult``."""
+    """The fitter as the library's import calls it: ``f(vgs, id, direction=None, temperature_k=None)``."""
     try:
         from benchlab.extract import fit_sweep
     except ImportError as exc:
         raise LibraryError(f"the fitter is not available ({exc}); use --no-refit") from exc
 
-    def fit(vgs: Sequence[float], i_d: Sequence[float], direction: Sequence[str] | None = None):
-        return fit_sweep(vgs, i_d, model=model, direction=direction)
+    def fit(vgs: Sequence[float], i_d: Sequence[float], direction: Sequence[str] | None = None,
+            temperature_k: float | None = None):
+        # the session's ambient temperature, as `benchlab fit` uses it; else the fitter's nominal one
+        extra = {} if temperature_k is None else {"temperature_k": temperature_k}
+        return fit_sweep(vgs, i_d, model=model, direction=direction, **extra)
 
     return fit
 

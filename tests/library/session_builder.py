@@ -77,7 +77,7 @@ def demo_bag(count: int, *, seed: int = 7, duds: Sequence[int] = ()) -> list[dic
     return parts
 
 
-def curve_fit_square(vgs, i_d, direction=None):
+def curve_fit_square(vgs, i_d, direction=None, temperature_k=None):
     """An independent fitter for tests: scipy's curve_fit on sqrt(ID) = sqrt(KP/2) (VGS - Vth), up-sweep only.
 
     Returns the plain-dict form the library accepts from a fit function.

@@ -40,7 +40,7 @@ def test_engine_written_session_imports_with_up_sweep_fitted(lib, tmp_path):
     writer.finish()
     seen = []
 
-    def fit(vgs, i_d, direction=None):
+    def fit(vgs, i_d, direction=None, temperature_k=None):
         seen.append((len(vgs), direction.count("up"), direction.count("down")))
         return curve_fit_square(vgs, i_d, direction)
 

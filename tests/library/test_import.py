@@ -55,13 +55,15 @@ def test_points_not_ok_are_not_fitted_and_stored_as_null(lib, tmp_path):
     status = ["ok"] * 12 + ["over_range"]
     seen = {}
 
-    def fit(v, i, direction=None):
+    def fit(v, i, direction=None, temperature_k=None):
         seen["n"] = len(v)
+        seen["temperature_k"] = temperature_k
         return curve_fit_square(v, i, direction)
 
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "vgs": vgs, "id": ids, "status": status}])
     lib.import_session(session, fit_function=fit)
     assert seen["n"] == 12
+    assert seen["temperature_k"] == pytest.approx(22.5 + 273.15)  # the session's recorded ambient
     sweep = lib.sweeps("Q1")[0]
     assert sweep["id"][-1] is None and sweep["status"][-1] == "over_range"
 
@@ -102,7 +104,7 @@ def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
 def test_a_fit_that_fails_keeps_the_sweep_without_a_fit(lib, tmp_path):
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "params": DeviceParams("square", vth=3, kp=1)}])
 
-    def failing(v, i, direction=None):
+    def failing(v, i, direction=None, temperature_k=None):
         raise ValueError("curve too flat")
 
     summary = lib.import_session(session, fit_function=failing)
