@@ -45,7 +45,8 @@ def make_data(count: int, points: int, seed: int = 2026):
     currents = np.geomspace(3e-3, 0.3, points)
     vth, kp, theta = truth.T
     # invert the law for VGS at each target current (exact quadratic root)
-    q = (currents * theta[:, None] + np.sqrt((currents * theta[:, None]) ** 2 + 2 * kp[:, None] * currents)) / kp[:, None]
+    it = currents * theta[:, None]
+    q = (it + np.sqrt(it ** 2 + 2 * kp[:, None] * currents)) / kp[:, None]
     vgs = vth[:, None] + q
     ids = model_current("theta", vgs, truth) * (1 + 1e-3 * rng.standard_normal(vgs.shape))
     return truth, vgs, ids
@@ -103,8 +104,9 @@ def main(argv=None) -> int:
           f"{t_lm * scale / t_core:6.1f}x vs unbounded")
     print(f"speed-up of full fit_batch:      {t_bounded * scale / t_full:6.1f}x vs bounded curve_fit loop, "
           f"{t_lm * scale / t_full:6.1f}x vs unbounded")
-    print(f"max relative difference (vth, kp, theta) batched vs bounded curve_fit: {np.array2string(dev_bounded, precision=2)}")
-    print(f"max relative difference (vth, kp, theta) batched vs unbounded curve_fit: {np.array2string(dev_lm, precision=2)}")
+    show = lambda a: np.array2string(a, precision=2)  # noqa: E731
+    print(f"max relative difference (vth, kp, theta) batched vs bounded curve_fit: {show(dev_bounded)}")
+    print(f"max relative difference (vth, kp, theta) batched vs unbounded curve_fit: {show(dev_lm)}")
     print(f"fit_batch equals the bare solver: max relative difference {np.array2string(dev_full, precision=2)}")
     print("same results: " + ("yes" if agree else "NO"))
     return 0 if agree else 1

@@ -37,7 +37,8 @@ def register(subparsers) -> None:
                     "CSV files with a header row holding 'vgs' (V) and 'id' (A), or session records (a session "
                     "folder, a part's .json sidecar or .csv). Points whose status is not 'ok' are never fitted. "
                     "Nothing is measured: fits can be re-run from the raw points at any time.")
-    parser.add_argument("files", nargs="+", metavar="FILE", help="CSV file, part sidecar (.json), session folder or folder of sessions")
+    parser.add_argument("files", nargs="+", metavar="FILE",
+                        help="CSV file, part sidecar (.json), session folder or folder of sessions")
     parser.add_argument("--model", choices=MODEL_CHOICES, default="auto",
                         help="model to fit; auto chooses among square, theta and ekv by AICc (default auto)")
     parser.add_argument("--at-current", type=_current, metavar="A",

@@ -136,7 +136,10 @@ def _pchip_slope(x, y, n, j):
 
 
 def constant_current_batch(vgs, i_d, valid, current: float) -> np.ndarray:
-    """VGS at ``current`` per row (NaN outside the data), as :func:`~benchlab.extract.thresholds.constant_current_threshold`."""
+    """VGS at ``current`` per row (NaN outside the data).
+
+    As :func:`benchlab.extract.thresholds.constant_current_threshold`, for many sweeps.
+    """
     valid, i_s, v_s = _sorted_rows(i_d, valid, i_d, vgs)
     n = valid.sum(axis=1)
     rows = np.arange(v_s.shape[0])
