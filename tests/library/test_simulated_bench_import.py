@@ -29,6 +29,9 @@ def test_demo_session_imports_with_the_same_fits_as_the_fit_command(tmp_path):
                 assert part.state == "rejected" and part.reason.startswith(sidecar_class)
                 continue
             # the library's re-fit reads the record with the same rules as the fit command
-            assert part.params == records[label].params
+            theirs = records[label].params
+            assert part.params.model == theirs.model and part.params.temperature_k == theirs.temperature_k
+            for name in ("vth", "kp", "theta", "n"):  # a batch of one and a batch of many agree to rounding
+                assert getattr(part.params, name) == pytest.approx(getattr(theirs, name), rel=1e-9, abs=1e-12)
             assert len(lib.sweeps(part)[0]["vgs"]) > 10
     assert result is not None
