@@ -85,6 +85,9 @@ def register(subparsers) -> None:
                       help="threshold temperature coefficient for the drift figures (default: %(default)s)")
     sink.add_argument("--compliance-margin", type=_quantity, default=0.2, metavar="V",
                       help="margin added to VGS - Vth in the compliance voltage (default: %(default)s)")
+    sink.add_argument("--thermal-resistance", type=_quantity, metavar="K/W",
+                      help="junction-to-ambient thermal resistance of each part, heat sink included: also solve the "
+                           "self-heated steady state (or report thermal runaway)")
     sink.add_argument("--spice", metavar="FILE", help="also write an ngspice netlist of the design (.op) to FILE")
     sink.add_argument("--save", action="store_true",
                       help="record the design in the library and reserve its parts")
@@ -119,7 +122,7 @@ def _sink(args) -> int:
     options = SinkOptions(series=args.series, load_voltage=args.load_voltage, source_resistor_ohm=args.degeneration or 0.0,
                           mismatch_target=args.mismatch_target, compliance_margin_v=args.compliance_margin,
                           vth_tempco=args.vth_tempco, monte_carlo=args.monte_carlo, seed=args.seed,
-                          resistor_tolerance=args.tolerance)
+                          resistor_tolerance=args.tolerance, thermal_resistance=args.thermal_resistance)
     out = tuple(s.strip() for s in args.out.split(",") if s.strip()) if args.out else ()
     request = service.SinkRequest(supply=args.supply, current=args.current, resistor=args.resistor, ref=args.ref,
                                   out=out, outputs=args.outputs, ref_model=args.ref_model,

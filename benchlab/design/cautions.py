@@ -5,6 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Sequence
 
+from benchlab.design.thermal import RUNAWAY_RISE_K
+
 # Junction-to-ambient resistance of a free-standing TO-220 without heat sink: about 60-62 K/W in
 # typical datasheets (from memory). Used only to put a number on "needs a heat sink".
 FREE_AIR_K_PER_W = 62.0
@@ -28,7 +30,8 @@ def _w(value: float) -> str:
 
 
 def sink_cautions(*, supply_v: float, load_voltage: float, p_ref: float, p_resistor: float, r_chosen: float,
-                  outputs: Sequence[OutputHeat], p_source_resistors: float = 0.0) -> tuple[str, ...]:
+                  outputs: Sequence[OutputHeat], p_source_resistors: float = 0.0, self_heating=None,
+                  output_names: Sequence[str] = ()) -> tuple[str, ...]:
     """The cautions of one design, each a sentence or two with this design's numbers.
 
     Covers dissipation and heat-sinking, thermal runaway of power MOSFETs in linear mode,
@@ -67,6 +70,20 @@ def sink_cautions(*, supply_v: float, load_voltage: float, p_ref: float, p_resis
     else:
         base += " Check each output part you add against it."
     out.append(base)
+    if self_heating is not None:
+        rth = self_heating.thermal_resistance
+        if self_heating.runaway:
+            out.append(f"Self-heating at {rth:g} K/W per part: THERMAL RUNAWAY predicted, the junctions do not settle "
+                       f"below {RUNAWAY_RISE_K:.0f} K above ambient. Use a larger heat sink (lower K/W), source resistors, "
+                       "or a lower load voltage.")
+        elif self_heating.output_rise:
+            hottest = max(range(len(self_heating.output_rise)), key=lambda k: self_heating.output_rise[k])
+            worst = max(range(len(self_heating.error)), key=lambda k: abs(self_heating.error[k]))
+            name = output_names[worst] if output_names else f"output {worst + 1}"
+            out.append(f"Self-heating at {rth:g} K/W per part: the reference settles {self_heating.ref_rise:.0f} K and "
+                       f"the outputs up to {self_heating.output_rise[hottest]:.0f} K above ambient; the worst output "
+                       f"error then becomes {self_heating.error[worst] * 100:+.2f} % ({name}). Reference and outputs "
+                       "dissipate differently, so a shared heat sink or degeneration keeps them closer.")
 
     out.append(f"Start-up: when the {supply_v:g} V supply or the load supply comes up, the gate node and the load can "
                "overshoot before the reference settles; LED strings and especially laser diodes are damaged by short "

@@ -18,6 +18,7 @@ from benchlab.design.eseries import nearest_preferred, series_decade, series_tol
 from benchlab.design.mirror import output_current, resistor_for_current, solve_mirror
 from benchlab.design.montecarlo import run_monte_carlo
 from benchlab.design.parts import Part
+from benchlab.design.thermal import self_heated_point
 from benchlab.errors import DesignError, InputError
 
 
@@ -49,6 +50,9 @@ class SinkOptions:
         Monte Carlo seed.
     resistor_tolerance : float or None
         Tolerance band of the resistors (None: the one usually sold with the series).
+    thermal_resistance : float or None
+        Junction-to-ambient thermal resistance of each part (K/W, heat sink included); when set,
+        the steady state with every part at its own self-heated temperature is solved too.
     """
 
     series: str = "E24"
@@ -61,6 +65,7 @@ class SinkOptions:
     monte_carlo: int = 0
     seed: int = 1
     resistor_tolerance: float | None = None
+    thermal_resistance: float | None = None
 
     def validated(self) -> "SinkOptions":
         series_decade(self.series)
@@ -74,6 +79,8 @@ class SinkOptions:
             raise InputError("the load voltage must be >= 0 V")
         if self.resistor_tolerance is not None and not 0 <= self.resistor_tolerance < 1:
             raise InputError("the resistor tolerance is a fraction between 0 and 1")
+        if self.thermal_resistance is not None and not self.thermal_resistance > 0:
+            raise InputError("the thermal resistance must be a positive number of K/W")
         return self
 
 
@@ -125,6 +132,7 @@ class SinkDesign:
     parts: tuple[Part, ...] = field(repr=False)
     monte_carlo: dict | None = None
     degeneration: dict | None = None
+    self_heating: dict | None = None
 
     @property
     def worst_error(self) -> float:
@@ -142,6 +150,7 @@ class SinkDesign:
         data["parts"] = [p.to_dict() for p in self.parts]
         data["monte_carlo"] = self.monte_carlo
         data["degeneration"] = self.degeneration
+        data["self_heating"] = self.self_heating
         return data
 
 
@@ -225,8 +234,14 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     p_resistor = point.i_ref ** 2 * resistor_ohm
     p_sources = point.i_ref ** 2 * rs + sum(r.p_source_resistor for r in results)
     tolerance = series_tolerance(options.series) if options.resistor_tolerance is None else options.resistor_tolerance
+    self_heating = None
+    if options.thermal_resistance is not None:
+        self_heating = self_heated_point(supply_v, resistor_ohm, ref.params, [p.params for p in outputs], load_v,
+                                         options.thermal_resistance, source_resistor_ohm=rs,
+                                         vth_tempco=options.vth_tempco)
     cautions = sink_cautions(supply_v=supply_v, load_voltage=load_v, p_ref=p_ref, p_resistor=p_resistor,
-                             r_chosen=resistor_ohm, outputs=heat, p_source_resistors=p_sources)
+                             r_chosen=resistor_ohm, outputs=heat, p_source_resistors=p_sources,
+                             self_heating=self_heating, output_names=[p.name for p in outputs])
     monte_carlo = None
     if options.monte_carlo:
         monte_carlo = run_monte_carlo(supply_v, resistor_ohm, ref, outputs, samples=options.monte_carlo,
@@ -238,7 +253,8 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         source_resistor=rs, vg=point.vg, vgs=point.vgs_ref, i_ref=point.i_ref, ref=ref.name, load_voltage=load_v,
         compliance_margin=options.compliance_margin_v, p_ref=p_ref, p_resistor=p_resistor, di_ref_dvsupply=d_ref,
         drift_ref_per_k=drift_ref, vth_tempco=options.vth_tempco, outputs=tuple(results), cautions=cautions,
-        parts=(ref, *outputs), monte_carlo=monte_carlo)
+        parts=(ref, *outputs), monte_carlo=monte_carlo,
+        self_heating=self_heating.to_dict() if self_heating is not None else None)
 
 
 def _synthesize_once(supply_v: float, target_a: float, ref: Part, outputs: Sequence[Part],
@@ -275,7 +291,7 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
     if options.mismatch_target is None:
         return _synthesize_once(supply_v, target_a, ref, outputs, options)
     target = options.mismatch_target
-    cheap = replace(options, monte_carlo=0)
+    cheap = replace(options, monte_carlo=0, thermal_resistance=None)
     plain = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=0.0))
     tried = [(0.0, plain.worst_error)]
     chosen = 0.0 if plain.worst_error <= target else None

@@ -76,6 +76,15 @@ def format_sink_report(design: SinkDesign, design_id: int | None = None) -> str:
             e = o["error"]
             lines.append(f"  {o['part']:<10} error 95 % in {e['p2_5'] * 100:+.3f} .. {e['p97_5'] * 100:+.3f} %, "
                          f"sigma {e['std'] * 100:.3f} %")
+    if design.self_heating:
+        sh = design.self_heating
+        lines.append(f"Self-heating at {sh['thermal_resistance']:g} K/W per part:")
+        if sh["runaway"]:
+            lines.append("  THERMAL RUNAWAY: the junction temperatures do not settle")
+        else:
+            lines.append(f"  reference +{sh['ref_rise']:.1f} K, I {si(sh['i_ref'], 'A')}")
+            for o, rise, i_out, err in zip(design.outputs, sh["output_rise"], sh["i_out"], sh["error"]):
+                lines.append(f"  {o.part:<16} +{rise:.1f} K, I {si(i_out, 'A')}, error {_pct(err)}")
     lines.append("")
     lines.append("CAUTIONS")
     for caution in design.cautions:
