@@ -98,9 +98,33 @@ def design_section(design: dict, figure_names: dict[str, str]) -> str:
         for o in outputs:
             out.append("<tr>" + "".join(f'<td class="t">{esc(_fmt(o.get(k)))}</td>' for k in keys) + "</tr>")
         out.append("</table>")
+    monte_carlo = design.get("monte_carlo")
+    if isinstance(monte_carlo, dict):
+        out.append(monte_carlo_section(monte_carlo))
     if "operating_point" in figure_names:
         out.append(f'<img src="{esc(figure_names["operating_point"])}" alt="operating point of the reference part">')
     return "\n".join(out)
+
+
+def monte_carlo_section(mc: dict) -> str:
+    """The spread of the design's Monte Carlo run: one row per statistic that has mean / std / 95 % band."""
+    rows = []
+
+    def add(name: str, stats: Any) -> None:
+        if isinstance(stats, dict) and "mean" in stats:
+            cells = [stats.get(k) for k in ("mean", "std", "p2_5", "p97_5")]
+            rows.append(f'<tr><td class="t">{esc(name)}</td>' + "".join(f"<td>{_num(c, '.5g')}</td>" for c in cells)
+                        + "</tr>")
+
+    add("i_ref (A)", mc.get("i_ref"))
+    for output in mc.get("outputs") or []:
+        if isinstance(output, dict):
+            add(f"{output.get('part', '?')} i_out (A)", output.get("i_out"))
+            add(f"{output.get('part', '?')} error", output.get("error"))
+    head = (f"<h3>Monte Carlo: {esc(mc.get('samples'))} samples, seed {esc(mc.get('seed'))}, resistor tolerance "
+            f"{esc(mc.get('resistor_tolerance'))}</h3>")
+    return head + ("<table><tr><th>quantity</th><th>mean</th><th>std</th><th>2.5 %</th><th>97.5 %</th></tr>"
+                   + "".join(rows) + "</table>" if rows else "<p>no statistics recorded</p>")
 
 
 def _fmt(value: Any) -> str:

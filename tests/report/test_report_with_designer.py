@@ -20,7 +20,7 @@ def test_designed_sink_is_reported_at_its_own_operating_point(tmp_path, source_r
                    for k in range(1, 4)]
         parts = [design_parts.Part(r.label, r.params, r.stderr, lot=r.lot, part_id=r.id) for r in records]
         design = sink.synthesize_sink(12.0, 0.02, parts[0], parts[1:],
-                                      sink.SinkOptions(source_resistor_ohm=source_resistor))
+                                      sink.SinkOptions(source_resistor_ohm=source_resistor, monte_carlo=50))
         design_id = lib.record_design(design.to_dict(), records)
         files = build_report(collect(lib, "demo-bag", design_id), tmp_path / "report")
         html = (tmp_path / "report" / "index.html").read_text()
@@ -29,6 +29,7 @@ def test_designed_sink_is_reported_at_its_own_operating_point(tmp_path, source_r
     # the report solves the reference branch again; it lands on the designer's recorded point
     assert op["id"] == pytest.approx(design.i_ref, rel=1e-9) and op["vgs"] == pytest.approx(design.vgs, abs=1e-9)
     text = html_to_text(html)
+    assert "Monte Carlo: 50 samples" in text and "demo-bag/Q2 i_out (A)" in text
     assert design.cautions and all(caution in text for caution in design.cautions)
 
 
