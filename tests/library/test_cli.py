@@ -128,3 +128,18 @@ def test_read_commands_do_not_create_a_library(capsys, tmp_path):
         code, out, err = run(capsys, *argv, "--library", str(missing))
         assert code == 2 and "no library here yet" in err and err.count("\n") == 1
     assert not missing.exists() and not missing.parent.exists() and not (tmp_path / "r").exists()
+
+
+def test_spice_export_keeps_polarity_and_names_by_label(capsys, tmp_path):
+    db = str(tmp_path / "lib.db")
+    run(capsys, "parts", "add", "QP1", "--polarity", "P", "--vth", "2.2", "--kp", "0.7", "--library", db)
+    run(capsys, "parts", "add", "QN1", "--vth", "2.4", "--kp", "0.8", "--library", db)
+    run(capsys, "parts", "add", "BARE", "--library", db)
+    code, out, _ = run(capsys, "export", "spice", "QP1", "QN1", "--library", db)
+    assert code == 0
+    cards = dict(re.findall(r"^\.model\s+(\S+)\s+(\w+MOS)", out, flags=re.M))
+    assert cards == {"QP1": "PMOS", "QN1": "NMOS"}
+    # SPICE convention (ngspice manual, MOSFET models): a P-channel VTO is negative
+    assert re.search(r"\.model QP1 PMOS \(LEVEL=1 VTO=-2\.2 ", out)
+    code, _, err = run(capsys, "export", "spice", "BARE", "--library", db)
+    assert code == 2 and "no fitted or hand-entered curve for default/BARE" in err
