@@ -272,13 +272,17 @@ class _Sweep:
             self.check_interrupt()
             chunk = levels[start:start + plan.list_chunk]
             readings = self.source.run_list(chunk, plan.settle_s)
-            for v, i in readings:
-                status = "ok" if math.isfinite(v) and math.isfinite(i) and abs(v) < 1e30 else "over_range"
-                point = SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=float(v), id=float(i),
-                                   v_source=float(v), i_source=float(i), status=status, direction="up")
-                previous = list(self.points)
-                self.store(point)
-                self.check_reading(point, previous)
+            first = len(self.points)
+            for v, i in readings:  # store the whole chunk first: every reading taken is kept
+                if not (math.isfinite(v) and math.isfinite(i) and abs(v) < 1e30):
+                    status = "over_range"
+                else:  # a list returns no compliance flag: a current at the compliance is one
+                    status = "compliance" if abs(i) >= 0.98 * self.source.compliance else "ok"
+                self.store(SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=float(v),
+                                      id=float(i), v_source=float(v), i_source=float(i), status=status,
+                                      direction="up"))
+            for k in range(first, len(self.points)):
+                self.check_reading(self.points[k], self.points[:k])
 
     def source_on_if_continuous(self) -> None:
         if not self.pulsed and not self.source.output_is_on():

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
 from benchlab.errors import BenchlabError, InstrumentError
@@ -118,3 +119,41 @@ def test_part_failing_mid_sweep_is_classified_and_stopped(tmp_path, kind, expect
     assert outcome.classification == expected
     assert f"failed {kind}" in outcome.reason and "during the sweep" in outcome.reason
     assert sweep.meta["classification"] == expected and len(sweep.vgs) == len(outcome.points)
+
+
+def test_smu_forcing_currents_measures_vgs_at_250ua(tmp_path):
+    with sim_bench("smu") as (sim, handle):
+        part = sim.current_part
+        outcome = sweep_part(handle, plan_for(handle, mode="currents", points=9, min_current_a=1e-5,
+                                              max_current_a=0.1), SessionWriter.create(tmp_path, "cur"), "Q01")
+        temperature = sim.temperature_k
+    assert [p.id for p in outcome.points] == pytest.approx(list(np.geomspace(1e-5, 0.1, 9)), rel=1e-3)
+    # datasheet VGS(th): VGS at 250 uA with VDS = VGS (common practice); the 250 uA point is forced exactly
+    assert outcome.vgs_at_ref == pytest.approx(voltage_at_current(part, 250e-6, temperature), abs=0.01)
+
+
+def test_smu_list_sweep_runs_in_uploaded_chunks(tmp_path):
+    volts = [round(0.25 * k, 2) for k in range(15)]  # 0 .. 3.5 V
+    with sim_bench("smu") as (sim, handle):
+        outcome = sweep_part(handle, plan_for(handle, voltages=volts, use_list=True),
+                             SessionWriter.create(tmp_path, "list"), "Q01")
+        uploads = [c for c in sim.log.commands("source_meter") if c.upper().startswith(("LIST:VOLT ", "SOUR:LIST:VOLT "))]
+        assert sim.log.last_output_state("source_meter") is False
+    # up to 2.75 V the part stays below the 62.5 mA compliance; at 3 V it hits it and the sweep stops
+    # after that list, keeping every reading the list returned
+    below = [p for p in outcome.points if p.status == "ok"]
+    assert [p.vgs for p in below] == pytest.approx(volts[:len(below)], abs=1e-3) and len(below) >= 8
+    assert outcome.points[len(below)].status == "compliance" and "compliance" in outcome.stop_reason
+    assert len(outcome.points) == 15 and len(uploads) == 2  # 15 setpoints in lists of 8, all returned
+    assert outcome.classification == "good"
+
+
+def test_pulsed_sweep_on_the_simulator_switches_per_point(tmp_path):
+    with sim_bench() as (sim, handle):
+        outcome = sweep_part(handle, plan_for(handle, pulsed_duty=0.2, start_v=2.0),
+                             SessionWriter.create(tmp_path, "pulse"), "Q01")
+        history = sim.log.output_history("supply")
+    assert history.count(True) == len(outcome.points) and history[-1] is False
+    assert 0 < outcome.powered_s < outcome.elapsed_s
+    assert read_sweep(only_session(tmp_path) / "Q01.json").meta["powered_s"] == pytest.approx(outcome.powered_s,
+                                                                                           abs=1e-5)
