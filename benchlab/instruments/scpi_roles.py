@@ -258,10 +258,11 @@ class ScpiSourceMeter(_OutputMixin, ScpiInstrument):
         """Force ``mode`` (``"voltage"``: compliance in A; ``"current"``: compliance in V)."""
         if mode not in ("voltage", "current"):
             raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
-        self.configure(f"source_{mode}")
         limit_of = "current" if mode == "voltage" else "voltage"
         unit = "amps" if limit_of == "current" else "volts"
+        # The limit first: whatever happens next, the protection for the new mode is already in place.
         self.configure(f"set_{limit_of}_compliance", **{unit: float(compliance)})
+        self.configure(f"source_{mode}")
         self.mode = mode
 
     def _require_mode(self) -> str:
