@@ -340,3 +340,38 @@ def _theta_start(vgs, i_meas, mask, vth, kp, ut):
     kp_line = np.where(good, 1.0 / np.where(good, intercept, 1.0), square.params[:, 1])
     theta = np.where(good, np.clip(slope * kp_line, 0.0, 10.0), 0.0)
     return np.stack([vth, kp_line, theta], axis=1)
+
+
+CHUNK_ROWS = 1024  # sweeps per solve: arrays of a few hundred kB stay in cache (about 2x faster than one huge batch)
+
+
+def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray | None = None,
+                *, ut: float = thermal_voltage(), chunk_rows: int = CHUNK_ROWS) -> BatchFit:
+    """Starting values (unless given) and :func:`solve_batch` over stacked sweeps, a chunk of rows at a time.
+
+    Parameters
+    ----------
+    model : str
+    vgs, i_meas, mask : ndarray, shape (B, N)
+        As :func:`solve_batch`.
+    start : ndarray, shape (B, P), optional
+        Starting parameters; default :func:`initial_guess`.
+    ut : float
+        Thermal voltage (V) for the ekv model.
+    chunk_rows : int
+        Sweeps solved together.
+
+    Returns
+    -------
+    BatchFit
+        For all B sweeps, in order.
+    """
+    parts = []
+    for lo in range(0, vgs.shape[0], chunk_rows):
+        rows = slice(lo, lo + chunk_rows)
+        begin = initial_guess(model, vgs[rows], i_meas[rows], mask[rows], ut=ut) if start is None else start[rows]
+        parts.append(solve_batch(model, vgs[rows], i_meas[rows], mask[rows], begin, ut=ut))
+    if len(parts) == 1:
+        return parts[0]
+    return BatchFit(model=model, **{name: np.concatenate([getattr(p, name) for p in parts])
+                                    for name in ("params", "covariance", "rss", "n_points", "iterations", "converged")})

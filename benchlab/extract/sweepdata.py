@@ -11,6 +11,7 @@ import csv
 import math
 import re
 from dataclasses import dataclass, field
+from functools import cached_property
 
 import numpy as np
 
@@ -67,7 +68,7 @@ class Sweep:
         """Points a fit uses: the up sweep (the coolest pass) when there is one, else the down sweep."""
         return self.select("up" if np.any(self.direction == "up") else "down")
 
-    @property
+    @cached_property
     def has_both_directions(self) -> bool:
         return bool(np.any(self.direction == "up") and np.any(self.direction == "down"))
 
