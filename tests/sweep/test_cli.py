@@ -22,8 +22,9 @@ def sim():
 
 
 def one_error_line(capsys) -> str:
-    err = capsys.readouterr().err.strip().splitlines()
-    assert len(err) == 1 and err[0].startswith("benchlab: error: "), err
+    text = capsys.readouterr().err
+    err = [line for line in text.strip().splitlines() if not line.startswith("session: ")]  # where it went
+    assert len(err) == 1 and err[0].startswith("benchlab: error: ") and "Traceback" not in text, err
     return err[0]
 
 
@@ -72,10 +73,24 @@ def test_unknown_part_on_the_simulator_writes_nothing(tmp_path, capsys):
 
 
 def test_sweep_command_prints_a_summary_line(tmp_path, capsys):
-    assert main(["sweep", "--part", "Q02", "--sim", "--sessions", str(tmp_path), "--points", "10"]) == 0
+    assert main(["sweep", "--part", "Q02", "--sim", "--sessions", str(tmp_path), "--points", "10", "--lot", "L7",
+                 "--operator", "kim", "--ambient", "24.5", "--down-sweep", "--start-v", "1.5", "--nplc", "2"]) == 0
     out = capsys.readouterr().out
     assert "Q02: good" in out and "at 250 uA" in out
-    assert (only_session(tmp_path) / "Q02.csv").exists()
+    session = read_session(only_session(tmp_path))
+    assert session.meta["operator"] == "kim" and session.meta["ambient_c"] == 24.5 and session.meta["lot"] == "L7"
+    sweep = session.sweeps["Q02"]
+    assert {"up", "down"} == set(sweep.direction) and sweep.meta["plan"]["nplc"] == 2.0
+    assert sweep.vgs[0] == pytest.approx(1.5, abs=0.01)  # started at --start-v
+
+
+def test_simulator_faults_from_the_command_line(tmp_path, capsys):
+    code = main(["sweep", "--part", "Q01", "--sim", "--sessions", str(tmp_path / "s"), "--sim-fault", "garble@meter=40"])
+    assert code == 2 and "unexpected" in one_error_line(capsys)
+    sweep = read_session(only_session(tmp_path / "s")).sweeps["Q01"]
+    assert sweep.complete is False and len(sweep.vgs) == sweep.meta["points"]
+    code = main(["sweep", "--part", "Q01", "--sim", "--sessions", str(tmp_path / "t"), "--sim-fault", "melt=3"])
+    assert code == 2 and "unknown kind" in one_error_line(capsys) and not (tmp_path / "t").exists()
 
 
 def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkeypatch):
