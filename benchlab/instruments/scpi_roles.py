@@ -21,6 +21,8 @@ from benchlab.instruments.transport import Transport
 # A queue holds 16 entries in the simulator (more on some instruments); stop reading after this
 # many so an instrument that never reports "0" cannot hang us.
 MAX_ERROR_READS = 64
+# Longest wait for *OPC? after *RST (common practice: resets finish within seconds).
+_RESET_WAIT_MS = 10000
 # Time of one power-line cycle at 50 Hz (the slower mains), for list-sweep waits.
 _PLC_SECONDS = 0.02
 
@@ -61,7 +63,8 @@ class ScpiInstrument:
         self.configure("clear_status")
         if reset:
             self.configure("reset")
-            self.ask("wait")
+            # A reset can take seconds on a real instrument; wait for it rather than time out.
+            self.ask("wait", timeout_ms=max(int(getattr(self.transport, "timeout_ms", 0)), _RESET_WAIT_MS))
         return self.identity
 
     def close(self) -> None:
