@@ -94,8 +94,9 @@ def sink_cautions(*, supply_v: float, load_voltage: float, p_ref: float, p_resis
                "follow IEC 62471 (lamps and LEDs) and IEC 60825-1 (lasers).")
     for o in outputs:
         if not o.in_compliance:
-            out.append(f"Compliance: {o.part} needs at least {o.v_compliance:.2f} V across it to stay in saturation "
-                       f"but the load voltage is {load_voltage:g} V; it will carry less than predicted.")
+            out.append(f"Compliance: {o.part} needs at least {o.v_compliance:.2f} V across it (margin included) to "
+                       f"stay in saturation but the load voltage is {load_voltage:g} V; its current then depends on "
+                       "the load voltage and no longer mirrors the reference.")
     out.append("This is an estimate from fitted models of measured parts at one temperature; it is not a certified "
                "design. Local electrical codes, the parts' datasheets and licensed practice override it. Switch off and "
                "discharge before touching the circuit, and verify the currents by measurement.")

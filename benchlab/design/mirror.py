@@ -27,6 +27,54 @@ class MirrorPoint:
     i_ref: float
     i_out: tuple[float, ...]
     vgs_out: tuple[float, ...]
+    regions: tuple[str, ...] = ()
+
+
+# Laws with a triode form: the SPICE level-1/3 linear region, ID = KP VDS (Vov - VDS/2) / (1 + THETA Vov).
+TRIODE_LAWS = ("square", "theta")
+
+
+def triode_current(params: DeviceParams, vgs: float, vds: float) -> float:
+    """Drain current below saturation (0 <= VDS < VGS - Vth) for the square and theta laws.
+
+    Level-1 linear region (ngspice mos1load.c) with the level-3 mobility factor 1/(1 + THETA Vov),
+    which meets the saturation law at VDS = Vov.
+    """
+    vov = vgs - params.vth
+    if vov <= 0 or vds <= 0:
+        return 0.0
+    vds = min(vds, vov)
+    theta = params.theta if params.model == "theta" else 0.0
+    return params.kp * vds * (vov - 0.5 * vds) / (1.0 + theta * vov)
+
+
+def _triode_output(params: DeviceParams, gate_v: float, rs: float, drain_v: float, i_sat: float) -> tuple[float, float]:
+    # I = ID_triode(VG - I Rs, Vd - I Rs): negative at I = 0, positive at the saturation answer
+    def excess(i_d: float) -> float:
+        return i_d - triode_current(params, gate_v - i_d * rs, drain_v - i_d * rs)
+
+    if excess(i_sat) <= 0:
+        return i_sat, gate_v - i_sat * rs
+    i_d = brentq(excess, 0.0, i_sat, xtol=1e-300, rtol=4.5e-15, maxiter=500)
+    return float(i_d), gate_v - i_d * rs
+
+
+def output_in_circuit(params: DeviceParams, gate_v: float, source_resistor_ohm: float = 0.0,
+                      drain_v: float | None = None) -> tuple[float, float, str]:
+    """Current, VGS and region of an output whose drain sits at ``drain_v`` (None: assume saturation).
+
+    Regions: ``saturation``; ``triode`` (solved with :func:`triode_current`); ``triode-unmodelled``
+    for laws without a triode form (linear, ekv), whose current is then the saturation value.
+    """
+    i_sat, vgs = output_current(params, gate_v, source_resistor_ohm)
+    if drain_v is None or i_sat <= 0:
+        return i_sat, vgs, "saturation"
+    if drain_v - i_sat * source_resistor_ohm >= vgs - params.vth:
+        return i_sat, vgs, "saturation"
+    if params.model not in TRIODE_LAWS:
+        return i_sat, vgs, "triode-unmodelled"
+    i_d, vgs_t = _triode_output(params, gate_v, source_resistor_ohm, drain_v, i_sat)
+    return i_d, vgs_t, "triode"
 
 
 def output_current(params: DeviceParams, gate_v: float, source_resistor_ohm: float = 0.0) -> tuple[float, float]:
@@ -55,7 +103,7 @@ def output_current(params: DeviceParams, gate_v: float, source_resistor_ohm: flo
 
 
 def solve_mirror(supply_v: float, resistor_ohm: float, ref: DeviceParams, outputs: Sequence[DeviceParams],
-                 source_resistor_ohm: float = 0.0) -> MirrorPoint:
+                 source_resistor_ohm: float = 0.0, drain_v: float | None = None) -> MirrorPoint:
     """Operating point of the whole sink for a given supply and resistor.
 
     Parameters
@@ -67,9 +115,12 @@ def solve_mirror(supply_v: float, resistor_ohm: float, ref: DeviceParams, output
     ref : DeviceParams
         Reference part (diode-connected).
     outputs : sequence of DeviceParams
-        Output parts, gates on the reference gate node, assumed in saturation.
+        Output parts, gates on the reference gate node.
     source_resistor_ohm : float
         Degeneration resistor in every source (ohm), 0 for none.
+    drain_v : float, optional
+        Voltage at every output drain; when given, outputs below saturation are solved in their
+        triode region (see :func:`output_in_circuit`), else saturation is assumed.
 
     Returns
     -------
@@ -81,9 +132,9 @@ def solve_mirror(supply_v: float, resistor_ohm: float, ref: DeviceParams, output
         raise DesignError(f"the resistor must be positive, got {resistor_ohm} ohm")
     vgs_ref, i_ref = solve_resistor_line(ref, supply_v, resistor_ohm, source_resistor_ohm)
     vg = vgs_ref + i_ref * source_resistor_ohm
-    solved = [output_current(p, vg, source_resistor_ohm) for p in outputs]
+    solved = [output_in_circuit(p, vg, source_resistor_ohm, drain_v) for p in outputs]
     return MirrorPoint(vg=vg, vgs_ref=vgs_ref, i_ref=i_ref, i_out=tuple(s[0] for s in solved),
-                       vgs_out=tuple(s[1] for s in solved))
+                       vgs_out=tuple(s[1] for s in solved), regions=tuple(s[2] for s in solved))
 
 
 def resistor_for_current(supply_v: float, target_a: float, ref: DeviceParams,

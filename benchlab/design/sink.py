@@ -15,7 +15,7 @@ from typing import Any, Sequence
 
 from benchlab.design.cautions import OutputHeat, sink_cautions
 from benchlab.design.eseries import nearest_preferred, series_decade, series_tolerance, series_values
-from benchlab.design.mirror import output_current, resistor_for_current, solve_mirror
+from benchlab.design.mirror import output_in_circuit, resistor_for_current, solve_mirror
 from benchlab.design.montecarlo import run_monte_carlo
 from benchlab.design.parts import Part
 from benchlab.design.thermal import self_heated_point
@@ -99,6 +99,7 @@ class OutputResult:
     di_dvsupply: float
     drift_per_k: float
     tc_fixed_vgs: float
+    region: str = "saturation"
 
     def to_dict(self) -> dict[str, Any]:
         return dict(self.__dict__)
@@ -200,16 +201,24 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     options = options.validated()
     _check_parts(ref, outputs)
     rs = float(options.source_resistor_ohm)
-    point = solve_mirror(supply_v, resistor_ohm, ref.params, [p.params for p in outputs], rs)
+    load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
+    out_params = [p.params for p in outputs]
+    point = solve_mirror(supply_v, resistor_ohm, ref.params, out_params, rs, drain_v=load_v)
     if point.i_ref <= 0:
         raise DesignError(f"the reference part {ref.name} does not conduct on {supply_v:g} V through {resistor_ohm:g} ohm")
-    load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
     d_ref, d_outs = _supply_sensitivity(ref, outputs, point.i_ref, point.i_out, resistor_ohm, rs)
+    if any(region != "saturation" for region in point.regions):
+        # below saturation the closed form does not hold: central difference on the exact solve
+        h = 1e-5 * supply_v
+        up = solve_mirror(supply_v + h, resistor_ohm, ref.params, out_params, rs, drain_v=load_v)
+        down = solve_mirror(supply_v - h, resistor_ohm, ref.params, out_params, rs, drain_v=load_v)
+        d_outs = [d if region == "saturation" else (u - w) / (2 * h)
+                  for d, region, u, w in zip(d_outs, point.regions, up.i_out, down.i_out)]
 
     # Everything at +delta_t: resistors assumed not to drift, all parts at the same temperature.
     hot = [p.params.with_temperature(p.params.temperature_k + options.delta_t_k, options.vth_tempco)
            for p in (ref, *outputs)]
-    hot_point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs)
+    hot_point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs, drain_v=load_v)
     drift_ref = (hot_point.i_ref / point.i_ref - 1.0) / options.delta_t_k
 
     results = []
@@ -220,13 +229,13 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         p_rs = i_out * i_out * rs
         # one output warming alone by 1 K at a fixed gate voltage (its own self-heating)
         warm = part.params.with_temperature(part.params.temperature_k + 1.0, options.vth_tempco)
-        i_warm = output_current(warm, point.vg, rs)[0]
+        i_warm = output_in_circuit(warm, point.vg, rs, load_v)[0]
         tc = (i_warm / i_out - 1.0) if i_out > 0 else 0.0
         drift = (hot_point.i_out[k] / i_out - 1.0) / options.delta_t_k if i_out > 0 else 0.0
         result = OutputResult(part=part.name, i_out=i_out, error=i_out / point.i_ref - 1.0, vgs=vgs,
                               v_compliance=compliance, in_compliance=load_v >= compliance,
                               p_part=max(load_v - i_out * rs, 0.0) * i_out, p_source_resistor=p_rs,
-                              di_dvsupply=d_outs[k], drift_per_k=drift, tc_fixed_vgs=tc)
+                              di_dvsupply=d_outs[k], drift_per_k=drift, tc_fixed_vgs=tc, region=point.regions[k])
         results.append(result)
         heat.append(OutputHeat(part.name, result.p_part, tc, result.in_compliance, compliance))
 

@@ -62,6 +62,10 @@ def format_sink_report(design: SinkDesign, design_id: int | None = None) -> str:
         lines.append(header)
         for o in design.outputs:
             flag = "" if o.in_compliance else "  OUT OF COMPLIANCE"
+            if o.region == "triode":
+                flag += " (triode, solved)"
+            elif o.region == "triode-unmodelled":
+                flag += " (triode; this law has no triode form: current overestimated)"
             lines.append(f"  {o.part:<16} {si(o.i_out, 'A'):>11} {_pct(o.error):>10} {o.v_compliance:>9.3f} V "
                          f"{si(o.p_part, 'W'):>10} {o.drift_per_k * 100:>+8.4f} {o.tc_fixed_vgs * 100:>+10.4f}{flag}")
         lines.append(f"  worst error {design.worst_error * 100:.3f} %   ('%/K alone': one output warming at a fixed "

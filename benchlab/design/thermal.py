@@ -71,7 +71,7 @@ def self_heated_point(supply_v: float, resistor_ohm: float, ref: DeviceParams, o
         raise ValueError("the thermal resistance must be > 0 K/W")
     rs = source_resistor_ohm
     rises = [0.0] * (1 + len(outputs))
-    point = solve_mirror(supply_v, resistor_ohm, ref, outputs, rs)
+    point = solve_mirror(supply_v, resistor_ohm, ref, outputs, rs, drain_v=load_voltage)
     for iteration in range(1, max_iterations + 1):
         powers = [point.vgs_ref * point.i_ref]
         powers += [max(load_voltage - i * rs, 0.0) * i for i in point.i_out]
@@ -83,7 +83,7 @@ def self_heated_point(supply_v: float, resistor_ohm: float, ref: DeviceParams, o
         if max(rises) > RUNAWAY_RISE_K:
             return _result(thermal_resistance, True, iteration, rises, point)
         hot = [p.with_temperature(p.temperature_k + dt, vth_tempco) for p, dt in zip((ref, *outputs), rises)]
-        point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs)
+        point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs, drain_v=load_voltage)
         if moved < tol_k:
             return _result(thermal_resistance, False, iteration, rises, point)
     return _result(thermal_resistance, True, max_iterations, rises, point)

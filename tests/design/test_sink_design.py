@@ -140,13 +140,16 @@ def test_temperature_coefficient_changes_sign_at_the_zero_tc_point():
 def test_degeneration_suggestion_is_the_smallest_preferred_value_meeting_the_target():
     ref = sq("R", 2.5, 0.8, 0.1)
     outs = [sq("A", 2.56, 0.8, 0.1), sq("B", 2.47, 0.82, 0.1)]
-    design = synthesize_sink(12.0, 0.1, ref, outs, SinkOptions(mismatch_target=0.01, load_voltage=5.0))
+    design = synthesize_sink(12.0, 0.1, ref, outs, SinkOptions(mismatch_target=0.01, load_voltage=10.0))
     rs = design.degeneration["suggested_ohm"]
     assert design.source_resistor == rs and design.worst_error <= 0.01
     assert design.degeneration["worst_error_without"] > 0.01
     smaller = [v for v in series_values("E24", 0.1, rs) if v < rs]
-    below = synthesize_sink(12.0, 0.1, ref, outs, SinkOptions(source_resistor_ohm=smaller[-1], load_voltage=5.0))
+    below = synthesize_sink(12.0, 0.1, ref, outs, SinkOptions(source_resistor_ohm=smaller[-1], load_voltage=10.0))
     assert below.worst_error > 0.01
+    # with only 5 V across the sink, the source drop needed pushes the outputs out of saturation first
+    with pytest.raises(DesignError, match="best"):
+        synthesize_sink(12.0, 0.1, ref, outs, SinkOptions(mismatch_target=0.01, load_voltage=5.0))
     with pytest.raises(DesignError):
         synthesize_sink(5.0, 0.5, ref, [sq("C", 3.5, 0.8)], SinkOptions(mismatch_target=0.001))
 
@@ -253,3 +256,19 @@ def test_synthesis_hits_the_target_with_the_exact_resistor(ref_params, target, s
         return
     assert design.r_chosen == nearest_preferred(design.r_exact, series)
     assert analyze_sink(supply, design.r_exact, ref, []).i_ref == pytest.approx(target, rel=1e-8)
+
+
+def test_triode_law_meets_saturation_at_the_edge():
+    # SPICE level-1 linear region (ngspice mos1load.c): KP VDS (Vov - VDS/2) equals (KP/2) Vov^2 at VDS = Vov.
+    from benchlab.design.mirror import output_in_circuit, triode_current
+
+    params = DeviceParams("theta", 2.0, kp=0.8, theta=0.2)
+    vgs = 2.6
+    assert triode_current(params, vgs, 0.6) == pytest.approx(float(params.current(vgs)), rel=1e-12)
+    assert triode_current(params, vgs, 0.3) < float(params.current(vgs))
+    i_sat, _, region = output_in_circuit(params, vgs, 0.0, drain_v=5.0)
+    assert region == "saturation" and i_sat == pytest.approx(float(params.current(vgs)))
+    i_tri, _, region = output_in_circuit(params, vgs, 0.0, drain_v=0.3)
+    assert region == "triode" and i_tri == pytest.approx(triode_current(params, vgs, 0.3))
+    _, _, region = output_in_circuit(DeviceParams("linear", 2.0, gm=0.5), vgs, 0.0, drain_v=0.1)
+    assert region == "triode-unmodelled"

@@ -67,3 +67,18 @@ def test_ngspice_sees_the_mismatch_the_design_predicts(ngspice_path, tmp_path):
     sim_error = sim["i_out_1"] / sim["i_ref"] - 1.0
     assert design.outputs[0].error < -0.05
     assert sim_error == pytest.approx(design.outputs[0].error, abs=1e-4)
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("rs", [0.0, 2.2])
+def test_outputs_below_saturation_agree_with_ngspice(ngspice_path, tmp_path, rs):
+    # Outside reference: ngspice's level-1 and level-3 linear regions. A 0.2 V drain-source voltage leaves the
+    # outputs (overdrive about 0.5 V) in triode; benchlab must flag and solve them the same way.
+    design = synthesize_sink(12.0, 0.12, REF, OUTPUTS[:2],
+                             SinkOptions(load_voltage=0.2 + 0.12 * rs, source_resistor_ohm=rs))
+    assert all(o.region == "triode" and not o.in_compliance for o in design.outputs)
+    sim = simulate(ngspice_path, tmp_path, design)
+    assert sim["i_ref"] == pytest.approx(design.i_ref, rel=5e-3)
+    for k, out in enumerate(design.outputs, start=1):
+        assert out.i_out < 0.95 * design.i_ref
+        assert sim[f"i_out_{k}"] == pytest.approx(out.i_out, rel=5e-3)
