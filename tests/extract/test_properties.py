@@ -80,3 +80,21 @@ def test_standard_errors_cover_the_truth(v0, k0, t0, n0, s):
     assert abs(result.vth - v0) <= 5 * result.stderr["vth"]
     assert abs(result.kp - k0) <= 5 * result.stderr["kp"]
     assert 0 < result.stderr["vth"] < 0.01
+
+
+@SETTINGS
+@given(vth, kp, theta, seed)
+def test_bootstrap_and_covariance_errors_agree(v0, k0, t0, s):
+    # two independent estimates of the same standard error (linearised covariance and residual
+    # bootstrap, Efron & Tibshirani, An Introduction to the Bootstrap, 1993) must be of one size
+    part = DeviceParams("theta", vth=v0, kp=k0, theta=t0)
+    rng = np.random.default_rng(s)
+    currents = np.geomspace(1e-3, 0.3, 40)
+    ids = currents * (1 + 2e-3 * rng.standard_normal(currents.size))
+    vgs = part.vgs_at(currents)
+    cov = fit_sweep(vgs, ids, model="theta", at_current=0.05)
+    boot = fit_sweep(vgs, ids, model="theta", at_current=0.05, bootstrap=200, seed=s)
+    assert boot.vth == cov.vth  # the bootstrap changes the error bars, not the fit
+    for key in ("vth", "kp", "theta", "gm", "vgs_at_current"):
+        ratio = boot.stderr[key] / cov.stderr[key]
+        assert 0.5 < ratio < 2.0, (key, ratio)
