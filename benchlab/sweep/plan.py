@@ -188,6 +188,20 @@ def target_currents(min_current_a: float, max_current_a: float, points: int) -> 
     return np.geomspace(min_current_a, max_current_a, int(points))
 
 
+def line_worst_power(supply_v: float, resistor_ohm: float, current_limit_a: float) -> float:
+    """Most power (W) any two-terminal part can take when fed from ``supply_v`` through ``resistor_ohm``.
+
+    The part sees V = Vs - I R, so P(I) = (Vs - I R) I, largest at I = Vs / 2R (maximum power
+    transfer), and the supply's current limit caps I. Derived; the maximum power transfer theorem is
+    textbook circuit theory.
+    """
+    if supply_v <= 0:
+        return 0.0
+    i_peak = supply_v / (2.0 * resistor_ohm)
+    i_worst = min(i_peak, current_limit_a)
+    return (supply_v - i_worst * resistor_ohm) * i_worst
+
+
 def _positive(name: str, value: float) -> None:
     if not (isinstance(value, (int, float)) and math.isfinite(value) and value > 0):
         raise InputError(f"{name} must be a positive number, got {value!r}")
@@ -250,6 +264,11 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
             if v > lim.max_supply_v:
                 raise SafetyError(f"sweep voltage {v:g} V is above the bench limit max_supply_v "
                                   f"{lim.max_supply_v:g} V")
+            if plan.fixture == "resistor" and line_worst_power(v, plan.series_resistor_ohm,
+                                                               plan.current_limit()) > lim.max_power_w:
+                raise SafetyError(f"sweep voltage {v:g} V through {plan.series_resistor_ohm:g} ohm could put up to "
+                                  f"{line_worst_power(v, plan.series_resistor_ohm, plan.current_limit()):.3g} W "
+                                  f"in the part, above max_power_w {lim.max_power_w:g} W")
             if plan.fixture == "smu" and v * plan.current_limit() > lim.max_power_w:
                 # on a SMU all of the source power lands in the part: compliance x voltage bounds it
                 raise SafetyError(f"sweep voltage {v:g} V at compliance {plan.current_limit():g} A could put "
@@ -266,4 +285,4 @@ def plan_field_names() -> tuple[str, ...]:
 
 
 __all__ = ["Limits", "SweepPlan", "target_currents", "validate_plan", "REFERENCE_CURRENT_A", "FIXTURES", "MODES",
-           "plan_field_names"]
+           "plan_field_names", "line_worst_power"]

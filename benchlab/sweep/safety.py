@@ -20,27 +20,13 @@ import time
 from typing import Callable, Sequence
 
 from benchlab.errors import SafetyError
-from benchlab.sweep.plan import Limits
+from benchlab.sweep.plan import Limits, line_worst_power
 
 _SLACK = 1e-9  # relative slack on comparisons so a setpoint exactly at a limit is allowed
 
 
 def _within(value: float, limit: float) -> bool:
     return value <= limit * (1.0 + _SLACK)
-
-
-def line_worst_power(supply_v: float, resistor_ohm: float, current_limit_a: float) -> float:
-    """Most power (W) any two-terminal part can take when fed from ``supply_v`` through ``resistor_ohm``.
-
-    The part sees V = Vs - I R, so P(I) = (Vs - I R) I, largest at I = Vs / 2R (maximum power
-    transfer), and the supply's current limit caps I. Derived; the maximum power transfer theorem is
-    textbook circuit theory.
-    """
-    if supply_v <= 0:
-        return 0.0
-    i_peak = supply_v / (2.0 * resistor_ohm)
-    i_worst = min(i_peak, current_limit_a)
-    return (supply_v - i_worst * resistor_ohm) * i_worst
 
 
 class _PoweredClock:

@@ -391,3 +391,12 @@ def test_next_adaptive_step_never_leaves_the_limits(level, vgs, i_d, r):
         assert step.level <= level + plan.max_step_v + 1e-6  # bounded step
         if step.expect_id is not None:
             assert step.expect_id <= LIMITS.max_drain_a
+
+
+def test_voltage_list_beyond_the_worst_case_power_is_refused_up_front():
+    # 12 V through 10 ohm, current limit 0.5 A (below the 0.6 A of maximum power transfer):
+    # (12 V - 0.5 A x 10 ohm) x 0.5 A = 3.5 W could land in a part, above the 2 W limit
+    bench = FakeBench()
+    with pytest.raises(SafetyError, match="could put up to 3.5 W"):
+        sweep(bench, resistor_plan(mode="voltages", voltages=(1.0, 12.0), max_current_a=0.4))
+    assert bench.log == []
