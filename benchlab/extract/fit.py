@@ -63,8 +63,9 @@ def _check_options(model, at_current, cc_current, window, bootstrap):
         lo, hi = window
         if not (math.isfinite(lo) and math.isfinite(hi) and 0 < lo < hi):
             raise InputError(f"window must be two currents 0 < low < high in A (got {lo}, {hi})")
-    if int(bootstrap) < 0:
-        raise InputError("bootstrap must be 0 (off) or a number of resamples")
+    if int(bootstrap) < 0 or int(bootstrap) == 1:
+        raise InputError(f"bootstrap must be 0 (off) or a number of resamples, at least 2 (got {bootstrap}); "
+                         "a few hundred give steady error bars")
 
 
 def _window(model: str, i_d: np.ndarray, window, at_current) -> tuple[np.ndarray, str]:
