@@ -41,6 +41,7 @@ INLINE_HELP = ('inline curve, no library needed: comma-separated key=value with 
 
 
 def register(subparsers) -> None:
+    """Add ``design`` with its ``sink``, ``match`` and ``bin`` actions to the CLI."""
     common = _common()
     parser = subparsers.add_parser("design", help="design current sinks, pick matched sets, bin parts by VGS",
                                    description="Design work on measured parts: current sinks (reference + outputs), "

@@ -93,6 +93,7 @@ class MatchedSet:
     vgs_ref: float
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"ref": self.ref, "outputs": list(self.outputs), "worst_error": self.worst_error,
                 "errors": list(self.errors), "ref_index": self.ref_index,
                 "output_indices": list(self.output_indices), "vgs_ref": self.vgs_ref}
@@ -110,6 +111,7 @@ class MatchResult:
     unmatched: int
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"currents": list(self.currents), "size": self.size, "method": self.method,
                 "objective": self.objective, "sets": [s.to_dict() for s in self.sets], "unmatched": self.unmatched}
 
@@ -340,6 +342,7 @@ class VgsBin:
     parts: tuple[str, ...]
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"low": self.low, "high": self.high, "count": self.count, "parts": list(self.parts)}
 
 

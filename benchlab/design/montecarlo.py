@@ -38,6 +38,7 @@ class MonteCarloResult:
     worst_error_p97_5: float
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"samples": self.samples, "seed": self.seed, "resistor_tolerance": self.resistor_tolerance,
                 "i_ref": dict(self.i_ref), "outputs": [dict(o) for o in self.outputs],
                 "worst_error_p97_5": self.worst_error_p97_5}

@@ -50,6 +50,7 @@ class Part:
         return f"{self.lot}/{self.label}" if self.lot else self.label
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"label": self.label, "lot": self.lot, "part_id": self.part_id,
                 "params": self.params.to_dict(), "stderr": {k: (float(v) if v is not None else None) for k, v in self.stderr.items()}}
 

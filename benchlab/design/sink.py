@@ -68,6 +68,7 @@ class SinkOptions:
     thermal_resistance: float | None = None
 
     def validated(self) -> "SinkOptions":
+        """These options, after checking every value (an ``InputError`` names the first bad one)."""
         series_decade(self.series)
         if self.source_resistor_ohm < 0:
             raise InputError("the source (degeneration) resistor must be >= 0 ohm")
@@ -102,6 +103,7 @@ class OutputResult:
     region: str = "saturation"
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return dict(self.__dict__)
 
 
@@ -141,6 +143,7 @@ class SinkDesign:
         return max((abs(o.error) for o in self.outputs), default=0.0)
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         data = {k: getattr(self, k) for k in (
             "mode", "supply", "i_target", "r_exact", "r_chosen", "series", "resistor_tolerance", "source_resistor",
             "vg", "vgs", "i_ref", "ref", "load_voltage", "compliance_margin", "p_ref", "p_resistor",

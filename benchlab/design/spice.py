@@ -74,6 +74,7 @@ class SpiceCard:
     text: str
 
     def to_dict(self) -> dict:
+        """Plain-JSON form (SI units)."""
         return {"name": self.name, "level": self.level, "text": self.text}
 
 

@@ -34,6 +34,7 @@ class SelfHeating:
     error: tuple[float, ...]
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain-JSON form (SI units)."""
         return {"thermal_resistance": self.thermal_resistance, "runaway": self.runaway,
                 "iterations": self.iterations, "ref_rise": self.ref_rise, "i_ref": self.i_ref,
                 "output_rise": list(self.output_rise), "i_out": list(self.i_out), "error": list(self.error)}
