@@ -105,6 +105,8 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
         if lib is None:
             raise InputError("naming parts needs a device library (use --ref-model / --out-model without one)")
         record = lib.get_part(spec)
+        if record.polarity != "N":
+            raise InputError(f"part '{record.spec}' is {record.polarity}-channel; the sink is built from N-channel parts")
         part = part_from_record(record)
         records[part.name] = record
         return part

@@ -149,3 +149,11 @@ def test_bad_requests_give_one_line_and_write_nothing(capsys, tmp_path, monkeypa
     assert code == 2 and needle in err
     assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
     assert not spice.exists()
+
+
+def test_a_p_channel_part_is_refused_for_the_sink(capsys, bag_library):
+    with Library.open(bag_library) as lib:
+        lib.add_part("P1", lot="grow-rack", polarity="P", params=DeviceParams("square", 2.0, kp=0.5))
+    code, _, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "12", "--current", "0.1",
+                       "--ref", "P1")
+    assert code == 2 and "N-channel" in err
