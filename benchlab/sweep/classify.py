@@ -90,7 +90,7 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
         spread = max(abs(p.spread_v) for p in unsettled)
         return Classification("unstable", f"readings did not settle at {len(unsettled)} of {len(usable)} points "
                                           f"(VGS moved up to {spread * 1e3:.1f} mV between repeated readings)")
-    vref = vgs_at_current(points, reference_current_a)
+    vref = vgs_at_current(points, reference_current_a, detect_current_a)
     onset = min(conducting, key=lambda p: p.vgs)
     scale_v = vref if vref is not None else onset.vgs
     low = [p for p in usable if p.direction == "up" and p.vgs <= LEAK_VGS_FRACTION * scale_v and p.vgs > 0]

@@ -330,7 +330,7 @@ class _Sweep:
         return SweepOutcome(label=self.label, complete=complete, stop_reason=stop_reason,
                             classification=verdict.kind, reason=reason, points=tuple(self.points),
                             powered_s=self.source.powered_s, elapsed_s=self.clock() - self.t0,
-                            vgs_at_ref=vgs_at_current(self.points, REFERENCE_CURRENT_A),
+                            vgs_at_ref=vgs_at_current(self.points, REFERENCE_CURRENT_A, plan.detect_floor_a()),
                             reference_current_a=REFERENCE_CURRENT_A, error=error,
                             shutdown_problems=tuple(problems))
 

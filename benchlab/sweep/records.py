@@ -143,22 +143,25 @@ class SweepFault:
         return {"event": "fault", **data}
 
 
-def vgs_at_current(points, current_a: float) -> float | None:
+def vgs_at_current(points, current_a: float, floor_a: float = 0.0) -> float | None:
     """VGS (V) at ``current_a`` interpolated in log(current) between the two up-sweep points around it.
 
     Parameters
     ----------
     points : sequence of SweepPoint
-        The sweep's points (only usable up-direction points with ``id > 0`` are used).
+        The sweep's points (only usable up-direction points with ``id > floor_a`` are used).
     current_a : float
         The current (A), e.g. 250e-6 for the datasheet VGS(th).
+    floor_a : float
+        Points at or below this current are noise, not a curve to interpolate on (A).
 
     Returns
     -------
     float or None
         None when the data does not bracket the current.
     """
-    usable = [p for p in points if p.direction == "up" and p.usable and p.status != "compliance" and p.id > 0]
+    usable = [p for p in points
+              if p.direction == "up" and p.usable and p.status != "compliance" and p.id > max(floor_a, 0.0)]
     if len(usable) < 2:
         return None
     ids = np.array([p.id for p in usable])
