@@ -50,6 +50,7 @@ class FakeBench:
         self.fail_exc: BaseException = RuntimeError("instrument exploded")
         self.reads = 0
         self.on_read = None  # hook(bench) called at each meter read
+        self.over_range_from: int | None = None  # meter reads from this count on return +inf
         self.supply = _Supply(self)
         self.meter = _Meter(self)
         self.source_meter = _SMU(self)
@@ -159,6 +160,8 @@ class _Meter:
         self.b.reads += 1
         if self.b.on_read:
             self.b.on_read(self.b)
+        if self.b.over_range_from is not None and self.b.reads >= self.b.over_range_from:
+            return math.inf  # the SCPI over-range value 9.9E37, as the role classes report it
         v, i = self.b.operating_point()
         if self.function == "curr":
             return i

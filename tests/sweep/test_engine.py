@@ -400,3 +400,13 @@ def test_voltage_list_beyond_the_worst_case_power_is_refused_up_front():
     with pytest.raises(SafetyError, match="could put up to 3.5 W"):
         sweep(bench, resistor_plan(mode="voltages", voltages=(1.0, 12.0), max_current_a=0.4))
     assert bench.log == []
+
+
+def test_readings_over_range_are_recorded_and_three_in_a_row_stop_the_sweep():
+    bench = FakeBench()
+    bench.over_range_from = 40
+    outcome = sweep(bench, resistor_plan())
+    assert [p.status for p in outcome.points[-3:]] == ["over_range"] * 3
+    assert outcome.stop_reason == "three readings in a row over range"
+    assert all(p.status != "over_range" for p in outcome.points[:-3])
+    assert_off(bench)
