@@ -188,14 +188,13 @@ class PromptPartLoader:
         # looked up at call time so a caller (or a test) replacing input/print is honoured
         self.ask = ask or (lambda prompt: input(prompt))
         self.say = say or (lambda text: print(text))
-        self.number = 0
+        self.used: list[str] = []  # distinct labels given so far
 
     def next(self) -> str | None:
-        self.number += 1
-        default = f"Q{self.number:02d}"
+        default = f"Q{len(self.used) + 1:02d}"
         while True:
             try:
-                answer = self.ask(f"Part {self.number}: put it in the fixture (output is off), type its label "
+                answer = self.ask(f"Part {len(self.used) + 1}: put it in the fixture (output is off), type its label "
                                   f"[{default}] and press Enter, or q to stop: ").strip()
             except EOFError:
                 return None
@@ -203,9 +202,13 @@ class PromptPartLoader:
                 return None
             label = answer or default
             try:
-                return check_name("part label", label)
+                check_name("part label", label)
             except InputError as exc:
                 self.say(str(exc))
+                continue
+            if label not in self.used:
+                self.used.append(label)
+            return label
 
 
 # --------------------------------------------------------------------------------------------- sweeping
@@ -290,6 +293,8 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
                 break
             if label in done:
                 skipped.append(label)
+                if isinstance(loader, PromptPartLoader):  # tell the operator now, not only at the end
+                    loader.say(f"{label} is already measured in this session: skipped")
                 continue
             outcome = sweep_part(handle, plan, session, label, on_event, cancel)
             outcomes.append(outcome)

@@ -85,7 +85,8 @@ def test_sweep_command_prints_a_summary_line(tmp_path, capsys):
 
 
 def test_simulator_faults_from_the_command_line(tmp_path, capsys):
-    code = main(["sweep", "--part", "Q01", "--sim", "--sessions", str(tmp_path / "s"), "--sim-fault", "garble@meter=40"])
+    code = main(["sweep", "--part", "Q01", "--sim", "--sessions", str(tmp_path / "s"),
+                 "--sim-fault", "garble@meter=40"])
     assert code == 2 and "unexpected" in one_error_line(capsys)
     sweep = read_session(only_session(tmp_path / "s")).sweeps["Q01"]
     assert sweep.complete is False and len(sweep.vgs) == sweep.meta["points"]
@@ -94,7 +95,7 @@ def test_simulator_faults_from_the_command_line(tmp_path, capsys):
 
 
 def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkeypatch):
-    answers = iter(["A-1", "", "q"])
+    answers = iter(["A-1", "A-1", "", "q"])
     prompts = []
 
     def fake_input(prompt):
@@ -106,7 +107,8 @@ def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkey
     code = main(["bag", "--lot", "bench-bag", "--count", "5", "--bench", str(path), "--sessions", str(tmp_path / "s"),
                  "--points", "8"])
     captured = capsys.readouterr()
-    assert code == 0 and len(prompts) == 3 and "q to stop" in prompts[0]
+    assert code == 0 and len(prompts) == 4 and "q to stop" in prompts[0]
+    assert "A-1 is already measured in this session: skipped" in captured.out
     assert "Caution" in captured.err  # the usual cautions before powering a real fixture
     session = read_session(only_session(tmp_path / "s"))
     assert session.meta["parts"] == ["A-1", "Q02"]  # Enter takes the suggested label

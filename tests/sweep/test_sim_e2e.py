@@ -137,7 +137,8 @@ def test_smu_list_sweep_runs_in_uploaded_chunks(tmp_path):
     with sim_bench("smu") as (sim, handle):
         outcome = sweep_part(handle, plan_for(handle, voltages=volts, use_list=True),
                              SessionWriter.create(tmp_path, "list"), "Q01")
-        uploads = [c for c in sim.log.commands("source_meter") if c.upper().startswith(("LIST:VOLT ", "SOUR:LIST:VOLT "))]
+        uploads = [c for c in sim.log.commands("source_meter")
+                   if c.upper().startswith(("LIST:VOLT ", "SOUR:LIST:VOLT "))]
         assert sim.log.last_output_state("source_meter") is False
     # up to 2.75 V the part stays below the 62.5 mA compliance; at 3 V it hits it and the sweep stops
     # after that list, keeping every reading the list returned
