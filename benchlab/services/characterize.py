@@ -10,7 +10,7 @@ from __future__ import annotations
 import contextlib
 import signal
 import threading
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable, Iterator
 
@@ -61,7 +61,6 @@ class BenchHandle:
     bench: Any
     config: Any
     simulator: Any = None
-    extra: dict = field(default_factory=dict)
 
     def close(self) -> None:
         try:
