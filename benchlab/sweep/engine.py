@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 from typing import Any, Callable
 
 from benchlab.errors import InputError, SafetyError
@@ -20,7 +21,7 @@ from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
 from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply
 from benchlab.sweep.stepping import StopStepping as _Stop
-from benchlab.sweep.stepping import check_reading, next_adaptive_step, predict_vgs
+from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_step, overshoots, predict_vgs
 
 ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
 
@@ -172,8 +173,9 @@ class _Sweep:
                           i_source=i_src, status=status, direction=direction, spread_v=spread)
 
     def measure(self, level: float, direction: str, expect_id: float | None = None,
-                expect_vgs: float | None = None) -> SweepPoint:
-        """Apply one setpoint, wait, read, store the point durably, report it."""
+                expect_vgs: float | None = None, judge=None) -> SweepPoint:
+        """Apply one setpoint, wait, read, store the point durably, report it. ``judge(point)`` True
+        records the reading as a ``probe`` (kept on disk, not part of the curve)."""
         self.check_interrupt()
         self.apply(level, expect_id, expect_vgs)
         if self.pulsed:
@@ -187,6 +189,8 @@ class _Sweep:
             on_time = self.clock() - on_at
             # cool-down so that on / (on + off) equals the duty cycle
             self.sleep(on_time * (1.0 / self.plan.pulsed_duty - 1.0))
+        if judge is not None and judge(point):
+            point = replace(point, status="probe")
         self.store(point)
         return point
 
@@ -224,10 +228,11 @@ class _Sweep:
         """Adaptive: aim at log-spaced currents, predicting each next setpoint from the points so far."""
         plan = self.plan
         level = plan.start_v
+        search_step, refinements = plan.search_step_v, 0
         self.source_on_if_continuous()
         ups = [self.measure(level, "up")]
         while True:
-            step = next_adaptive_step(plan, ups, level)
+            step = next_adaptive_step(plan, ups, level, search_step)
             if step is None:
                 return
             try:
@@ -237,11 +242,14 @@ class _Sweep:
                     self.source.check_level(step.level, step.expect_id)
             except SafetyError as exc:
                 raise _Stop(f"next setpoint refused by the safety limits ({exc})") from None
+            point = self.measure(step.level, "up", step.expect_id, step.expect_vgs,
+                                 judge=lambda p: overshoots(plan, ups, p, refinements))
+            self.check_reading(point, ups)
+            if point.status == "probe":  # back to the last setpoint below conduction, finer steps
+                search_step, refinements = search_step / REFINE_FACTOR, refinements + 1
+                continue
             level = step.level
-            point = self.measure(level, "up", step.expect_id, step.expect_vgs)
-            previous = list(ups)
             ups.append(point)
-            self.check_reading(point, previous)
             if point.usable and point.id >= plan.max_current_a * 0.98:
                 return
 

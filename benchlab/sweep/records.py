@@ -12,7 +12,7 @@ from typing import Any
 
 import numpy as np
 
-STATUSES = ("ok", "over_range", "compliance", "unsettled")
+STATUSES = ("ok", "over_range", "compliance", "unsettled", "probe")
 CSV_COLUMNS = ("point", "time_s", "vgs", "id", "v_source", "i_source", "status", "direction", "spread_v")
 
 
@@ -33,7 +33,8 @@ class SweepPoint:
     v_source, i_source : float
         What the supply / SMU read back (V, A).
     status : str
-        ``ok``, ``over_range``, ``compliance`` or ``unsettled``.
+        ``ok``, ``over_range``, ``compliance``, ``unsettled`` or ``probe`` (a search reading that
+        overshot; the search stepped back and retried finer; kept on disk, not part of the curve).
     direction : str
         ``up`` or ``down``.
     spread_v : float

@@ -55,7 +55,26 @@ def predict_vgs(conducting: Sequence[tuple[float, float]], target_a: float) -> f
     return vgs1 + slope * math.log10(target_a / id1)
 
 
-def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float) -> Step | None:
+REFINE_FACTOR = 5  # a search step that overshot is retried this many times finer
+MAX_REFINEMENTS = 2
+
+
+def overshoots(plan: SweepPlan, ups: Sequence[SweepPoint], point: SweepPoint, refinements: int) -> bool:
+    """True when ``point`` is the first conducting reading of the search and landed far above the first
+    target (a steep turn-on, or a coarse current resolution): the search then steps back and retries finer.
+
+    Such a reading is recorded with status ``probe`` (kept, not fitted).
+    """
+    if refinements >= MAX_REFINEMENTS or point.status != "ok":
+        return False
+    floor = plan.detect_floor_a()
+    if any(p.status == "ok" and p.id >= floor for p in ups):
+        return False  # the search is over: later points are targeted, not searched
+    return point.id > 4.0 * max(plan.min_current_a, floor)
+
+
+def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float,
+                       search_step_v: float | None = None) -> Step | None:
     """The next setpoint of an adaptive (``targets``) up-sweep, or None once the top target is reached.
 
     Parameters
@@ -66,6 +85,8 @@ def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float)
         The up-sweep's points so far (at least one).
     level : float
         The setpoint of the last point (V).
+    search_step_v : float, optional
+        Step while searching for conduction (default ``plan.search_step_v``; finer after an overshoot).
 
     Raises
     ------
@@ -82,7 +103,7 @@ def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float)
     if not conducting:
         if math.isfinite(last.vgs) and last.vgs >= plan.max_search_v:
             raise StopStepping(f"no conduction with {last.vgs:.2f} V across the part (max_search_v)")
-        nxt = level + plan.search_step_v
+        nxt = level + (search_step_v or plan.search_step_v)
         last_vgs = last.vgs if math.isfinite(last.vgs) else level
         # a part whose current rises with voltage cannot let more than (Vs - VGS_last) / R through
         # (and the supply's current limit caps it in any case)

@@ -410,3 +410,17 @@ def test_readings_over_range_are_recorded_and_three_in_a_row_stop_the_sweep():
     assert outcome.stop_reason == "three readings in a row over range"
     assert all(p.status != "over_range" for p in outcome.points[:-3])
     assert_off(bench)
+
+
+def test_a_search_step_that_overshoots_is_kept_as_a_probe_and_retried_finer():
+    # a level-1-like turn-on (no sub-threshold current) on a 47 ohm line: a 0.1 V step jumps to milliamps
+    steep = DeviceParams(model="square", vth=2.55, kp=1.0)
+    bench = FakeBench(steep, resistor_ohm=47.0)
+    outcome = sweep(bench, resistor_plan(series_resistor_ohm=47.0))
+    probes = [p for p in outcome.points if p.status == "probe"]
+    curve = [p for p in outcome.points if p.status == "ok"]
+    assert probes and probes[0].id > 4 * 10e-6
+    assert all(b.v_source > a.v_source for a, b in zip(curve, curve[1:]))  # the curve itself stays monotone
+    first = min(p.id for p in curve if p.id >= 2e-6)
+    assert first < probes[0].id / 4  # the retry found the turn-on below the overshooting reading
+    assert outcome.vgs_at_ref == pytest.approx(2.55 + math.sqrt(2 * 250e-6 / 1.0), abs=1e-3)  # square law
