@@ -53,3 +53,18 @@ def test_engine_written_session_imports_with_up_sweep_fitted(lib, tmp_path):
     assert len(lib.sweeps(q01)[0]["vgs"]) == 40  # both directions stored
     assert lib.get_part("Q03").params.vth == pytest.approx(3.2, abs=1e-3)  # the replacement, not the set-aside
     assert lib.get_part("Q02").reason == "leaky: test sweep"
+
+
+def test_the_shipped_example_session_imports(lib):
+    from pathlib import Path
+
+    pytest.importorskip("benchlab.extract")
+    root = Path(__file__).resolve().parents[2] / "sessions"
+    folders = sorted(p for p in root.glob("*") if (p / "session.json").is_file()) if root.is_dir() else []
+    if not folders:
+        pytest.skip("no example session shipped")
+    summary = lib.import_sessions(folders)
+    assert summary.sweeps and summary.count("stored") == 0  # every good sweep fits, every dud is rejected
+    for part in lib.parts(state=None):
+        assert (part.state == "rejected") == (part.classification != "good")
+        assert (part.params is not None) == (part.classification == "good")
