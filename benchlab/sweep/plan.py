@@ -279,10 +279,5 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
     return plan
 
 
-def plan_field_names() -> tuple[str, ...]:
-    """Names of the plan's fields (for help text and config overrides)."""
-    return tuple(f.name for f in fields(SweepPlan))
-
-
 __all__ = ["Limits", "SweepPlan", "target_currents", "validate_plan", "REFERENCE_CURRENT_A", "FIXTURES", "MODES",
-           "plan_field_names", "line_worst_power"]
+           "line_worst_power"]

@@ -22,7 +22,7 @@ from typing import Any
 import numpy as np
 
 from benchlab.errors import InputError
-from benchlab.sweep.records import CSV_COLUMNS, SweepOutcome, SweepPoint
+from benchlab.sweep.records import CSV_COLUMNS, STATUSES, SweepOutcome, SweepPoint
 
 SESSION_FORMAT = "benchlab-session/1"
 SWEEP_FORMAT = "benchlab-sweep/1"
@@ -113,6 +113,8 @@ class SweepRecorder:
 
     def append(self, point: SweepPoint) -> None:
         """Append one point and make it durable (flush + fsync) before returning."""
+        if point.status not in STATUSES or point.direction not in ("up", "down"):
+            raise ValueError(f"point status {point.status!r} / direction {point.direction!r} is not in the format")
         row = [point.point, f"{point.time_s:.6f}", repr(float(point.vgs)), repr(float(point.id)),
                repr(float(point.v_source)), repr(float(point.i_source)), point.status, point.direction,
                repr(float(point.spread_v))]
