@@ -203,8 +203,9 @@ class _Sweep:
             raise _Stop(f"timeout: the sweep ran longer than max_duration_s ({limit:g} s)", interrupted=True)
 
     def store(self, point: SweepPoint) -> None:
-        self.recorder.append(point)  # durable before the next setpoint
+        # in the outcome first: an interrupt inside append must not lose a point that reached the disk
         self.points.append(point)
+        self.recorder.append(point)  # durable before the next setpoint
         self.on_event(PointMeasured(self.label, point, len(self.points), self.plan.points, self.clock() - self.t0,
                                     self.progress(point)))
 

@@ -128,10 +128,13 @@ class SweepRecorder:
             self._sync()
         finally:
             self._fh.close()
+        # count what is on disk: an interrupt can land between writing a point and counting it
+        with open(self.csv_path, encoding="utf-8") as fh:
+            on_disk = max(fh.read().count("\n") - 1, 0)
         self.meta.update({"ended": now_iso(), "complete": bool(outcome.complete),
                           "classification": outcome.classification, "reason": outcome.reason,
                           "stop_reason": outcome.stop_reason, "powered_s": round(outcome.powered_s, 6),
-                          "points": len(outcome.points), "vgs_at_ref": _finite_or_none(outcome.vgs_at_ref),
+                          "points": on_disk, "vgs_at_ref": _finite_or_none(outcome.vgs_at_ref),
                           "reference_current_a": outcome.reference_current_a, "error": outcome.error,
                           "shutdown_problems": list(outcome.shutdown_problems)})
         write_json_atomic(self.json_path, self.meta)
