@@ -219,6 +219,8 @@ def sigterm_as_exception() -> Iterator[None]:
         return
 
     def handler(signum, frame):
+        # a second SIGTERM must not interrupt the clean-up that switches the output off (SIGKILL still works)
+        signal.signal(signal.SIGTERM, signal.SIG_IGN)
         raise SweepCancelled("stopped by SIGTERM; the output is off and the sweep is marked incomplete")
 
     previous = signal.signal(signal.SIGTERM, handler)
