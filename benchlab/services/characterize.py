@@ -221,7 +221,7 @@ def sigterm_as_exception() -> Iterator[None]:
     def handler(signum, frame):
         # a second SIGTERM must not interrupt the clean-up that switches the output off (SIGKILL still works)
         signal.signal(signal.SIGTERM, signal.SIG_IGN)
-        raise SweepCancelled("stopped by SIGTERM; the output is off and the sweep is marked incomplete")
+        raise SweepCancelled("stopped by SIGTERM; the sweep is marked incomplete")
 
     previous = signal.signal(signal.SIGTERM, handler)
     try:
