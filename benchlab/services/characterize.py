@@ -324,7 +324,10 @@ def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 1
         plan = build_plan(config, points=20, max_current_a=0.1, down_sweep=False)
         with sigterm_as_exception():
             return sweep_bag(handle, plan, sessions_root=sessions_root, lot="demo-led-rack", count=count,
-                             operator="demo (invented scenario)", ambient_c=23.0, on_event=on_event,
+                             operator="demo (invented scenario)",
+                             # the simulated parts sit at the simulator's ambient: record that, so fits
+                             # evaluated at the session temperature compare with the simulator's truth
+                             ambient_c=round(sim.config.ambient_k - 273.15, 2), on_event=on_event,
                              on_session=on_session)
     finally:
         handle.close()

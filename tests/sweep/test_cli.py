@@ -115,16 +115,17 @@ def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkey
     assert "2 parts swept" in captured.out and sim.log.last_output_state("supply") is False
 
 
-def test_demo_sweeps_an_invented_bag_with_a_dud(tmp_path, capsys):
-    assert main(["demo", "--sessions", str(tmp_path)]) == 0
-    out = capsys.readouterr().out
-    assert "invented" in out
+def test_demo_bag_sweep_has_a_dud_and_complete_sessions(tmp_path):
+    # the sweeping step of `benchlab demo` (the whole demo is tested in tests/test_demo.py)
+    from benchlab.services.characterize import DEMO_STORY, run_demo
+
+    assert "invented" in DEMO_STORY
+    result = run_demo(tmp_path, count=12)
     session = read_session(only_session(tmp_path))
     assert len(session.sweeps) == 12 and all(s.complete for s in session.sweeps.values())
     classes = {s.meta["classification"] for s in session.sweeps.values()}
     assert "good" in classes and classes - {"good"}  # at least one dud to set aside
-    for line in [line for line in out.splitlines() if line.startswith("Q")]:
-        assert " points, " in line
+    assert [o.label for o in result.outcomes] == sorted(session.sweeps)
 
 
 @pytest.mark.parametrize("options,needle", [(["--count", "0"], "--count"), ([], "--count N"),
