@@ -16,7 +16,7 @@ from benchlab.errors import BenchlabError
 
 # Order is the order shown in --help.
 COMMAND_MODULES: tuple[str, ...] = (
-    "parts", "library", "export", "report", "bench", "sim", "fit", "sweep", "demo", "design",
+    "demo", "sim", "bench", "sweep", "fit", "library", "parts", "design", "export", "report",
 )
 
 
