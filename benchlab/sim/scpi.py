@@ -18,34 +18,13 @@ from __future__ import annotations
 import math
 import re
 from dataclasses import dataclass
+from typing import Mapping
 
-# Standard error texts (IEEE 488.2 / SCPI-1999 vol. 2, ch. 21).
-ERROR_TEXT: dict[int, str] = {
-    0: "No error",
-    -100: "Command error",
-    -101: "Invalid character",
-    -102: "Syntax error",
-    -103: "Invalid separator",
-    -104: "Data type error",
-    -108: "Parameter not allowed",
-    -109: "Missing parameter",
-    -113: "Undefined header",
-    -114: "Header suffix out of range",
-    -131: "Invalid suffix",
-    -200: "Execution error",
-    -211: "Trigger ignored",
-    -213: "Init ignored",
-    -221: "Settings conflict",
-    -222: "Data out of range",
-    -223: "Too much data",
-    -224: "Illegal parameter value",
-    -226: "Lists not same length",
-    -230: "Data corrupt or stale",
-    -240: "Hardware error",
-    -350: "Queue overflow",
-    -410: "Query INTERRUPTED",
-    -420: "Query UNTERMINATED",
-}
+from benchlab.instruments.scpi import STANDARD_ERRORS
+
+# Standard error texts (IEEE 488.2 / SCPI-1999 vol. 2, ch. 21): one table for the whole project, kept with
+# the instrument layer's SCPI helpers (a pure module; it does not import pyvisa).
+ERROR_TEXT: Mapping[int, str] = STANDARD_ERRORS
 
 # SCPI special values for readings (SCPI-1999 vol. 1, 7.2.1.5: 9.9E37 infinity, 9.91E37 NaN).
 PLUS_INFINITY_TEXT = "9.9E37"

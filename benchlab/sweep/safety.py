@@ -58,7 +58,61 @@ def _check_number(name: str, value: float) -> float:
     return value
 
 
-class GuardedSupply:
+class _GuardedOutput:
+    """What both guards share: output switching that needs the limit first, powered time, safe off."""
+
+    _what = "output"  # words for messages
+    _limit_words = "the limit"
+
+    def __init__(self, inner, limits: Limits, clock: Callable[[], float]):
+        self.inner = inner
+        self.limits = limits
+        self._output_on = False
+        self._powered = _PoweredClock(clock)
+
+    @property
+    def powered_s(self) -> float:
+        return self._powered.value()
+
+    def _limit_is_set(self) -> bool:
+        raise NotImplementedError
+
+    def _zero_setpoint(self) -> None:
+        raise NotImplementedError
+
+    def set_output(self, on: bool) -> None:
+        if on:
+            if not self._limit_is_set():
+                raise SafetyError(f"refused to switch the output on: {self._limit_words} is not set")
+            # the setpoint was checked when it was applied (with its prediction); nothing else sets it
+            self.inner.set_output(True)
+            self._output_on = True
+            self._powered.on()
+        else:
+            self.inner.set_output(False)
+            self._output_on = False
+            self._powered.off()
+
+    def output_is_on(self) -> bool:
+        return self.inner.output_is_on()
+
+    def safe_off(self) -> list[str]:
+        """Output off, then setpoint to 0. Never raises; returns the problems met (empty when clean)."""
+        problems = []
+        try:
+            self.inner.set_output(False)
+        except BaseException as exc:  # noqa: BLE001 - must not mask the original exit
+            problems.append(f"switching the {self._what} output off failed: {exc}")
+        self._output_on = False
+        self._powered.off()
+        try:
+            self._zero_setpoint()
+        except BaseException as exc:  # noqa: BLE001
+            problems.append(f"returning the {self._what} setpoint to 0 failed: {exc}")
+        return problems
+
+
+class GuardedSupply(_GuardedOutput):
     """A :class:`benchlab.instruments.roles.Supply` behind the safety limits (resistor fixture).
 
     Parameters
@@ -73,19 +127,22 @@ class GuardedSupply:
         Monotonic clock (injected for tests).
     """
 
+    _what = "supply"
+    _limit_words = "the current limit"
+
     def __init__(self, supply, limits: Limits, series_resistor_ohm: float,
                  clock: Callable[[], float] = time.monotonic):
-        self.inner = supply
-        self.limits = limits
+        super().__init__(supply, limits, clock)
         self.resistor_ohm = float(series_resistor_ohm)
         self.current_limit_a: float | None = None
         self.setpoint_v = 0.0
-        self._output_on = False
-        self._powered = _PoweredClock(clock)
 
-    @property
-    def powered_s(self) -> float:
-        return self._powered.value()
+    def _limit_is_set(self) -> bool:
+        return self.current_limit_a is not None
+
+    def _zero_setpoint(self) -> None:
+        self.inner.set_voltage(0.0)
+        self.setpoint_v = 0.0
 
     def set_current_limit(self, amps: float) -> None:
         amps = _check_number("current limit", amps)
@@ -124,60 +181,31 @@ class GuardedSupply:
         self.inner.set_voltage(volts)
         self.setpoint_v = volts
 
-    def set_output(self, on: bool) -> None:
-        if on:
-            if self.current_limit_a is None:
-                raise SafetyError("refused to switch the output on: the current limit is not set")
-            # the setpoint was checked when it was applied (with its prediction); nothing else sets it
-            self.inner.set_output(True)
-            self._output_on = True
-            self._powered.on()
-        else:
-            self.inner.set_output(False)
-            self._output_on = False
-            self._powered.off()
-
-    def output_is_on(self) -> bool:
-        return self.inner.output_is_on()
-
     def measure_voltage(self) -> float:
         return self.inner.measure_voltage()
 
     def measure_current(self) -> float:
         return self.inner.measure_current()
 
-    def safe_off(self) -> list[str]:
-        """Output off, then setpoint to 0 V. Never raises; returns the problems met (empty when clean)."""
-        problems = []
-        try:
-            self.inner.set_output(False)
-        except BaseException as exc:  # noqa: BLE001 - must not mask the original exit
-            problems.append(f"switching the supply output off failed: {exc}")
-        self._output_on = False
-        self._powered.off()
-        try:
-            self.inner.set_voltage(0.0)
-            self.setpoint_v = 0.0
-        except BaseException as exc:  # noqa: BLE001
-            problems.append(f"returning the supply setpoint to 0 V failed: {exc}")
-        return problems
 
-
-class GuardedSourceMeter:
+class GuardedSourceMeter(_GuardedOutput):
     """A :class:`benchlab.instruments.roles.SourceMeter` behind the safety limits (SMU fixture)."""
 
+    _what = "source-measure unit"
+    _limit_words = "the compliance"
+
     def __init__(self, source_meter, limits: Limits, clock: Callable[[], float] = time.monotonic):
-        self.inner = source_meter
-        self.limits = limits
+        super().__init__(source_meter, limits, clock)
         self.mode: str | None = None
         self.compliance: float | None = None
         self.level = 0.0
-        self._output_on = False
-        self._powered = _PoweredClock(clock)
 
-    @property
-    def powered_s(self) -> float:
-        return self._powered.value()
+    def _limit_is_set(self) -> bool:
+        return self.compliance is not None
+
+    def _zero_setpoint(self) -> None:
+        self.inner.set_level(0.0)
+        self.level = 0.0
 
     def configure_source(self, mode: str, compliance: float) -> None:
         """Select what to force and set the compliance; refused while the output is on."""
@@ -230,21 +258,6 @@ class GuardedSourceMeter:
     def set_nplc(self, nplc: float) -> None:
         self.inner.set_nplc(nplc)
 
-    def set_output(self, on: bool) -> None:
-        if on:
-            if self.compliance is None:
-                raise SafetyError("refused to switch the output on: the compliance is not set")
-            self.inner.set_output(True)
-            self._output_on = True
-            self._powered.on()
-        else:
-            self.inner.set_output(False)
-            self._output_on = False
-            self._powered.off()
-
-    def output_is_on(self) -> bool:
-        return self.inner.output_is_on()
-
     def measure(self) -> tuple[float, float]:
         return self.inner.measure()
 
@@ -263,19 +276,3 @@ class GuardedSourceMeter:
         if checked:
             self.level = checked[-1]
         return result
-
-    def safe_off(self) -> list[str]:
-        """Output off, then level to 0. Never raises; returns the problems met."""
-        problems = []
-        try:
-            self.inner.set_output(False)
-        except BaseException as exc:  # noqa: BLE001 - must not mask the original exit
-            problems.append(f"switching the source-measure unit output off failed: {exc}")
-        self._output_on = False
-        self._powered.off()
-        try:
-            self.inner.set_level(0.0)
-            self.level = 0.0
-        except BaseException as exc:  # noqa: BLE001
-            problems.append(f"returning the source-measure unit level to 0 failed: {exc}")
-        return problems
