@@ -343,16 +343,20 @@ class Library(DesignStore):
                  "fitter_version": r[8]} for r in rows]
 
     def sweeps(self, part: str | int | PartRecord, *, with_points: bool = True) -> list[dict[str, Any]]:
-        """Every sweep of a part, oldest first: metadata and (optionally) its points as lists."""
+        """Every sweep of a part, oldest first: metadata (with the plan's detection current, or None) and,
+        optionally, its points as lists."""
         record = self.get_part(part)
         with self.snapshot() as conn:
             rows = conn.execute(
-                "SELECT id, session_path, csv_path, session_id, started, complete, classification, reason "
-                "FROM sweeps WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
+                "SELECT id, session_path, csv_path, session_id, started, complete, classification, reason, "
+                "sidecar_json FROM sweeps WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
             result = []
             for r in rows:
+                plan = json.loads(r[8] or "{}").get("plan")
+                detect = plan.get("detect_current_a") if isinstance(plan, dict) else None
+                detect = float(detect) if isinstance(detect, (int, float)) and detect > 0 else None
                 sweep = {"id": r[0], "session_path": r[1], "csv_path": r[2], "session_id": r[3], "started": r[4],
-                         "complete": bool(r[5]), "classification": r[6], "reason": r[7]}
+                         "complete": bool(r[5]), "classification": r[6], "reason": r[7], "detect_current_a": detect}
                 if with_points:
                     pts = conn.execute("SELECT point, vgs, id, status FROM sweep_points WHERE sweep_id = ? "
                                        "ORDER BY point", (r[0],)).fetchall()

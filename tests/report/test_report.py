@@ -126,3 +126,24 @@ def test_reference_named_by_the_design_leads_its_set(tmp_path):
         design_id = lib.record_design({"supply": 12.0, "r_chosen": 1000.0, "ref": "bag/Q2"}, [out, ref])
         data = collect(lib, "bag", design_id)
     assert data.reference.label == "Q2" and data.design_sets == (("Q2", "Q1"),)
+
+
+def test_sweep_overlay_leaves_out_the_search_below_the_detection_current(tmp_path):
+    from session_builder import sweep_points
+
+    params = DeviceParams("square", vth=3.0, kp=1.0)
+    vgs, ids = sweep_points(params, count=20, i_min=1e-5)
+    noise_v, noise_i = [0.5, 1.0, 1.5], [2e-9, 5e-9, 3e-9]  # the search before the part conducted
+    session = write_session(tmp_path, "s", "bag", [
+        {"label": "Q1", "vgs": [*noise_v, *vgs], "id": [*noise_i, *ids]},
+        {"label": "Q2", "vgs": [*noise_v, 9.0], "id": [*noise_i, 4e-9], "classification": "open"}])
+    for label in ("Q1", "Q2"):  # the plan's detection current, as the sweep engine records it
+        sidecar = session / f"{label}.json"
+        sidecar.write_text(sidecar.read_text().replace('"resistor_ohm": 100.0', '"detect_current_a": 1e-6'))
+    with Library.open(tmp_path / "lib.db") as lib:
+        lib.import_session(session, refit=False)
+        assert lib.sweeps("Q1")[0]["detect_current_a"] == 1e-6
+        data = collect(lib, "bag")
+    traces = {t.label: t for t in data.traces}
+    assert len(traces["Q1"].id) == 20 and min(traces["Q1"].id) >= 1e-6
+    assert traces["Q2"].rejected and len(traces["Q2"].id) == 4  # a dud is drawn whole: its floor is the finding
