@@ -7,6 +7,8 @@ our own engineering choices (stated so a user can judge them), not published val
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 from benchlab.extract.result import (FLAG_AT_BOUND, FLAG_FEW_POINTS, FLAG_HYSTERESIS, FLAG_NARROW_RANGE,
@@ -20,9 +22,15 @@ MIN_POINTS_ABOVE_THRESHOLD = 5
 MIN_DECADES = {"linear": 0.0, "square": 0.7, "theta": 1.2, "ekv": 2.5}
 POOR_FIT_RELATIVE_RMS = 0.05
 NON_MONOTONIC_DROP = 0.02
+# a fall must also stand this many standard deviations of a difference of two readings above the
+# sweep's current noise floor, else meter noise near the detection floor reads as a fall
+NON_MONOTONIC_NOISE_SIGMAS = 4.0
 HYSTERESIS_LIMIT_V = 5e-3
 DRIFT_MIN_POWER_W = 0.05
 DRIFT_T_LIMIT = 4.0
+# and the trend must be big enough to matter: 0.5 % of the current, about what 1 K of heating does
+# to a part at 1 V overdrive (2 x 2.5 mV/K / 1 V); smaller trends are model detail, not heat
+DRIFT_MIN_EFFECT = 0.005
 
 
 def _rows(count):
@@ -58,13 +66,41 @@ def fit_quality(rms_relative) -> list[list[tuple[str, str]]]:
     return found
 
 
+def current_noise_floor(i_d, valid) -> np.ndarray:
+    """Absolute noise (A) of the current readings of each sweep, from its lower-current half.
+
+    Robust estimate from second differences in measurement order (for independent noise of
+    standard deviation s they have standard deviation s sqrt(6)): 1.4826 x median |d2| / sqrt(6).
+    The lower half holds the smallest currents, where an absolute noise floor shows and the
+    curve's own curvature adds least. Rows of a rising pass, ``valid`` marks real points.
+    """
+    i_d, valid = np.asarray(i_d, float), np.asarray(valid, bool)
+    count = valid.sum(axis=1)
+    d2 = np.abs(i_d[:, 2:] - 2.0 * i_d[:, 1:-1] + i_d[:, :-2])
+    centre = np.arange(1, i_d.shape[1] - 1)[None, :]
+    lower = valid[:, 2:] & (centre < (count[:, None] // 2))
+    if not lower.any():
+        return np.zeros(i_d.shape[0])
+    with warnings.catch_warnings():  # a sweep too short for the estimate gives NaN, handled below
+        warnings.simplefilter("ignore", RuntimeWarning)
+        median = np.nanmedian(np.where(lower, d2, np.nan), axis=1)
+    return np.where(np.isfinite(median), 1.4826 * median / np.sqrt(6.0), 0.0)
+
+
 def monotonic_check(vgs, i_d, valid) -> list[list[tuple[str, str]]]:
     """Current falling by more than :data:`NON_MONOTONIC_DROP` while VGS rises, in measurement order
-    (rows of a rising pass; ``valid`` marks real points, padding at the end)."""
+    (rows of a rising pass; ``valid`` marks real points, padding at the end).
+
+    A fall must also exceed :data:`NON_MONOTONIC_NOISE_SIGMAS` standard deviations of the
+    difference of two readings (:func:`current_noise_floor` x sqrt 2), so readings near the
+    noise floor that jitter by more than 2 % are not taken for a falling current.
+    """
     vgs, i_d, valid = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(valid, bool)
     found = _rows(vgs.shape[0])
     pairs = valid[:, 1:] & valid[:, :-1]
-    drops = pairs & (i_d[:, 1:] < (1.0 - NON_MONOTONIC_DROP) * i_d[:, :-1]) & (vgs[:, 1:] > vgs[:, :-1])
+    noise = NON_MONOTONIC_NOISE_SIGMAS * np.sqrt(2.0) * current_noise_floor(i_d, valid)[:, None]
+    fall = i_d[:, :-1] - i_d[:, 1:]
+    drops = pairs & (fall > NON_MONOTONIC_DROP * i_d[:, :-1]) & (fall > noise) & (vgs[:, 1:] > vgs[:, :-1])
     counts = drops.sum(axis=1)
     for row in np.flatnonzero(counts):
         k = int(np.argmax(drops[row])) + 1
@@ -124,7 +160,9 @@ def power_drift_check(vgs, i_d, mask, relative_residuals) -> list[list[tuple[str
 
     Compares the mean relative residual of the fitted points in the top third of power against
     the middle third (Welch t statistic); only judged when a sweep dissipates at least
-    :data:`DRIFT_MIN_POWER_W`, since without power there is no heating. Rows of ``(B, N)`` arrays.
+    :data:`DRIFT_MIN_POWER_W`, since without power there is no heating, and only flagged when
+    the difference also exceeds :data:`DRIFT_MIN_EFFECT` (a quiet sweep makes a tiny model
+    mismatch statistically significant without any heat). Rows of ``(B, N)`` arrays.
     """
     mask = np.asarray(mask, bool)
     power = np.where(mask, np.asarray(vgs, float) * np.asarray(i_d, float), -np.inf)
@@ -149,8 +187,10 @@ def power_drift_check(vgs, i_d, mask, relative_residuals) -> list[list[tuple[str
         t_stat = np.where(spread > 0, (m_top - m_mid) / spread, 0.0)
     p_max = power.max(axis=1)
     judged = (count >= 9) & (p_max >= DRIFT_MIN_POWER_W)
-    for row in np.flatnonzero(judged & (np.abs(t_stat) > DRIFT_T_LIMIT)):
-        sign = "more" if t_stat[row] > 0 else "less"
+    big = np.abs(m_top - m_mid) > DRIFT_MIN_EFFECT
+    for row in np.flatnonzero(judged & big & (np.abs(t_stat) > DRIFT_T_LIMIT)):
+        # residuals are fitted / measured - 1: negative at the top means the part carries more
+        sign = "less" if t_stat[row] > 0 else "more"
         found[row].append((FLAG_POWER_DRIFT, f"at the highest dissipation (up to {p_max[row]:.3g} W) the part "
                                              f"carries {sign} current than the fitted curve (t={t_stat[row]:.1f}): "
                                              "likely self-heating; use a heat sink or a pulsed sweep"))

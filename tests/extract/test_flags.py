@@ -28,6 +28,23 @@ def test_self_heating_drift_flagged_on_a_hot_sweep():
     assert "self_heating_drift" in result.flags
     # heating bends the curve upward, so the fitted THETA is pushed onto its bound of zero
     assert "parameter_at_bound" in result.flags and result.theta == 0.0
+    # a hotter part has a lower threshold, so at the top it carries MORE current than the curve
+    # fitted to the cooler points (threshold falls with temperature: the -2 to -8 mV/K datasheet range)
+    note = next(n for n in result.notes if "dissipation" in n)
+    assert "carries more current" in note
+
+
+def test_small_model_mismatch_on_a_quiet_sweep_is_not_called_heating():
+    # a series resistance bends the curve a little differently from THETA; on a quiet sweep that
+    # 0.1 %-sized trend with power is statistically clear but far too small to be heat
+    kp, rs, vth = 2.0, 0.1, 3.0
+    vov = np.linspace(0.05, 0.7, 60)
+    a = kp * rs * vov
+    ids = (1 + a - np.sqrt(1 + 2 * a)) / (kp * rs * rs)  # exact square law behind a source resistor
+    rng = np.random.default_rng(9)
+    result = fit_sweep(vth + vov, ids * (1 + 1e-5 * rng.standard_normal(vov.size)), model="theta")
+    assert result.rms_relative < 2e-3
+    assert "self_heating_drift" not in result.flags
 
 
 def test_no_heating_flags_on_a_cool_sweep():
@@ -68,6 +85,25 @@ def test_non_monotonic_current_flagged():
     ids[15] = ids[14] * 0.9  # the current dips while VGS rises
     result = fit_sweep(vgs, ids, model="theta")
     assert "non_monotonic" in result.flags
+
+
+def _noisy_floor_sweep(rng):
+    # a resistor-line sweep read by a meter: about 5 uA of absolute noise on every current, so
+    # readings near 50 uA jitter by 10 % while the true current only rises
+    currents = np.geomspace(50e-6, 0.3, 300)
+    return PART.vgs_at(currents), currents + 5e-6 * rng.standard_normal(currents.size)
+
+
+def test_meter_noise_near_the_floor_is_not_a_falling_current():
+    vgs, ids = _noisy_floor_sweep(np.random.default_rng(12))
+    assert np.any(np.diff(ids) < -0.02 * ids[:-1])  # the naive 2 % rule would fire
+    assert "non_monotonic" not in fit_sweep(vgs, ids, model="theta").flags
+
+
+def test_a_real_fall_is_still_flagged_in_a_noisy_sweep():
+    vgs, ids = _noisy_floor_sweep(np.random.default_rng(12))
+    ids[200:] *= 0.9  # a contact or a part letting go: 10 % less current from here on
+    assert "non_monotonic" in fit_sweep(vgs, ids, model="theta").flags
 
 
 def test_thin_data_flagged():

@@ -82,3 +82,40 @@ def test_level1_temperature_sweep_kp_law(spice, tmp_path):
     result = fit_sweep(vgs, i_d, model="square")
     expected_kp = 1.8 * ((75 + 273.15) / (27 + 273.15)) ** -1.5
     assert abs(result.kp / expected_kp - 1) < 0.03
+
+
+# Power-MOSFET currents: a 4.7 Ohm series resistor from a 0..6 V supply drives the part to about
+# 0.5 A (overdrive up to 0.7 V), where THETA bends the curve by 20 %, not the 4 % of the 470 Ohm line.
+R_POWER = 4.7
+
+
+def _power_sweep(spice, card, seed):
+    v_supply, v_part, _ = spice.resistor_sweep(card, resistor=R_POWER, stop=6.0, step=0.01)
+    return meter_readings(v_supply, v_part, R_POWER, np.random.default_rng(seed))
+
+
+def test_level3_theta_card_recovered_at_power_currents(spice):
+    vgs, i_d = _power_sweep(spice, LEVEL3, seed=7)
+    assert i_d.max() > 0.4  # the sweep really reaches power-MOSFET currents
+    result = fit_sweep(vgs, i_d)
+    # ngspice level 3 (VTO=2.85 V, KP=2.4 A/V^2, THETA=0.3 1/V): VTO within 10 mV, KP within 3 %
+    assert result.model == "theta", result.reason
+    assert abs(result.vth - 2.85) < 0.010
+    assert abs(result.kp / 2.4 - 1) < 0.03
+    assert abs(result.theta - 0.3) < 0.03
+    # ngspice has no self-heating and its curve never falls: any such flag here would be false;
+    # the meter noise near the detection floor (about 6 uA per reading) must not read as a falling current
+    assert result.flags == (), result.notes
+
+
+def test_level1_source_resistance_appears_as_theta(spice):
+    # ngspice level 1 with a source resistance RS: the exact diode-connected current is
+    # [1 + KP RS Vov - sqrt(1 + 2 KP RS Vov)] / (KP RS^2), which the THETA law follows with
+    # THETA close to KP RS (derived: both agree to first order in KP RS Vov); VTO and KP are untouched
+    card = ".model NMOD NMOS (LEVEL=1 VTO=3.0 KP=2.0 RS=0.05)"
+    vgs, i_d = _power_sweep(spice, card, seed=8)
+    result = fit_sweep(vgs, i_d, model="theta")
+    assert abs(result.vth - 3.0) < 0.010
+    assert abs(result.kp / 2.0 - 1) < 0.03
+    assert result.theta == pytest.approx(2.0 * 0.05, rel=0.1)
+    assert "self_heating_drift" not in result.flags and "non_monotonic" not in result.flags
