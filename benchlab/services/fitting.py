@@ -293,6 +293,20 @@ def _num(value, fmt: str, scale: float = 1.0) -> str:
     return format(value * scale, fmt)
 
 
+THRESHOLD_LABELS = (("model", "fitted model"), ("constant_current", "constant current"),
+                    ("extrapolation_sqrt_max_slope", "sqrt(ID) max-slope extrapolation"),
+                    ("second_derivative_sqrt", "second derivative of sqrt(ID)"))
+
+
+def _thresholds_line(result: FitResult) -> str:
+    # every threshold definition of the result ('-' where the data hold none), in volts
+    parts = []
+    for key, label in THRESHOLD_LABELS:
+        value = result.thresholds.get(key)
+        parts.append(f"{label} {_num(value, '.4f')}" + (" V" if value is not None else ""))
+    return "; ".join(parts)
+
+
 def format_table(records: list[FitRecord]) -> str:
     """A readable table of the fits, then the reason and any warnings of each sweep."""
     head = ("sweep", "model", "Vth V", "+-mV", "KP A/V2", "THETA", "n", "VGS@Icc V", "gm A/V", "rms %", "flags")
@@ -303,7 +317,7 @@ def format_table(records: list[FitRecord]) -> str:
         rows.append((rec.source.label, r.model, _num(r.vth, ".4f"), _num(r.stderr.get("vth"), ".2f", 1e3),
                      _num(kp, ".4g") + (" gm" if r.model == "linear" else ""), _num(r.theta, ".3g"),
                      _num(r.n if r.model == "ekv" else None, ".3f"), _num(r.vth_cc, ".4f"), _num(r.gm, ".4g"),
-                     _num(r.rms_relative, ".2f", 100.0), str(len(r.flags)) if r.flags else ""))
+                     _num(r.rms_relative, ".2f", 100.0), ",".join(r.flags)))
     widths = [max(len(str(x)) for x in col) for col in zip(head, *rows)]
     lines = ["  ".join(str(x).ljust(w) for x, w in zip(row, widths)).rstrip() for row in (head, *rows)]
     first = records[0].result if records else None
@@ -314,6 +328,10 @@ def format_table(records: list[FitRecord]) -> str:
         r = rec.result
         lines.append(f"{rec.source.label}: {r.reason}; {r.window['points']} points "
                      f"{r.window['i_min']:.3g}..{r.window['i_max']:.3g} A")
+        lines.append("  thresholds: " + _thresholds_line(r))
+        if r.at_current is not None:
+            lines.append(f"  at {r.at_current:g} A: VGS {_num(r.vgs_at_current, '.4f')} V, "
+                         f"gm {_num(r.gm, '.4g')} A/V (from the {r.model} fit)")
         if rec.source.classification not in (None, "good"):
             lines.append(f"  note: the sweep classified this part '{rec.source.classification}'; its fit "
                          "does not describe a working transistor")

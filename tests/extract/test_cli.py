@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 import numpy as np
 import pytest
@@ -178,3 +179,25 @@ def test_session_ambient_sets_the_fit_temperature(tmp_path, capsys):
     assert main(["fit", str(folder), "--json", "--temperature", "20"]) == 0
     rows = [json.loads(line) for line in capsys.readouterr().out.strip().splitlines()]
     assert all(row["params"]["temperature_k"] == pytest.approx(293.15) for row in rows)
+
+
+def test_table_names_every_threshold_and_the_flags(tmp_path, capsys):
+    folder = _session(tmp_path)
+    assert main(["fit", str(folder / "Q01.csv"), "--at-current", "0.05"]) == 0
+    out = capsys.readouterr().out
+    for label in ("fitted model", "constant current", "sqrt(ID) max-slope extrapolation",
+                  "second derivative of sqrt(ID)"):
+        assert label in out
+    part = PARTS["Q01"]
+    # the inverse a mirror design needs: VGS at the operating current, from the fitted curve
+    shown = re.search(r"at 0.05 A: VGS ([0-9.]+) V, gm ([0-9.]+) A/V", out)
+    assert shown, out
+    assert float(shown.group(1)) == pytest.approx(float(part.vgs_at(0.05)), abs=2e-3)
+    assert float(shown.group(2)) == pytest.approx(float(part.gm_at(0.05)), rel=0.01)
+    # a third of a decade of current: the table shows the flag's code, not a count
+    currents = np.geomspace(20e-3, 40e-3, 6)
+    thin = tmp_path / "thin.csv"
+    thin.write_text("vgs,id\n" + "".join(f"{v:.6f},{i:.6e}\n" for v, i in zip(part.vgs_at(currents), currents)))
+    assert main(["fit", str(thin), "--model", "square"]) == 0
+    out = capsys.readouterr().out
+    assert "current_range_too_narrow" in out.splitlines()[1]
