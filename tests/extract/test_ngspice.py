@@ -119,3 +119,13 @@ def test_level1_source_resistance_appears_as_theta(spice):
     assert abs(result.kp / 2.0 - 1) < 0.03
     assert result.theta == pytest.approx(2.0 * 0.05, rel=0.1)
     assert "self_heating_drift" not in result.flags and "non_monotonic" not in result.flags
+
+
+@pytest.mark.parametrize("sweep", [_measured, _power_sweep], ids=["470ohm", "4.7ohm"])
+def test_sqrt_extrapolation_threshold_on_a_level1_part(spice, sweep):
+    # Ortiz-Conde et al., Microelectronics Reliability 42 (2002) 583, ESR method: on a saturated square
+    # law sqrt(ID) is a straight line meeting zero at VT, so the max-slope tangent of ngspice's level-1
+    # curve (read with meter noise) must land on VTO = 3.2 V within 2 mV
+    vgs, i_d = sweep(spice, LEVEL1, 9)
+    result = fit_sweep(vgs, i_d)
+    assert abs(result.thresholds["extrapolation_sqrt_max_slope"] - 3.2) < 2e-3
