@@ -127,8 +127,8 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
     for p, m in zip(points, masks):
         if m.sum() < need:
             where = f"{p.sweep.source}: " if p.sweep.source else ""
-            raise FitError(f"{where}only {int(m.sum())} points in the fit window; the {model} model needs "
-                           f"at least {need}")
+            raise FitError(f"{where}only {int(m.sum())} of the {p.id.size} points (measured {p.id.min():.3g} to "
+                           f"{p.id.max():.3g} A) lie in the fit window; the {model} model needs at least {need}")
     return fit_stacked(model, vgs, i_d, mask, start, ut=ut), (vgs, i_d, mask, valid)
 
 

@@ -20,6 +20,8 @@ from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operat
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
 
+# the temperatures fit_batch accepts (150-600 K), in degC
+T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
 SESSION_FORMAT = "benchlab-session/1"
 SWEEP_FORMAT = "benchlab-sweep/1"
 # the JSON Lines keys every output line carries first (the full result follows)
@@ -205,6 +207,10 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
     FitError
         A (non-dud) sweep has too few points in the window for the model.
     """
+    if temperature_c is not None and not (math.isfinite(temperature_c)
+                                          and T_MIN_C <= temperature_c <= T_MAX_C):
+        raise InputError(f"temperature {temperature_c:g} degC is not a bench temperature "
+                         f"({T_MIN_C:g} to {T_MAX_C:g} degC)")
     sources = resolve_inputs(paths)
     if save:
         plain = [s for s in sources if s.sidecar_path is None]

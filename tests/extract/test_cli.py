@@ -109,6 +109,15 @@ def test_bad_option_values_rejected(tmp_path, capsys):
         main(["fit", str(folder), "--at-current", "-1"])
     with pytest.raises(SystemExit):
         main(["fit", str(folder), "--bootstrap", "x"])
+    capsys.readouterr()
+    # the temperature is refused in the unit the user typed, before anything is read or written
+    assert main(["fit", str(folder), "--temperature", "-500", "--save"]) == 2
+    err = capsys.readouterr().err
+    assert "-500 degC is not a bench temperature" in err and err.count("\n") == 1
+    assert json.loads((folder / "Q01.json").read_text())["fits"] == []
+    # a window that holds no points says where the data are
+    assert main(["fit", str(folder / "Q01.csv"), "--window", "10", "20"]) == 2
+    assert "only 0 of the 24 points (measured 1e-05 to 0.1 A)" in capsys.readouterr().err
 
 
 def test_bootstrap_option(tmp_path, capsys):
