@@ -303,13 +303,24 @@ THRESHOLD_LABELS = (("model", "fitted model"), ("constant_current", "constant cu
                     ("extrapolation_sqrt_max_slope", "sqrt(ID) max-slope extrapolation"),
                     ("second_derivative_sqrt", "second derivative of sqrt(ID)"))
 
+# why a data-based threshold can be missing (see benchlab.extract.thresholds)
+WHY_NO_THRESHOLD = {
+    "constant_current": "outside the measured currents; never extrapolated",
+    "second_derivative_sqrt": "no kink above the noise inside the data: the sweep starts at or above threshold, "
+                              "or is too noisy",
+    "extrapolation_sqrt_max_slope": "too few points for a tangent",
+}
+
 
 def _thresholds_line(result: FitResult) -> str:
     # every threshold definition of the result ('-' where the data hold none), in volts
     parts = []
     for key, label in THRESHOLD_LABELS:
         value = result.thresholds.get(key)
-        parts.append(f"{label} {_num(value, '.4f')}" + (" V" if value is not None else ""))
+        why = ""
+        if value is None and key in WHY_NO_THRESHOLD:
+            why = f" ({WHY_NO_THRESHOLD[key]})"
+        parts.append(f"{label} {_num(value, '.4f')}" + (" V" if value is not None else why))
     return "; ".join(parts)
 
 

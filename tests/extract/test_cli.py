@@ -210,3 +210,5 @@ def test_table_names_every_threshold_and_the_flags(tmp_path, capsys):
     assert main(["fit", str(thin), "--model", "square"]) == 0
     out = capsys.readouterr().out
     assert "current_range_too_narrow" in out.splitlines()[1]
+    # a threshold the data cannot give is shown missing with its reason (this sweep starts 0.1 V above VT)
+    assert "second derivative of sqrt(ID) - (no kink above the noise" in out
