@@ -5,8 +5,9 @@ object with the small :class:`Transport` interface, so tests can hand them a fak
 
 Recovery rules (each raises a :mod:`benchlab.errors` class once its one chance is used):
 
-* a query that times out is retried once, after ``clear()`` so a late reply cannot be read as
-  the answer to the next query; only queries marked idempotent are retried;
+* a query that times out is retried once, after a clear so a late reply cannot be read as the
+  answer to the next query (a raw socket is reopened for that: see :meth:`VisaTransport._clear`);
+  only queries marked idempotent are retried;
 * a lost connection (reset, broken pipe, refused port at first I/O, or a cleanly closed peer,
   which pyvisa-py reports as a timeout) is reopened once and the message sent again when that
   is safe; a second loss raises :class:`~benchlab.errors.ConnectionLost`.
@@ -149,6 +150,7 @@ class VisaTransport:
         self._interrupted = False
         self.reopen_count = 0  # how many times the connection was reopened (for reports and tests)
         self.retry_count = 0  # how many timed-out queries were sent again
+        self.resync_count = 0  # how many times a socket was reopened to drop a possible late reply
 
     # -- life cycle -------------------------------------------------------------------------
     def open(self) -> "VisaTransport":
@@ -300,9 +302,17 @@ class VisaTransport:
     def _clear(self) -> None:
         """Discard any late reply (device clear).
 
-        On a raw socket the socket is drained here instead of through pyvisa-py's ``clear()``,
-        which loops forever once the peer has closed after sending part of a reply.
+        A raw socket has no device clear, and a reply may come any time after its timeout (a busy or
+        slow instrument), so no quiet period proves it will not: the socket is closed and a new one
+        opened instead, and a late reply dies with the old connection. (pyvisa-py's ``clear()`` on a
+        socket also loops forever once the peer has closed after sending part of a reply.) Other
+        resources get a device clear, which empties the instrument's output queue (IEEE 488.2).
         """
+        if self.kind.name == "tcpip-socket":
+            self.close()
+            self.resync_count += 1
+            self._handle = self._open_handle()
+            return
         sock = find_socket(self._handle)
         if sock is None:
             try:

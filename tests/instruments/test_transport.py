@@ -79,6 +79,19 @@ def test_late_reply_is_not_taken_for_the_next_answer(short_transport, server):
     assert short_transport.query("MEAS:CURR?") == "0.002"
 
 
+def test_reply_later_than_the_drain_is_not_taken_for_the_next_answer(short_transport, server):
+    server.replies["MEAS:VOLT?"] = "1.0"
+    server.replies["MEAS:CURR?"] = "0.002"
+    # The first reply comes well after the timeout (a busy instrument), so the retry is sent before
+    # it lands. Two replies to MEAS:VOLT? would then be on the way and the second would be read as
+    # the drain current; the socket is reopened instead, so the late reply never reaches us.
+    server.fault("MEAS:VOLT?", "late", seconds=SHORT_TIMEOUT_MS / 1000 * 2.0)
+    assert short_transport.query("MEAS:VOLT?") == "1.0"
+    assert short_transport.query("MEAS:CURR?") == "0.002"
+    assert short_transport.resync_count == 1 and short_transport.retry_count == 1
+    assert server.connections == 2
+
+
 def test_non_idempotent_query_is_not_repeated(short_transport, server):
     server.fault("INIT;*OPC?", "silent")
     server.replies["INIT;*OPC?"] = "1"

@@ -79,6 +79,8 @@ INSTRUMENT_FAULTS = [
     ("hang@meter=150", "no reply"),  # the meter neither executes nor replies
     ("error@meter=CONF:CURR/-221", "-221"),  # a command refused with an SCPI error, once the output is on
     ("garble@meter=40", "unexpected"),  # one reply turned to junk
+    # every reply 0.6 s late against a 0.4 s timeout: the late replies must not be read as later answers
+    ("slow@meter=0.6/150", "no reply to 'READ?'"),
 ]
 
 
@@ -93,6 +95,34 @@ def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, faul
     assert len(sweep.vgs) == sweep.meta["points"]  # every point measured before the fault is on disk
     # a supply that does not answer cannot confirm the off command: that is reported, not hidden
     assert bool(sweep.meta["shutdown_problems"]) == ("@supply" in fault)
+
+
+# The same faults on a source-measure unit (counts placed after its output is switched on).
+SMU_FAULTS = [
+    ("mute@source_meter=60", "no reply"),
+    ("error@source_meter=READ?/-230", "-230"),
+    ("garble@source_meter=40", "unexpected"),
+    ("slow@source_meter=0.6/60", "no reply to 'READ?'"),
+]
+
+
+@pytest.mark.parametrize("fault,message", SMU_FAULTS)
+def test_smu_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, message):
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [fault], fixture="smu")
+    assert was_on and last is False  # from the simulator's log
+    assert isinstance(error, InstrumentError) and message in str(error) and "\n" not in str(error)
+    assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
+
+
+def test_supply_that_hangs_is_reported_as_possibly_still_on(tmp_path):
+    # A hung supply executes nothing, not even OUTP OFF: the simulator's log shows the output left on.
+    # The tool cannot fix that; it must not claim the output is off, and it says so in the record.
+    was_on, last, error, outcome, sweep = run_faulted(tmp_path, ["hang@supply=100"])
+    assert was_on and last is True
+    assert isinstance(error, InstrumentError) and "no reply" in str(error)
+    assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
+    problems = " ".join(sweep.meta["shutdown_problems"])
+    assert "switching the supply output off failed" in problems
 
 
 def test_slow_replies_within_the_timeout_still_complete(tmp_path):
