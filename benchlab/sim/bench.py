@@ -88,6 +88,8 @@ class SimConfig:
             raise InputError(f"unknown fixture '{self.fixture}' (expected resistor or smu)")
         if self.bag_size < 1:
             raise InputError("the bag needs at least one part (bag_size >= 1)")
+        if not 0 <= self.seed < 2 ** 63:  # numpy's seeded generators take non-negative seeds
+            raise InputError(f"simulator seed {self.seed} is out of range (0 to 2**63 - 1)")
         checks = {
             "time_scale": self.time_scale >= 0, "latency_s": self.latency_s >= 0,
             "series_resistor_nominal_ohm": self.series_resistor_nominal_ohm > 0,

@@ -69,6 +69,12 @@ class FaultSpec:
         return f"{self.kind}{role}{value}"
 
 
+def _is_queueable_error_code(code: int) -> bool:
+    # SCPI-1999 vol. 2, ch. 21: the standard errors are -100..-499 (command, execution, device-specific, query),
+    # positive codes are the device's own, 0 is "No error" (a 16-bit range, from memory)
+    return -499 <= code <= -100 or 1 <= code <= 32767
+
+
 def parse_fault(text: str) -> FaultSpec:
     """Parse ``KIND[@ROLE][=VALUE]``.
 
@@ -104,6 +110,9 @@ def parse_fault(text: str) -> FaultSpec:
             raise InputError(f"fault '{raw}': error needs a command header, e.g. error@supply=OUTP")
         if code and not code.lstrip("-").isdigit():
             raise InputError(f"fault '{raw}': the error code must be an integer, e.g. /-240")
+        if code and not _is_queueable_error_code(int(code)):
+            raise InputError(f"fault '{raw}': the error code must be a standard one (-100 to -499, e.g. /-240) "
+                             "or a positive device-specific one (1 to 32767); 0 means no error")
     else:
         if not value.isdigit() or (kind in ("garble",) and int(value) < 1):
             raise InputError(f"fault '{raw}': {kind} needs a whole count, e.g. {kind}=10")

@@ -22,6 +22,7 @@ REPO = Path(__file__).resolve().parents[2]
 @pytest.mark.parametrize("kwargs", [
     {"fixture": "breadboard"}, {"bag_size": 0}, {"time_scale": -1.0}, {"latency_s": -0.1},
     {"series_resistor_nominal_ohm": 0.0}, {"faults": ("mute=abc",)}, {"time_scale": float("nan")},
+    {"seed": -1}, {"faults": ("error@supply=OUTP/0",)},
 ])
 def test_bad_config_is_one_clear_error(kwargs):
     with pytest.raises(InputError):
@@ -159,6 +160,20 @@ def test_cli_bad_fault_is_one_line_error():
     assert run.returncode == 2
     assert run.stderr.strip().startswith("benchlab: error: fault 'explode=1'")
     assert "Traceback" not in run.stderr and len(run.stderr.strip().splitlines()) == 1
+
+
+@pytest.mark.parametrize("args, start", [
+    (["--seed", "-1"], "benchlab: error: simulator seed -1"),
+    (["--fault", "error@supply=OUTP/0"], "benchlab: error: fault 'error@supply=OUTP/0'"),
+    (["--bag-size", "0"], "benchlab: error: the bag needs at least one part"),
+])
+def test_cli_bad_settings_are_one_line_errors(args, start):
+    run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--port", "0", *args], cwd=REPO,
+                         capture_output=True, text=True, timeout=60)
+    assert run.returncode == 2
+    assert run.stderr.strip().startswith(start)
+    assert "Traceback" not in run.stderr and len(run.stderr.strip().splitlines()) == 1
+    assert run.stdout == ""  # nothing was served
 
 
 def test_cli_help_lists_every_option():

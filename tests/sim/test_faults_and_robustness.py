@@ -87,6 +87,29 @@ def test_latency_option_still_answers(make_bench, rm):
     assert inst.query("*IDN?").split(",")[1] == "DMM-1"
 
 
+def test_latency_delays_every_reply(make_bench, rm):
+    # a 1.5 s round trip cannot be answered within a 0.2 s client timeout (a wide margin, not a speed test);
+    # the instrument still executes the command
+    bench = make_bench(latency_s=1.5)
+    inst = open_client(rm, bench.resources["supply"], timeout_ms=200)
+    with pytest.raises(VisaIOError):
+        inst.query("VOLT 4;*IDN?")
+    inst.close()
+    patient = open_client(rm, bench.resources["supply"], timeout_ms=5000)
+    assert float(patient.query("VOLT?")) == pytest.approx(4.0)
+
+
+def test_query_with_an_error_gets_no_reply_and_queues_the_error(supply):
+    # IEEE 488.2 message exchange: a query that fails produces no response data (the client times out);
+    # the error is queued (SCPI-1999 vol. 2, ch. 21: -114 header suffix out of range)
+    supply.timeout = 300
+    with pytest.raises(VisaIOError):
+        supply.query("SOUR2:VOLT?")
+    supply.timeout = 3000
+    assert drain_errors(supply) == [-114]
+    assert supply.query("*IDN?").startswith("BENCHLAB-SIM")  # the session is still in step
+
+
 def test_several_clients_at_once(bench, rm):
     clients = [open_client(rm, bench.resources["supply"]) for _ in range(4)]
     for index, client in enumerate(clients):
@@ -104,7 +127,11 @@ def test_fault_specs_parse_and_reject_bad_ones():
     assert parse_fault("error@supply=OUTP/-222").error_code == -222
     assert parse_fault("slow=0.5").role == "all"
     assert (parse_fault("slow=0.5/20").seconds, parse_fault("slow=0.5/20").slow_after) == (0.5, 20)
-    for bad in ("explode=1", "mute@oven=3", "mute=x", "slow=-1", "slow=1/x", "error=", "garble=0"):
+    assert parse_fault("error@supply=OUTP/7").error_code == 7  # a device-specific (positive) code
+    # SCPI-1999 vol. 2, ch. 21: 0 is "No error" and the standard errors are -100..-499, so neither 0 nor -50
+    # nor -999 can be queued as an error
+    for bad in ("explode=1", "mute@oven=3", "mute=x", "slow=-1", "slow=1/x", "error=", "garble=0",
+                "error@supply=OUTP/0", "error@supply=OUTP/-50", "error@supply=OUTP/-999", "error@supply=OUTP/40000"):
         with pytest.raises(InputError):
             parse_fault(bad)
     with pytest.raises(InputError):
@@ -164,6 +191,19 @@ def test_drop_closes_the_connection_once(make_bench, rm):
         inst.query("*IDN?")
     again = open_client(rm, bench.resources["supply"])
     assert again.query("*IDN?").startswith("BENCHLAB-SIM")
+
+
+def test_injected_device_specific_error_sets_the_device_error_bit(make_bench, rm):
+    # IEEE 488.2 11.5.1: ESR bit 3 is the device-dependent error; SCPI-1999 vol. 2, ch. 21: positive codes are
+    # device-specific
+    bench = make_bench(faults=("error@meter=READ?/7",))
+    inst = open_client(rm, bench.resources["meter"], timeout_ms=300)
+    inst.write("*CLS")
+    with pytest.raises(VisaIOError):
+        inst.query("READ?")
+    inst.timeout = 3000
+    assert int(inst.query("*ESR?")) & (1 << 3)
+    assert drain_errors(inst) == [7]
 
 
 def test_injected_scpi_error_on_a_header(make_bench, rm):

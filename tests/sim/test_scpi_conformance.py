@@ -212,3 +212,26 @@ def test_meter_configuration_queries(meter):
     assert drain_errors(meter) == [-104]
     meter.write("*TRG")
     assert float(meter.query("FETC?")) < 1e-3  # the output is off: about 0 A
+
+
+def test_special_values_for_readings():
+    # SCPI-1999 vol. 1, 7.2.1.5: +INFinity is sent as 9.9E37, -INFinity as -9.9E37, not-a-number as 9.91E37
+    from benchlab.sim.scpi import format_number
+
+    assert format_number(float("inf")) == "9.9E37"
+    assert format_number(float("-inf")) == "-9.9E37"
+    assert format_number(float("nan")) == "9.91E37"
+    assert float(format_number(1.5e-3)) == 1.5e-3
+
+
+def test_meter_reading_below_the_negative_range_is_minus_infinity(bench):
+    # SCPI-1999 vol. 1, 7.2.1.5 (-9.9E37 for -INF). The fixture never drives the part negative, so the
+    # meter's over-range check is fed a negative true value directly (a meter wired the other way round)
+    from benchlab.sim.scpi import format_number
+
+    meter = bench.instruments["meter"]
+    meter.execute("CONF:VOLT 1")
+    meter._true_value = lambda function: -2.0
+    assert format_number(meter.take_reading()) == "-9.9E37"
+    meter._true_value = lambda function: -1.1  # within the 20 % over-range of the 1 V range
+    assert -1.2 < meter.take_reading() < -1.0
