@@ -41,7 +41,7 @@ def wait_for_points(child: subprocess.Popen, sessions: Path, count: int, timeout
 
 
 def test_sigkill_mid_sweep_leaves_the_csv_intact_up_to_the_last_point(tmp_path):
-    child, sessions, _ = start_sweep(tmp_path)
+    child, sessions, log_path = start_sweep(tmp_path)
     csv_path = wait_for_points(child, sessions, 6)
     child.send_signal(signal.SIGKILL)
     child.communicate(timeout=30)
@@ -49,6 +49,12 @@ def test_sigkill_mid_sweep_leaves_the_csv_intact_up_to_the_last_point(tmp_path):
     # every point written before the kill is whole and in order; at most the point in flight is lost
     assert len(data.vgs) >= 6 and not data.truncated
     assert list(data.point) == list(range(len(data.point)))
+    # the simulator (in the killed process) logged every setpoint the sweep applied, flushed per line:
+    # each applied setpoint but the last has its point on disk, with that very setpoint
+    commands = BenchLog.read_file(log_path).commands("supply")
+    applied = [float(c.split()[1]) for c in commands[commands.index("OUTP ON") + 1:] if c.startswith("VOLT ")]
+    assert len(applied) - 1 <= len(data.vgs) <= len(applied)
+    assert list(data.v_source) == pytest.approx(applied[:len(data.vgs)], rel=1e-5, abs=1e-9)
     assert all(s in ("ok", "unsettled", "compliance", "over_range") for s in data.status)
     assert data.complete is False and data.meta["ended"] is None  # the sidecar still says "in progress"
 
