@@ -33,7 +33,20 @@ def build_parser() -> argparse.ArgumentParser:
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMAND_MODULES:
         importlib.import_module(f"benchlab.commands.{name}").register(subparsers)
+    _describe_subcommands(parser)
     return parser
+
+
+def _describe_subcommands(parser: argparse.ArgumentParser) -> None:
+    """Give every (sub)subcommand without a description its one-line help, so its own ``--help`` says what it does."""
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            helps = {choice.dest: choice.help for choice in action._choices_actions}
+            for name, sub in action.choices.items():
+                if not sub.description and helps.get(name):
+                    text = helps[name]
+                    sub.description = text[0].upper() + text[1:] + ("" if text.endswith(".") else ".")
+                _describe_subcommands(sub)
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -28,11 +28,11 @@ def register(subparsers) -> None:
     imp.set_defaults(func=_import)
 
     imj = sub.add_parser("import-json", parents=[lib], help="import a library export (benchlab export json)")
-    imj.add_argument("file")
+    imj.add_argument("file", help="a JSON file written by benchlab export json")
     imj.set_defaults(func=_import_json)
 
     lots = sub.add_parser("lots", parents=[lib], help="list lots with part counts per state")
-    lots.add_argument("--json", action="store_true")
+    lots.add_argument("--json", action="store_true", help="print the lots as one JSON array")
     lots.set_defaults(func=_lots)
 
     info = sub.add_parser("info", parents=[lib], help="library file, schema version and row counts")

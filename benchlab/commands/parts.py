@@ -25,20 +25,20 @@ def register(subparsers) -> None:
     sub = parser.add_subparsers(dest="parts_command", metavar="ACTION", required=True)
 
     add = sub.add_parser("add", parents=[lib], help="add a part, optionally with a hand-entered curve")
-    add.add_argument("label")
+    add.add_argument("label", help="label of the part, e.g. Q07 (unique within its lot)")
     add.add_argument("--lot", default="default", help="lot (bag) the part belongs to (default: %(default)s)")
-    add.add_argument("--polarity", choices=("N", "P"), default="N")
+    add.add_argument("--polarity", choices=("N", "P"), default="N", help="N- or P-channel (default: %(default)s)")
     add.add_argument("--vth", type=float, metavar="V", help="threshold voltage (V; its magnitude for P-channel parts)")
     add.add_argument("--gm", type=float, metavar="A/V", help="transconductance of the linear model (A/V)")
     add.add_argument("--kp", type=float, metavar="A/V2", help="KP of the square law (A/V^2, SPICE level-1, W=L=1)")
     add.add_argument("--theta", type=float, metavar="1/V", help="mobility degradation THETA (1/V), with --kp")
     add.add_argument("--package", default="", help="package, e.g. TO-220")
-    add.add_argument("--notes", default="")
+    add.add_argument("--notes", default="", help="free text kept with the part")
     add.add_argument("--json", action="store_true", help="print the part as JSON")
     add.set_defaults(func=_add)
 
     lst = sub.add_parser("list", parents=[lib], help="list parts")
-    lst.add_argument("--lot")
+    lst.add_argument("--lot", help="only parts of this lot")
     lst.add_argument("--state", choices=PART_STATES + ("all",), default="in_stock",
                      help="only parts in this state (default: %(default)s)")
     lst.add_argument("--json", action="store_true", help="one JSON array of parts")
@@ -56,7 +56,7 @@ def register(subparsers) -> None:
 
     state = sub.add_parser("state", parents=[lib], help="set a part's state")
     state.add_argument("part", help="LABEL or LOT/LABEL")
-    state.add_argument("state", choices=PART_STATES)
+    state.add_argument("state", choices=PART_STATES, help="the new state")
     state.add_argument("--reason", help="note kept with the change (required for rejected)")
     state.set_defaults(func=_state)
 

@@ -77,8 +77,11 @@ def _add_bench_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--settle", type=float, metavar="S", dest="settle_s", help="wait after each setpoint (s)")
     p.add_argument("--nplc", type=float, help="integration time in power-line cycles")
     sim = p.add_argument_group("simulated bench (--sim)")
-    sim.add_argument("--sim-fixture", choices=("resistor", "smu"), default="resistor")
-    sim.add_argument("--sim-seed", type=int, default=1)
+    sim.add_argument("--sim-fixture", choices=("resistor", "smu"), default="resistor",
+                     help="resistor: supply, series resistor and meter; smu: source-measure unit across the part "
+                          "(default resistor)")
+    sim.add_argument("--sim-seed", type=int, default=1,
+                     help="seed of the simulated bag, resistor error and noise (default 1)")
     sim.add_argument("--sim-time-scale", type=float, default=0.0,
                      help="real seconds per instrument second (1 = real time, 0 = no waits; default 0)")
     sim.add_argument("--sim-fault", action="append", default=[], metavar="SPEC",
