@@ -106,6 +106,15 @@ def test_a_real_fall_is_still_flagged_in_a_noisy_sweep():
     assert "non_monotonic" in fit_sweep(vgs, ids, model="theta").flags
 
 
+@pytest.mark.parametrize("points, where", [(10, 3), (10, 7), (25, 5), (25, 15)])
+def test_a_dip_in_a_short_clean_sweep_is_flagged(points, where):
+    # a coarse sweep's own curvature must not be taken for noise that would excuse a 5 % dip
+    currents = np.geomspace(1e-3, 0.2, points)
+    ids = currents.copy()
+    ids[where] = ids[where - 1] * 0.95
+    assert "non_monotonic" in fit_sweep(PART.vgs_at(currents), ids, model="theta").flags
+
+
 def test_thin_data_flagged():
     currents = np.geomspace(20e-3, 40e-3, 6)  # a third of a decade
     result = fit_sweep(PART.vgs_at(currents), currents, model="theta")

@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from benchlab.extract import fit_sweep
+from benchlab.extract.diagnostics import monotonic_check
 
 from .conftest import meter_readings
 
@@ -129,3 +130,16 @@ def test_sqrt_extrapolation_threshold_on_a_level1_part(spice, sweep):
     vgs, i_d = sweep(spice, LEVEL1, 9)
     result = fit_sweep(vgs, i_d)
     assert abs(result.thresholds["extrapolation_sqrt_max_slope"] - 3.2) < 2e-3
+
+
+def test_meter_noise_on_a_rising_ngspice_curve_never_reads_as_a_fall(spice):
+    # ngspice's level-1 current never falls as VGS rises; 40 noisy readings of it through 4.7 Ohm
+    # (about 12 uA of noise per current reading, cut at the 1 uA detection floor) must raise no fall
+    v_supply, v_part, _ = spice.resistor_sweep(LEVEL1, resistor=R_POWER, stop=6.0, step=0.01)
+    for seed in range(40):
+        vgs, i_d = meter_readings(v_supply, v_part, R_POWER, np.random.default_rng(100 + seed))
+        assert monotonic_check(vgs[None], i_d[None], np.ones((1, vgs.size), bool)) == [[]], seed
+    # while a real 5 % fall at 100 mA is still caught
+    k = int(np.searchsorted(i_d, 0.1))
+    i_d[k:] *= 0.95
+    assert monotonic_check(vgs[None], i_d[None], np.ones((1, vgs.size), bool))[0]
