@@ -240,6 +240,8 @@ class _Sweep:
                 if plan.fixture == "resistor":
                     self.source.check_voltage(step.level, step.expect_id, step.expect_vgs)
                 else:
+                    if step.expect_id is None:
+                        self.fit_compliance_to_power(step.level)
                     self.source.check_level(step.level, step.expect_id)
             except SafetyError as exc:
                 raise _Stop(f"next setpoint refused by the safety limits ({exc})") from None
@@ -292,6 +294,27 @@ class _Sweep:
                                       direction="up"))
             for k in range(first, len(self.points)):
                 self.check_reading(self.points[k], self.points[:k])
+
+    def fit_compliance_to_power(self, level: float) -> None:
+        """SMU forcing volts, before the part conducts: lower the current compliance to max_power_w / level.
+
+        With no current predicted the guard takes the worst case, level x compliance (a part whose VGS at
+        the compliance equals the setpoint); a compliance set for the top target current would then stop
+        the search for conduction below threshold and a good part would be judged open. The output is
+        switched off while the compliance changes (the guard allows no reconfiguration while it is on).
+        """
+        if self.source.mode != "voltage" or level <= 0:
+            return
+        allowed = self.plan.limits.max_power_w / level * (1.0 - 1e-6)
+        if allowed >= self.source.compliance or allowed < 10 * self.plan.detect_floor_a():
+            return  # nothing to do, or too little current left to sweep: the guard refuses the step
+        was_on = self.source.output_is_on()
+        if was_on:
+            self.source.set_output(False)
+        self.source.configure_source("voltage", allowed)
+        self.source.set_level(0.0)
+        if was_on and not self.pulsed:
+            self.source.set_output(True)
 
     def source_on_if_continuous(self) -> None:
         if not self.pulsed and not self.source.output_is_on():
