@@ -102,20 +102,23 @@ def test_inverse_round_trip():
         assert part_current(part, volts, T0) == pytest.approx(amps, rel=1e-9)
 
 
-def test_resistor_line_solution_matches_ngspice(ngspice_path, tmp_path):
-    # ngspice level-1 MOSFET (Beta = KP W/L, saturation Beta/2 Vov^2) on the same resistor line; our EKV
-    # part with n = 1, THETA = 0 and no leakage has the same strong-inversion law, so the operating points
-    # must agree (ngspice-39, tolerances tightened as /work/shared notes advise)
-    part = make_part(theta=0.0, slope_n=1.0, leak_siemens=0.0, vth_ref=2.5, kp_ref=1.0)
+@pytest.mark.parametrize("level, theta", [(1, 0.0), (3, 0.3)])
+def test_resistor_line_solution_matches_ngspice(ngspice_path, tmp_path, level, theta):
+    # ngspice MOSFET on the same resistor line. Level 1: Beta = KP W/L, saturation Beta/2 Vov^2. Level 3 with
+    # THETA (and its defaults: no body effect, no velocity saturation, no weak-inversion term): saturation
+    # (KP/2) Vov^2 / (1 + THETA Vov), the law the simulated part bends by. Our EKV part with n = 1 and no
+    # leakage has the same strong-inversion law, so the operating points must agree (ngspice-39, tolerances
+    # tightened as /work/shared notes advise)
+    part = make_part(theta=theta, slope_n=1.0, leak_siemens=0.0, vth_ref=2.5, kp_ref=1.0)
     deck = tmp_path / "line.cir"
     out = tmp_path / "out.txt"
     deck.write_text(f"""* diode-connected part on a resistor line
 V1 vs 0 0
 R1 vs d 10
 M1 d d 0 0 NMOD W=100u L=100u
-.model NMOD NMOS (LEVEL=1 VTO=2.5 KP=1.0)
+.model NMOD NMOS (LEVEL={level} VTO=2.5 KP=1.0{f" THETA={theta}" if level == 3 else ""})
 .options RELTOL=1e-7 VNTOL=1e-9 ABSTOL=1e-15
-.dc V1 4 12 1
+.dc V1 4 14 1
 .control
 run
 let idrain = -1*i(V1)
@@ -128,10 +131,15 @@ wrdata out.txt v(d) idrain
     run = subprocess.run([ngspice_path, "-b", deck.name], capture_output=True, text=True, timeout=60, cwd=tmp_path)
     assert out.exists(), run.stdout + run.stderr
     rows = np.loadtxt(out)
+    assert len(rows) == 11
     for supply_v, part_v, _, spice_i in rows:
         point = solve_resistor_fixture(part, T0, supply_v, 10.0, 10.0)
         assert point.part_v == pytest.approx(part_v, abs=2e-4)
         assert point.part_i == pytest.approx(spice_i, rel=2e-4)
+    if theta:
+        # the bend is really there: at the top of the sweep the square law alone would carry far more
+        top_v = rows[-1][1]
+        assert 0.5 * (top_v - 2.5) ** 2 > 1.3 * rows[-1][3]
 
 
 def test_supply_goes_constant_current_at_its_limit():
