@@ -238,16 +238,18 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
         raise InputError("no such file", path=name) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the file ({exc.__class__.__name__}: {exc})", path=name) from None
-    table = [row for row in table if any(cell.strip() for cell in row)]
-    if not table:
+    # blank lines are skipped but still counted, so a row number is the data row a reader sees
+    numbered = [(k, row) for k, row in enumerate(table) if any(cell.strip() for cell in row)]
+    if not numbered:
         raise InputError("the file is empty (expected a header row with 'vgs' and 'id')", path=name)
-    header, body = table[0], table[1:]
+    header_at, header = numbered[0]
+    body = [(k - header_at, row) for k, row in numbered[1:]]
     index = _column_index(header, name)
     if not body:
         raise InputError("no data rows after the header", path=name)
     status_col, direction_col = index.get("status"), index.get("direction")
     vgs, i_d, direction, rows, skipped = [], [], [], [], {}
-    for row_number, row in enumerate(body, start=1):
+    for row_number, row in body:
         status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
         if status != "ok":
             skipped[status] = skipped.get(status, 0) + 1

@@ -82,6 +82,16 @@ def test_bad_current_named_by_row(tmp_path, bad, words):
     assert err.row == 7 and f"bad.csv, row 7" in str(err)
 
 
+def test_row_number_counts_blank_lines(tmp_path):
+    # a blank line in the middle is skipped, but the row named is still the one a reader counts
+    rows = [",".join(str(x) for x in r) for r in _good_rows()]
+    rows[9] = rows[9].split(",")[0] + ",oops"
+    (tmp_path / "gap.csv").write_text("vgs,id\n" + "\n".join(rows[:4]) + "\n\n" + "\n".join(rows[4:]) + "\n")
+    err = _error(tmp_path / "gap.csv")
+    assert err.row == 11  # 10th data row, after one blank line: line 12 of the file
+    assert (tmp_path / "gap.csv").read_text().splitlines()[err.row].endswith("oops")
+
+
 def test_unsorted_rows(tmp_path):
     rows = _good_rows()
     rows[5], rows[12] = rows[12], rows[5]
