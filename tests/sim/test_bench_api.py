@@ -211,3 +211,28 @@ def test_bench_can_be_stopped_and_started_again(rm):
         bench.stop()
         resources = bench.start()
         assert open_client(rm, resources["meter"]).query("*IDN?").startswith("BENCHLAB-SIM")
+
+
+def test_listens_on_loopback_and_on_5025_unless_told_otherwise():
+    # the rule: loopback only by default, for the API and for `benchlab sim`
+    from benchlab.cli import build_parser
+
+    with SimBench(SimConfig(time_scale=0.0)) as bench:
+        bench.start(first_port=0)
+        bound = {role: server._listener.getsockname()[0] for role, server in bench._servers.items()}
+    assert bound == {"supply": "127.0.0.1", "meter": "127.0.0.1", "source_meter": "127.0.0.1"}
+    defaults = build_parser().parse_args(["sim"])
+    assert (defaults.host, defaults.port) == ("127.0.0.1", 5025)  # 5025: the usual raw SCPI socket port
+
+
+def test_supply_output_carries_its_setpoint_error(make_bench, rm):
+    # V_out = V_set (1 + gain) + offset; the readback shows the real output, not the setpoint
+    bench = make_bench(supply_gain_error=0.01, supply_offset_v=0.02, rth_k_per_w=0.0)
+    supply = open_client(rm, bench.resources["supply"])
+    assert supply.query("CURR 1;VOLT 10;OUTP ON;*OPC?") == "1"
+    assert float(supply.query("VOLT?")) == pytest.approx(10.0)  # the setpoint as programmed
+    assert float(supply.query("MEAS:VOLT?")) == pytest.approx(10.12, abs=2e-3)  # 1 mV resolution, 0.3 mV noise
+    assert supply.query("OUTP OFF;*OPC?") == "1"
+    seeded = make_bench(seed=3, rth_k_per_w=0.0)  # drawn within +/-0.05 % and +/-3 mV
+    error = seeded.core.fixture.supply_error
+    assert error.gain != 0.0 and abs(error.gain) <= 5e-4 and abs(error.offset_v) <= 3e-3
