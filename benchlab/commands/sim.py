@@ -8,6 +8,9 @@ from benchlab.sim.bag import DEFAULT_BAG_SIZE
 from benchlab.sim.bench import DEFAULT_FIRST_PORT, DEFAULT_SERIES_RESISTOR_OHM, SimConfig
 from benchlab.sim.faults import parse_fault
 
+# A foreground simulator never reads its own log back (--log FILE keeps everything): bound the memory it uses.
+CLI_LOG_MEMORY_ENTRIES = 100_000
+
 _FAULT_HELP = (
     "inject a fault, KIND[@ROLE][=VALUE]; ROLE is supply, meter, source_meter or all (default). "
     "Kinds: slow=S[/N] (replies S seconds late, after N messages), mute=N (no replies after N messages), hang=N (neither "
@@ -62,6 +65,7 @@ def run(args: argparse.Namespace) -> int:
     config = SimConfig(
         fixture=args.fixture, seed=args.seed, bag_size=args.bag_size, time_scale=args.time_scale,
         latency_s=args.latency, faults=faults, series_resistor_nominal_ohm=args.resistor, log_path=args.log,
+        log_memory_entries=CLI_LOG_MEMORY_ENTRIES,
     )
     return serve_until_signalled(config, args.host, args.port)
 

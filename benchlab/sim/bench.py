@@ -64,6 +64,8 @@ class SimConfig:
         Thermal resistance and time constant of every part.
     log_path : str, optional
         JSON-lines log file, flushed per entry.
+    log_memory_entries : int, optional
+        Newest log entries kept in memory (``SimBench.log``); None keeps all. The log file keeps all anyway.
     """
 
     fixture: str = "resistor"
@@ -81,6 +83,7 @@ class SimConfig:
     rth_k_per_w: float = 62.0
     tau_thermal_s: float = 45.0
     log_path: str | None = None
+    log_memory_entries: int | None = None
     fault_specs: tuple[FaultSpec, ...] = field(init=False, repr=False, compare=False, default=())
 
     def __post_init__(self) -> None:
@@ -100,6 +103,8 @@ class SimConfig:
         for name, ok in checks.items():
             if not (ok and math.isfinite(float(getattr(self, name)))):
                 raise InputError(f"simulator setting {name}={getattr(self, name)!r} is out of range")
+        if self.log_memory_entries is not None and self.log_memory_entries < 1:
+            raise InputError("log_memory_entries must be at least 1 (or None to keep everything)")
         if self.series_resistor_actual_ohm is not None and not self.series_resistor_actual_ohm > 0:
             raise InputError("series_resistor_actual_ohm must be > 0")
         object.__setattr__(self, "fault_specs", coerce_faults(self.faults))
@@ -129,7 +134,7 @@ class SimBench:
         self.config = config or SimConfig()
         cfg = self.config
         self._log_stream: IO[str] | None = None
-        self.log = BenchLog()
+        self.log = BenchLog(max_entries=cfg.log_memory_entries)
         self.clock = VirtualClock(cfg.time_scale)
         resistor, supply_error = _draw_errors(cfg)
         self.bag: tuple[PartPhysics, ...] = make_bag(cfg.seed, cfg.bag_size, rth_k_per_w=cfg.rth_k_per_w,

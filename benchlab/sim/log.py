@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import threading
+from collections import deque
 import time
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -44,10 +45,13 @@ class BenchLog:
     ----------
     stream : file-like, optional
         Text stream receiving one JSON object per line, flushed per entry.
+    max_entries : int, optional
+        Keep only this many of the newest entries in memory (the stream still gets every one), so a
+        simulator left running for days does not grow without bound. None keeps everything (tests).
     """
 
-    def __init__(self, stream: IO[str] | None = None):
-        self._entries: list[LogEntry] = []
+    def __init__(self, stream: IO[str] | None = None, max_entries: int | None = None):
+        self._entries: deque[LogEntry] = deque(maxlen=max_entries)
         self._lock = threading.Lock()
         self._stream = stream
 

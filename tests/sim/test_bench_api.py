@@ -236,3 +236,23 @@ def test_supply_output_carries_its_setpoint_error(make_bench, rm):
     seeded = make_bench(seed=3, rth_k_per_w=0.0)  # drawn within +/-0.05 % and +/-3 mV
     error = seeded.core.fixture.supply_error
     assert error.gain != 0.0 and abs(error.gain) <= 5e-4 and abs(error.offset_v) <= 3e-3
+
+
+def test_memory_log_can_be_bounded_while_the_file_keeps_everything(tmp_path, rm):
+    # a `benchlab sim` left running must not grow without bound; the --log file stays complete
+    from benchlab.commands.sim import CLI_LOG_MEMORY_ENTRIES
+
+    assert CLI_LOG_MEMORY_ENTRIES >= 10_000
+    path = tmp_path / "sim.jsonl"
+    with SimBench(SimConfig(time_scale=0.0, log_path=str(path), log_memory_entries=5)) as bench:
+        bench.start()
+        supply = open_client(rm, bench.resources["supply"])
+        for volts in range(1, 21):
+            supply.write(f"VOLT {volts}")
+        assert supply.query("*OPC?") == "1"
+        assert len(bench.log.entries()) == 5
+        assert bench.log.commands("supply")[-1] == "*OPC?"
+    from_file = BenchLog.read_file(path).commands("supply")
+    assert from_file[:20] == [f"VOLT {v}" for v in range(1, 21)] and from_file[-1] == "*OPC?"
+    with pytest.raises(InputError):
+        SimConfig(log_memory_entries=0)
