@@ -13,7 +13,7 @@ import numpy as np
 
 from benchlab.errors import FitError
 from benchlab.extract import diagnostics
-from benchlab.extract.batch_thresholds import thresholds_batch
+from benchlab.extract.batch_thresholds import constant_current_stderr_batch, thresholds_batch
 from benchlab.extract.engine import PARAM_NAMES, BatchFit, model_current, solve_batch
 from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NOT_CONVERGED,
                                      FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
@@ -126,13 +126,14 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         vgs_at, gm_at = vgs_and_gm(model, params, at_current, ut)
         v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current, ut)
     thresholds = thresholds_batch(vgs, i_d, points, cc_current)
-    # VGS error of an interpolated point: one reading's relative noise over the local log-slope
+    # VGS error of an interpolated point: the readings' own scatter in VGS around that current
+    # (model-free, like the threshold itself); with too few readings there, one reading's relative
+    # noise over the fitted curve's local log-slope
+    vth_cc_sd = constant_current_stderr_batch(vgs, i_d, points, cc_current)
     if model != "linear":
         _, gm_cc = vgs_and_gm(model, params, cc_current, ut)
         with np.errstate(divide="ignore", invalid="ignore"):
-            vth_cc_sd = rms_rel / (gm_cc / cc_current)
-    else:
-        vth_cc_sd = np.full(vth.shape, np.nan)
+            vth_cc_sd = np.where(np.isfinite(vth_cc_sd), vth_cc_sd, rms_rel / (gm_cc / cc_current))
     i_lo = np.where(points, i_d, np.inf).min(axis=1)
     i_hi = np.where(points, i_d, -np.inf).max(axis=1)
     found = [[] for _ in sweeps]

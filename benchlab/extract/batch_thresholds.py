@@ -172,6 +172,42 @@ def constant_current_batch(vgs, i_d, valid, current: float) -> np.ndarray:
     return np.where(inside, value, np.nan)
 
 
+CC_SCATTER_POINTS = 7  # readings around the constant current whose scatter gives its standard error
+
+
+def constant_current_stderr_batch(vgs, i_d, valid, current: float) -> np.ndarray:
+    """Standard error (V) of the constant-current threshold of each row, from the data alone.
+
+    The scatter of VGS about a parabola in ln(ID) through the :data:`CC_SCATTER_POINTS`
+    readings nearest ``current`` (residual RMS with N - 3 degrees of freedom): one reading's
+    uncertainty in VGS at that current, whatever model is fitted, with the meter noise on both
+    VGS and ID in it. NaN where fewer than 6 readings exist or ``current`` is outside them.
+    """
+    valid, i_s, v_s = _sorted_rows(i_d, valid, i_d, vgs)
+    rows, width = v_s.shape
+    n = valid.sum(axis=1)
+    size = min(CC_SCATTER_POINTS, width)
+    k = (valid & (i_s < current)).sum(axis=1)
+    first = np.clip(k - size // 2 - 1, 0, np.maximum(n - size, 0))
+    index = np.minimum(first[:, None] + np.arange(size)[None, :], width - 1)
+    take = lambda a: np.take_along_axis(a, index, axis=1)  # noqa: E731
+    ok = take(valid)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        u = np.where(ok, np.log(np.where(ok, take(i_s), 1.0)) - np.log(current), 0.0)
+    y = np.where(ok, take(v_s), 0.0)
+    design = np.stack([np.ones_like(u), u, u * u], axis=-1) * ok[..., None]
+    normal = np.einsum("bnp,bnq->bpq", design, design) + 1e-12 * np.eye(3)
+    coef = np.linalg.solve(normal, np.einsum("bnp,bn->bp", design, y)[..., None])[..., 0]
+    resid = np.where(ok, y - np.einsum("bnp,bp->bn", design, coef), 0.0)
+    dof = ok.sum(axis=1) - 3
+    with np.errstate(divide="ignore", invalid="ignore"):
+        scatter = np.sqrt((resid * resid).sum(axis=1) / dof)
+    i_min = np.where(valid, i_s, np.inf).min(axis=1)
+    i_max = np.where(valid, i_s, -np.inf).max(axis=1)
+    usable = (n >= 6) & (dof >= 3) & (i_min <= current) & (current <= i_max)
+    return np.where(usable, scatter, np.nan)
+
+
 def thresholds_batch(vgs, i_d, valid, cc_current: float) -> dict[str, np.ndarray]:
     """ESR, SD and constant-current thresholds of every row (NaN where a method gives none).
 

@@ -11,7 +11,7 @@ import numpy as np
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from benchlab.extract import fit_sweep
+from benchlab.extract import fit_batch, fit_sweep
 from benchlab.models import DeviceParams
 
 SETTINGS = settings(max_examples=12, deadline=None, derandomize=True)
@@ -98,3 +98,21 @@ def test_bootstrap_and_covariance_errors_agree(v0, k0, t0, s):
     for key in ("vth", "kp", "theta", "gm", "vgs_at_current"):
         ratio = boot.stderr[key] / cov.stderr[key]
         assert 0.5 < ratio < 2.0, (key, ratio)
+
+
+def test_constant_current_error_matches_the_scatter_of_repeated_sweeps():
+    # the quoted standard error of VGS at 250 uA must match the spread of that threshold over 300
+    # repeated noisy sweeps of one part (the definition of a standard error), whichever model is fitted
+    # (the threshold is model-free; it once carried the square law's misfit, 15x too big)
+    part = DeviceParams("ekv", vth=3.0, kp=2.0, theta=0.2, n=1.5)
+    currents = np.geomspace(1e-6, 0.5, 80)
+    sweeps = []
+    for s in range(300):
+        rng = np.random.default_rng(s)
+        sweeps.append((part.vgs_at(currents) + 1e-4 * rng.standard_normal(80),
+                       currents * (1 + 1e-3 * rng.standard_normal(80))))
+    for model in ("square", "linear", "ekv"):
+        results = fit_batch(sweeps, model=model, at_current=0.1)
+        spread = np.std([r.vth_cc for r in results])
+        quoted = np.median([r.stderr["vth_cc"] for r in results])
+        assert 0.7 < quoted / spread < 1.4, (model, quoted, spread)
