@@ -213,21 +213,30 @@ class PromptPartLoader:
 # --------------------------------------------------------------------------------------------- sweeping
 @contextlib.contextmanager
 def sigterm_as_exception() -> Iterator[None]:
-    """Turn SIGTERM into :class:`SweepCancelled` in the main thread while the block runs."""
+    """Turn SIGTERM and SIGHUP into :class:`SweepCancelled` in the main thread while the block runs.
+
+    SIGHUP is what a sweep gets when its terminal window is closed or its remote login drops; left at
+    its default it would end the process at once with the output still on.
+    """
     if threading.current_thread() is not threading.main_thread():
         yield
         return
+    stopping = [sig for sig in (signal.SIGTERM, getattr(signal, "SIGHUP", None)) if sig is not None]
 
     def handler(signum, frame):
-        # a second SIGTERM must not interrupt the clean-up that switches the output off (SIGKILL still works)
-        signal.signal(signal.SIGTERM, signal.SIG_IGN)
-        raise SweepCancelled("stopped by SIGTERM; the sweep is marked incomplete")
+        # a second signal must not interrupt the clean-up that switches the output off (SIGKILL still works)
+        for sig in stopping:
+            signal.signal(sig, signal.SIG_IGN)
+        name = signal.Signals(signum).name
+        why = " (the terminal closed)" if name == "SIGHUP" else ""
+        raise SweepCancelled(f"stopped by {name}{why}; the sweep is marked incomplete")
 
-    previous = signal.signal(signal.SIGTERM, handler)
+    previous = {sig: signal.signal(sig, handler) for sig in stopping}
     try:
         yield
     finally:
-        signal.signal(signal.SIGTERM, previous)
+        for sig, action in previous.items():
+            signal.signal(sig, action)
 
 
 def session_meta(handle: BenchHandle) -> dict[str, Any]:

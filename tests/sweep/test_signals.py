@@ -59,7 +59,8 @@ def test_sigkill_mid_sweep_leaves_the_csv_intact_up_to_the_last_point(tmp_path):
     assert data.complete is False and data.meta["ended"] is None  # the sidecar still says "in progress"
 
 
-@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT])
+# SIGHUP: the terminal window closed or the remote login dropped
+@pytest.mark.parametrize("sig", [signal.SIGTERM, signal.SIGINT, signal.SIGHUP], ids=lambda s: signal.Signals(s).name)
 def test_sigterm_and_ctrl_c_switch_the_output_off_and_mark_the_sweep_incomplete(tmp_path, sig):
     child, sessions, log_path = start_sweep(tmp_path)
     csv_path = wait_for_points(child, sessions, 4)
