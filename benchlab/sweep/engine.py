@@ -343,7 +343,7 @@ class _Sweep:
             self.sweep_targets()
             reason = "reached the top target current"
         elif plan.mode == "currents":
-            self.sweep_levels(plan.target_currents(), "up")
+            self.sweep_levels(plan.forced_currents(), "up")
             reason = "swept every target current"
         elif plan.use_list:
             self.sweep_list()

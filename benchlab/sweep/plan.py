@@ -144,6 +144,20 @@ class SweepPlan:
         """The target currents (A), evenly spread in log(current), ascending."""
         return target_currents(self.min_current_a, self.max_current_a, self.points)
 
+    def forced_currents(self) -> np.ndarray:
+        """The currents a SMU forces in ``currents`` mode (A): the target currents, with the one nearest the
+        250 uA reference replaced by exactly 250 uA when it lies in the range, so VGS(th) is measured as
+        datasheets define it (at a fixed small drain current with VDS = VGS; common practice) rather than
+        interpolated."""
+        currents = self.target_currents()
+        if self.min_current_a < REFERENCE_CURRENT_A < self.max_current_a:
+            nearest = int(np.argmin(np.abs(np.log(currents / REFERENCE_CURRENT_A))))
+            if 0 < nearest < len(currents) - 1:  # keep the end points the user asked for
+                currents[nearest] = REFERENCE_CURRENT_A
+            else:
+                currents = np.sort(np.append(currents, REFERENCE_CURRENT_A))
+        return currents
+
     def detect_floor_a(self) -> float:
         """Smallest current (A) the bench can tell from zero: ``detect_current_a``, or, when the current
         comes from the resistor drop, three steps of a 1 mV supply readback over R (a typical readback

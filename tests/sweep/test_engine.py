@@ -281,7 +281,13 @@ def test_current_forcing_sweep_hits_log_spaced_currents():
     bench = FakeBench()
     plan = SweepPlan(fixture="smu", limits=LIMITS, mode="currents", points=9, min_current_a=1e-5, max_current_a=0.1)
     outcome = sweep(bench, plan)
-    assert [p.id for p in outcome.points] == pytest.approx(list(np.geomspace(1e-5, 0.1, 9)))
+    # log-spaced, with the target nearest 250 uA moved onto it: datasheets define VGS(th) as VGS at a fixed
+    # small drain current such as 250 uA with VDS = VGS (common practice), so that current is forced exactly
+    expected = np.geomspace(1e-5, 0.1, 9)
+    expected[3] = 250e-6
+    assert [p.id for p in outcome.points] == pytest.approx(list(expected))
+    at_ref = outcome.points[3]
+    assert outcome.vgs_at_ref == pytest.approx(at_ref.vgs, abs=1e-9)
     assert outcome.vgs_at_ref == pytest.approx(float(PART.vgs_at(250e-6)), abs=2e-3)
 
 

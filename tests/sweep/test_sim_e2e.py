@@ -157,8 +157,12 @@ def test_smu_forcing_currents_measures_vgs_at_250ua(tmp_path):
         outcome = sweep_part(handle, plan_for(handle, mode="currents", points=9, min_current_a=1e-5,
                                               max_current_a=0.1), SessionWriter.create(tmp_path, "cur"), "Q01")
         temperature = sim.temperature_k
-    assert [p.id for p in outcome.points] == pytest.approx(list(np.geomspace(1e-5, 0.1, 9)), rel=1e-3)
-    # datasheet VGS(th): VGS at 250 uA with VDS = VGS (common practice); the 250 uA point is forced exactly
+    expected = np.geomspace(1e-5, 0.1, 9)
+    expected[3] = 250e-6  # the target nearest 250 uA is moved onto it
+    assert [p.id for p in outcome.points] == pytest.approx(list(expected), rel=1e-3)
+    # datasheet VGS(th): VGS at 250 uA with VDS = VGS (common practice); the 250 uA point is forced exactly,
+    # so the value is that point's reading (to the SMU's current-reading noise), not an interpolation
+    assert outcome.vgs_at_ref == pytest.approx(outcome.points[3].vgs, abs=1e-4)
     assert outcome.vgs_at_ref == pytest.approx(voltage_at_current(part, 250e-6, temperature), abs=0.01)
 
 
