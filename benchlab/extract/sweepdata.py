@@ -117,6 +117,9 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
         if bad.size:
             raise InputError(f"{name} is not a finite number ({values[bad[0]]})", path=source, row=int(rows[bad[0]]))
     bad = np.flatnonzero(i_d <= 0)
+    if bad.size and np.all(i_d < 0):
+        raise InputError("every drain current is negative: a P-channel sweep is fitted as magnitudes "
+                         "(give |VGS| and |ID|, both positive)", path=source, row=int(rows[0]))
     if bad.size:
         raise InputError(f"drain current {i_d[bad[0]]:g} A is zero or negative; only conducting points "
                          "(id > 0) can be fitted: remove the row or mark its status", path=source,

@@ -82,6 +82,12 @@ def test_bad_current_named_by_row(tmp_path, bad, words):
     assert err.row == 7 and f"bad.csv, row 7" in str(err)
 
 
+def test_p_channel_signs_get_a_hint(tmp_path):
+    rows = [(-v, -i) for v, i in _good_rows()]
+    err = _error(_write(tmp_path / "pmos.csv", "vgs,id", rows))
+    assert "P-channel" in str(err) and "|ID|" in str(err) and err.row == 1
+
+
 def test_row_number_counts_blank_lines(tmp_path):
     # a blank line in the middle is skipped, but the row named is still the one a reader counts
     rows = [",".join(str(x) for x in r) for r in _good_rows()]
