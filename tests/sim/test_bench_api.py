@@ -12,7 +12,7 @@ from pathlib import Path
 import pytest
 
 from benchlab.errors import InputError, InstrumentError
-from benchlab.sim import BenchLog, SimBench, SimConfig
+from benchlab.sim import BenchLog, SimBench, SimConfig, parse_truth_reply
 from benchlab.sim.clock import VirtualClock
 from tests.sim.conftest import open_client
 
@@ -152,6 +152,28 @@ def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum)
     log = BenchLog.read_file(log_path)
     assert log.output_history("source_meter") == [True, False]
     assert not log.output_was_left_on()
+
+
+def test_cli_fault_and_resistor_options_reach_the_bench(tmp_path, rm):
+    # the options of `benchlab sim` are not only help text: an injected error and the nominal resistor take effect
+    proc, log_path, resources = _start_cli(tmp_path, "--fault", "error@supply=OUTP/-241", "--resistor", "100",
+                                           "--bag-size", "3")
+    try:
+        supply = open_client(rm, resources["supply"])
+        supply.write("CURR 0.1;VOLT 5;OUTP ON")
+        assert supply.query("SYST:ERR?").startswith("-241,")  # SCPI-1999 vol. 2, ch. 21: -241 hardware missing
+        assert supply.query("OUTP?") == "0"
+        truth = parse_truth_reply(supply.query("SIM:PART:TRUT?"))
+        assert abs(truth["series_resistor_actual_ohm"] / 100.0 - 1) <= 0.01
+        supply.write("SIM:PART:NEXT;NEXT;NEXT")
+        assert supply.query("SIM:PART:IND?") == "-1"  # three parts, then the bag is used up
+        supply.close()
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(timeout=20) == 0
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert not BenchLog.read_file(log_path).output_was_ever_on("supply")
 
 
 def test_cli_bad_fault_is_one_line_error():
