@@ -89,6 +89,8 @@ def build_plan(config: Any, **options: Any) -> SweepPlan:
         values.setdefault("mode", "voltages")
     base = SweepPlan(fixture=config.fixture, limits=Limits.from_safety_limits(config.limits),
                      series_resistor_ohm=float(config.series_resistor_ohm) if config.fixture == "resistor" else 0.0,
+                     series_resistor_tolerance=(float(config.series_resistor_tolerance or 0.0)
+                                                if config.fixture == "resistor" else 0.0),
                      settle_s=float(config.settle_s), nplc=float(config.nplc))
     try:
         plan = replace(base, **values)

@@ -54,7 +54,7 @@ class _Sweep:
             self.meter = getattr(instruments, "meter", None)
             if supply is None or self.meter is None:
                 raise InputError("the resistor fixture needs a supply and a meter on the bench")
-            self.source = GuardedSupply(supply, plan.limits, plan.series_resistor_ohm, clock)
+            self.source = GuardedSupply(supply, plan.limits, plan.worst_case_resistor_ohm(), clock)
         else:
             smu = getattr(instruments, "source_meter", None)
             if smu is None:

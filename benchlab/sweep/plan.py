@@ -66,6 +66,9 @@ class SweepPlan:
         Explicit source voltages (``voltages`` mode), applied in order.
     series_resistor_ohm : float
         Measured series resistor (resistor fixture).
+    series_resistor_tolerance : float
+        Relative uncertainty of that measurement (0.005 = 0.5 %). The safety bounds assume the low end
+        (:meth:`SweepPlan.worst_case_resistor_ohm`): a smaller resistor lets more current into the part.
     current_from : str
         Resistor fixture: where the drain current comes from. ``"meter"``: the meter switches to DC
         amps for a second reading at each point (its amps input in series with the part's source, its
@@ -121,6 +124,7 @@ class SweepPlan:
     max_current_a: float = 0.1
     voltages: tuple[float, ...] = ()
     series_resistor_ohm: float = 0.0
+    series_resistor_tolerance: float = 0.0
     current_from: str = "meter"
     settle_s: float = 0.05
     nplc: float = 1.0
@@ -165,6 +169,10 @@ class SweepPlan:
         if self.fixture == "resistor" and self.current_from == "resistor" and self.series_resistor_ohm > 0:
             return max(self.detect_current_a, 3 * READBACK_RESOLUTION_V / self.series_resistor_ohm)
         return self.detect_current_a
+
+    def worst_case_resistor_ohm(self) -> float:
+        """The least the series resistor may be (ohm): the measured value less its tolerance."""
+        return self.series_resistor_ohm * (1.0 - self.series_resistor_tolerance)
 
     def current_limit(self) -> float:
         """Supply current limit / SMU compliance (A): a margin above the top target, never above the limit."""
@@ -262,6 +270,9 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
     if plan.fixture == "resistor":
         _positive("series resistor (ohm)", plan.series_resistor_ohm)
+        if not (math.isfinite(plan.series_resistor_tolerance) and 0 <= plan.series_resistor_tolerance < 0.5):
+            raise InputError(f"series resistor tolerance must be a fraction from 0 to below 0.5, got "
+                             f"{plan.series_resistor_tolerance!r}")
         if plan.mode == "currents":
             raise InputError("forcing currents needs a source-measure unit (fixture 'smu')")
         if plan.use_list:
@@ -278,10 +289,10 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
             if v > lim.max_supply_v:
                 raise SafetyError(f"sweep voltage {v:g} V is above the bench limit max_supply_v "
                                   f"{lim.max_supply_v:g} V")
-            if plan.fixture == "resistor" and line_worst_power(v, plan.series_resistor_ohm,
-                                                               plan.current_limit()) > lim.max_power_w:
-                raise SafetyError(f"sweep voltage {v:g} V through {plan.series_resistor_ohm:g} ohm could put up to "
-                                  f"{line_worst_power(v, plan.series_resistor_ohm, plan.current_limit()):.3g} W "
+            r_low = plan.worst_case_resistor_ohm()
+            if plan.fixture == "resistor" and line_worst_power(v, r_low, plan.current_limit()) > lim.max_power_w:
+                raise SafetyError(f"sweep voltage {v:g} V through {r_low:g} ohm (the resistor less its tolerance) "
+                                  f"could put up to {line_worst_power(v, r_low, plan.current_limit()):.3g} W "
                                   f"in the part, above max_power_w {lim.max_power_w:g} W")
             if plan.fixture == "smu" and v * plan.current_limit() > lim.max_power_w:
                 # on a SMU all of the source power lands in the part: compliance x voltage bounds it

@@ -107,7 +107,9 @@ def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float,
         last_vgs = last.vgs if math.isfinite(last.vgs) else level
         # a part whose current rises with voltage cannot let more than (Vs - VGS_last) / R through
         # (and the supply's current limit caps it in any case)
-        expect_id = min(max(nxt - max(last_vgs, 0.0), 0.0) / r, plan.current_limit()) if r else None
+        # (R less its tolerance: the bound must hold for the smallest the resistor may be)
+        r_low = plan.worst_case_resistor_ohm() if r else 0.0
+        expect_id = min(max(nxt - max(last_vgs, 0.0), 0.0) / r_low, plan.current_limit()) if r else None
         expect_vgs = nxt
     else:
         above = [t for t in plan.target_currents() if t > conducting[-1][1] * 1.05]

@@ -13,7 +13,7 @@ from benchlab.errors import InputError, InstrumentTimeout, SafetyError, SweepCan
 from benchlab.models import DeviceParams, thermal_voltage
 from benchlab.sweep.engine import run
 from benchlab.sweep.stepping import predict_vgs
-from benchlab.sweep.plan import Limits, SweepPlan
+from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
 from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply, line_worst_power
 
@@ -406,6 +406,28 @@ def test_voltage_list_beyond_the_worst_case_power_is_refused_up_front():
     with pytest.raises(SafetyError, match="could put up to 3.5 W"):
         sweep(bench, resistor_plan(mode="voltages", voltages=(1.0, 12.0), max_current_a=0.4))
     assert bench.log == []
+
+
+def test_the_resistor_tolerance_tightens_the_worst_case():
+    # Maximum power transfer: a source V behind R puts at most V^2 / 4R into any load (textbook circuit
+    # theory; e.g. Horowitz & Hill, The Art of Electronics, 3rd ed., ch. 1, from memory).
+    # 8.5 V through the measured 10 ohm: 8.5^2 / 40 = 1.81 W, within the 2 W limit. But if the resistor is
+    # 20 % low (8 ohm) the peak current 0.53 A is cut at the 0.5 A limit: (8.5 - 0.5 x 8) x 0.5 = 2.25 W.
+    assert 8.5 ** 2 / 40 == pytest.approx(line_worst_power(8.5, 10.0, 0.5))
+    nominal = resistor_plan(mode="voltages", voltages=(1.0, 8.5), max_current_a=0.4)
+    validate_plan(nominal)
+    loose = resistor_plan(mode="voltages", voltages=(1.0, 8.5), max_current_a=0.4, series_resistor_tolerance=0.2)
+    bench = FakeBench()
+    with pytest.raises(SafetyError, match="8.5 V through 8 ohm .* up to 2.25 W"):
+        sweep(bench, loose)
+    assert bench.log == []
+    # the guard itself uses the low end too
+    guard = GuardedSupply(FakeBench().supply, LIMITS, loose.worst_case_resistor_ohm())
+    guard.set_current_limit(0.5)
+    with pytest.raises(SafetyError, match="2.25 W"):
+        guard.check_voltage(8.5)
+    with pytest.raises(InputError, match="tolerance"):
+        validate_plan(resistor_plan(series_resistor_tolerance=0.7))
 
 
 def test_readings_over_range_are_recorded_and_three_in_a_row_stop_the_sweep():
