@@ -21,6 +21,7 @@ COMMAND_MODULES: tuple[str, ...] = (
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The ``benchlab`` parser with every command module's subcommands registered."""
     parser = argparse.ArgumentParser(
         prog="benchlab",
         description=(
@@ -50,6 +51,7 @@ def _describe_subcommands(parser: argparse.ArgumentParser) -> None:
 
 
 def main(argv: list[str] | None = None) -> int:
+    """Run the CLI; returns the exit code (a ``BenchlabError`` is printed as one line, exit code from the error)."""
     parser = build_parser()
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):

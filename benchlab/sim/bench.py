@@ -223,6 +223,7 @@ class SimBench:
 
     @property
     def series_resistor_nominal_ohm(self) -> float:
+        """The resistor's marked value (ohm), what the user believes it is."""
         return self.config.series_resistor_nominal_ohm
 
     @property
@@ -244,4 +245,5 @@ class SimBench:
 
     @property
     def virtual_time_s(self) -> float:
+        """Virtual seconds since the bench was built (see :class:`benchlab.sim.clock.VirtualClock`)."""
         return self.clock.now()

@@ -89,9 +89,11 @@ class BenchCore:
     # ----------------------------------------------------------------- bag
     @property
     def part(self) -> PartPhysics | None:
+        """The part in the fixture (None when the bag is used up)."""
         return self.fixture.part
 
     def outputs_on(self) -> bool:
+        """True when the supply's or the SMU's output is on."""
         state = self.fixture.sources
         return state.supply_on or state.smu_on
 

@@ -36,6 +36,7 @@ class FaultSpec:
     value: str = ""
 
     def applies_to(self, role: str) -> bool:
+        """True when this fault acts on the instrument ``role``."""
         return self.role in ("all", role)
 
     @property
@@ -56,14 +57,17 @@ class FaultSpec:
 
     @property
     def error_header(self) -> str:
+        """The HEADER of ``error=HEADER[/CODE]``."""
         return self.value.split("/", 1)[0]
 
     @property
     def error_code(self) -> int:
+        """The CODE of ``error=HEADER[/CODE]`` (default -240)."""
         parts = self.value.split("/", 1)
         return int(parts[1]) if len(parts) == 2 else DEFAULT_INJECTED_ERROR
 
     def to_text(self) -> str:
+        """The spec back as ``KIND[@ROLE][=VALUE]`` text."""
         role = "" if self.role == "all" else f"@{self.role}"
         value = f"={self.value}" if self.value else ""
         return f"{self.kind}{role}{value}"
@@ -150,12 +154,15 @@ class RoleFaults:
         return sum(seconds for after, seconds in self._slow if number > after)
 
     def hung(self, number: int) -> bool:
+        """True when message ``number`` arrives after a ``hang`` fault fired (ignore it)."""
         return self.hang_after is not None and number > self.hang_after
 
     def muted(self, number: int) -> bool:
+        """True when the reply to message ``number`` must be withheld (``mute``)."""
         return self.mute_after is not None and number > self.mute_after
 
     def drop_now(self, number: int) -> bool:
+        """True once, at the message where the ``drop`` fault closes the connection."""
         if self.drop_at is not None and not self.drop_done and number >= self.drop_at:
             self.drop_done = True
             return True

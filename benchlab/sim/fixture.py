@@ -31,6 +31,7 @@ class SupplyError:
     offset_v: float = 0.0
 
     def actual(self, setpoint_v: float) -> float:
+        """The real output voltage for a setpoint (V)."""
         if setpoint_v <= 0:
             return 0.0
         return max(0.0, setpoint_v * (1.0 + self.gain) + self.offset_v)
@@ -66,6 +67,7 @@ class OperatingPoint:
 
     @property
     def part_power_w(self) -> float:
+        """Power dissipated in the part (W)."""
         return self.part_v * self.part_i
 
 

@@ -35,6 +35,7 @@ class LogEntry:
     text: str
 
     def to_dict(self) -> dict[str, Any]:
+        """Plain JSON-ready dict of the entry."""
         return asdict(self)
 
 

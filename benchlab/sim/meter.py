@@ -66,6 +66,7 @@ class SimMeter(SimInstrument):
     )
 
     def reset_state(self) -> None:
+        """``*RST`` state: DC volts, autorange, NPLC 1, no reading."""
         self.function = "VOLT"
         self.nplc = {"VOLT": 1.0, "CURR": 1.0}
         self.fixed_range: dict[str, float | None] = {"VOLT": None, "CURR": None}  # None = autorange
@@ -92,6 +93,7 @@ class SimMeter(SimInstrument):
         return value
 
     def trigger(self) -> None:
+        """``*TRG``: take one reading (read it with ``FETCh?``)."""
         self.take_reading()
 
     def command_initiate(self, params: list[Param]) -> None:

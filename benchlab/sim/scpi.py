@@ -68,6 +68,7 @@ class Keyword:
 
     @classmethod
     def from_mixed_case(cls, text: str, optional: bool) -> "Keyword":
+        """A keyword from SCPI notation: the uppercase letters are the short form."""
         if text.startswith("*"):
             return cls(text.upper(), text.upper(), optional)
         short = "".join(ch for ch in text if ch.isupper() or ch.isdigit())
@@ -131,6 +132,7 @@ class CommandSpec:
 
     @property
     def nodes(self) -> tuple[Keyword, ...]:
+        """The compiled keyword nodes of :attr:`pattern`."""
         return compile_pattern(self.pattern)
 
 
@@ -149,6 +151,7 @@ class CommandTable:
 
     @property
     def specs(self) -> list[CommandSpec]:
+        """The rows of the table, in match order."""
         return [spec for spec, _ in self._rows]
 
 

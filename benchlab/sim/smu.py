@@ -78,6 +78,7 @@ class SimSourceMeter(SimInstrument):
     )
 
     def reset_state(self) -> None:
+        """``*RST`` state: output off, forcing 0 V, default compliances, lists and buffer empty."""
         sources = self.core.fixture.sources
         if sources.smu_on:
             self.set_output_logged(False)
@@ -222,6 +223,7 @@ class SimSourceMeter(SimInstrument):
         return "FIX" if self.modes["CURRENT"] == "FIXED" else "LIST"
 
     def trigger(self) -> None:
+        """``*TRG``: the same as ``INITiate``."""
         self.command_initiate([])
 
     def command_initiate(self, params: list[Param]) -> None:

@@ -62,6 +62,7 @@ class StatusModel:
 
     @property
     def count(self) -> int:
+        """Number of errors in the queue."""
         return len(self._queue)
 
     def clear(self) -> None:

@@ -37,6 +37,7 @@ class SimSupply(SimInstrument):
     )
 
     def reset_state(self) -> None:
+        """``*RST`` state: output off (logged when it was on), 0 V, 0.1 A limit."""
         sources = self.core.fixture.sources
         if sources.supply_on:
             self.set_output_logged(False)
