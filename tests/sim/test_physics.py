@@ -102,6 +102,7 @@ def test_inverse_round_trip():
         assert part_current(part, volts, T0) == pytest.approx(amps, rel=1e-9)
 
 
+@pytest.mark.ngspice
 @pytest.mark.parametrize("level, theta", [(1, 0.0), (3, 0.3)])
 def test_resistor_line_solution_matches_ngspice(ngspice_path, tmp_path, level, theta):
     # ngspice MOSFET on the same resistor line. Level 1: Beta = KP W/L, saturation Beta/2 Vov^2. Level 3 with
