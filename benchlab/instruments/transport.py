@@ -6,7 +6,8 @@ object with the small :class:`Transport` interface, so tests can hand them a fak
 Recovery rules (each raises a :mod:`benchlab.errors` class once its one chance is used):
 
 * a query that times out is retried once, after a clear so a late reply cannot be read as the
-  answer to the next query (a raw socket is reopened for that: see :meth:`VisaTransport._clear`);
+  answer to the next query (a raw socket is reopened for that: see
+  :meth:`VisaTransport._clear_after_timeout`);
   only queries marked idempotent are retried;
 * a lost connection (reset, broken pipe, refused port at first I/O, or a cleanly closed peer,
   which pyvisa-py reports as a timeout) is reopened once and the message sent again when that
@@ -264,7 +265,7 @@ class VisaTransport:
                     raise
                 lost = not timed_out or self._peer_closed()
                 if not lost:
-                    self._clear()
+                    self._clear_after_timeout()
                     if allow_retry and not retried:
                         retried = True
                         self.retry_count += 1
@@ -299,20 +300,29 @@ class VisaTransport:
             return True
         return data == b""
 
-    def _clear(self) -> None:
-        """Discard any late reply (device clear).
+    def _clear_after_timeout(self) -> None:
+        """Discard the reply of a query that timed out, wherever it is.
 
         A raw socket has no device clear, and a reply may come any time after its timeout (a busy or
         slow instrument), so no quiet period proves it will not: the socket is closed and a new one
-        opened instead, and a late reply dies with the old connection. (pyvisa-py's ``clear()`` on a
-        socket also loops forever once the peer has closed after sending part of a reply.) Other
-        resources get a device clear, which empties the instrument's output queue (IEEE 488.2).
+        opened, and the late reply dies with the old connection. Other resources get a device clear,
+        which empties the instrument's output queue (IEEE 488.2).
         """
-        if self.kind.name == "tcpip-socket":
-            self.close()
-            self.resync_count += 1
-            self._handle = self._open_handle()
+        if self.kind.name != "tcpip-socket":
+            self._clear()
             return
+        self.close()
+        self.resync_count += 1
+        self._handle = self._open_handle()
+
+    def _clear(self) -> None:
+        """Discard any late reply (device clear).
+
+        On a raw socket the socket is drained here instead of through pyvisa-py's ``clear()``,
+        which loops forever once the peer has closed after sending part of a reply. Used after an
+        exchange cut short by Ctrl-C or a signal: the connection is kept, so the commands that follow
+        (switching the output off) reach the instrument after everything sent before, in order.
+        """
         sock = find_socket(self._handle)
         if sock is None:
             try:
