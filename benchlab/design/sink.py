@@ -307,6 +307,7 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
     plain = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=0.0))
     tried = [(0.0, plain.worst_error)]
     chosen = 0.0 if plain.worst_error <= target else None
+    out_of_compliance = None  # first source resistor whose drop takes an output out of saturation
     if chosen is None:
         # largest Rs the supply can afford at the target current (the reference still needs its VGS)
         limit = (supply_v - float(ref.params.vgs_at(target_a))) / target_a
@@ -315,15 +316,25 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
                 design = _synthesize_once(supply_v, target_a, ref, outputs, replace(cheap, source_resistor_ohm=rs))
             except DesignError:
                 break
+            if not all(o.in_compliance for o in design.outputs):
+                # the source drop only grows with Rs: no larger value can keep the outputs in saturation
+                # (and for laws without a triode form the error there would be a fiction)
+                out_of_compliance = rs
+                break
             tried.append((rs, design.worst_error))
             if design.worst_error <= target:
                 chosen = rs
                 break
     if chosen is None:
         best_rs, best_err = min(tried, key=lambda t: t[1])
+        why = ""
+        if out_of_compliance is not None:
+            load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
+            why = (f"; with {load_v:g} V across each output, {out_of_compliance:g} ohm or more in the source "
+                   "takes the outputs out of saturation")
         raise DesignError(f"no {options.series.upper()} source resistor brings the worst mismatch under "
                           f"{target * 100:g} % at {target_a:g} A from {supply_v:g} V (best {best_err * 100:.2f} % "
-                          f"with {best_rs:g} ohm)")
+                          f"with {best_rs:g} ohm{why})")
     final = _synthesize_once(supply_v, target_a, ref, outputs, replace(options, source_resistor_ohm=chosen))
     suggestion = {"target": target, "suggested_ohm": chosen, "worst_error": final.worst_error,
                   "worst_error_without": plain.worst_error, "tried": len(tried)}

@@ -154,6 +154,29 @@ def test_degeneration_suggestion_is_the_smallest_preferred_value_meeting_the_tar
         synthesize_sink(5.0, 0.5, ref, [sq("C", 3.5, 0.8)], SinkOptions(mismatch_target=0.001))
 
 
+def test_degeneration_search_never_picks_a_value_that_takes_the_outputs_out_of_saturation():
+    # EKV fits have no triode form, so out of compliance their current would stay at the saturation
+    # value: a search judged on that error alone once chose 390 ohm at 20 mA with 3 V across each
+    # output (7.8 V of source drop, a physically impossible design). Kirchhoff: the source drop
+    # I Rs cannot exceed the voltage across the output branch (common practice).
+    def ekv(label, vth, kp):
+        return Part(label, DeviceParams("ekv", vth, kp=kp, theta=0.1, n=1.4))
+
+    ref = ekv("R", 2.8, 2.0)
+    outs = [ekv("A", 2.9, 2.2), ekv("B", 2.7, 1.8)]
+    # with the whole supply across the outputs the search meets 2 % (the control case)
+    roomy = synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.02, load_voltage=12.0))
+    assert roomy.worst_error <= 0.02 and roomy.source_resistor * 0.02 > 3.0
+    assert all(o.in_compliance for o in roomy.outputs)
+    # with 3 V the same target would need a source drop the outputs cannot have: one clear error
+    with pytest.raises(DesignError, match="out of saturation"):
+        synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.02, load_voltage=3.0))
+    # a target reachable within compliance is met with every output in saturation
+    reachable = synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.5, load_voltage=3.0))
+    assert all(o.in_compliance for o in reachable.outputs)
+    assert reachable.source_resistor * 0.02 < 3.0 and reachable.worst_error <= 0.5
+
+
 def test_monte_carlo_is_seeded_and_follows_the_mismatch_propagation():
     # Pelgrom et al. (IEEE JSSC 1989): sigma(dI/I) = 2 sigma(dVT) / Vov for threshold spread alone; with two
     # independent parts each of sigma s, dVT has sigma s sqrt(2).
