@@ -157,3 +157,25 @@ def test_a_p_channel_part_is_refused_for_the_sink(capsys, bag_library):
     code, _, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "12", "--current", "0.1",
                        "--ref", "P1")
     assert code == 2 and "N-channel" in err
+
+
+@pytest.mark.ngspice
+def test_the_cli_netlist_of_a_library_design_agrees_with_ngspice(capsys, bag_library, tmp_path, ngspice_path):
+    # Outside reference: ngspice (level-3 MOSFETs with THETA, the cards benchlab writes) simulating the very
+    # file `benchlab design sink --spice` wrote, against the currents the same command printed as JSON.
+    import subprocess
+
+    from benchlab.design.spice import parse_ngspice_print
+
+    netlist = tmp_path / "sink.cir"
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current",
+                       "0.3", "--outputs", "3", "--load-voltage", "6", "--mismatch-target", "0.02", "--json",
+                       "--spice", str(netlist))
+    assert code == 0
+    data = json.loads(out)
+    assert data["source_resistor"] > 0  # the degenerated case, so the source resistors are in the netlist too
+    sim = subprocess.run([ngspice_path, "-b", str(netlist)], capture_output=True, text=True, timeout=60)
+    values = parse_ngspice_print(sim.stdout)
+    assert values["i_ref"] == pytest.approx(data["i_ref"], rel=5e-3)
+    for k, output in enumerate(data["outputs"], start=1):
+        assert values[f"i_out_{k}"] == pytest.approx(output["i_out"], rel=5e-3)
