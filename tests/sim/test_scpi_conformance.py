@@ -235,3 +235,25 @@ def test_meter_reading_below_the_negative_range_is_minus_infinity(bench):
     assert format_number(meter.take_reading()) == "-9.9E37"
     meter._true_value = lambda function: -1.1  # within the 20 % over-range of the 1 V range
     assert -1.2 < meter.take_reading() < -1.0
+
+
+@pytest.mark.parametrize("role, model", [("supply", "PSU-1"), ("meter", "DMM-1"), ("source_meter", "SMU-1")])
+def test_every_instrument_speaks_the_common_commands(bench, rm, role, model):
+    # IEEE 488.2 10.14 (*IDN?: maker,model,serial,firmware), 10.3 (*CLS), 10.12/10.18 (*ESE/*OPC), 11.5.1 (ESR bits:
+    # 7 power on, 5 command error, read clears), SCPI-1999 vol. 2, ch. 21 (-113 undefined header, long and short
+    # forms of SYSTem:ERRor); section numbers of IEEE 488.2 from memory
+    from tests.sim.conftest import open_client
+
+    inst = open_client(rm, bench.resources[role])
+    assert inst.query("*idn?").split(",")[:2] == ["BENCHLAB-SIM", model]
+    assert int(inst.query("*ESR?")) & (1 << 7)  # power-on event since the bench started
+    inst.write("NO:SUCH:THING")
+    assert int(inst.query("*STB?")) & 0b100  # error queue not empty
+    assert inst.query("system:error:next?").startswith("-113,")
+    inst.write("NO:SUCH:THING;*CLS")  # the command error drops the rest of the message, *CLS included
+    assert inst.query("SYST:ERR:COUN?") == "1"
+    inst.write("*CLS")
+    assert inst.query("SYST:ERR:COUN?;*ESR?;*STB?") == "0;0;0"
+    inst.write("*RST;*OPC")
+    assert int(inst.query("*ESR?")) & 1  # operation complete bit
+    assert inst.query("*OPC?") == "1"
