@@ -8,7 +8,9 @@ machine noise hits all of them alike:
 * bare:       ``resource.query("MEAS:VOLT?")`` on the pyvisa resource behind the transport;
 * transport:  ``VisaTransport.query("MEAS:VOLT?")`` (retry/reconnect bookkeeping, lock);
 * role:       ``ScpiSupply.measure_voltage()`` (profile lookup, template, reading parser);
-* set+check:  ``ScpiSupply.set_voltage()`` (write + error-queue read) against a bare write + ``SYST:ERR?``.
+* set+check:  ``ScpiSupply.set_voltage()`` (write + error-queue read) against a bare write + ``SYST:ERR?``;
+* the same bare write + ``SYST:ERR?`` on a second, plain pyvisa-py connection (TCP_NODELAY off, the
+  pyvisa-py default), which shows what setting TCP_NODELAY saves.
 
 Prints microseconds per call and the ratio to the bare figure. Run:
 ``python benchmarks/bench_query_overhead.py [--rounds 20] [--per-round 100]``.
@@ -76,12 +78,25 @@ def main(argv: list[str] | None = None) -> int:
             "bare write + SYST:ERR?": bare_set_and_check,
             "role set_voltage": lambda: supply.set_voltage(1.5),
         }
+        # A second, plain pyvisa-py connection (TCP_NODELAY off, its default) shows why the layer sets it:
+        # the query written right after a write waits for the delayed ACK of the write.
+        plain = manager.open_resource(resources["supply"], read_termination="\n", write_termination="\n",
+                                      timeout=2000)
+
+        def plain_set_and_check() -> None:
+            plain.write("VOLT 1.5")
+            plain.query("SYST:ERR?")
+
         for action in cases.values():  # warm up every path once
             _time_per_call(action, 20)
         samples: dict[str, list[float]] = {name: [] for name in cases}
+        samples["no-NODELAY write + SYST:ERR?"] = []
         for _ in range(args.rounds):
             for name, action in cases.items():
                 samples[name].append(_time_per_call(action, args.per_round))
+            # each call stalls tens of ms: a few per round are enough
+            samples["no-NODELAY write + SYST:ERR?"].append(_time_per_call(plain_set_and_check, 3))
+        plain.close()
         transport.close()
     finally:
         stop_queue.put(True)
@@ -91,7 +106,8 @@ def main(argv: list[str] | None = None) -> int:
     median = {name: statistics.median(values) for name, values in samples.items()}
     print(f"{'path':26s} {'us/call':>9s} {'ratio':>7s}   (median of {args.rounds} rounds x {args.per_round})")
     for name, seconds in median.items():
-        base = median["bare write + SYST:ERR?"] if name.startswith("role set") else median["bare query"]
+        base = (median["bare write + SYST:ERR?"] if name.startswith(("role set", "no-NODELAY"))
+                else median["bare query"])
         if name.startswith("bare write"):
             base = median["bare query"]
         print(f"{name:26s} {seconds * 1e6:9.1f} {seconds / base:7.2f}")
@@ -99,6 +115,8 @@ def main(argv: list[str] | None = None) -> int:
     print(f"ratio role/bare query:      {median['role measure_voltage'] / median['bare query']:.3f}")
     print(f"ratio role set_voltage/bare write+SYST:ERR?: "
           f"{median['role set_voltage'] / median['bare write + SYST:ERR?']:.3f}")
+    print(f"ratio write+SYST:ERR? without/with TCP_NODELAY: "
+          f"{median['no-NODELAY write + SYST:ERR?'] / median['bare write + SYST:ERR?']:.1f}")
     return 0
 
 
