@@ -8,6 +8,7 @@ same numbers as ``DeviceParams.current`` / ``vgs_at`` (checked in the tests).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any, Iterable, Sequence
 
@@ -90,6 +91,8 @@ def parse_inline_model(text: str, default_label: str) -> Part:
             values[key] = float(raw)
         except ValueError:
             raise InputError(f"inline model '{text}': {key} needs a number, got '{raw.strip()}'") from None
+        if not math.isfinite(values[key]):
+            raise InputError(f"inline model '{text}': {key} needs a finite number, got '{raw.strip()}'")
     if "vth" not in values:
         raise InputError(f"inline model '{text}': vth is required")
     label = values.pop("label", default_label)

@@ -6,6 +6,7 @@ All SQL is parameterized; labels, lots, notes and reasons never become part of a
 from __future__ import annotations
 
 import json
+import math
 import os
 import re
 import sqlite3
@@ -223,6 +224,12 @@ class Library(DesignStore):
         polarity = _check_polarity(polarity)
         if params is not None and not isinstance(params, DeviceParams):
             raise LibraryError("params must be a DeviceParams")
+        if params is not None:
+            # a NaN or infinity would be stored as null and make the part unreadable for every later command
+            bad = [k for k, v in params.to_dict().items()
+                   if isinstance(v, float) and not math.isfinite(v)]
+            if bad:
+                raise LibraryError(f"part {label}: not a finite number: {', '.join(bad)}")
         with self.write() as conn:
             lot_id = self.lot_id(lot, create=True)
             part_id = self._insert_part(lot_id, label, polarity, package, notes)

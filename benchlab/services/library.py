@@ -6,6 +6,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import math
 import os
 from pathlib import Path
 from typing import Any, Callable, Sequence
@@ -38,10 +39,16 @@ def hand_params(vth: float | None, gm: float | None = None, kp: float | None = N
     """
     if vth is None:
         raise InputError("a hand-entered part needs --vth (and --gm, or --kp)")
-    if (gm is None) == (kp is None):
+    if gm is None and kp is None:
+        raise InputError("a hand-entered part needs --gm (linear model) or --kp (square law, optionally with "
+                         "--theta) beside --vth")
+    if gm is not None and kp is not None:
         raise InputError("give either --gm (linear model) or --kp (square law, optionally with --theta), not both")
     if gm is not None and theta is not None:
         raise InputError("--theta goes with --kp, not with --gm")
+    for flag, value in (("--vth", vth), ("--gm", gm), ("--kp", kp), ("--theta", theta)):
+        if value is not None and not math.isfinite(float(value)):
+            raise InputError(f"{flag} must be a finite number, got {value}")
     try:
         if gm is not None:
             return DeviceParams("linear", vth=float(vth), gm=float(gm))

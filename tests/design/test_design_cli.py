@@ -141,6 +141,10 @@ def test_usage_errors_exit_before_doing_anything(capsys, argv, needle):
     (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8,bogus=1"], "expected key=value"),
     (["--supply", "1", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8"], "cannot drive"),
     (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--save"], "library"),
+    # a NaN reached the root solver as a traceback
+    (["--supply", "12", "--resistor", "1k", "--ref-model", "vth=nan,gm=0.5"], "finite"),
+    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--out-model", "vth=2.5,kp=inf"],
+     "finite"),
 ])
 def test_bad_requests_give_one_line_and_write_nothing(capsys, tmp_path, monkeypatch, argv, needle):
     monkeypatch.setenv("BENCHLAB_LIBRARY", str(tmp_path / "nothing.db"))

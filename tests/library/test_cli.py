@@ -44,6 +44,15 @@ def test_parts_commands(capsys, tmp_path):
     assert code == 2 and "not both" in err
     code, _, err = run(capsys, "parts", "add", "Q09", "--gm", "0.5", "--library", db)
     assert code == 2 and "--vth" in err
+    code, _, err = run(capsys, "parts", "add", "Q09", "--vth", "3", "--library", db)
+    assert code == 2 and "needs --gm" in err and "not both" not in err
+    # a NaN or infinity was stored as null and then every later listing of the library was a traceback
+    for bad in (["--vth", "nan", "--kp", "0.5"], ["--vth", "3", "--kp", "inf"], ["--vth", "3", "--kp", "1",
+                                                                             "--theta", "nan"]):
+        code, _, err = run(capsys, "parts", "add", "Q09", *bad, "--library", db)
+        assert code == 2 and "finite" in err and len(err.strip().splitlines()) == 1
+    code, out, err = run(capsys, "parts", "list", "--library", db)
+    assert code == 0 and "Q09" not in out and "Traceback" not in err
 
     assert run(capsys, "parts", "reject", "Q08", "--reason", "bent leg", "--library", db)[0] == 0
     code, out, _ = run(capsys, "parts", "list", "--state", "rejected", "--json", "--library", db)

@@ -51,6 +51,8 @@ def test_parts_without_curve_and_bad_input(lib):
         lib.add_part("Q2", polarity="X")
     with pytest.raises(LibraryError, match="empty label"):
         lib.add_part("   ")
+    with pytest.raises(LibraryError, match="finite"):
+        lib.add_part("Q3", params=DeviceParams("square", float("nan"), kp=1.0))
     assert [p.label for p in lib.parts(state=None)] == ["Q1"]  # the failed adds wrote nothing
 
 
