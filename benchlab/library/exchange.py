@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 from typing import TYPE_CHECKING, Any, Mapping
 
 from benchlab.errors import LibraryError
@@ -139,7 +140,7 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                     counts["sweeps"] += 1
                 for f in part.get("fits", []):
                     lib.insert_fit(pid, source=f.get("source", "imported"),
-                                   params=DeviceParams.from_dict(f["params"]), stderr=f.get("stderr", {}),
+                                   params=_fit_params(f["params"]), stderr=f.get("stderr", {}),
                                    flags=f.get("flags", []), result=f.get("result", {}),
                                    sweep_id=sweep_ids.get(f.get("sweep")), fitted_at=f.get("fitted_at"),
                                    fitter_version=f.get("fitter_version"))
@@ -165,6 +166,16 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
     except (KeyError, TypeError, ValueError) as exc:
         raise LibraryError(f"malformed library export ({type(exc).__name__}: {exc}); nothing was imported") from exc
     return counts
+
+
+def _fit_params(data: Mapping[str, Any]) -> DeviceParams:
+    # a missing or non-finite number would be stored as null and break every later read of the part
+    params = DeviceParams.from_dict(data)
+    for name, value in params.to_dict().items():
+        if name != "model" and not (isinstance(value, (int, float)) and not isinstance(value, bool)
+                                    and math.isfinite(value)):
+            raise ValueError(f"fit parameter {name} is {value!r}, not a finite number")
+    return params
 
 
 def _member(lib: "Library", part_ids: Mapping[tuple[str, str], int], member: Mapping[str, Any]) -> int:

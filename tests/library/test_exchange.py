@@ -70,6 +70,13 @@ def test_filtered_export_and_conflicting_import_writes_nothing(filled, tmp_path)
     with pytest.raises(LibraryError, match="refused the change, nothing was written.*CHECK"):
         lib.import_json(one_lot)
     assert lib.info() == before
+    # a fit with a missing number was imported, and then every listing of the library was a traceback
+    one_lot["parts"][0].update(lot="elsewhere", state="in_stock")
+    one_lot["parts"][0]["fits"][0]["params"]["vth"] = None
+    with pytest.raises(LibraryError, match="vth is None, not a finite number"):
+        lib.import_json(one_lot)
+    assert lib.info() == before
+    lib.parts(state=None)  # still readable
 
 
 def test_csv_export_reads_back_with_the_csv_module(filled):
