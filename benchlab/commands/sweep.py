@@ -140,6 +140,7 @@ def run_sweep(args: argparse.Namespace) -> int:
         with svc.sigterm_as_exception():
             if handle.simulator is not None:
                 svc.SimPartLoader(handle.bench).seek(args.part)
+            svc.preflight(plan, handle.bench)  # a bench that refuses its settings writes no session
             session = svc.SessionWriter.create(args.sessions, args.lot, operator=args.operator,
                                                ambient_c=args.ambient, planned_count=1, **svc.session_meta(handle))
             print(f"session: {session.path}", file=sys.stderr)

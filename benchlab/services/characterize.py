@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, Callable, Iterator
 
 from benchlab.errors import InputError, SweepCancelled
-from benchlab.sweep.engine import run
+from benchlab.sweep.engine import preflight, run
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
@@ -281,6 +281,7 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
     """
     if count is not None and (not isinstance(count, int) or count < 1):
         raise InputError(f"count must be a whole number >= 1, got {count!r}")
+    preflight(plan, handle.bench)  # a bench that refuses its settings writes no session
     if resume is not None:
         session = SessionWriter.reopen(resume)
         count = count or session.meta.get("planned_count")
@@ -345,5 +346,5 @@ def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 1
 
 
 __all__ = ["BagResult", "BenchHandle", "SimOptions", "PromptPartLoader", "SimPartLoader", "build_plan", "connect",
-           "load_config", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
+           "load_config", "preflight", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
            "CAUTION", "DEMO_STORY"]

@@ -367,6 +367,28 @@ class _Sweep:
                             shutdown_problems=tuple(problems))
 
 
+def preflight(plan: SweepPlan, instruments: Any) -> None:
+    """Send the settings a sweep of ``plan`` starts with, switching nothing on, and switch off again.
+
+    Output off, current limit / compliance, setpoint 0, meter function and integration time, each
+    followed by the instrument's error queue. A caller runs this before it writes any record, so a
+    wrong instrument on a resource or a profile that does not fit the instrument gives one error
+    and leaves nothing on disk.
+
+    Raises
+    ------
+    BenchlabError
+        The plan's or the instrument's error (``InstrumentReportedError`` keeps the instrument's code
+        and text); the output has been switched off again.
+    """
+    validate_plan(plan)
+    sweep = _Sweep(plan, instruments, None, None, "preflight", None, time.monotonic, time.sleep)
+    try:
+        sweep.setup()
+    finally:
+        sweep.source.safe_off()
+
+
 def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | None = None, cancel=None, *,
         label: str = "part", recorder=None, clock: Callable[[], float] = time.monotonic,
         sleep: Callable[[float], None] = time.sleep) -> SweepOutcome:
@@ -441,4 +463,4 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
     return outcome
 
 
-__all__ = ["run"]
+__all__ = ["preflight", "run"]

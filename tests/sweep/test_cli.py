@@ -60,6 +60,25 @@ def test_bad_sweep_options_one_error_nothing_powered(tmp_path, capsys, sim, opti
     assert not (tmp_path / "s").exists()
 
 
+@pytest.mark.parametrize("command", [["sweep", "--part", "Q01"], ["bag", "--count", "2"]])
+@pytest.mark.parametrize("wrong_role,code_text", [("meter", "-113"), ("supply", "-113")])
+def test_wrong_instrument_on_a_resource_one_error_nothing_written_or_powered(tmp_path, capsys, sim, command,
+                                                                             wrong_role, code_text):
+    # both roles pointed at one instrument: the other role's settings are refused by it (-113, undefined
+    # header: IEEE 488.2 / SCPI-1999 error table) before any record is written or any output enabled
+    resources = dict(sim.resources)
+    other = "supply" if wrong_role == "meter" else "meter"
+    resources[wrong_role] = resources[other]
+    path = write_bench_file(tmp_path / "bench.toml", resources, 47.0)
+    assert main([*command, "--bench", str(path), "--sessions", str(tmp_path / "s")]) == 2
+    err = capsys.readouterr().err
+    errors = [line for line in err.splitlines() if line.startswith("benchlab: error: ")]
+    assert len(errors) == 1 and "Traceback" not in err and "Caution" in err  # a real bench: cautions shown
+    assert code_text in errors[0] and resources[other] in errors[0]
+    assert not sim.log.output_was_ever_on("supply")
+    assert not (tmp_path / "s").exists()
+
+
 def test_unknown_option_value_is_refused_by_the_parser(tmp_path):
     with pytest.raises(SystemExit) as exc:
         main(["sweep", "--part", "Q01", "--sim", "--mode", "sideways", "--sessions", str(tmp_path / "s")])
