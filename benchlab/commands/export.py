@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from benchlab.commands.parts import library_option
+from benchlab.errors import InputError
 from benchlab.library.records import PART_STATES
 from benchlab.services import library as service
 
@@ -19,8 +20,13 @@ def register(subparsers) -> None:
                          help="only parts in this state (default: %(default)s)")
         fmt.add_argument("--out", metavar="FILE", help="write here instead of standard output")
         fmt.set_defaults(func=_csv if name == "csv" else _json)
-    spice = sub.add_parser("spice", parents=[lib], help="SPICE .model cards, one per part, named by label")
-    spice.add_argument("parts", nargs="+", metavar="PART", help="LABEL or LOT/LABEL")
+    spice = sub.add_parser("spice", parents=[lib], help="SPICE .model cards, one per part, named by label",
+                           description="SPICE .model cards, one per part, named by label (level 1 with VTO and KP; "
+                                       "level 3 with THETA when the part was fitted with it); with --design also "
+                                       "the ngspice netlist (.op) of a current sink recorded in the library.")
+    spice.add_argument("parts", nargs="*", metavar="PART", help="LABEL or LOT/LABEL")
+    spice.add_argument("--design", type=int, metavar="ID",
+                       help="also write the netlist of this recorded sink design (benchlab design sink --save)")
     spice.add_argument("--out", metavar="FILE", help="write here instead of standard output")
     spice.set_defaults(func=_spice)
 
@@ -43,4 +49,13 @@ def _json(args) -> int:
 
 
 def _spice(args) -> int:
-    return _emit(service.export_spice_text(args.library, args.parts), args.out)
+    if not args.parts and args.design is None:
+        raise InputError("name at least one part to export, or a recorded design with --design ID")
+    texts = []
+    if args.parts:
+        texts.append(service.export_spice_text(args.library, args.parts))
+    if args.design is not None:
+        from benchlab.services.design import recorded_sink_netlist
+
+        texts.append(recorded_sink_netlist(args.library, args.design))
+    return _emit("\n".join(texts), args.out)

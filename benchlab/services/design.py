@@ -153,6 +153,36 @@ def sink_netlist_text(design: SinkDesign) -> str:
                         operating_currents=[design.i_ref, *(o.i_out for o in design.outputs)])
 
 
+def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int) -> str:
+    """The ngspice netlist of a sink design recorded in the library (``benchlab export spice --design``).
+
+    Rebuilt from the parts, resistors and voltages stored with the design, so it is the netlist
+    ``benchlab design sink --spice`` wrote when the design was made.
+
+    Raises
+    ------
+    LibraryError
+        When the library holds no such design, or the design is not a current sink.
+    """
+    from benchlab.design.spice import sink_netlist
+    from benchlab.models import DeviceParams
+    from benchlab.services.library import open_library
+
+    with open_library(library_path) as lib:
+        stored = lib.design(int(design_id))
+    if stored.get("kind") != "sink" or not stored.get("parts"):
+        raise LibraryError(f"design {design_id} is not a current-sink design: no netlist to export")
+    try:
+        parts = [Part(p["label"], DeviceParams.from_dict(p["params"]), lot=p.get("lot", ""))
+                 for p in stored["parts"]]
+        currents = [float(stored["i_ref"]), *(float(o["i_out"]) for o in stored["outputs"])]
+        return sink_netlist(float(stored["supply"]), float(stored["r_chosen"]), parts[0], parts[1:],
+                            float(stored["load_voltage"]), source_resistor_ohm=float(stored["source_resistor"]),
+                            operating_currents=currents, title=f"benchlab current sink, design {int(design_id)}")
+    except (KeyError, TypeError, ValueError) as exc:
+        raise LibraryError(f"design {design_id} is stored without what a netlist needs ({exc})") from exc
+
+
 def design_sink(req: SinkRequest, library_path: str | os.PathLike | None = None, *,
                 spice_path: str | None = None) -> tuple[SinkDesign, int | None]:
     """Run ``benchlab design sink``: returns the design and, with ``save``, the library design id.

@@ -183,3 +183,31 @@ def test_the_cli_netlist_of_a_library_design_agrees_with_ngspice(capsys, bag_lib
     assert values["i_ref"] == pytest.approx(data["i_ref"], rel=5e-3)
     for k, output in enumerate(data["outputs"], start=1):
         assert values[f"i_out_{k}"] == pytest.approx(output["i_out"], rel=5e-3)
+
+
+@pytest.mark.ngspice
+def test_export_spice_writes_the_netlist_of_a_recorded_design(capsys, bag_library, tmp_path, ngspice_path):
+    # Outside reference: ngspice simulating the netlist `benchlab export spice --design ID` rebuilt from the
+    # library weeks later, against the currents the design printed when it was saved.
+    import subprocess
+
+    from benchlab.design.spice import parse_ngspice_print
+
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current",
+                       "0.3", "--outputs", "2", "--load-voltage", "6", "--degeneration", "1", "--save", "--json")
+    data = json.loads(out)
+    netlist = tmp_path / "again.cir"
+    code, out, err = run(capsys, "export", "spice", "--library", str(bag_library), "--design",
+                         str(data["design_id"]), "--out", str(netlist))
+    assert code == 0, err
+    text = netlist.read_text()
+    assert ".op" in text and "RS2" in text and f"DC {data['supply']:g}" in text
+    values = parse_ngspice_print(subprocess.run([ngspice_path, "-b", str(netlist)], capture_output=True,
+                                                text=True, timeout=60).stdout)
+    assert values["i_ref"] == pytest.approx(data["i_ref"], rel=5e-3)
+    for k, output in enumerate(data["outputs"], start=1):
+        assert values[f"i_out_{k}"] == pytest.approx(output["i_out"], rel=5e-3)
+    # no such design, or nothing named at all: one line, no traceback
+    for argv, needle in ((["--design", "99"], "no design 99"), ([], "name at least one part")):
+        code, _, err = run(capsys, "export", "spice", "--library", str(bag_library), *argv)
+        assert code == 2 and needle in err and len(err.strip().splitlines()) == 1
