@@ -57,7 +57,8 @@ def test_resume_sweeps_only_the_parts_not_done(tmp_path):
 
 
 def run_faulted(tmp_path, faults, *, timeout_ms=400, fixture="resistor", **plan_options):
-    """Sweep one part with ``faults`` injected; return (was on, last output state, error, outcome, sweep)."""
+    """Sweep one part with ``faults`` injected; return (was on, last output state, error, outcome, sweep,
+    whether the last setpoint the source received was 0)."""
     with sim_bench(fixture, timeout_ms=timeout_ms, faults=faults) as (sim, handle):
         session = SessionWriter.create(tmp_path, "fault")
         error = outcome = None
@@ -68,8 +69,10 @@ def run_faulted(tmp_path, faults, *, timeout_ms=400, fixture="resistor", **plan_
         role = source_role(handle)
         was_on = sim.log.output_was_ever_on(role)
         last = sim.log.last_output_state(role)
+        setpoints = [c for c in sim.log.commands(role) if c.startswith(("VOLT ", "SOUR:VOLT ", "SOUR:CURR "))]
     sweep = read_sweep(only_session(tmp_path) / "Q01.csv")
-    return was_on, last, error, outcome, sweep
+    zeroed = bool(setpoints) and float(setpoints[-1].split()[1]) == 0.0  # the setpoint went back to 0
+    return was_on, last, error, outcome, sweep, zeroed
 
 
 # (fault spec, text the one-line error must hold). Counts are messages, placed so the fault lands mid-sweep.
@@ -86,9 +89,9 @@ INSTRUMENT_FAULTS = [
 
 @pytest.mark.parametrize("fault,message", INSTRUMENT_FAULTS)
 def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, message):
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [fault])
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, [fault])
     assert was_on, "the fault must strike after the output was switched on"
-    assert last is False  # proved from the simulator's own log
+    assert last is False and zeroed  # proved from the simulator's own log: output off, setpoint back to 0
     assert isinstance(error, InstrumentError)
     assert message in str(error) and "\n" not in str(error)  # one clear line
     assert sweep.meta["complete"] is False and sweep.meta["error"]
@@ -108,8 +111,8 @@ SMU_FAULTS = [
 
 @pytest.mark.parametrize("fault,message", SMU_FAULTS)
 def test_smu_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, message):
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [fault], fixture="smu")
-    assert was_on and last is False  # from the simulator's log
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, [fault], fixture="smu")
+    assert was_on and last is False and zeroed  # from the simulator's log
     assert isinstance(error, InstrumentError) and message in str(error) and "\n" not in str(error)
     assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
 
@@ -117,7 +120,7 @@ def test_smu_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, mess
 def test_supply_that_hangs_is_reported_as_possibly_still_on(tmp_path):
     # A hung supply executes nothing, not even OUTP OFF: the simulator's log shows the output left on.
     # The tool cannot fix that; it must not claim the output is off, and it says so in the record.
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, ["hang@supply=100"])
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, ["hang@supply=100"])
     assert was_on and last is True
     assert isinstance(error, InstrumentError) and "no reply" in str(error)
     assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
@@ -126,16 +129,16 @@ def test_supply_that_hangs_is_reported_as_possibly_still_on(tmp_path):
 
 
 def test_slow_replies_within_the_timeout_still_complete(tmp_path):
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, ["slow@supply=0.01"], start_v=2.0)
-    assert error is None and was_on and last is False
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, ["slow@supply=0.01"], start_v=2.0)
+    assert error is None and was_on and last is False and zeroed
     assert outcome.complete and sweep.meta["complete"] and outcome.classification == "good"
 
 
 @pytest.mark.parametrize("fault", ["drop@meter=120", "drop@supply=61"])
 def test_dropped_connection_is_reopened_and_the_sweep_goes_on(tmp_path, fault):
     # a lost connection is reopened once and the message sent again (every sweep message may be repeated)
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [fault])
-    assert error is None and was_on and last is False
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, [fault])
+    assert error is None and was_on and last is False and zeroed
     assert outcome.complete and sweep.meta["complete"] and outcome.classification == "good"
     assert list(sweep.point) == list(range(len(outcome.points)))  # no point lost or doubled
 
@@ -144,8 +147,8 @@ def test_dropped_connection_is_reopened_and_the_sweep_goes_on(tmp_path, fault):
 @pytest.mark.parametrize("fixture", ["resistor", "smu"])
 def test_part_failing_mid_sweep_is_classified_and_stopped(tmp_path, kind, expected, fixture):
     readings = 150 if fixture == "resistor" else 75  # readings per point differ: land it above threshold
-    was_on, last, error, outcome, sweep = run_faulted(tmp_path, [f"{kind}={readings}"], fixture=fixture)
-    assert error is None and was_on and last is False
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, [f"{kind}={readings}"], fixture=fixture)
+    assert error is None and was_on and last is False and zeroed
     assert outcome.classification == expected
     assert f"failed {kind}" in outcome.reason and "during the sweep" in outcome.reason
     assert sweep.meta["classification"] == expected and len(sweep.vgs) == len(outcome.points)
