@@ -58,7 +58,12 @@ def natural_key(text: str) -> tuple:
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
     (pid, lot, label, polarity, state, reason, package, notes, classification,
      fit_id, params_json, stderr_json, flags_json) = row
-    params = DeviceParams.from_dict(json.loads(params_json)) if params_json else None
+    try:
+        params = DeviceParams.from_dict(json.loads(params_json)) if params_json else None
+    except (TypeError, ValueError) as exc:
+        # written by an older version that let a NaN through (stored as null): say which part, no traceback
+        raise LibraryError(f"part {lot}/{label}: its stored curve is unreadable ({exc}); "
+                           "re-enter or re-import that part into a new library") from exc
     stderr = {k: v for k, v in (json.loads(stderr_json) if stderr_json else {}).items() if v is not None}
     return PartRecord(
         id=pid, lot=lot, label=label, polarity=polarity, state=state, reason=reason, package=package,

@@ -115,3 +115,13 @@ def test_binning_is_stored_with_members(lib):
     stored = lib.binning(binning_id)
     assert stored["scheme"]["width"] == 0.1
     assert stored["bins"] == {"A": ["default/Q0", "default/Q1"], "B": ["default/Q2", "default/Q3"]}
+
+
+def test_a_stored_curve_with_a_null_number_is_one_clear_error(lib):
+    # libraries written before NaN was refused hold such rows; reading them was a TypeError traceback
+    part = lib.add_part("Q9", params=DeviceParams("square", 2.0, kp=0.5))
+    with lib.write() as conn:
+        conn.execute("UPDATE fits SET params_json = ? WHERE part_id = ?",
+                     ('{"model": "square", "vth": 2.0, "kp": null}', part.id))
+    with pytest.raises(LibraryError, match="default/Q9: its stored curve is unreadable"):
+        lib.parts(state=None)
