@@ -244,7 +244,11 @@ class _Sweep:
                         self.fit_compliance_to_power(step.level)
                     self.source.check_level(step.level, step.expect_id)
             except SafetyError as exc:
-                raise _Stop(f"next setpoint refused by the safety limits ({exc})") from None
+                # before the part has conducted this says nothing about the part (it is not "open"): the
+                # record stays incomplete and a bag stops, since the limits would stop every part alike
+                conducted = any(p.status == "ok" and p.id >= plan.detect_floor_a() for p in ups)
+                raise _Stop(f"next setpoint refused by the safety limits ({exc})",
+                            interrupted=not conducted) from None
             point = self.measure(step.level, "up", step.expect_id, step.expect_vgs,
                                  judge=lambda p: overshoots(plan, ups, p, refinements))
             self.check_reading(point, ups)

@@ -430,6 +430,18 @@ def test_the_resistor_tolerance_tightens_the_worst_case():
         validate_plan(resistor_plan(series_resistor_tolerance=0.7))
 
 
+@pytest.mark.parametrize("fixture", ["resistor", "smu"])
+def test_limits_that_stop_the_search_before_conduction_leave_the_part_unjudged(fixture):
+    # 1 uW cannot reach any threshold: the first search step is refused. That is not an open part.
+    limits = Limits(max_supply_v=12.0, max_drain_a=0.5, max_power_w=1e-6)
+    plan = resistor_plan(limits=limits) if fixture == "resistor" else SweepPlan(fixture="smu", limits=limits)
+    bench = FakeBench()
+    outcome = sweep(bench, plan)
+    assert not outcome.complete and "refused by the safety limits" in outcome.reason
+    assert all(p.id < 1e-6 for p in outcome.points)
+    assert_off(bench)
+
+
 def test_readings_over_range_are_recorded_and_three_in_a_row_stop_the_sweep():
     bench = FakeBench()
     bench.over_range_from = 40
