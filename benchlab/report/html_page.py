@@ -30,11 +30,12 @@ img { max-width: 100%; border: 1px solid #ddd; margin: 0.5em 0; }
 """
 
 
-# SI units of the numbers a sink design records (keys of benchlab.design's result); others are shown bare
+# SI units of the numbers a sink design records (keys of benchlab.design's result); others are shown bare.
+# Drifts are relative current changes per kelvin (benchlab.design.sink: "drifts relative"), hence 1/K.
 UNITS = {"supply": "V", "i_target": "A", "r_exact": "ohm", "r_chosen": "ohm", "source_resistor": "ohm", "vg": "V",
          "vgs": "V", "i_ref": "A", "load_voltage": "V", "compliance_margin": "V", "p_ref": "W", "p_resistor": "W",
-         "di_ref_dvsupply": "A/V", "drift_ref_per_k": "A/K", "vth_tempco": "V/K", "i_out": "A", "v_compliance": "V",
-         "p_part": "W", "p_source_resistor": "W", "drift_per_k": "A/K", "di_dvsupply": "A/V", "tc_fixed_vgs": "1/K"}
+         "di_ref_dvsupply": "A/V", "drift_ref_per_k": "1/K", "vth_tempco": "V/K", "i_out": "A", "v_compliance": "V",
+         "p_part": "W", "p_source_resistor": "W", "drift_per_k": "1/K", "di_dvsupply": "A/V", "tc_fixed_vgs": "1/K"}
 
 
 def _key(name: str) -> str:

@@ -31,6 +31,9 @@ def test_designed_sink_is_reported_at_its_own_operating_point(tmp_path, source_r
     text = html_to_text(html)
     assert "Monte Carlo: 50 samples" in text and "demo-bag/Q2 i_out (A)" in text
     assert design.cautions and all(caution in text for caution in design.cautions)
+    # the drifts are relative changes per kelvin (the designer's %/K), not amperes per kelvin
+    assert "drift_ref_per_k (1/K)" in text and "drift_per_k (1/K)" in text and "A/K" not in text
+    assert f"{design.drift_ref_per_k:.6g}" in text
 
 
 def html_to_text(page: str) -> str:
