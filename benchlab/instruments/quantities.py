@@ -58,4 +58,14 @@ def parse_quantity(value: object, unit: str) -> float:
             prefix = suffix[: -len(spelling)]
             if prefix in _PREFIXES:
                 return number * _PREFIXES[prefix]
-    raise ValueError(f"'{value}' is not in {unit} (write e.g. '{match.group(1)} {unit}' or a bare number in {unit})")
+    raise ValueError(f"'{value}' is not in {unit} (write e.g. '{match.group(1)} {_prefix_of(suffix)}{unit}' or a "
+                     f"bare number in {unit})")
+
+
+def _prefix_of(suffix: str) -> str:
+    """The SI prefix of a suffix in another unit (``"mV"`` -> ``"m"``), so a hint keeps the scale the user meant."""
+    spellings = {s for names in UNIT_SPELLINGS.values() for s in names}
+    for prefix in _PREFIXES:
+        if prefix and suffix.startswith(prefix) and suffix[len(prefix):] in spellings:
+            return prefix
+    return ""

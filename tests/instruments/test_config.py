@@ -83,6 +83,14 @@ def test_quantities(text, unit, expected):
     assert parse_quantity(text, unit) == pytest.approx(expected)
 
 
+def test_unit_slip_hint_keeps_the_prefix():
+    # '500 mV' for a current is a unit slip: the hint must suggest 500 mA, not 500 A (SI prefixes as above)
+    with pytest.raises(ValueError, match=r"write e\.g\. '500 mA'"):
+        parse_quantity("500 mV", "A")
+    with pytest.raises(ValueError, match=r"write e\.g\. '12 V'"):
+        parse_quantity("12 A", "V")
+
+
 BAD_BENCHES = [
     # (change, dotted key, words of the problem)
     (lambda t: t.replace('fixture = "resistor"\n', ""), "fixture", "missing"),
