@@ -81,10 +81,11 @@ class SpiceCard:
 def equivalent_square_law(params: DeviceParams, at_current: float) -> tuple[float, float]:
     """(VTO, KP) of the square law with the same current and gm as ``params`` at ``at_current``.
 
-    Used for ``linear`` parts, whose straight line SPICE level 1/3 cannot express.
+    Used for ``linear`` parts, whose straight line SPICE level 1/3 cannot express, and for ``ekv``
+    parts in a circuit netlist, at the part's operating current.
     """
     if not at_current > 0:
-        raise InputError("the current where a linear part's SPICE equivalent is exact must be > 0 A")
+        raise InputError("the current where a part's square-law SPICE equivalent is exact must be > 0 A")
     vgs = float(params.vgs_at(at_current))
     gm = float(params.gm_at(at_current))
     vov = 2.0 * at_current / gm
@@ -112,8 +113,9 @@ def model_card(label: str, params: DeviceParams, *, name: str | None = None, lam
     lot : str
         Lot name for the comment.
     at_current : float, optional
-        For ``linear`` parts only: the drain current (A) where the square-law equivalent is
-        exact (default 10 mA).
+        For ``linear`` parts: the drain current (A) where the square-law equivalent is exact
+        (default 10 mA). For ``ekv`` parts: when given (a circuit's operating point), the card is
+        the square law exact there instead of the strong-inversion level-3 equivalent.
 
     Returns
     -------
@@ -135,6 +137,16 @@ def model_card(label: str, params: DeviceParams, *, name: str | None = None, lam
         fields = [("VTO", sign * vto), ("KP", kp)]
         comments.append(f"* linear model Vth={_num(params.vth)} V gm={_num(params.gm)} A/V: square-law "
                         f"equivalent with the same ID and gm at ID={_num(current)} A, exact only there")
+    elif params.model == "ekv" and at_current is not None and at_current > 0:
+        # In a circuit's netlist the part sits at one known current: there the strong-inversion
+        # equivalent below can miss by tens of percent (it drops the weak-inversion tail that the
+        # fit's threshold sits in), so use the square law that is exact in ID and gm at that current.
+        vto, kp = equivalent_square_law(params, at_current)
+        level = 1
+        fields = [("VTO", sign * vto), ("KP", kp)]
+        comments.append(f"* ekv fit Vth={_num(params.vth)} V KP={_num(params.kp)} THETA={_num(params.theta)} "
+                        f"n={_num(params.n)}: square-law equivalent with the same ID and gm at "
+                        f"ID={_num(at_current)} A (this circuit's operating point), exact only there")
     elif params.model == "square":
         level = 1
         fields = [("VTO", sign * params.vth), ("KP", params.kp)]
