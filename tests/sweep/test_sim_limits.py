@@ -43,8 +43,8 @@ def test_limits_hold_on_the_simulators_log(tmp_path, fixture, max_current_a):
     assert all(0 < amps <= LIMITS.max_drain_a for _, amps in limits_sent)
     # every voltage setpoint within max_supply_v
     assert setpoints and all(0 <= volts <= LIMITS.max_supply_v for _, volts in setpoints)
-    # what the part really took (the meter's readings): within the current and power limits, up to
-    # the readings' noise
+    # what the part really took (the meter's readings; power in a two-terminal part is V x I, common
+    # practice): within the current and power limits, up to the readings' noise
     taken = [p for p in outcome.points if p.status in ("ok", "probe")]
     assert max(p.id for p in taken) <= LIMITS.max_drain_a * 1.01
     assert max(p.id for p in taken) > 0.5 * min(max_current_a, LIMITS.max_power_w / 3)  # it did conduct
