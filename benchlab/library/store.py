@@ -10,6 +10,7 @@ import math
 import os
 import re
 import sqlite3
+import time
 from contextlib import contextmanager
 from datetime import datetime, timezone
 from pathlib import Path
@@ -53,6 +54,19 @@ def utc_now() -> str:
 def natural_key(text: str) -> tuple:
     """Sort key that puts Q2 before Q10."""
     return tuple(int(p) if p.isdecimal() else p.lower() for p in re.split(r"(\d+)", text))
+
+
+def _switch_to_wal(connection: sqlite3.Connection, timeout_s: float) -> str:
+    # Several programs opening a new file at once: the switch needs the file to itself and SQLite
+    # answers "database is locked" at once instead of waiting (found by the concurrent-open test).
+    deadline = time.monotonic() + timeout_s
+    while True:
+        try:
+            return str(connection.execute("PRAGMA journal_mode = WAL").fetchone()[0])
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) and "busy" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.01)
 
 
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
@@ -121,10 +135,10 @@ class Library(DesignStore):
             raise LibraryError(f"{target}: cannot open the library: {exc}") from exc
         try:
             connection.execute("PRAGMA foreign_keys = ON")
-            mode = connection.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            connection.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
+            mode = _switch_to_wal(connection, timeout_s)
             if str(mode).lower() != "wal":
                 raise LibraryError(f"{target}: cannot switch the library to WAL mode (got {mode})")
-            connection.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
             schema.migrate(connection, path=str(target))
         except sqlite3.DatabaseError as exc:
             connection.close()
