@@ -6,8 +6,9 @@ Parts come from the device library (``--ref``, ``--out``, ``--outputs N``) or in
 
 from __future__ import annotations
 
+import json
 import os
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Sequence
 
 import numpy as np
@@ -153,6 +154,41 @@ def sink_netlist_text(design: SinkDesign) -> str:
                         operating_currents=[design.i_ref, *(o.i_out for o in design.outputs)])
 
 
+def _si_amps(value: float) -> str:
+    for scale, prefix in ((1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n")):
+        if abs(value) >= scale:
+            return f"{value / scale:.3g} {prefix}A"
+    return f"{value:.3g} A"
+
+
+def _with_range_caution(design: SinkDesign, lib, records) -> SinkDesign:
+    """Add a caution when a library part works at a current outside the range its curve was fitted on."""
+    if lib is None or not records:
+        return design
+    currents = {design.ref: design.i_ref, **{o.part: o.i_out for o in design.outputs}}
+    outside = []
+    for record in records:
+        current = currents.get(record.spec)
+        if current is None or record.fit_id is None:
+            continue
+        row = lib.connection.execute("SELECT result_json FROM fits WHERE id = ?", (record.fit_id,)).fetchone()
+        try:
+            window = json.loads(row[0]).get("window") or {} if row and row[0] else {}
+            i_min, i_max = float(window["i_min"]), float(window["i_max"])
+        except (KeyError, TypeError, ValueError, AttributeError):
+            continue  # hand-entered or imported without a fit window: nothing to compare with
+        if current > i_max or current < i_min:
+            outside.append(f"{record.spec} at {_si_amps(current)} (fitted on {_si_amps(i_min)} .. {_si_amps(i_max)})")
+    if not outside:
+        return design
+    caution = ("Outside the measured range: " + "; ".join(outside) + ". There the curve is an extrapolation of the "
+               "fit, not a measurement; sweep these parts up to the design current (within their power rating, "
+               "with the heat sink they will have) before trusting these numbers.")
+    cautions = list(design.cautions)
+    cautions.insert(max(len(cautions) - 1, 0), caution)  # the closing estimate-and-codes caution stays last
+    return replace(design, cautions=tuple(cautions))
+
+
 def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int) -> str:
     """The ngspice netlist of a sink design recorded in the library (``benchlab export spice --design``).
 
@@ -200,6 +236,7 @@ def design_sink(req: SinkRequest, library_path: str | os.PathLike | None = None,
             design = synthesize_sink(req.supply, req.current, ref, outputs, req.options)
         else:
             design = analyze_sink(req.supply, req.resistor, ref, outputs, req.options)
+        design = _with_range_caution(design, lib, records)
         if req.save:
             if len(records) != 1 + len(outputs):
                 raise InputError("--save records the design in the library and reserves its parts: every part must "

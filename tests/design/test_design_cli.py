@@ -211,3 +211,25 @@ def test_export_spice_writes_the_netlist_of_a_recorded_design(capsys, bag_librar
     for argv, needle in ((["--design", "99"], "no design 99"), ([], "name at least one part")):
         code, _, err = run(capsys, "export", "spice", "--library", str(bag_library), *argv)
         assert code == 2 and needle in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_design_beyond_the_fitted_current_range_says_so(capsys, tmp_path):
+    # common practice: a fitted curve is only known where it was measured; 300 mA on parts swept to 100 mA is
+    # an extrapolation and the cautions must say so (at 20 mA they must not)
+    path = tmp_path / "lib.db"
+    with Library.open(path) as lib:
+        for label, vth in (("Q01", 3.0), ("Q02", 3.01)):
+            part = lib.add_part(label, lot="grow-rack")
+            with lib.write():
+                lib.insert_fit(part.id, source="fit", params=DeviceParams("theta", vth, kp=1.0, theta=0.1),
+                               result={"window": {"i_min": 1e-5, "i_max": 0.1}})
+    argv = ["design", "sink", "--library", str(path), "--supply", "24", "--ref", "Q01", "--out", "Q02",
+            "--load-voltage", "6", "--json"]
+    code, out, _ = run(capsys, *argv, "--current", "0.3")
+    cautions = json.loads(out)["cautions"]
+    assert code == 0
+    outside = [c for c in cautions if c.startswith("Outside the measured range")]
+    assert len(outside) == 1 and "grow-rack/Q01" in outside[0] and "grow-rack/Q02" in outside[0]
+    assert "100 mA" in outside[0] and "licensed practice" in cautions[-1]
+    code, out, _ = run(capsys, *argv, "--current", "0.02")
+    assert code == 0 and not any("measured range" in c for c in json.loads(out)["cautions"])
