@@ -97,8 +97,12 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
     if low:
         worst = max(low, key=lambda p: p.id)
         if worst.id >= max(leak_current_a, detect_current_a):  # nothing below the bench's floor counts
-            return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, far below its "
-                                           f"threshold (about {scale_v:.2f} V)")
+            # scale_v is where the part reaches the reference current (or starts to conduct): with a leak
+            # that point says little about the threshold, so the message names it for what it is
+            where = (f"where it reaches {_fmt_a(reference_current_a)}" if vref is not None
+                     else "where it starts to conduct")
+            return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, a small fraction "
+                                           f"of the {scale_v:.2f} V {where}: a leakage path, not channel current")
     if vref is not None:
         return Classification("good", f"conducts normally from about {onset.vgs:.2f} V up to {_fmt_a(peak.id)} "
                                       f"at {peak.vgs:.2f} V; no leakage or unsettled readings")

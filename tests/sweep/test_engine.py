@@ -337,7 +337,7 @@ def test_classifies_good_open_shorted_leaky_unstable():
     short = _classify(FakeBench(part=None, leak_ohm=0.05))
     assert short.classification == "shorted" and "short" in short.reason
     leaky = _classify(FakeBench(leak_ohm=5e3))
-    assert leaky.classification == "leaky" and "far below" in leaky.reason
+    assert leaky.classification == "leaky" and "leakage path" in leaky.reason
     unstable = _classify(FakeBench(noise_v=0.02))
     assert unstable.classification == "unstable" and "did not settle" in unstable.reason
 
