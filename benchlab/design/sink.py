@@ -328,8 +328,10 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
     if chosen is None:
         best_rs, best_err = min(tried, key=lambda t: t[1])
         why = ""
-        if out_of_compliance is not None:
-            load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
+        load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
+        if not all(o.in_compliance for o in plain.outputs):
+            why = f"; with {load_v:g} V across each output they are out of saturation even without a source resistor"
+        elif out_of_compliance is not None:
             why = (f"; with {load_v:g} V across each output, {out_of_compliance:g} ohm or more in the source "
                    "takes the outputs out of saturation")
         raise DesignError(f"no {options.series.upper()} source resistor brings the worst mismatch under "

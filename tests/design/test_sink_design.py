@@ -171,6 +171,9 @@ def test_degeneration_search_never_picks_a_value_that_takes_the_outputs_out_of_s
     # with 3 V the same target would need a source drop the outputs cannot have: one clear error
     with pytest.raises(DesignError, match="out of saturation"):
         synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.02, load_voltage=3.0))
+    # with 0.1 V the outputs are out of saturation before any source resistor: the error says that instead
+    with pytest.raises(DesignError, match="even without a source resistor"):
+        synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.02, load_voltage=0.1))
     # a target reachable within compliance is met with every output in saturation
     reachable = synthesize_sink(12.0, 0.02, ref, outs, SinkOptions(mismatch_target=0.5, load_voltage=3.0))
     assert all(o.in_compliance for o in reachable.outputs)
