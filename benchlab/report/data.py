@@ -56,7 +56,7 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
     Raises
     ------
     LibraryError
-        When the lot does not exist or holds no parts, or the design is unknown.
+        When the lot does not exist or holds no parts, or the design is unknown or holds no part of the lot.
     """
     with lib.snapshot():
         parts = lib.parts(lot=lot, state=None)
@@ -78,6 +78,11 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
         reference = None
         if design is not None:
             recorded = design.get("recorded_parts") or []
+            lots = sorted({p["lot"] for p in recorded})
+            if recorded and lot not in lots:
+                # the figures would mark nothing and the page would mix another lot's design in silently
+                raise LibraryError(f"design {design_id} uses parts of lot {', '.join(repr(l) for l in lots)}, "
+                                   f"none of lot '{lot}'; report on that lot (--lot) or leave out --design")
             ref_name = design.get("ref") or design.get("reference")
             if isinstance(ref_name, dict):
                 ref_name = ref_name.get("label") or ref_name.get("part")

@@ -117,6 +117,14 @@ def test_report_command_and_its_errors(lot_with_design, tmp_path, capsys):
     assert "lot 'nope' has no parts" in err and err.count("\n") == 1
     assert main(["report", "--lot", "demo-bag", "--design", "99", "--out", str(out), "--library", lib.path]) == 2
     assert "no design 99" in capsys.readouterr().err
+    # a design whose parts are all in another lot: said plainly, no half-marked report written
+    lib.add_part("X1", lot="other-bag", params=DeviceParams("square", vth=3.0, kp=1.0))
+    elsewhere = tmp_path / "elsewhere"
+    assert main(["report", "--lot", "other-bag", "--design", str(design_id), "--out", str(elsewhere),
+                 "--library", lib.path]) == 2
+    err = capsys.readouterr().err
+    assert "none of lot 'other-bag'" in err and "'demo-bag'" in err and err.count("\n") == 1
+    assert not elsewhere.exists()
 
 
 def test_reference_named_by_the_design_leads_its_set(tmp_path):
