@@ -14,7 +14,7 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any, Callable
 
-from benchlab.errors import InputError
+from benchlab.errors import DesignError, InputError
 
 DEMO_LOT = "demo-led-rack"
 CHANNELS = 8  # LED strings on the invented rack: one reference part plus 8 outputs
@@ -97,7 +97,13 @@ def run_full_demo(out_root: str | Path, *, count: int = 12, seed: int = 1,
         options=SinkOptions(series="E24", load_voltage=OUTPUT_VOLTAGE_V, monte_carlo=500, seed=seed,
                             mismatch_target=MISMATCH_TARGET))
     netlist = folder / "sink.cir"
-    sink, design_id = design.design_sink(request, lib_path, spice_path=str(netlist))
+    try:
+        sink, design_id = design.design_sink(request, lib_path, spice_path=str(netlist))
+    except DesignError as exc:
+        raise DesignError(f"{exc}. The {summary.fitted} good parts of this run hold no set of 1 + {CHANNELS} "
+                          f"that meets the demo's {MISMATCH_TARGET:.0%} target with {OUTPUT_VOLTAGE_V:g} V across "
+                          f"each output; sweep more of the bag (--count 40). What was done so far is in {folder}"
+                          ) from exc
     say(format_sink_report(sink, design_id))
 
     say("4/5 exporting SPICE model cards of the chosen parts ...")
