@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import json
 
+from benchlab.commands._args import library_option, whole_number
 from benchlab.design.eseries import SERIES_NAMES
 from benchlab.design.sink import SinkOptions
 from benchlab.design.text import format_bins, format_match, format_sink_report, parse_quantity
@@ -18,20 +19,8 @@ def _quantity(text: str) -> float:
         raise argparse.ArgumentTypeError(f"not a number: '{text}' (examples: 0.02, 20m, 4.7k)") from None
 
 
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a whole number: '{text}'") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"must be >= 0: {value}")
-    return value
-
-
 def _common() -> argparse.ArgumentParser:
-    parent = argparse.ArgumentParser(add_help=False)
-    parent.add_argument("--library", metavar="PATH",
-                        help="library file (default: $BENCHLAB_LIBRARY, else library.db in the user data folder)")
+    parent = argparse.ArgumentParser(add_help=False, parents=[library_option()])
     parent.add_argument("--json", action="store_true", help="print the result as JSON")
     return parent
 
@@ -63,7 +52,7 @@ def register(subparsers) -> None:
     sink.add_argument("--out", metavar="PART[,PART...]", help="output parts from the library, comma-separated")
     sink.add_argument("--out-model", action="append", default=[], metavar="TEXT",
                       help="an output given inline (repeat for several); same syntax as --ref-model")
-    sink.add_argument("--outputs", type=_count, metavar="N",
+    sink.add_argument("--outputs", type=whole_number, metavar="N",
                       help="let the tool pick N outputs from the in-stock parts (and the reference too when --ref is "
                            "not given: the best matched set at the operating current)")
     sink.add_argument("--lot", help="pick parts only from this lot")
@@ -77,7 +66,7 @@ def register(subparsers) -> None:
     degen.add_argument("--mismatch-target", type=_quantity, metavar="FRACTION",
                        help="find the smallest preferred source resistor that brings the worst mismatch under this "
                             "fraction (0.01 = 1 %%) and use it")
-    sink.add_argument("--monte-carlo", type=_count, default=0, metavar="N",
+    sink.add_argument("--monte-carlo", type=whole_number, default=0, metavar="N",
                       help="Monte Carlo samples over resistor tolerance and fit errors (default: off)")
     sink.add_argument("--seed", type=int, default=1, help="Monte Carlo seed (default: %(default)s)")
     sink.add_argument("--tolerance", type=_quantity, metavar="FRACTION",
@@ -100,10 +89,10 @@ def register(subparsers) -> None:
                                        "are exactly optimal best-first; larger sets are a heuristic.")
     match.add_argument("--current", type=_quantity, required=True, metavar="A", help="operating current")
     match.add_argument("--current-max", type=_quantity, metavar="A", help="top of the operating current range")
-    match.add_argument("--size", type=_count, required=True, metavar="N",
+    match.add_argument("--size", type=whole_number, required=True, metavar="N",
                        help="parts per set: 2 for a simple mirror, N+1 for one reference and N outputs")
     match.add_argument("--lot", help="only parts of this lot")
-    match.add_argument("--count", type=_count, metavar="K", help="how many sets (default: as many as possible)")
+    match.add_argument("--count", type=whole_number, metavar="K", help="how many sets (default: as many as possible)")
     match.add_argument("--polarity", choices=("N", "P"), default="N", help="which parts (default: %(default)s)")
     match.set_defaults(func=_match)
 

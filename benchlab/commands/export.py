@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from benchlab.commands.parts import library_option
+from benchlab.commands._args import library_option
 from benchlab.errors import InputError
 from benchlab.library.records import PART_STATES
 from benchlab.services import library as service

@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 
+from benchlab.commands._args import whole_number
 from benchlab.extract import MODEL_CHOICES
 from benchlab.services import fitting as service
 
@@ -16,16 +17,6 @@ def _current(text: str) -> float:
         raise argparse.ArgumentTypeError(f"'{text}' is not a current in A (e.g. 250e-6)") from None
     if not value > 0 or value != value or value == float("inf"):
         raise argparse.ArgumentTypeError(f"{text} A: the current must be positive and finite")
-    return value
-
-
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a whole number") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError("the number of resamples must be 0 or more")
     return value
 
 
@@ -47,12 +38,12 @@ def register(subparsers) -> None:
                         help="constant-current threshold criterion (default 250e-6 A)")
     parser.add_argument("--window", type=_current, nargs=2, metavar=("LOW", "HIGH"),
                         help="fit only points with LOW <= ID <= HIGH (A)")
-    parser.add_argument("--bootstrap", type=_count, default=0, metavar="N",
+    parser.add_argument("--bootstrap", type=whole_number, default=0, metavar="N",
                         help="standard errors from N residual-bootstrap resamples (default: from the fit covariance)")
     parser.add_argument("--temperature", type=float, metavar="C",
                         help="the parts' temperature during the sweeps in degC (default: the session's ambient, "
                              "else 27); sets UT for the ekv slope factor and is stored with the parameters")
-    parser.add_argument("--curve", type=_count, default=0, metavar="N",
+    parser.add_argument("--curve", type=whole_number, default=0, metavar="N",
                         help="also give VGS, gm and gm/ID of the fit at N currents across the fitted window")
     parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
     parser.add_argument("--save", action="store_true",

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import json
 
-from benchlab.commands.parts import library_option
+from benchlab.commands._args import library_option
 from benchlab.services import library as service
 
 

@@ -5,16 +5,9 @@ from __future__ import annotations
 import argparse
 import json
 
+from benchlab.commands._args import library_option
 from benchlab.library.records import PART_STATES, json_default
 from benchlab.services import library as service
-
-
-def library_option() -> argparse.ArgumentParser:
-    """Parent parser with ``--library PATH`` (shared by every command that touches the library)."""
-    parent = argparse.ArgumentParser(add_help=False)
-    parent.add_argument("--library", metavar="PATH",
-                        help="library file (default: $BENCHLAB_LIBRARY, else library.db in the user data folder)")
-    return parent
 
 
 def register(subparsers) -> None:

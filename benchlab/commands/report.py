@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from benchlab.commands.parts import library_option
+from benchlab.commands._args import library_option
 from benchlab.services import report as service
 
 
