@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import warnings
 
 from benchlab import __version__
 from benchlab.errors import BenchlabError
@@ -50,6 +51,11 @@ def _describe_subcommands(parser: argparse.ArgumentParser) -> None:
                 _describe_subcommands(sub)
 
 
+def _show_deprecation(message, category, filename, lineno, file=None, line=None) -> None:
+    """Print a warning (old names in a user's files) as one line, without the source location."""
+    print(f"benchlab: warning: {message}", file=sys.stderr)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (a ``BenchlabError`` is printed as one line, exit code from the error)."""
     parser = build_parser()
@@ -58,7 +64,10 @@ def main(argv: list[str] | None = None) -> int:
         parser.print_help()
         return 0
     try:
-        return int(args.func(args) or 0)
+        with warnings.catch_warnings():
+            warnings.simplefilter("always", FutureWarning)
+            warnings.showwarning = _show_deprecation
+            return int(args.func(args) or 0)
     except BenchlabError as exc:
         print(f"benchlab: error: {exc}", file=sys.stderr)
         return exc.exit_code

@@ -12,7 +12,7 @@ from benchlab.sim.faults import parse_fault
 CLI_LOG_MEMORY_ENTRIES = 100_000
 
 _FAULT_HELP = (
-    "inject a fault, KIND[@ROLE][=VALUE]; ROLE is supply, meter, source_meter or all (default). "
+    "inject a fault, KIND[@ROLE][=VALUE]; ROLE is supply, meter, smu or all (default). "
     "Kinds: slow=S[/N] (replies S seconds late, after N messages), mute=N (no replies after N messages), hang=N (neither "
     "executes nor replies after N messages), drop=N (connection closed at message N), "
     "error=HEADER[/CODE] (that command refused with CODE, default -240), garble=N (N-th reply garbled), "

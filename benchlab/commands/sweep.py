@@ -115,7 +115,7 @@ def _prepare(args: argparse.Namespace):
         # validate the plan against the simulated bench's limits before anything starts
         probe = simulator_bench_config({"supply": "TCPIP0::127.0.0.1::1::SOCKET",
                                         "meter": "TCPIP0::127.0.0.1::2::SOCKET",
-                                        "source_meter": "TCPIP0::127.0.0.1::3::SOCKET"},
+                                        "smu": "TCPIP0::127.0.0.1::3::SOCKET"},
                                        fixture=options.fixture, series_resistor_ohm=47.0)
         svc.build_plan(probe, **_plan_options(args))
         simulator, config = svc.start_simulator(options)

@@ -13,13 +13,13 @@ from typing import Any, Callable
 from benchlab.errors import BenchlabError, InstrumentError
 from benchlab.instruments.config import BenchConfig, InstrumentSpec
 from benchlab.instruments.profiles import Profile, load_profile
-from benchlab.instruments.scpi_roles import ScpiInstrument, ScpiMeter, ScpiSourceMeter, ScpiSupply
+from benchlab.instruments.scpi_roles import ScpiInstrument, ScpiMeter, ScpiSmu, ScpiSupply
 from benchlab.instruments.transport import Transport, VisaTransport
 
 ROLE_CLASSES: dict[str, type[ScpiInstrument]] = {
     "supply": ScpiSupply,
     "meter": ScpiMeter,
-    "source_meter": ScpiSourceMeter,
+    "smu": ScpiSmu,
 }
 
 
@@ -43,19 +43,19 @@ class Bench:
     config: BenchConfig
     supply: ScpiSupply | None = None
     meter: ScpiMeter | None = None
-    source_meter: ScpiSourceMeter | None = None
+    smu: ScpiSmu | None = None
     identities: dict[str, str] = field(default_factory=dict)
     profiles: dict[str, Profile] = field(default_factory=dict)
 
     def instruments(self) -> dict[str, ScpiInstrument]:
         """Role -> connected instrument."""
-        found = {"supply": self.supply, "meter": self.meter, "source_meter": self.source_meter}
+        found = {"supply": self.supply, "meter": self.meter, "smu": self.smu}
         return {role: inst for role, inst in found.items() if inst is not None}
 
     def safe_off(self) -> list[BenchlabError]:
         """Switch every output off, trying each instrument even if one fails; returns the failures."""
         failures: list[BenchlabError] = []
-        for instrument in (self.source_meter, self.supply):
+        for instrument in (self.smu, self.supply):
             if instrument is not None:
                 try:
                     instrument.safe_off()

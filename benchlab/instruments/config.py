@@ -8,19 +8,21 @@ connected or powered.
 
 from __future__ import annotations
 
+import warnings
+
 import tomllib
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import IO, Any, Mapping
 
 from benchlab.errors import ConfigError
-from benchlab.instruments.profiles import ROLES, Profile, load_profile
+from benchlab.instruments.profiles import LEGACY_ROLES, ROLES, Profile, legacy_role_message, load_profile
 from benchlab.instruments.quantities import parse_quantity
 from benchlab.instruments.transport import resource_kind
 
 FIXTURES = ("resistor", "smu")
 # The instruments each fixture needs.
-FIXTURE_ROLES: dict[str, tuple[str, ...]] = {"resistor": ("supply", "meter"), "smu": ("source_meter",)}
+FIXTURE_ROLES: dict[str, tuple[str, ...]] = {"resistor": ("supply", "meter"), "smu": ("smu",)}
 BENCH_FORMAT_VERSION = 1
 
 
@@ -37,7 +39,7 @@ class SafetyLimits:
 class InstrumentSpec:
     """One instrument on the bench: its VISA resource string and the profile that drives it."""
 
-    role: str  # "supply", "meter" or "source_meter"
+    role: str  # "supply", "meter" or "smu"
     resource: str
     profile: str  # profile name (file stem in a drivers directory) or a path
     timeout_ms: int = 2000
@@ -82,8 +84,8 @@ _MEASUREMENT_UNITS = {"settle_s": "s", "nplc": ""}
 _RESISTOR_KEYS = {"ohms", "tolerance", "power_rating_w"}
 _SPEC_KEYS = {"resource", "profile", "timeout_ms", "reset_on_connect"}
 # The instrument-limit names in a profile that each bench limit must respect, per fixture.
-_SOURCE_ROLE = {"resistor": "supply", "smu": "source_meter"}
-_NPLC_ROLE = {"resistor": "meter", "smu": "source_meter"}
+_SOURCE_ROLE = {"resistor": "supply", "smu": "smu"}
+_NPLC_ROLE = {"resistor": "meter", "smu": "smu"}
 
 
 def load_bench_config(path_or_file: str | Path | IO[bytes] | IO[str]) -> BenchConfig:
@@ -217,8 +219,22 @@ def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, p
                                        f"(profile '{measuring.name}')")
 
 
+def _renamed_legacy_roles(table: Mapping[str, Any], fail) -> Mapping[str, Any]:
+    """Accept an old role key (``[instruments.source_meter]``) for one version, with a deprecation message."""
+    renamed = dict(table)
+    for old, new in LEGACY_ROLES.items():
+        if old in renamed:
+            if new in renamed:
+                raise fail(f"instruments.{old}", f"give [instruments.{new}] only (the old name '{old}' is deprecated)")
+            where = f"{fail(f'instruments.{old}', '').path or 'bench file'}: [instruments.{old}]"
+            warnings.warn(legacy_role_message(old, where), FutureWarning, stacklevel=3)
+            renamed[new] = renamed.pop(old)
+    return renamed
+
+
 def _parse_instruments(table: Mapping[str, Any], fixture: str, fail, base_dir: Path | None,
                        environ: Mapping[str, str] | None) -> dict[str, InstrumentSpec]:
+    table = _renamed_legacy_roles(table, fail)
     _only(table, set(ROLES), "instruments.", fail)
     for role in FIXTURE_ROLES[fixture]:
         if role not in table:
@@ -327,7 +343,7 @@ def _positive(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail,
 SIM_SERIES_RESISTOR_OHM = 47.0  # the simulator's marked resistor (benchlab.sim.DEFAULT_SERIES_RESISTOR_OHM)
 SIM_MAX_SUPPLY_V = {"resistor": 30.0, "smu": 10.0}
 SIM_PROFILES = {"supply": "generic-scpi-supply", "meter": "generic-scpi-meter",
-                "source_meter": "generic-scpi-smu"}
+                "smu": "generic-scpi-smu"}
 
 
 def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resistor",
@@ -340,7 +356,7 @@ def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resisto
     ----------
     resources : mapping
         Role -> VISA resource string, as given by ``benchlab.sim.SimBench.resources``
-        (keys ``supply``, ``meter``, ``source_meter``).
+        (keys ``supply``, ``meter``, ``smu``).
     fixture : str
         ``"resistor"`` or ``"smu"``.
     series_resistor_ohm : float

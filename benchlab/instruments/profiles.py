@@ -9,6 +9,8 @@ file, the key and the problem.
 
 from __future__ import annotations
 
+import warnings
+
 import importlib.util
 import os
 import tomllib
@@ -20,7 +22,15 @@ from benchlab.errors import ConfigError
 from benchlab.instruments.scpi import render, template_fields
 
 PROFILE_FORMAT_VERSION = 1
-ROLES = ("supply", "meter", "source_meter")
+ROLES = ("supply", "meter", "smu")
+# Role names an older benchlab wrote, accepted for one version with a deprecation message.
+LEGACY_ROLES = {"source_meter": "smu"}
+
+
+def legacy_role_message(old: str, where: str) -> str:
+    """The deprecation message for an old role name found at ``where`` (a file key)."""
+    return (f"{where}: the role name '{old}' is deprecated and will stop working in the next version; "
+            f"write '{LEGACY_ROLES[old]}'")
 ENV_DRIVERS = "BENCHLAB_DRIVERS"
 
 # Operation -> (placeholders it must use, required?). Shared by every role.
@@ -63,7 +73,7 @@ _ROLE_COMMANDS: dict[str, dict[str, tuple[frozenset[str], bool]]] = {
         "get_current_nplc": (_NONE, False),
         "read": (_NONE, True),
     },
-    "source_meter": {
+    "smu": {
         "source_voltage": (_NONE, True),
         "source_current": (_NONE, True),
         "set_voltage_level": (frozenset({"volts"}), True),
@@ -82,7 +92,7 @@ _ROLE_COMMANDS: dict[str, dict[str, tuple[frozenset[str], bool]]] = {
     },
 }
 
-# The list-sweep table of a source-measure unit (role source_meter only).
+# The list-sweep table of a source-measure unit (role smu only).
 _LIST_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {
     "upload_voltage": (frozenset({"values"}), True),
     "upload_current": (frozenset({"values"}), True),
@@ -100,7 +110,7 @@ _LIST_SETTINGS = {"max_points": int, "value_format": str, "separator": str}
 _ROLE_LIMITS: dict[str, tuple[str, ...]] = {
     "supply": ("max_voltage", "max_current"),
     "meter": ("max_voltage", "max_current", "min_nplc", "max_nplc"),
-    "source_meter": ("max_voltage", "max_current", "min_nplc", "max_nplc"),
+    "smu": ("max_voltage", "max_current", "min_nplc", "max_nplc"),
 }
 _CONNECTION_KEYS = {"read_termination": str, "write_termination": str, "baud_rate": int}
 _READING_FIELDS = ("volts", "amps")
@@ -161,12 +171,15 @@ class Profile:
 # ---------------------------------------------------------------------------------------------
 # search path
 def bundled_drivers_dir() -> Path:
-    """The folder of the profiles shipped with benchlab (installed package or source checkout)."""
+    """The folder of the profiles shipped with benchlab (source checkout or installed package)."""
+    # A source checkout's own drivers/ first: an editable install elsewhere must not shadow this tree's profiles.
+    checkout = Path(__file__).resolve().parents[2]
+    if (checkout / "pyproject.toml").is_file() and (checkout / "drivers").is_dir():
+        return checkout / "drivers"
     spec = importlib.util.find_spec("benchlab.drivers")
     if spec is not None and spec.submodule_search_locations:
         return Path(next(iter(spec.submodule_search_locations)))
-    # Source checkout without install: the top-level drivers/ beside the benchlab package.
-    return Path(__file__).resolve().parents[2] / "drivers"
+    return checkout / "drivers"
 
 
 def user_drivers_dir() -> Path:
@@ -256,10 +269,13 @@ def parse_profile(data: Mapping[str, Any], *, name: str, path: str | None = None
     if type(version) is not int or version != PROFILE_FORMAT_VERSION:
         raise fail("format_version", f"is {version!r}; this benchlab reads format_version = {PROFILE_FORMAT_VERSION}")
     role = data.get("role")
+    if role in LEGACY_ROLES:
+        warnings.warn(legacy_role_message(role, f"{path or 'profile'}: key 'role'"), FutureWarning, stacklevel=2)
+        role = LEGACY_ROLES[role]
     if role not in ROLES:
         raise fail("role", f"must be one of {', '.join(ROLES)}, got {role!r}")
     allowed_top = {"format_version", "role", "description", "connection", "limits", "commands"}
-    if role == "source_meter":
+    if role == "smu":
         allowed_top |= {"reading", "list"}
     _reject_unknown(data, allowed_top, "", fail)
     description = data.get("description", "")
@@ -275,7 +291,7 @@ def parse_profile(data: Mapping[str, Any], *, name: str, path: str | None = None
     reading_fields: tuple[str, ...] = ("volts", "amps")
     list_commands: dict[str, tuple[str, ...]] = {}
     list_settings: dict[str, Any] = {}
-    if role == "source_meter":
+    if role == "smu":
         reading_fields = _parse_reading(data.get("reading", {}), fail)
         list_table = _table(data, "list", fail)
         settings_part = {key: value for key, value in list_table.items() if key in _LIST_SETTINGS}

@@ -43,7 +43,7 @@ class Meter(Protocol):
 
 
 @runtime_checkable
-class SourceMeter(Protocol):
+class SourceMeasureUnit(Protocol):
     """A source-measure unit: force voltage or current with compliance, measure both."""
 
     identity: str

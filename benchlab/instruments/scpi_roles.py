@@ -1,4 +1,4 @@
-"""SCPI role classes: :class:`ScpiSupply`, :class:`ScpiMeter`, :class:`ScpiSourceMeter`.
+"""SCPI role classes: :class:`ScpiSupply`, :class:`ScpiMeter`, :class:`ScpiSmu`.
 
 Each implements its interface in ``roles.py`` over an injected transport and a validated
 :class:`~benchlab.instruments.profiles.Profile`. They hold no sweep logic and never send
@@ -247,10 +247,10 @@ class ScpiMeter(ScpiInstrument):
         return self.ask_float(f"get_{function or self.function or 'voltage'}_nplc")
 
 
-class ScpiSourceMeter(_OutputMixin, ScpiInstrument):
-    """A source-measure unit driven by a ``source_meter`` profile (implements ``roles.SourceMeter``)."""
+class ScpiSmu(_OutputMixin, ScpiInstrument):
+    """A source-measure unit driven by a ``smu`` profile (implements ``roles.SourceMeasureUnit``)."""
 
-    role = "source_meter"
+    role = "smu"
 
     def __init__(self, transport: Transport, profile: Profile, *, identity: str = ""):
         super().__init__(transport, profile, identity=identity)

@@ -15,7 +15,7 @@ from benchlab.errors import BenchlabError, ConfigError
 from benchlab.instruments.bench import Bench, TransportFactory, open_bench
 from benchlab.instruments.config import BenchConfig, load_bench_config, simulator_bench_config
 from benchlab.instruments.profiles import available_profiles, load_profile, profile_search_path
-from benchlab.instruments.scpi_roles import ScpiInstrument, ScpiMeter, ScpiSourceMeter, ScpiSupply
+from benchlab.instruments.scpi_roles import ScpiInstrument, ScpiMeter, ScpiSmu, ScpiSupply
 
 # Setpoints are sent with 6 significant digits; a readback within this is the same value.
 _REL_TOLERANCE = 1e-5
@@ -132,7 +132,7 @@ def _check_instrument(bench: Bench, role: str, instrument: ScpiInstrument) -> In
     notes = identity_notes(base["identity"])
     base["notes"] = tuple(notes)
     try:
-        if isinstance(instrument, (ScpiSupply, ScpiSourceMeter)):
+        if isinstance(instrument, (ScpiSupply, ScpiSmu)):
             output_was_on = instrument.output_is_on()
             if output_was_on:
                 problems.append("output is ON: settings left untouched; switch it off and check again")
@@ -186,7 +186,7 @@ def _meter_trips(meter: ScpiMeter, config: BenchConfig) -> list[RoundTrip]:
                   lambda: meter.nplc_setting("voltage"))]
 
 
-def _source_meter_trips(smu: ScpiSourceMeter, config: BenchConfig) -> list[RoundTrip]:
+def _smu_trips(smu: ScpiSmu, config: BenchConfig) -> list[RoundTrip]:
     smu.configure_source("voltage", config.limits.max_drain_a)
     trip = _trip("current compliance (A)", config.limits.max_drain_a, "get_current_compliance", smu, smu.compliance)
     smu.set_level(0.0)
@@ -197,7 +197,7 @@ def _source_meter_trips(smu: ScpiSourceMeter, config: BenchConfig) -> list[Round
 _ROUND_TRIPS: dict[str, Callable[[Any, BenchConfig], list[RoundTrip]]] = {
     "supply": _supply_trips,
     "meter": _meter_trips,
-    "source_meter": _source_meter_trips,
+    "smu": _smu_trips,
 }
 
 

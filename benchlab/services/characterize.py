@@ -141,7 +141,7 @@ def connect(config: Any, simulator: Any = None) -> BenchHandle:
 
 def source_instrument(bench: Any) -> Any:
     """The instrument that sources the part (supply or SMU): the one simulator commands are sent to."""
-    return bench.source_meter if bench.config.fixture == "smu" else bench.supply
+    return bench.smu if bench.config.fixture == "smu" else bench.supply
 
 
 # --------------------------------------------------------------------------------------------- part loaders

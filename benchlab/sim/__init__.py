@@ -5,7 +5,7 @@ Public API (other parts and tests code against it)::
     from benchlab.sim import SimBench, SimConfig
     with SimBench(SimConfig(fixture="resistor", time_scale=0.0)) as bench:
         bench.start(first_port=0)
-        bench.resources      # {"supply": "TCPIP0::127.0.0.1::<port>::SOCKET", "meter": ..., "source_meter": ...}
+        bench.resources      # {"supply": "TCPIP0::127.0.0.1::<port>::SOCKET", "meter": ..., "smu": ...}
         bench.log            # commands received and output-state changes
 
 Command set: ``docs/scpi.md``; defaults, faults and physics: ``docs/sim.md``.

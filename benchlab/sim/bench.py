@@ -24,10 +24,10 @@ from benchlab.sim.log import BenchLog
 from benchlab.sim.meter import SimMeter
 from benchlab.sim.physics import REFERENCE_TEMPERATURE_K, PartPhysics
 from benchlab.sim.server import InstrumentServer
-from benchlab.sim.smu import SimSourceMeter
+from benchlab.sim.smu import SimSmu
 from benchlab.sim.supply import SimSupply
 
-ROLES = ("supply", "meter", "source_meter")
+ROLES = ("supply", "meter", "smu")
 DEFAULT_FIRST_PORT = 5025  # raw SCPI socket port (common practice)
 DEFAULT_SERIES_RESISTOR_OHM = 47.0  # E12; 30 V supply, ~3 V part -> about 0.55 A at most
 
@@ -144,7 +144,7 @@ class SimBench:
                               faults=cfg.fault_specs)
         self.instruments = {}
         self._servers: dict[str, InstrumentServer] = {}
-        for number, (role, cls) in enumerate(zip(ROLES, (SimSupply, SimMeter, SimSourceMeter)), start=1):
+        for number, (role, cls) in enumerate(zip(ROLES, (SimSupply, SimMeter, SimSmu)), start=1):
             faults = RoleFaults(role, cfg.fault_specs)
             instrument = cls(self.core, f"SIM{cfg.seed:04d}-{number}", faults)
             self.instruments[role] = instrument
@@ -214,7 +214,7 @@ class SimBench:
 
     @property
     def resources(self) -> dict[str, str]:
-        """Role -> VISA resource string, keys ``supply``, ``meter``, ``source_meter``."""
+        """Role -> VISA resource string, keys ``supply``, ``meter``, ``smu``."""
         result = {}
         for role, server in self._servers.items():
             host = server.host if server.host not in ("", "0.0.0.0") else "127.0.0.1"

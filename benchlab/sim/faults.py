@@ -1,7 +1,7 @@
 """Fault injection for the simulated bench.
 
 A fault is written ``KIND[@ROLE][=VALUE]`` (on the command line: ``--fault mute@meter=12``).
-ROLE is ``supply``, ``meter``, ``source_meter`` or ``all`` (the default). Kinds:
+ROLE is ``supply``, ``meter``, ``smu`` or ``all`` (the default). Kinds:
 
 ``slow=S[/N]``  every reply (after the first N messages, default 0) is held back S extra real seconds.
 ``mute=N``       after N messages the instrument still executes commands but sends no replies.
@@ -23,7 +23,7 @@ from dataclasses import dataclass
 from benchlab.errors import InputError
 
 FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short")
-FAULT_ROLES = ("supply", "meter", "source_meter", "all")
+FAULT_ROLES = ("supply", "meter", "smu", "all")
 DEFAULT_INJECTED_ERROR = -240
 
 

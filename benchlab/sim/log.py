@@ -15,7 +15,7 @@ from dataclasses import asdict, dataclass
 from pathlib import Path
 from typing import IO, Any, Iterable
 
-OUTPUT_ROLES = ("supply", "source_meter")
+OUTPUT_ROLES = ("supply", "smu")
 
 
 @dataclass(frozen=True)

@@ -48,7 +48,7 @@ class InstrumentServer:
 
     @property
     def role(self) -> str:
-        """Role of the served instrument (``supply``, ``meter``, ``source_meter``)."""
+        """Role of the served instrument (``supply``, ``meter``, ``smu``)."""
         return self.instrument.ROLE
 
     def start(self, host: str, port: int) -> int:

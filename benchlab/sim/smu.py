@@ -32,10 +32,10 @@ _VOLT_LEVEL = "[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]"
 _CURR_LEVEL = "[SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude]"
 
 
-class SimSourceMeter(SimInstrument):
+class SimSmu(SimInstrument):
     """Source-measure unit with compliance, list sweeps and a reading buffer."""
 
-    ROLE = "source_meter"
+    ROLE = "smu"
     MODEL = "SMU-1"
     COMMANDS = (
         CommandSpec("[SOURce:]FUNCtion[:MODE]", False, "set_function", 1, 1),

@@ -19,7 +19,7 @@ from benchlab.errors import InputError, SafetyError
 from benchlab.sweep.classify import classify
 from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
-from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply
+from benchlab.sweep.safety import GuardedSmu, GuardedSupply
 from benchlab.sweep.stepping import StopStepping as _Stop
 from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_step, overshoots, predict_vgs
 
@@ -56,10 +56,10 @@ class _Sweep:
                 raise InputError("the resistor fixture needs a supply and a meter on the bench")
             self.source = GuardedSupply(supply, plan.limits, plan.worst_case_resistor_ohm(), clock)
         else:
-            smu = getattr(instruments, "source_meter", None)
+            smu = getattr(instruments, "smu", None)
             if smu is None:
                 raise InputError("the smu fixture needs a source-measure unit on the bench")
-            self.source = GuardedSourceMeter(smu, plan.limits, clock)
+            self.source = GuardedSmu(smu, plan.limits, clock)
             self.meter = None
 
     # ------------------------------------------------------------------ setup and the single point
@@ -403,7 +403,7 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
     plan : SweepPlan
         What to do (validated here first: bad input raises before anything is sent).
     instruments : object
-        Anything with ``supply`` and ``meter`` (resistor fixture) or ``source_meter`` (smu fixture)
+        Anything with ``supply`` and ``meter`` (resistor fixture) or ``smu`` (smu fixture)
         attributes implementing the role interfaces of :mod:`benchlab.instruments.roles`, e.g. a ``Bench``.
     on_event : callable, optional
         Receives :class:`PointMeasured`, :class:`SweepDone` and :class:`SweepFault` events.

@@ -1,7 +1,7 @@
 """The safety guard: wraps the source instruments and refuses anything that breaks a limit.
 
 The sweep engine never talks to a supply or source-measure unit directly; it goes through
-:class:`GuardedSupply` or :class:`GuardedSourceMeter`, which enforce, before anything is sent:
+:class:`GuardedSupply` or :class:`GuardedSmu`, which enforce, before anything is sent:
 
 - the current limit / compliance is set (and within ``max_drain_a``) before the output may be enabled;
 - no voltage setpoint beyond ``max_supply_v`` and no current setpoint beyond ``max_drain_a``;
@@ -188,14 +188,14 @@ class GuardedSupply(_GuardedOutput):
         return self.inner.measure_current()
 
 
-class GuardedSourceMeter(_GuardedOutput):
-    """A :class:`benchlab.instruments.roles.SourceMeter` behind the safety limits (SMU fixture)."""
+class GuardedSmu(_GuardedOutput):
+    """A :class:`benchlab.instruments.roles.SourceMeasureUnit` behind the safety limits (SMU fixture)."""
 
     _what = "source-measure unit"
     _limit_words = "the compliance"
 
-    def __init__(self, source_meter, limits: Limits, clock: Callable[[], float] = time.monotonic):
-        super().__init__(source_meter, limits, clock)
+    def __init__(self, smu, limits: Limits, clock: Callable[[], float] = time.monotonic):
+        super().__init__(smu, limits, clock)
         self.mode: str | None = None
         self.compliance: float | None = None
         self.level = 0.0

@@ -268,9 +268,27 @@ class SessionData:
         return {"path": str(self.path), "meta": self.meta, "sweeps": {k: v.to_dict() for k, v in self.sweeps.items()}}
 
 
+# Role keys an older benchlab wrote into sidecars (renamed on read; the file itself is left as it is).
+_LEGACY_ROLE_KEYS = {"source_meter": "smu"}
+
+
+def _migrated(meta: Any) -> Any:
+    """A sidecar with old role keys renamed (``instruments`` and ``bench.instruments``)."""
+    if not isinstance(meta, dict):
+        return meta
+    tables = [meta.get("instruments"), (meta.get("bench") or {}).get("instruments")
+              if isinstance(meta.get("bench"), dict) else None]
+    for table in tables:
+        if isinstance(table, dict):
+            for old, new in _LEGACY_ROLE_KEYS.items():
+                if old in table and new not in table:
+                    table[new] = table.pop(old)
+    return meta
+
+
 def _load_json(path: Path) -> dict[str, Any]:
     try:
-        return json.loads(path.read_text(encoding="utf-8"))
+        return _migrated(json.loads(path.read_text(encoding="utf-8")))
     except FileNotFoundError:
         raise InputError("file not found", path=str(path)) from None
     except ValueError as exc:

@@ -48,4 +48,4 @@ def short_transport(resource_manager, server):
 def profiles():
     return {role: load_profile(name) for role, name in (("supply", "generic-scpi-supply"),
                                                          ("meter", "generic-scpi-meter"),
-                                                         ("source_meter", "generic-scpi-smu"))}
+                                                         ("smu", "generic-scpi-smu"))}

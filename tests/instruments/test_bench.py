@@ -46,7 +46,7 @@ def test_open_bench_identifies_each_instrument(resource_manager, pair):
     config = parse_bench_config(_bench_data(supply.resource, meter.resource))
     with open_bench(config, resource_manager) as bench:
         assert bench.identities == {"supply": supply.identity, "meter": meter.identity}
-        assert bench.source_meter is None
+        assert bench.smu is None
         assert bench.supply.identity == supply.identity
         assert bench.profiles["meter"].name == "generic-scpi-meter"
     # On connect: *IDN?, then *CLS (IEEE 488.2 common commands; section numbers from memory: 10.3, 10.14), then

@@ -54,8 +54,8 @@ def test_shipped_examples_load():
     assert resistor.limits.max_drain_a == pytest.approx(0.5)
     assert resistor.series_resistor_ohm == pytest.approx(10.02)
     smu = load_bench_config(REPO / "docs" / "examples" / "bench-smu.toml")
-    assert smu.roles() == ("source_meter",)
-    assert smu.instruments["source_meter"].resource.startswith("USB0::")
+    assert smu.roles() == ("smu",)
+    assert smu.instruments["smu"].resource.startswith("USB0::")
 
 
 def test_units_are_converted_to_si(tmp_path):
@@ -145,14 +145,15 @@ def test_bench_defects_name_file_key_and_problem(tmp_path, change, key, problem)
 
 def test_smu_fixture_rejects_a_series_resistor_and_needs_its_smu(tmp_path):
     smu = ('fixture = "smu"\n[limits]\nmax_supply_v = 10\nmax_drain_a = 0.2\nmax_power_w = 1\n'
-           '[instruments.source_meter]\nresource = "TCPIP0::10.0.0.7::5025::SOCKET"\nprofile = "generic-scpi-smu"\n')
+           '[instruments.smu]\nresource = "TCPIP0::10.0.0.7::5025::SOCKET"\nprofile = "generic-scpi-smu"\n')
     assert load(tmp_path, smu).fixture == "smu"
     with pytest.raises(ConfigError) as caught:
         load(tmp_path, smu + "[series_resistor]\nohms = 10\n")
     assert caught.value.key == "series_resistor"
     with pytest.raises(ConfigError) as caught:
-        load(tmp_path, smu.replace("source_meter", "supply").replace("generic-scpi-smu", "generic-scpi-supply"))
-    assert caught.value.key == "instruments.source_meter"
+        load(tmp_path, smu.replace("[instruments.smu]", "[instruments.supply]")
+             .replace("generic-scpi-smu", "generic-scpi-supply"))
+    assert caught.value.key == "instruments.smu"
     # The generic SMU forces at most 20 V.
     with pytest.raises(ConfigError, match="above the instrument's 20 V"):
         load(tmp_path, smu.replace("max_supply_v = 10", "max_supply_v = 25"))
@@ -178,14 +179,14 @@ def test_meter_must_stand_the_full_supply_voltage(tmp_path):
 
 def test_simulator_bench_config_needs_no_file():
     resources = {role: f"TCPIP0::127.0.0.1::{port}::SOCKET"
-                 for role, port in (("supply", 50001), ("meter", 50002), ("source_meter", 50003))}
+                 for role, port in (("supply", 50001), ("meter", 50002), ("smu", 50003))}
     resistor = simulator_bench_config(resources, series_resistor_ohm=47.3)
     assert resistor.roles() == ("supply", "meter")
     assert resistor.series_resistor_ohm == 47.3
     assert resistor.source_path is None
     assert set(resistor.instruments) == {"supply", "meter"}
     smu = simulator_bench_config(resources, fixture="smu")
-    assert set(smu.instruments) == {"source_meter"}
+    assert set(smu.instruments) == {"smu"}
     with pytest.raises(ConfigError, match="needs"):
         simulator_bench_config({"supply": resources["supply"]})
     with pytest.raises(ConfigError, match="above 0 ohm"):
@@ -194,5 +195,18 @@ def test_simulator_bench_config_needs_no_file():
 
 def test_parse_bench_config_without_a_file():
     data = {"fixture": "smu", "limits": {"max_supply_v": 5, "max_drain_a": 0.1, "max_power_w": 0.5},
-            "instruments": {"source_meter": {"resource": "ASRL3::INSTR", "profile": "generic-scpi-smu"}}}
-    assert parse_bench_config(data).instruments["source_meter"].resource == "ASRL3::INSTR"
+            "instruments": {"smu": {"resource": "ASRL3::INSTR", "profile": "generic-scpi-smu"}}}
+    assert parse_bench_config(data).instruments["smu"].resource == "ASRL3::INSTR"
+
+
+def test_old_smu_role_key_still_loads_with_a_deprecation_message(tmp_path):
+    # The one-word role name of older bench files is accepted for one version (issue: names of our own).
+    old = ('fixture = "smu"\n[limits]\nmax_supply_v = 10\nmax_drain_a = 0.2\nmax_power_w = 1\n'
+           '[instruments.source_meter]\nresource = "TCPIP0::192.0.2.7::5025::SOCKET"\nprofile = "generic-scpi-smu"\n')
+    with pytest.warns(FutureWarning, match=r"\[instruments.source_meter\].*deprecated.*'smu'"):
+        config = load(tmp_path, old)
+    assert set(config.instruments) == {"smu"}
+    assert config.instruments["smu"].role == "smu"
+    both = old + '[instruments.smu]\nresource = "TCPIP0::192.0.2.8::5025::SOCKET"\nprofile = "generic-scpi-smu"\n'
+    with pytest.raises(ConfigError, match="only"):
+        load(tmp_path, both)

@@ -43,7 +43,7 @@ def load_text(tmp_path: Path, text: str) -> None:
 
 
 def test_bundled_profiles_load_and_cover_every_role():
-    names = {"generic-scpi-supply": "supply", "generic-scpi-meter": "meter", "generic-scpi-smu": "source_meter"}
+    names = {"generic-scpi-supply": "supply", "generic-scpi-meter": "meter", "generic-scpi-smu": "smu"}
     for name, role in names.items():
         profile = load_profile(name)
         assert profile.role == role
@@ -147,7 +147,7 @@ def test_smu_profile_needs_its_list_table(tmp_path):
     assert caught.value.key == "reading.fields"
 
 
-def test_list_table_is_only_for_a_source_meter(tmp_path):
+def test_list_table_is_only_for_an_smu(tmp_path):
     with pytest.raises(ConfigError) as caught:
         load_text(tmp_path, SUPPLY + "\n[list]\nmax_points = 10\n")
     assert caught.value.key == "list"
@@ -173,16 +173,20 @@ def test_common_commands_default_to_ieee_488_2(tmp_path):
     assert not profile.has("get_voltage")
 
 
-def test_installed_package_location_wins_over_the_source_tree(tmp_path, monkeypatch):
-    # pyproject maps drivers/ to the package benchlab.drivers; when installed, its folder is used.
+def test_source_checkout_drivers_win_then_the_installed_package(tmp_path, monkeypatch):
+    # pyproject maps drivers/ to the package benchlab.drivers. A source checkout uses its own drivers/ (an editable
+    # install of another checkout must not shadow them); an installed package (no checkout around it) its own folder.
     import importlib.machinery
     import importlib.util
 
+    from benchlab.instruments import profiles as profiles_module
+
     spec = importlib.machinery.ModuleSpec("benchlab.drivers", None, is_package=True)
-    spec.submodule_search_locations = [str(tmp_path)]
+    spec.submodule_search_locations = [str(tmp_path / "installed")]
     real_find_spec = importlib.util.find_spec
     monkeypatch.setattr(importlib.util, "find_spec",
                         lambda name, *a: spec if name == "benchlab.drivers" else real_find_spec(name, *a))
-    assert bundled_drivers_dir() == tmp_path
-    monkeypatch.setattr(importlib.util, "find_spec", lambda name, *a: None)
     assert bundled_drivers_dir() == Path(__file__).resolve().parents[2] / "drivers"
+    fake_module = tmp_path / "site" / "benchlab" / "instruments" / "profiles.py"
+    monkeypatch.setattr(profiles_module, "__file__", str(fake_module))
+    assert bundled_drivers_dir() == tmp_path / "installed"

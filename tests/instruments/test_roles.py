@@ -12,14 +12,14 @@ import pytest
 
 from benchlab.errors import InputError, InstrumentError, InstrumentReportedError
 from benchlab.instruments.profiles import parse_profile
-from benchlab.instruments.scpi_roles import ScpiMeter, ScpiSourceMeter, ScpiSupply
+from benchlab.instruments.scpi_roles import ScpiMeter, ScpiSmu, ScpiSupply
 from benchlab.instruments.transport import VisaTransport
 
 from .conftest import SHORT_TIMEOUT_MS, TEST_TIMEOUT_MS
 from .fake_scpi import FakeScpiServer
 
 E = "SYST:ERR?"  # read after every setting
-CLASSES = {"supply": ScpiSupply, "meter": ScpiMeter, "source_meter": ScpiSourceMeter}
+CLASSES = {"supply": ScpiSupply, "meter": ScpiMeter, "smu": ScpiSmu}
 
 
 def _trace_data(_query: str, server: FakeScpiServer) -> str:
@@ -79,29 +79,29 @@ TABLE = [
     ("meter", [], lambda m: m.read(), ["READ?"], 1.234),
     ("meter", [lambda m: m.configure_voltage(None, nplc=5)], lambda m: m.nplc_setting(), ["VOLT:DC:NPLC?"], 5.0),
     ("meter", [], lambda m: m.close(), [], None),
-    ("source_meter", [], lambda u: u.configure_source("voltage", 0.1),
+    ("smu", [], lambda u: u.configure_source("voltage", 0.1),
      ["SENS:CURR:PROT 0.1", E, "SOUR:FUNC VOLT", E], None),
-    ("source_meter", [], lambda u: u.configure_source("current", 5),
+    ("smu", [], lambda u: u.configure_source("current", 5),
      ["SENS:VOLT:PROT 5", E, "SOUR:FUNC CURR", E], None),
-    ("source_meter", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.set_level(2.5),
+    ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.set_level(2.5),
      ["SOUR:VOLT 2.5", E], None),
-    ("source_meter", [lambda u: u.configure_source("current", 5)], lambda u: u.set_level(0.002),
+    ("smu", [lambda u: u.configure_source("current", 5)], lambda u: u.set_level(0.002),
      ["SOUR:CURR 0.002", E], None),
-    ("source_meter", [], lambda u: u.set_nplc(2), ["SENS:CURR:NPLC 2", E, "SENS:VOLT:NPLC 2", E], None),
-    ("source_meter", [], lambda u: u.set_output(True), ["OUTP ON", E], None),
-    ("source_meter", [], lambda u: u.output_is_on(), ["OUTP?"], False),
-    ("source_meter", [], lambda u: u.measure(), ["READ?"], (2.5, 0.025)),
-    ("source_meter", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.in_compliance(),
+    ("smu", [], lambda u: u.set_nplc(2), ["SENS:CURR:NPLC 2", E, "SENS:VOLT:NPLC 2", E], None),
+    ("smu", [], lambda u: u.set_output(True), ["OUTP ON", E], None),
+    ("smu", [], lambda u: u.output_is_on(), ["OUTP?"], False),
+    ("smu", [], lambda u: u.measure(), ["READ?"], (2.5, 0.025)),
+    ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.in_compliance(),
      ["SENS:CURR:PROT:TRIP?"], False),
-    ("source_meter", [lambda u: u.configure_source("current", 5)], lambda u: u.in_compliance(),
+    ("smu", [lambda u: u.configure_source("current", 5)], lambda u: u.in_compliance(),
      ["SENS:VOLT:PROT:TRIP?"], True),
-    ("source_meter", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.compliance(),
+    ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.compliance(),
      ["SENS:CURR:PROT?"], 0.1),
-    ("source_meter", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.run_list([0.5, 1.0, 1.5], 0.01),
+    ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.run_list([0.5, 1.0, 1.5], 0.01),
      ["TRAC:CLE", E, "SOUR:LIST:VOLT 0.5,1,1.5", E, "SOUR:LIST:DWEL 0.01", E, "SOUR:VOLT:MODE LIST", E,
       "INIT", E, "*OPC?", "TRAC:DATA?", "SOUR:VOLT:MODE FIX", E],
      [(0.5, 0.005), (1.0, 0.01), (1.5, 0.015)]),
-    ("source_meter", [], lambda u: u.close(), [], None),
+    ("smu", [], lambda u: u.close(), [], None),
 ]
 
 
@@ -169,8 +169,8 @@ def test_meter_special_readings(role_setup, reply, check):
     assert check(meter.read())
 
 
-def test_source_meter_special_reading_in_a_pair(role_setup):
-    server, smu = role_setup("source_meter")
+def test_smu_special_reading_in_a_pair(role_setup):
+    server, smu = role_setup("smu")
     server.replies["READ?"] = "9.91E37,9.9E37"
     volts, amps = smu.measure()
     assert math.isnan(volts) and amps == math.inf
@@ -197,24 +197,24 @@ def test_role_and_profile_must_match(transport, profiles):
 
 
 def test_level_before_source_mode_is_refused(role_setup):
-    server, smu = role_setup("source_meter")
+    server, smu = role_setup("smu")
     with pytest.raises(InstrumentError, match="configure_source"):
         smu.set_level(1.0)
     assert server.lines() == []
 
 
 def test_list_longer_than_the_instrument_takes_is_refused_before_sending(role_setup, profiles):
-    server, smu = role_setup("source_meter")
+    server, smu = role_setup("smu")
     smu.configure_source("voltage", 0.1)
     server.clear_log()
-    too_many = profiles["source_meter"].list_settings["max_points"] + 1
+    too_many = profiles["smu"].list_settings["max_points"] + 1
     with pytest.raises(InputError, match="longer than the instrument takes"):
         smu.run_list([0.1] * too_many, 0.001)
     assert server.lines() == []
 
 
 def test_short_buffer_is_an_error(role_setup):
-    server, smu = role_setup("source_meter")
+    server, smu = role_setup("smu")
     smu.configure_source("voltage", 0.1)
     server.replies["TRAC:DATA?"] = "0.5,0.005"
     with pytest.raises(InstrumentError, match="expected 2 reading"):
@@ -251,11 +251,11 @@ def test_refused_query_reports_the_instruments_error_not_a_bare_timeout(role_set
 
 
 def test_role_classes_satisfy_the_role_interfaces(role_setup):
-    from benchlab.instruments.roles import Meter, SourceMeter, Supply
+    from benchlab.instruments.roles import Meter, SourceMeasureUnit, Supply
 
     assert isinstance(role_setup("supply")[1], Supply)
     assert isinstance(role_setup("meter")[1], Meter)
-    assert isinstance(role_setup("source_meter")[1], SourceMeter)
+    assert isinstance(role_setup("smu")[1], SourceMeasureUnit)
 
 
 class ScriptedTransport:

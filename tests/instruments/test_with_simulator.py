@@ -100,7 +100,7 @@ def test_smu_list_sweep_of_a_diode_connected_part(start_sim):
     bench = start_sim("smu")
     levels = [0.0, 1.0, 2.0, 3.0, 4.0, 5.0]
     with open_bench(_config(bench, "smu")) as lab:
-        smu = lab.source_meter
+        smu = lab.smu
         smu.configure_source("voltage", 0.2)
         smu.set_nplc(1)
         smu.set_level(0.0)

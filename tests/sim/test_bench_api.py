@@ -32,11 +32,11 @@ def test_bad_config_is_one_clear_error(kwargs):
 def test_resources_and_context_manager(rm):
     with SimBench(SimConfig(time_scale=0.0)) as bench:
         resources = bench.start(first_port=0)
-        assert set(resources) == {"supply", "meter", "source_meter"}
+        assert set(resources) == {"supply", "meter", "smu"}
         for role, resource in resources.items():
             assert resource.startswith("TCPIP0::127.0.0.1::") and resource.endswith("::SOCKET")
         models = {role: open_client(rm, res).query("*IDN?").split(",")[1] for role, res in resources.items()}
-        assert models == {"supply": "PSU-1", "meter": "DMM-1", "source_meter": "SMU-1"}
+        assert models == {"supply": "PSU-1", "meter": "DMM-1", "smu": "SMU-1"}
         port = bench.ports["supply"]
     with pytest.raises(OSError):
         socket.create_connection(("127.0.0.1", port), timeout=1).close()
@@ -60,7 +60,7 @@ def test_first_port_then_consecutive_ports():
             bench.start(first_port=base)
         except InstrumentError:
             pytest.skip("a port next to the free one was taken meanwhile")
-        assert bench.ports == {"supply": base, "meter": base + 1, "source_meter": base + 2}
+        assert bench.ports == {"supply": base, "meter": base + 1, "smu": base + 2}
 
 
 def test_port_in_use_is_a_clear_error_and_nothing_listens():
@@ -111,7 +111,7 @@ def test_thermal_history_follows_the_virtual_clock_not_the_wall(make_bench, rm):
     # with time_scale 0 a minute of dwell heats the part as much as a real minute would:
     # first-order response T = Tamb + P Rth (1 - exp(-t / tau)) (Newton's law of cooling)
     bench = make_bench(fixture="smu")
-    smu = open_client(rm, bench.resources["source_meter"])
+    smu = open_client(rm, bench.resources["smu"])
     smu.write("FUNC CURR;:SENS:VOLT:PROT 20;:CURR 0.2;:OUTP ON")
     smu.write("LIST:CURR 0.2;:LIST:DWEL 45;:CURR:MODE LIST;:INIT")
     volts, amps = (float(x) for x in smu.query("READ?").split(","))
@@ -139,8 +139,8 @@ def _start_cli(tmp_path, *extra):
 def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum):
     proc, log_path, resources = _start_cli(tmp_path, "--fixture", "smu", "--seed", "5")
     try:
-        assert set(resources) == {"supply", "meter", "source_meter"}
-        smu = open_client(rm, resources["source_meter"])
+        assert set(resources) == {"supply", "meter", "smu"}
+        smu = open_client(rm, resources["smu"])
         assert smu.query("SIM:PART:LAB?") == '"Q01"'
         assert smu.query("OUTP ON;OUTP OFF;*OPC?") == "1"
         smu.close()
@@ -150,7 +150,7 @@ def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum)
         if proc.poll() is None:
             proc.kill()
     log = BenchLog.read_file(log_path)
-    assert log.output_history("source_meter") == [True, False]
+    assert log.output_history("smu") == [True, False]
     assert not log.output_was_left_on()
 
 
@@ -242,7 +242,7 @@ def test_listens_on_loopback_and_on_5025_unless_told_otherwise():
     with SimBench(SimConfig(time_scale=0.0)) as bench:
         bench.start(first_port=0)
         bound = {role: server._listener.getsockname()[0] for role, server in bench._servers.items()}
-    assert bound == {"supply": "127.0.0.1", "meter": "127.0.0.1", "source_meter": "127.0.0.1"}
+    assert bound == {"supply": "127.0.0.1", "meter": "127.0.0.1", "smu": "127.0.0.1"}
     defaults = build_parser().parse_args(["sim"])
     assert (defaults.host, defaults.port) == ("127.0.0.1", 5025)  # 5025: the usual raw SCPI socket port
 

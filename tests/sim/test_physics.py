@@ -170,7 +170,7 @@ def test_bag_is_seeded_and_has_duds():
 
 def _smu(make_bench, rm, **kwargs):
     bench = make_bench(fixture="smu", **kwargs)
-    return bench, open_client(rm, bench.resources["source_meter"])
+    return bench, open_client(rm, bench.resources["smu"])
 
 
 def _sweep_list(smu, function: str, levels, compliance: float, dwell: float = 0.0, nplc: float = 1.0):
@@ -194,7 +194,7 @@ def test_iv_curve_over_tcp_is_monotonic(make_bench, rm):
     assert int(smu.query("TRAC:POIN:ACT?")) == 41
     assert np.all(np.diff(amps) > 0)
     assert amps[0] < 1e-4 < 0.1 < amps[-1] < 1.0
-    assert bench.log.output_history("source_meter") == [True, False]
+    assert bench.log.output_history("smu") == [True, False]
 
 
 def test_self_heating_raises_current_at_fixed_vgs(make_bench, rm):

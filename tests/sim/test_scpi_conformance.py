@@ -169,12 +169,12 @@ def test_header_matching_table_is_data():
     assert info.value.code == -102
 
 
-def test_source_meter_lists_compliance_and_list_errors(make_bench, rm):
+def test_smu_lists_compliance_and_list_errors(make_bench, rm):
     # SCPI-1999 vol. 2, 21.8.3: -221 settings conflict (INIT with the output off), -226 lists not same length
     from tests.sim.conftest import open_client
 
     bench = make_bench(fixture="smu")
-    smu = open_client(rm, bench.resources["source_meter"])
+    smu = open_client(rm, bench.resources["smu"])
     smu.write("FUNC VOLT;:SENS:CURR:PROT 10 MA;:LIST:VOLT 1,2,8;:VOLT:MODE LIST")
     assert smu.query("LIST:VOLT:POIN?;:VOLT:MODE?;:FUNC?") == "3;LIST;VOLT"
     assert float(smu.query("SENS:CURR:PROT?")) == pytest.approx(0.01)
@@ -237,7 +237,7 @@ def test_meter_reading_below_the_negative_range_is_minus_infinity(bench):
     assert -1.2 < meter.take_reading() < -1.0
 
 
-@pytest.mark.parametrize("role, model", [("supply", "PSU-1"), ("meter", "DMM-1"), ("source_meter", "SMU-1")])
+@pytest.mark.parametrize("role, model", [("supply", "PSU-1"), ("meter", "DMM-1"), ("smu", "SMU-1")])
 def test_every_instrument_speaks_the_common_commands(bench, rm, role, model):
     # IEEE 488.2 10.14 (*IDN?: maker,model,serial,firmware), 10.3 (*CLS), 10.12/10.18 (*ESE/*OPC), 11.5.1 (ESR bits:
     # 7 power on, 5 command error, read clears), SCPI-1999 vol. 2, ch. 21 (-113 undefined header, long and short

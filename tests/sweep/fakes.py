@@ -53,7 +53,7 @@ class FakeBench:
         self.over_range_from: int | None = None  # meter reads from this count on return +inf
         self.supply = _Supply(self)
         self.meter = _Meter(self)
-        self.source_meter = _SMU(self)
+        self.smu = _SMU(self)
 
     def _maybe_fail(self, name: str) -> None:
         if self.fail_on == name:

@@ -42,7 +42,7 @@ def plan_for(handle: BenchHandle, **options):
 
 
 def source_role(handle: BenchHandle) -> str:
-    return "source_meter" if handle.config.fixture == "smu" else "supply"
+    return "smu" if handle.config.fixture == "smu" else "supply"
 
 
 def only_session(root: Path) -> Path:

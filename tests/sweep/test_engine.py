@@ -15,7 +15,7 @@ from benchlab.sweep.engine import run
 from benchlab.sweep.stepping import predict_vgs
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
-from benchlab.sweep.safety import GuardedSourceMeter, GuardedSupply, line_worst_power
+from benchlab.sweep.safety import GuardedSmu, GuardedSupply, line_worst_power
 
 from .fakes import PART, FakeBench, applied_voltages
 
@@ -49,7 +49,7 @@ def test_guard_refuses_output_on_before_current_limit():
     with pytest.raises(SafetyError, match="current limit is not set"):
         guard.set_output(True)
     assert bench.log == []  # nothing reached the instrument
-    smu = GuardedSourceMeter(bench.source_meter, LIMITS)
+    smu = GuardedSmu(bench.smu, LIMITS)
     with pytest.raises(SafetyError, match="compliance is not set"):
         smu.set_output(True)
     assert bench.log == []
@@ -89,7 +89,7 @@ def test_guard_worst_case_without_prediction_is_the_resistor_line_maximum():
 
 def test_guard_smu_compliance_and_levels():
     bench = FakeBench()
-    smu = GuardedSourceMeter(bench.source_meter, LIMITS)
+    smu = GuardedSmu(bench.smu, LIMITS)
     with pytest.raises(SafetyError):
         smu.configure_source("voltage", 0.8)  # compliance above max_drain_a
     with pytest.raises(SafetyError):
@@ -105,7 +105,7 @@ def test_guard_smu_compliance_and_levels():
         smu.configure_source("voltage", 0.1)
     with pytest.raises(SafetyError):
         smu.run_list([0.1, 0.7], 0.01)
-    assert not bench.source_meter.lists  # the bad list never reached the instrument
+    assert not bench.smu.lists  # the bad list never reached the instrument
 
 
 # ------------------------------------------------------------------------------------------ order
@@ -297,7 +297,7 @@ def test_voltage_list_sweeps_on_smu_in_chunks():
     plan = SweepPlan(fixture="smu", limits=LIMITS, mode="voltages", voltages=volts, use_list=True, list_chunk=8,
                      max_current_a=0.1)
     outcome = sweep(bench, plan)
-    assert [len(chunk) for chunk in bench.source_meter.lists] == [8, 8, 3]
+    assert [len(chunk) for chunk in bench.smu.lists] == [8, 8, 3]
     assert [p.vgs for p in outcome.points] == pytest.approx(list(volts))
     assert_off(bench)
 

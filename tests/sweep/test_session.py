@@ -133,3 +133,20 @@ def test_the_committed_example_session_reads_back():
         assert sweep.complete and not sweep.truncated and len(sweep.vgs) == sweep.meta["points"]
         up = sweep.usable_mask()
         assert (sweep.id[up][sweep.id[up] > 1e-4] > 0).all()
+
+
+def test_old_role_keys_in_a_sidecar_are_renamed_on_read(tmp_path):
+    # Sessions written before the role was named `smu` keep loading (the file on disk is left as it was).
+    session = SessionWriter.create(tmp_path, "lot", bench={"fixture": "smu", "instruments": {"smu": {}}},
+                                   instruments={"smu": "X,SMU,1,1"})
+    _sweep_into(session, "Q01")
+    session.finish()
+    path = session.path / "session.json"
+    meta = json.loads(path.read_text())
+    meta["instruments"] = {"source_meter": meta["instruments"].pop("smu")}
+    meta["bench"]["instruments"] = {"source_meter": {}}
+    path.write_text(json.dumps(meta))
+    data = read_session(session.path)
+    assert data.meta["instruments"] == {"smu": "X,SMU,1,1"}
+    assert data.meta["bench"]["instruments"] == {"smu": {}}
+    assert "source_meter" in path.read_text()

@@ -102,10 +102,10 @@ def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, faul
 
 # The same faults on a source-measure unit (counts placed after its output is switched on).
 SMU_FAULTS = [
-    ("mute@source_meter=60", "no reply"),
-    ("error@source_meter=READ?/-230", "-230"),
-    ("garble@source_meter=40", "unexpected"),
-    ("slow@source_meter=0.6/60", "no reply to 'READ?'"),
+    ("mute@smu=60", "no reply"),
+    ("error@smu=READ?/-230", "-230"),
+    ("garble@smu=40", "unexpected"),
+    ("slow@smu=0.6/60", "no reply to 'READ?'"),
 ]
 
 
@@ -174,9 +174,9 @@ def test_smu_list_sweep_runs_in_uploaded_chunks(tmp_path):
     with sim_bench("smu") as (sim, handle):
         outcome = sweep_part(handle, plan_for(handle, voltages=volts, use_list=True),
                              SessionWriter.create(tmp_path, "list"), "Q01")
-        uploads = [c for c in sim.log.commands("source_meter")
+        uploads = [c for c in sim.log.commands("smu")
                    if c.upper().startswith(("LIST:VOLT ", "SOUR:LIST:VOLT "))]
-        assert sim.log.last_output_state("source_meter") is False
+        assert sim.log.last_output_state("smu") is False
     # up to 2.75 V the part stays below the 62.5 mA compliance; at 3 V it hits it and the sweep stops
     # after that list, keeping every reading the list returned
     below = [p for p in outcome.points if p.status == "ok"]
