@@ -20,9 +20,9 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "library"))
 
-from benchlab.library import Library  # noqa: E402
+from benchlab.library import Library, import_sessions  # noqa: E402
 from benchlab.library.sessions import read_session  # noqa: E402
-from benchlab.library.store import utc_now  # noqa: E402
+from benchlab.library.records import utc_now  # noqa: E402
 from session_builder import demo_bag, write_session  # noqa: E402
 
 
@@ -68,7 +68,7 @@ def main() -> None:
             sessions.append(write_session(root, f"s{k}", f"bag-{k}", bag))
         with Library.open(root / "fast.db") as lib:
             start = time.perf_counter()
-            summary = lib.import_sessions(sessions, refit=False)
+            summary = import_sessions(lib, sessions, refit=False)
             fast_s = time.perf_counter() - start
         total_parts = len(summary.sweeps)
         total_points = total_parts * args.points

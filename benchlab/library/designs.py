@@ -1,19 +1,27 @@
-"""Designs (with the parts they consume) and binnings: the part of :class:`Library` that stores design work."""
+"""Designs (with the parts they consume) and binnings: the part of a :class:`Library` that stores design work.
+
+A :class:`DesignStore` is a member of the library (``lib.design_store``); it uses the library's transactions.
+"""
 
 from __future__ import annotations
 
 import json
-from typing import Any, Mapping, Sequence
+from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
 from benchlab.errors import LibraryError
-from benchlab.library.records import PartRecord, to_json
+from benchlab.library.records import PartRecord, to_json, utc_now
+
+if TYPE_CHECKING:
+    from benchlab.library.store import Library
 
 
 class DesignStore:
-    """Mixin of :class:`benchlab.library.Library`: record and read designs and binnings."""
+    """Records and reads designs and binnings of one open :class:`benchlab.library.Library`."""
 
-    # -- designs and bins ------------------------------------------------------------------------
-    def record_design(self, design: Mapping[str, Any], parts: Sequence[PartRecord | str | int],
+    def __init__(self, lib: "Library"):
+        self._lib = lib
+
+    def record(self, design: Mapping[str, Any], parts: Sequence[PartRecord | str | int],
                       state: str = "reserved") -> int:
         """Store a design (plain JSON data) and move its parts from in_stock to ``reserved`` or ``used``.
 
@@ -28,28 +36,28 @@ class DesignStore:
         if state not in ("reserved", "used"):
             raise LibraryError(f"a design can reserve or use its parts, not set them to '{state}'")
         text = to_json(dict(design))
-        with self.write() as conn:
-            records = [self.get_part(p) for p in parts]
+        with self._lib.write() as conn:
+            records = [self._lib.get_part(p) for p in parts]
             if len({r.id for r in records}) != len(records):
                 raise LibraryError("a design lists the same part twice")
             for r in records:
                 if r.state != "in_stock":
                     raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
             cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
-                               (_utc_now(), str(design.get("kind") or design.get("mode") or ""), text))
+                               (utc_now(), str(design.get("kind") or design.get("mode") or ""), text))
             design_id = int(cur.lastrowid)
             for position, r in enumerate(records):
                 conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
                              (design_id, r.id, position))
-                self._change_state(r.id, r.state, state, f"design {design_id}")
+                self._lib._change_state(r.id, r.state, state, f"design {design_id}")
         return design_id
 
-    def design(self, design_id: int) -> dict[str, Any]:
+    def get(self, design_id: int) -> dict[str, Any]:
         """A recorded design: its stored data plus ``design_id``, ``recorded_at`` and ``recorded_parts``.
 
         ``recorded_parts`` lists ``{"lot", "label", "state", "position"}`` in the order given when recorded.
         """
-        with self.snapshot() as conn:
+        with self._lib.snapshot() as conn:
             row = conn.execute("SELECT created, design_json FROM designs WHERE id = ?", (int(design_id),)).fetchone()
             if row is None:
                 raise LibraryError(f"no design {design_id} in the library")
@@ -62,29 +70,29 @@ class DesignStore:
                     recorded_parts=[{"lot": m[0], "label": m[1], "state": m[2], "position": m[3]} for m in members])
         return data
 
-    def designs(self) -> list[dict[str, Any]]:
+    def summaries(self) -> list[dict[str, Any]]:
         """Summary of every design: id, when, kind and how many parts it holds."""
-        rows = self._conn.execute(
+        rows = self._lib.connection.execute(
             "SELECT d.id, d.created, d.kind, count(dp.part_id) FROM designs d "
             "LEFT JOIN design_parts dp ON dp.design_id = d.id GROUP BY d.id ORDER BY d.id").fetchall()
         return [{"id": r[0], "created": r[1], "kind": r[2], "parts": r[3]} for r in rows]
 
     def record_binning(self, scheme: Mapping[str, Any], members: Mapping[str, Sequence[PartRecord | str]]) -> int:
         """Store a binning: the scheme (plain JSON, e.g. current and window width) and the parts of each bin."""
-        with self.write() as conn:
+        with self._lib.write() as conn:
             cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
-                               (_utc_now(), to_json(dict(scheme))))
+                               (utc_now(), to_json(dict(scheme))))
             binning_id = int(cur.lastrowid)
             for bin_name, parts in members.items():
                 for part in parts:
-                    record = self.get_part(part)
+                    record = self._lib.get_part(part)
                     conn.execute("INSERT INTO bin_members (binning_id, part_id, bin) VALUES (?, ?, ?)",
                                  (binning_id, record.id, str(bin_name)))
         return binning_id
 
     def binning(self, binning_id: int) -> dict[str, Any]:
         """A stored binning: ``{"id", "created", "scheme", "bins": {bin: ["LOT/LABEL", ...]}}``."""
-        with self.snapshot() as conn:
+        with self._lib.snapshot() as conn:
             row = conn.execute("SELECT created, scheme_json FROM binnings WHERE id = ?", (int(binning_id),)).fetchone()
             if row is None:
                 raise LibraryError(f"no binning {binning_id} in the library")
@@ -96,8 +104,3 @@ class DesignStore:
             bins.setdefault(bin_name, []).append(f"{lot}/{label}")
         return {"id": int(binning_id), "created": row[0], "scheme": json.loads(row[1]), "bins": bins}
 
-
-def _utc_now() -> str:
-    from benchlab.library.store import utc_now
-
-    return utc_now()

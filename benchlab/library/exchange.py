@@ -7,8 +7,7 @@ import math
 from typing import TYPE_CHECKING, Any, Mapping
 
 from benchlab.errors import LibraryError
-from benchlab.library.records import PART_STATES, finite_or_none, to_json
-from benchlab.library.store import natural_key, utc_now
+from benchlab.library.records import PART_STATES, finite_or_none, natural_key, to_json, utc_now
 from benchlab.models import DeviceParams
 
 if TYPE_CHECKING:

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Callable, Mapping, Sequence
 
 from benchlab.errors import BenchlabError, LibraryError
-from benchlab.library.records import ImportedSweep, ImportSummary, finite_or_none, to_json
+from benchlab.library.records import ImportedSweep, ImportSummary, finite_or_none, to_json, utc_now
 from benchlab.library.sessions import Session, SessionSweep, read_session
 from benchlab.models import DeviceParams
 
@@ -41,24 +41,6 @@ class PreparedSweep:
     @property
     def is_dud(self) -> bool:
         return self.sweep.classification not in (None, "good")
-
-
-def default_fit_function() -> Callable:
-    """``benchlab.extract.fit_sweep`` with its automatic model choice, in the library's calling convention.
-
-    The library calls ``f(vgs, id, direction=..., temperature_k=...)``; ``temperature_k`` is the session's
-    ambient temperature, or None when unknown (the fitter then takes its nominal temperature).
-    """
-    try:
-        from benchlab.extract import fit_sweep
-    except ImportError as exc:
-        raise LibraryError(f"the fitter is not available ({exc}); import without re-fitting") from exc
-
-    def fit(vgs, i_d, direction=None, temperature_k=None):
-        extra = {} if temperature_k is None else {"temperature_k": temperature_k}
-        return fit_sweep(vgs, i_d, direction=direction, **extra)
-
-    return fit
 
 
 def fit_outcome(result: Any) -> FitOutcome:
@@ -115,8 +97,6 @@ def _already_imported(lib: "Library", lot: str, label: str, session_id: str) -> 
 def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
     conn = lib.connection
     sweep, session = item.sweep, item.session
-    from benchlab.library.store import utc_now
-
     if _already_imported(lib, item.lot, sweep.label, session.id):
         return ImportedSweep(item.lot, sweep.label, sweep.classification, "skipped",
                              f"already imported from session {session.id}")
@@ -158,12 +138,40 @@ def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
 def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit: bool = True,
                     lot: str | None = None, fit_function: Callable | None = None,
                     progress: Callable[[str], None] | None = None) -> ImportSummary:
-    """See :meth:`benchlab.library.Library.import_sessions`."""
+    """Import session folders into ``lib``: every sweep with its raw points, re-fitted (``refit``) or with
+    its stored fit.
+
+    Fitting runs first; then everything is written in ONE transaction, so an interrupted import leaves
+    either all of it or none. Duds are stored as rejected with their classification as reason. Sweeps
+    already in the library (same session id and label) are skipped.
+
+    Parameters
+    ----------
+    lib : Library
+        The open library.
+    paths : sequence of path-like
+        Session folders (each with ``session.json``).
+    refit : bool
+        Fit the raw points again (default) rather than trusting the fits stored in the sidecar.
+    lot : str, optional
+        Store the parts in this lot instead of the session's own.
+    fit_function : callable
+        Required with ``refit``: ``f(vgs, id, direction=None, temperature_k=None) -> FitResult``
+        (``direction``: ``up``/``down`` per point, or None when the record has none; ``temperature_k``: the
+        session's ambient temperature, or None). The services pass ``benchlab.services.library.fit_function()``;
+        the library itself never imports the fitter.
+    progress : callable, optional
+        Called with each part's label as it is written (inside the transaction).
+
+    Returns
+    -------
+    ImportSummary
+    """
     if not paths:
         raise LibraryError("no session folders to import")
-    sessions = [read_session(p) for p in paths]  # every file read before anything is written
     if refit and fit_function is None:
-        fit_function = default_fit_function()
+        raise LibraryError("re-fitting on import needs a fit function (benchlab.services.library.fit_function())")
+    sessions = [read_session(p) for p in paths]  # every file read before anything is written
     prepared = []
     for session in sessions:
         for sweep in session.sweeps:
@@ -177,3 +185,9 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
                 progress(item.sweep.label)
     return ImportSummary(sessions=tuple(str(s.path) for s in sessions), sweeps=tuple(results))
 
+
+
+def import_session(lib: "Library", path: str | os.PathLike, *, refit: bool = True, lot: str | None = None,
+                   fit_function: Callable | None = None) -> ImportSummary:
+    """Import one session folder (see :func:`import_sessions`)."""
+    return import_sessions(lib, [path], refit=refit, lot=lot, fit_function=fit_function)

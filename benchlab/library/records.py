@@ -4,13 +4,25 @@ from __future__ import annotations
 
 import json
 import math
+import re
 from dataclasses import dataclass, field
+from datetime import datetime, timezone
 from typing import Any
 
 from benchlab.models import DeviceParams
 
 PART_STATES = ("in_stock", "reserved", "used", "rejected")
 POLARITIES = ("N", "P")
+
+
+def utc_now() -> str:
+    """ISO-8601 UTC timestamp, second resolution."""
+    return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
+
+
+def natural_key(text: str) -> tuple:
+    """Sort key that puts Q2 before Q10."""
+    return tuple(int(p) if p.isdecimal() else p.lower() for p in re.split(r"(\d+)", text))
 
 
 def json_default(value: Any) -> Any:

@@ -19,7 +19,7 @@ from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
 from benchlab.errors import LibraryError
 from benchlab.library import schema
 from benchlab.library.designs import DesignStore
-from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, to_json
+from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, natural_key, to_json, utc_now
 from benchlab.models import DeviceParams
 
 LIBRARY_ENV = "BENCHLAB_LIBRARY"
@@ -44,16 +44,6 @@ def default_library_path() -> Path:
     from platformdirs import user_data_dir
 
     return Path(user_data_dir("benchlab")) / "library.db"
-
-
-def utc_now() -> str:
-    """ISO-8601 UTC timestamp, second resolution."""
-    return datetime.now(timezone.utc).replace(microsecond=0).isoformat()
-
-
-def natural_key(text: str) -> tuple:
-    """Sort key that puts Q2 before Q10."""
-    return tuple(int(p) if p.isdecimal() else p.lower() for p in re.split(r"(\d+)", text))
 
 
 def _switch_to_wal(connection: sqlite3.Connection, timeout_s: float) -> str:
@@ -87,7 +77,7 @@ def _row_to_part(row: Sequence[Any]) -> PartRecord:
     )
 
 
-class Library(DesignStore):
+class Library:
     """An open device library. Use :meth:`open`; it is a context manager that closes the file.
 
     Parameters
@@ -102,6 +92,7 @@ class Library(DesignStore):
         self._conn = connection
         self.path = path
         self._in_write = False
+        self.design_store = DesignStore(self)
 
     # -- opening ---------------------------------------------------------------------------------
     @classmethod
@@ -391,50 +382,37 @@ class Library(DesignStore):
                 result.append(sweep)
         return result
 
-    # -- whole-library operations (implemented in sibling modules) --------------------------------
-    def import_session(self, path: str | os.PathLike, refit: bool = True, *, lot: str | None = None,
-                       fit_function: Callable | None = None) -> "ImportSummary":
-        """Import one session folder (see :meth:`import_sessions`)."""
-        return self.import_sessions([path], refit=refit, lot=lot, fit_function=fit_function)
+    def fit_window(self, fit_id: int) -> tuple[float, float] | None:
+        """The current range ``(i_min, i_max)`` (A) a fit was made on, or None when it has none
+        (hand-entered curves, imports without a fit window)."""
+        row = self._conn.execute("SELECT result_json FROM fits WHERE id = ?", (int(fit_id),)).fetchone()
+        try:
+            window = (json.loads(row[0]).get("window") or {}) if row and row[0] else {}
+            return float(window["i_min"]), float(window["i_max"])
+        except (KeyError, TypeError, ValueError, AttributeError):
+            return None
 
-    def import_sessions(self, paths: Sequence[str | os.PathLike], refit: bool = True, *, lot: str | None = None,
-                        fit_function: Callable | None = None, progress: Callable | None = None) -> "ImportSummary":
-        """Import session folders: every sweep with its raw points, re-fitted (``refit``) or with its stored fit.
+    # -- designs and binnings (kept in ``self.design_store``; these are its public face) ------------
+    def record_design(self, design: Mapping[str, Any], parts: Sequence[PartRecord | str | int],
+                      state: str = "reserved") -> int:
+        """Store a design and reserve (or use) its parts: see :meth:`DesignStore.record`."""
+        return self.design_store.record(design, parts, state)
 
-        Fitting runs first; then everything is written in ONE transaction, so an interrupted import leaves
-        either all of it or none. Duds are stored as rejected with their classification as reason. Sweeps
-        already in the library (same session id and label) are skipped.
+    def design(self, design_id: int) -> dict[str, Any]:
+        """A recorded design: see :meth:`DesignStore.get`."""
+        return self.design_store.get(design_id)
 
-        Parameters
-        ----------
-        paths : sequence of path-like
-            Session folders (each with ``session.json``).
-        refit : bool
-            Fit the raw points again (default) rather than trusting the fits stored in the sidecar.
-        lot : str, optional
-            Store the parts in this lot instead of the session's own.
-        fit_function : callable, optional
-            ``f(vgs, id, direction=None, temperature_k=None) -> FitResult`` (``direction``: ``up``/``down``
-            per point, or None when the record has none; ``temperature_k``: the session's ambient temperature,
-            or None); default ``benchlab.extract.fit_sweep``.
-        progress : callable, optional
-            Called with each part's label as it is written (inside the transaction).
-        """
-        from benchlab.library.importer import import_sessions
+    def designs(self) -> list[dict[str, Any]]:
+        """Summary of every design: see :meth:`DesignStore.summaries`."""
+        return self.design_store.summaries()
 
-        return import_sessions(self, paths, refit=refit, lot=lot, fit_function=fit_function, progress=progress)
+    def record_binning(self, scheme: Mapping[str, Any], members: Mapping[str, Sequence[PartRecord | str]]) -> int:
+        """Store a binning: see :meth:`DesignStore.record_binning`."""
+        return self.design_store.record_binning(scheme, members)
 
-    def export(self, lot: str | None = None, state: str | None = None) -> dict[str, Any]:
-        """The library (or the parts of one lot / state) as plain JSON data; :meth:`import_json` reads it back."""
-        from benchlab.library.exchange import export_library
-
-        return export_library(self, lot=lot, state=state)
-
-    def import_json(self, data: Mapping[str, Any]) -> dict[str, int]:
-        """Add the parts, fits, sweeps, designs and binnings of an :meth:`export` (one transaction)."""
-        from benchlab.library.exchange import import_library
-
-        return import_library(self, data)
+    def binning(self, binning_id: int) -> dict[str, Any]:
+        """A stored binning: see :meth:`DesignStore.binning`."""
+        return self.design_store.binning(binning_id)
 
     def info(self) -> dict[str, Any]:
         """Path, schema version, journal mode and row counts."""

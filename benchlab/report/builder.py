@@ -12,7 +12,7 @@ from benchlab.models import DeviceParams, solve_resistor_line
 from benchlab.report import figures
 from benchlab.report.data import ReportData
 from benchlab.report.html_page import cautions_section, design_section, page, parts_table
-from benchlab.library.store import utc_now
+from benchlab.library.records import utc_now
 
 
 @dataclass(frozen=True)

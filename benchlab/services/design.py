@@ -6,7 +6,6 @@ Parts come from the device library (``--ref``, ``--out``, ``--outputs N``) or in
 
 from __future__ import annotations
 
-import json
 import os
 from dataclasses import dataclass, field, replace
 from typing import Any, Sequence
@@ -171,12 +170,10 @@ def _with_range_caution(design: SinkDesign, lib, records) -> SinkDesign:
         current = currents.get(record.spec)
         if current is None or record.fit_id is None:
             continue
-        row = lib.connection.execute("SELECT result_json FROM fits WHERE id = ?", (record.fit_id,)).fetchone()
-        try:
-            window = json.loads(row[0]).get("window") or {} if row and row[0] else {}
-            i_min, i_max = float(window["i_min"]), float(window["i_max"])
-        except (KeyError, TypeError, ValueError, AttributeError):
+        window = lib.fit_window(record.fit_id)
+        if window is None:
             continue  # hand-entered or imported without a fit window: nothing to compare with
+        i_min, i_max = window
         if current > i_max or current < i_min:
             outside.append(f"{record.spec} at {_si_amps(current)} (fitted on {_si_amps(i_min)} .. {_si_amps(i_max)})")
     if not outside:

@@ -12,7 +12,8 @@ from pathlib import Path
 from typing import Any, Callable, Sequence
 
 from benchlab.errors import InputError, LibraryError
-from benchlab.library import Library, PartRecord, default_library_path
+from benchlab.library import (Library, PartRecord, default_library_path, export_library, import_library,
+                              import_sessions as import_into)
 from benchlab.library.exchange import CSV_COLUMNS, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
@@ -114,7 +115,7 @@ def import_sessions(path, session_dirs: Sequence[str], *, lot: str | None = None
     folders = find_sessions(session_dirs)  # checked before the library file is opened or created
     fit = fit_function(model) if refit else None
     with open_library(path, create=True) as lib:
-        return lib.import_sessions(folders, refit=refit, lot=lot, fit_function=fit)
+        return import_into(lib, folders, refit=refit, lot=lot, fit_function=fit)
 
 
 def import_json_file(path, json_file: str) -> dict[str, int]:
@@ -126,7 +127,7 @@ def import_json_file(path, json_file: str) -> dict[str, int]:
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise InputError(f"not valid JSON: {exc}", path=json_file) from exc
     with open_library(path, create=True) as lib:
-        return lib.import_json(data)
+        return import_library(lib, data)
 
 
 def lots(path) -> list[dict[str, Any]]:
@@ -144,7 +145,7 @@ def info(path) -> dict[str, Any]:
 def export_json_text(path, lot: str | None = None, state: str | None = None) -> str:
     """The library (or a filtered view) as JSON text (non-finite numbers are written as null)."""
     with open_library(path) as lib:
-        data = lib.export(lot=lot, state=None if state in (None, "all") else state)
+        data = export_library(lib, lot=lot, state=None if state in (None, "all") else state)
     return json.dumps(data, indent=1, default=json_default, allow_nan=False) + "\n"
 
 

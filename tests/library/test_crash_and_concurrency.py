@@ -11,14 +11,14 @@ import textwrap
 import threading
 from pathlib import Path
 
-from benchlab.library import Library
+from benchlab.library import Library, import_session, import_sessions
 from session_builder import demo_bag, write_session
 
 REPO = Path(__file__).resolve().parents[2]
 
 CHILD = textwrap.dedent("""
     import sys, time
-    from benchlab.library import Library
+    from benchlab.library import Library, import_sessions
     db, *sessions = sys.argv[1:]
 
     def progress(label):
@@ -26,7 +26,7 @@ CHILD = textwrap.dedent("""
         time.sleep(0.02)  # widen the window so the kill lands inside the transaction
 
     with Library.open(db) as lib:
-        summary = lib.import_sessions(sessions, refit=False, progress=progress)
+        summary = import_sessions(lib, sessions, refit=False, progress=progress)
     print("done", summary.fitted, flush=True)
 """)
 
@@ -112,7 +112,7 @@ def test_readers_never_see_a_part_without_its_fit_or_half_an_import(tmp_path):
         ready.wait(timeout=30)  # both readers are reading before the first write
         with Library.open(db) as writer:
             for session in sessions:
-                writer.import_session(session, refit=False)
+                import_session(writer, session, refit=False)
     finally:
         done.set()
         for t in threads:
@@ -151,7 +151,7 @@ def test_a_reader_process_sees_only_whole_imports(tmp_path):
         assert proc.stdout.readline().strip() == "ready"
         with Library.open(db) as writer:
             for session in sessions:
-                writer.import_session(session, refit=False)
+                import_session(writer, session, refit=False)
     finally:
         stop.touch()
         out, err = proc.communicate(timeout=60)

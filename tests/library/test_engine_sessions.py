@@ -5,6 +5,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
+from benchlab.library import import_session, import_sessions
+from benchlab.services.library import fit_function
 from benchlab.models import DeviceParams
 from session_builder import curve_fit_square
 
@@ -44,7 +46,7 @@ def test_engine_written_session_imports_with_up_sweep_fitted(lib, tmp_path):
         seen.append((len(vgs), direction.count("up"), direction.count("down")))
         return curve_fit_square(vgs, i_d, direction)
 
-    summary = lib.import_session(writer.path, fit_function=fit)
+    summary = import_session(lib, writer.path, fit_function=fit)
     assert sorted((s.label, s.action) for s in summary.sweeps) == [
         ("Q01", "fitted"), ("Q02", "rejected"), ("Q03", "fitted")]
     assert seen == [(40, 20, 20), (40, 20, 20)]  # both passes reach the fitter, labelled (Q02 is a dud)
@@ -63,7 +65,7 @@ def test_the_shipped_example_session_imports(lib):
     folders = sorted(p for p in root.glob("*") if (p / "session.json").is_file()) if root.is_dir() else []
     if not folders:
         pytest.skip("no example session shipped")
-    summary = lib.import_sessions(folders)
+    summary = import_sessions(lib, folders, fit_function=fit_function())
     assert summary.sweeps and summary.count("stored") == 0  # every good sweep fits, every dud is rejected
     for part in lib.parts(state=None):
         assert (part.state == "rejected") == (part.classification != "good")

@@ -6,6 +6,7 @@ import numpy as np
 import pytest
 
 from benchlab.errors import InputError, LibraryError
+from benchlab.library import import_session, import_sessions
 from benchlab.models import DeviceParams
 from session_builder import curve_fit_square, demo_bag, write_session
 
@@ -18,7 +19,7 @@ def test_import_refits_each_good_sweep_and_rejects_duds(lib, tmp_path):
         {"label": "Q03", "params": truth["Q01"], "classification": "shorted",
          "reason": "current at the compliance limit from the first point"},
     ])
-    summary = lib.import_session(session, fit_function=curve_fit_square)
+    summary = import_session(lib, session, fit_function=curve_fit_square)
     assert (summary.fitted, summary.rejected, summary.skipped) == (2, 1, 0)
     for label, params in truth.items():
         part = lib.get_part(f"bag-A/{label}")
@@ -35,14 +36,14 @@ def test_import_refits_each_good_sweep_and_rejects_duds(lib, tmp_path):
     assert dud.state == "rejected" and dud.params is None
     assert dud.reason == "shorted: current at the compliance limit from the first point"
 
-    again = lib.import_session(session, fit_function=curve_fit_square)
+    again = import_session(lib, session, fit_function=curve_fit_square)
     assert again.skipped == 3 and lib.info()["sweeps"] == 3  # re-importing the same session adds nothing
 
 
 def test_import_without_refit_uses_the_stored_fits_and_lot_override(lib, tmp_path):
     bag = demo_bag(4, duds=(2,))
     session = write_session(tmp_path, "s1", "demo-bag", bag)
-    summary = lib.import_session(session, refit=False, lot="shelf-3")
+    summary = import_session(lib, session, refit=False, lot="shelf-3")
     assert summary.fitted == 3 and summary.rejected == 1
     assert lib.get_part("shelf-3/Q01").params == bag[0]["params"]
     assert lib.get_part("Q03").reason.startswith("open:")
@@ -61,7 +62,7 @@ def test_points_not_ok_are_not_fitted_and_stored_as_null(lib, tmp_path):
         return curve_fit_square(v, i, direction)
 
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "vgs": vgs, "id": ids, "status": status}])
-    lib.import_session(session, fit_function=fit)
+    import_session(lib, session, fit_function=fit)
     assert seen["n"] == 12
     assert seen["temperature_k"] == pytest.approx(22.5 + 273.15)  # the session's recorded ambient
     sweep = lib.sweeps("Q1")[0]
@@ -74,7 +75,7 @@ def test_truncated_last_line_is_dropped_and_incomplete_flagged(lib, tmp_path):
     csv_path = session / "Q1.csv"
     with csv_path.open("a") as handle:
         handle.write("40,2.000,3.1")  # the point in flight when the recorder was killed
-    lib.import_session(session, fit_function=curve_fit_square)
+    import_session(lib, session, fit_function=curve_fit_square)
     part = lib.get_part("Q1")
     assert "incomplete_sweep" in part.flags
     assert len(lib.sweeps(part)[0]["vgs"]) == 40
@@ -87,18 +88,18 @@ def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
     lines[5] = "5,0.25,abc,0.001,1,0.001,ok"
     (bad / "Q2.csv").write_text("\n".join(lines) + "\n")
     with pytest.raises(InputError, match=r"Q2.csv, row 5"):
-        lib.import_sessions([good, bad], fit_function=curve_fit_square)
+        import_sessions(lib, [good, bad], fit_function=curve_fit_square)
     assert lib.info()["parts"] == 0
     lines[5] = "4,0.25,3.1,0.001,1,0.001,ok"
     lines[6] = "4,0.30,3.2,0.002,1,0.002,ok"  # the point number of the row before, again
     (bad / "Q2.csv").write_text("\n".join(lines) + "\n")
     with pytest.raises(InputError, match=r"Q2.csv, row 6: point number 4 appears twice"):
-        lib.import_sessions([good, bad], fit_function=curve_fit_square)
+        import_sessions(lib, [good, bad], fit_function=curve_fit_square)
     assert lib.info()["parts"] == 0
     with pytest.raises(InputError, match="no session.json"):
-        lib.import_session(tmp_path, fit_function=curve_fit_square)
+        import_session(lib, tmp_path, fit_function=curve_fit_square)
     with pytest.raises(LibraryError, match="no session folders"):
-        lib.import_sessions([], fit_function=curve_fit_square)
+        import_sessions(lib, [], fit_function=curve_fit_square)
 
 
 def test_a_fit_that_fails_keeps_the_sweep_without_a_fit(lib, tmp_path):
@@ -107,7 +108,7 @@ def test_a_fit_that_fails_keeps_the_sweep_without_a_fit(lib, tmp_path):
     def failing(v, i, direction=None, temperature_k=None):
         raise ValueError("curve too flat")
 
-    summary = lib.import_session(session, fit_function=failing)
+    summary = import_session(lib, session, fit_function=failing)
     assert summary.sweeps[0].action == "stored" and "curve too flat" in summary.sweeps[0].detail
     part = lib.get_part("Q1")
     assert part.params is None and part.state == "in_stock" and len(lib.sweeps(part)) == 1

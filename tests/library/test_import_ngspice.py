@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from benchlab.cli import main
-from benchlab.library import Library
+from benchlab.library import Library, export_library, import_session
+from benchlab.services.library import fit_function
 from session_builder import write_session
 
 pytest.importorskip("benchlab.extract")
@@ -66,11 +67,11 @@ def test_library_default_fitter_is_benchlab_extract(lib, tmp_path):
 
     truth = DeviceParams("theta", vth=3.0, kp=1.2, theta=0.08)
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "params": truth, "noise": 0.001}])
-    summary = lib.import_session(session)  # no fit function given: the library uses benchlab.extract.fit_sweep
+    summary = import_session(lib, session, fit_function=fit_function())  # the services' fitter (benchlab.extract)
     assert summary.fitted == 1
     part = lib.get_part("Q1")
     fit = lib.fits(part)[-1]
     assert fit["fitter_version"] == str(FITTER_VERSION)
     # points computed from the model itself (benchlab.models) with 0.1 % noise: threshold back within 10 mV
     assert part.params.vth == pytest.approx(3.0, abs=0.01)
-    assert json.loads(json.dumps(lib.export(), allow_nan=False))["parts"][0]["fits"][0]["result"]["model"]
+    assert json.loads(json.dumps(export_library(lib), allow_nan=False))["parts"][0]["fits"][0]["result"]["model"]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import pytest
 
 from benchlab.errors import LibraryError
-from benchlab.library import PartRecord
+from benchlab.library import PartRecord, export_library
 from benchlab.models import DeviceParams, solve_resistor_line
 
 NASTY_LABELS = [
@@ -27,7 +27,7 @@ def test_labels_with_sql_metacharacters_round_trip(lib, label):
     assert lib.get_part(f"bag'; --/{label}") == added
     assert [p.label for p in lib.parts()] == [label]
     assert lib.info()["parts"] == 1  # nothing dropped, nothing duplicated
-    exported = lib.export()
+    exported = export_library(lib)
     assert exported["parts"][0]["label"] == label and exported["parts"][0]["notes"] == "it's \"quoted\""
 
 

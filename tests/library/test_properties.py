@@ -11,7 +11,7 @@ from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
 from benchlab.errors import LibraryError
-from benchlab.library import Library
+from benchlab.library import Library, export_library, import_library
 from benchlab.models import DeviceParams
 
 names = st.text(st.characters(blacklist_categories=("Cc", "Cs")), min_size=1, max_size=24).filter(
@@ -27,9 +27,9 @@ def test_any_text_round_trips_through_sql_and_json(label, lot, notes, vth, kp):
             added = lib.add_part(label, lot=lot, notes=notes, params=DeviceParams("square", vth=vth, kp=kp))
             assert lib.get_part(f"{lot}/{label}") == added
             assert lib.get_part(label) == added
-            data = json.loads(json.dumps(lib.export(), allow_nan=False))
+            data = json.loads(json.dumps(export_library(lib), allow_nan=False))
         with Library.open(Path(tmp) / "b.db") as copy:
-            copy.import_json(data)
+            import_library(copy, data)
             back = copy.get_part(f"{lot}/{label}")
             assert (back.label, back.lot, back.notes, back.params) == (label, lot, notes, added.params)
             assert copy.connection.execute("PRAGMA integrity_check").fetchone()[0] == "ok"

@@ -11,7 +11,7 @@ import pytest
 from matplotlib.image import imread
 
 from benchlab.cli import main
-from benchlab.library import Library
+from benchlab.library import Library, import_session
 from benchlab.models import DeviceParams
 from benchlab.report import build_report, collect
 from benchlab.report.figures import scatter_figure
@@ -39,7 +39,7 @@ class _Collector(HTMLParser):
 def lot_with_design(tmp_path):
     session = write_session(tmp_path, "20261202-101500-demo-bag", "demo-bag", demo_bag(10, duds=(6,)))
     lib = Library.open(tmp_path / "lib.db")
-    lib.import_session(session, refit=False)
+    import_session(lib, session, refit=False)
     ref = lib.add_part("R1", lot="demo-bag", params=DeviceParams("linear", vth=3.9, gm=0.544))
     lib.add_part(NASTY, lot="demo-bag", params=DeviceParams("square", vth=3.05, kp=1.0))
     design = {"kind": "sink", "supply": 12.0, "r_chosen": 1000.0, "r_exact": 1000.0, "vgs": 3.91486,
@@ -149,7 +149,7 @@ def test_sweep_overlay_leaves_out_the_search_below_the_detection_current(tmp_pat
         sidecar = session / f"{label}.json"
         sidecar.write_text(sidecar.read_text().replace('"resistor_ohm": 100.0', '"detect_current_a": 1e-6'))
     with Library.open(tmp_path / "lib.db") as lib:
-        lib.import_session(session, refit=False)
+        import_session(lib, session, refit=False)
         assert lib.sweeps("Q1")[0]["detect_current_a"] == 1e-6
         data = collect(lib, "bag")
     traces = {t.label: t for t in data.traces}

@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from benchlab.library import Library
+from benchlab.library import Library, import_session
+from benchlab.services.library import fit_function
 from benchlab.models import DeviceParams
 from benchlab.report import build_report, collect
 
@@ -52,7 +53,7 @@ def test_fitted_parts_from_an_import_feed_the_designer(tmp_path):
 
     session = write_session(tmp_path, "s1", "demo-bag", demo_bag(4))
     with Library.open(tmp_path / "lib.db") as lib:
-        lib.import_session(session)  # the real fitter: its stderr has keys it could not estimate
+        import_session(lib, session, fit_function=fit_function())  # the real fitter: its stderr has keys it could not estimate
         records = lib.parts(lot="demo-bag")
         assert all(r.stderr and all(isinstance(v, float) for v in r.stderr.values()) for r in records)
         parts = [design_parts.Part(r.label, r.params, r.stderr, lot=r.lot, part_id=r.id) for r in records]
