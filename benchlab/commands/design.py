@@ -5,18 +5,11 @@ from __future__ import annotations
 import argparse
 import json
 
-from benchlab.commands._args import library_option, whole_number
+from benchlab.commands._args import library_option, quantity, whole_number
 from benchlab.design.eseries import SERIES_NAMES
 from benchlab.design.sink import SinkOptions
-from benchlab.design.text import format_bins, format_match, format_sink_report, parse_quantity
+from benchlab.design.text import format_bins, format_match, format_sink_report
 from benchlab.services import design as service
-
-
-def _quantity(text: str) -> float:
-    try:
-        return parse_quantity(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"not a number: '{text}' (examples: 0.02, 20m, 4.7k)") from None
 
 
 def _common() -> argparse.ArgumentParser:
@@ -43,10 +36,10 @@ def register(subparsers) -> None:
                                       "(exact value, then the nearest preferred value, then everything recomputed); "
                                       "with --resistor the given circuit is analysed. Values accept SI prefixes "
                                       "(20m = 0.02).")
-    sink.add_argument("--supply", type=_quantity, required=True, metavar="V", help="supply of the reference branch")
+    sink.add_argument("--supply", type=quantity("V"), required=True, metavar="V", help="supply of the reference branch")
     what = sink.add_mutually_exclusive_group(required=True)
-    what.add_argument("--current", type=_quantity, metavar="A", help="target reference current (design the resistor)")
-    what.add_argument("--resistor", type=_quantity, metavar="OHMS", help="given resistor (analyse the circuit)")
+    what.add_argument("--current", type=quantity("A"), metavar="A", help="target reference current (design the resistor)")
+    what.add_argument("--resistor", type=quantity("ohm"), metavar="OHMS", help="given resistor (analyse the circuit)")
     sink.add_argument("--ref", metavar="PART", help="reference part from the library (LABEL or LOT/LABEL)")
     sink.add_argument("--ref-model", metavar="TEXT", help="reference " + INLINE_HELP)
     sink.add_argument("--out", metavar="PART[,PART...]", help="output parts from the library, comma-separated")
@@ -58,24 +51,24 @@ def register(subparsers) -> None:
     sink.add_argument("--lot", help="pick parts only from this lot")
     sink.add_argument("--series", type=str.upper, choices=SERIES_NAMES, default="E24",
                       help="IEC 60063 series for resistors (default: %(default)s; E96 for 1 %% parts)")
-    sink.add_argument("--load-voltage", type=_quantity, metavar="V",
+    sink.add_argument("--load-voltage", type=quantity("V", "nonnegative"), metavar="V",
                       help="voltage across each output, for dissipation and compliance (default: the supply)")
     degen = sink.add_mutually_exclusive_group()
-    degen.add_argument("--degeneration", type=_quantity, metavar="OHMS", default=0.0,
+    degen.add_argument("--degeneration", type=quantity("ohm", "nonnegative"), metavar="OHMS", default=0.0,
                        help="resistor in every source (default: none)")
-    degen.add_argument("--mismatch-target", type=_quantity, metavar="FRACTION",
+    degen.add_argument("--mismatch-target", type=quantity("%"), metavar="FRACTION",
                        help="find the smallest preferred source resistor that brings the worst mismatch under this "
                             "fraction (0.01 = 1 %%) and use it")
     sink.add_argument("--monte-carlo", type=whole_number, default=0, metavar="N",
                       help="Monte Carlo samples over resistor tolerance and fit errors (default: off)")
     sink.add_argument("--seed", type=int, default=1, help="Monte Carlo seed (default: %(default)s)")
-    sink.add_argument("--tolerance", type=_quantity, metavar="FRACTION",
+    sink.add_argument("--tolerance", type=quantity("%", "nonnegative"), metavar="FRACTION",
                       help="resistor tolerance (default: 5 %% for E24, 1 %% for E96 ...)")
-    sink.add_argument("--vth-tempco", type=_quantity, default=-5e-3, metavar="V/K",
+    sink.add_argument("--vth-tempco", type=quantity("V/K", "any"), default=-5e-3, metavar="V/K",
                       help="threshold temperature coefficient for the drift figures (default: %(default)s)")
-    sink.add_argument("--compliance-margin", type=_quantity, default=0.2, metavar="V",
+    sink.add_argument("--compliance-margin", type=quantity("V", "nonnegative"), default=0.2, metavar="V",
                       help="margin added to VGS - Vth in the compliance voltage (default: %(default)s)")
-    sink.add_argument("--thermal-resistance", type=_quantity, metavar="K/W",
+    sink.add_argument("--thermal-resistance", type=quantity("K/W"), metavar="K/W",
                       help="junction-to-ambient thermal resistance of each part, heat sink included: also solve the "
                            "self-heated steady state (or report thermal runaway)")
     sink.add_argument("--spice", metavar="FILE", help="also write an ngspice netlist of the design (.op) to FILE")
@@ -87,8 +80,8 @@ def register(subparsers) -> None:
                            description="Sets of one reference and N outputs whose currents agree best over the "
                                        "operating current (or range), using each part's whole fitted curve. Pairs "
                                        "are exactly optimal best-first; larger sets are a heuristic.")
-    match.add_argument("--current", type=_quantity, required=True, metavar="A", help="operating current")
-    match.add_argument("--current-max", type=_quantity, metavar="A", help="top of the operating current range")
+    match.add_argument("--current", type=quantity("A"), required=True, metavar="A", help="operating current")
+    match.add_argument("--current-max", type=quantity("A"), metavar="A", help="top of the operating current range")
     match.add_argument("--size", type=whole_number, required=True, metavar="N",
                        help="parts per set: 2 for a simple mirror, N+1 for one reference and N outputs")
     match.add_argument("--lot", help="only parts of this lot")
@@ -97,8 +90,8 @@ def register(subparsers) -> None:
     match.set_defaults(func=_match)
 
     bins = sub.add_parser("bin", parents=[common], help="bin the in-stock parts by VGS at an operating current")
-    bins.add_argument("--current", type=_quantity, required=True, metavar="A", help="operating current")
-    bins.add_argument("--width", type=_quantity, required=True, metavar="V", help="bin width (e.g. 0.02)")
+    bins.add_argument("--current", type=quantity("A"), required=True, metavar="A", help="operating current")
+    bins.add_argument("--width", type=quantity("V"), required=True, metavar="V", help="bin width (e.g. 0.02)")
     bins.add_argument("--lot", help="only parts of this lot")
     bins.add_argument("--save", action="store_true", help="record the binning in the library")
     bins.set_defaults(func=_bin)

@@ -17,7 +17,7 @@ from typing import IO, Any, Mapping
 
 from benchlab.errors import ConfigError
 from benchlab.instruments.profiles import LEGACY_ROLES, ROLES, Profile, legacy_role_message, load_profile
-from benchlab.instruments.quantities import parse_quantity
+from benchlab.units import parse_quantity
 from benchlab.instruments.transport import resource_kind
 
 FIXTURES = ("resistor", "smu")

@@ -16,6 +16,7 @@ from benchlab.design.matching import MatchResult, VgsBin, bin_by_vgs, current_gr
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
 from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, synthesize_sink
 from benchlab.errors import DesignError, InputError, LibraryError
+from benchlab.units import format_si
 
 
 @dataclass(frozen=True)
@@ -153,13 +154,6 @@ def sink_netlist_text(design: SinkDesign) -> str:
                         operating_currents=[design.i_ref, *(o.i_out for o in design.outputs)])
 
 
-def _si_amps(value: float) -> str:
-    for scale, prefix in ((1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n")):
-        if abs(value) >= scale:
-            return f"{value / scale:.3g} {prefix}A"
-    return f"{value:.3g} A"
-
-
 def _with_range_caution(design: SinkDesign, lib, records) -> SinkDesign:
     """Add a caution when a library part works at a current outside the range its curve was fitted on."""
     if lib is None or not records:
@@ -175,7 +169,7 @@ def _with_range_caution(design: SinkDesign, lib, records) -> SinkDesign:
             continue  # hand-entered or imported without a fit window: nothing to compare with
         i_min, i_max = window
         if current > i_max or current < i_min:
-            outside.append(f"{record.spec} at {_si_amps(current)} (fitted on {_si_amps(i_min)} .. {_si_amps(i_max)})")
+            outside.append(f"{record.spec} at {format_si(current, 'A')} (fitted on {format_si(i_min, 'A')} .. {format_si(i_max, 'A')})")
     if not outside:
         return design
     caution = ("Outside the measured range: " + "; ".join(outside) + ". There the curve is an extrapolation of the "

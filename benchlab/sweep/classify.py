@@ -10,6 +10,7 @@ from dataclasses import asdict, dataclass
 from typing import Any, Sequence
 
 from benchlab.sweep.records import SweepPoint, vgs_at_current
+from benchlab.units import format_si
 
 CLASSES = ("good", "open", "shorted", "leaky", "unstable")
 
@@ -31,13 +32,6 @@ class Classification:
 
     def to_dict(self) -> dict[str, Any]:
         return asdict(self)
-
-
-def _fmt_a(amps: float) -> str:
-    for scale, unit in ((1.0, "A"), (1e-3, "mA"), (1e-6, "uA"), (1e-9, "nA")):
-        if abs(amps) >= scale:
-            return f"{amps / scale:.3g} {unit}"
-    return f"{amps:.3g} A"
 
 
 def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_current_a: float,
@@ -74,7 +68,7 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
     if carrying:
         peak = max(carrying, key=lambda p: p.id)
         if peak.vgs < SHORT_VGS_V:
-            return Classification("shorted", f"carries {_fmt_a(peak.id)} with only {peak.vgs * 1e3:.0f} mV across "
+            return Classification("shorted", f"carries {format_si(peak.id, 'A')} with only {peak.vgs * 1e3:.0f} mV across "
                                              f"it: drain-source short")
     conducting = [p for p in carrying if p.status != "compliance"]
     if not conducting:
@@ -82,7 +76,7 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
         if fixture == "smu" and any(p.status == "compliance" for p in usable):
             return Classification("open", f"hit the voltage compliance ({top.vgs:.2f} V) without carrying the "
                                           f"forced current: no conduction path")
-        return Classification("open", f"no current above {_fmt_a(detect_current_a)} with up to "
+        return Classification("open", f"no current above {format_si(detect_current_a, 'A')} with up to "
                                       f"{top.vgs:.2f} V across the part")
     peak = max(conducting, key=lambda p: p.id)
     unsettled = [p for p in usable if p.status == "unsettled"]
@@ -99,12 +93,12 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
         if worst.id >= max(leak_current_a, detect_current_a):  # nothing below the bench's floor counts
             # scale_v is where the part reaches the reference current (or starts to conduct): with a leak
             # that point says little about the threshold, so the message names it for what it is
-            where = (f"where it reaches {_fmt_a(reference_current_a)}" if vref is not None
+            where = (f"where it reaches {format_si(reference_current_a, 'A')}" if vref is not None
                      else "where it starts to conduct")
-            return Classification("leaky", f"carries {_fmt_a(worst.id)} at {worst.vgs:.2f} V, a small fraction "
+            return Classification("leaky", f"carries {format_si(worst.id, 'A')} at {worst.vgs:.2f} V, a small fraction "
                                            f"of the {scale_v:.2f} V {where}: a leakage path, not channel current")
     if vref is not None:
-        return Classification("good", f"conducts normally from about {onset.vgs:.2f} V up to {_fmt_a(peak.id)} "
+        return Classification("good", f"conducts normally from about {onset.vgs:.2f} V up to {format_si(peak.id, 'A')} "
                                       f"at {peak.vgs:.2f} V; no leakage or unsettled readings")
-    return Classification("good", f"conducts normally up to {_fmt_a(peak.id)} at {peak.vgs:.3f} V "
-                                  f"({_fmt_a(reference_current_a)} not bracketed)")
+    return Classification("good", f"conducts normally up to {format_si(peak.id, 'A')} at {peak.vgs:.3f} V "
+                                  f"({format_si(reference_current_a, 'A')} not bracketed)")

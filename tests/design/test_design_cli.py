@@ -126,7 +126,7 @@ def test_bin_counts_and_save(capsys, bag_library):
 @pytest.mark.parametrize("argv,needle", [
     (["--supply", "12", "--ref-model", "vth=2.5,kp=0.8"], "required"),
     (["--supply", "12", "--current", "0.02", "--resistor", "100", "--ref-model", "vth=2.5,kp=0.8"], "not allowed"),
-    (["--supply", "12", "--current", "abc", "--ref-model", "vth=2.5,kp=0.8"], "not a number"),
+    (["--supply", "12", "--current", "abc", "--ref-model", "vth=2.5,kp=0.8"], "argument --current: 'abc' is not a quantity"),
 ])
 def test_usage_errors_exit_before_doing_anything(capsys, argv, needle):
     with pytest.raises(SystemExit) as info:

@@ -10,7 +10,7 @@ import pytest
 
 from benchlab.errors import ConfigError
 from benchlab.instruments.config import BenchConfig, load_bench_config, parse_bench_config, simulator_bench_config
-from benchlab.instruments.quantities import parse_quantity
+from benchlab.units import parse_quantity
 
 REPO = Path(__file__).resolve().parents[2]
 
