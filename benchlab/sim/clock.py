@@ -43,12 +43,16 @@ class VirtualClock:
         with self._lock:
             return self._extra + (self._real_time() - self._start)
 
-    def spend(self, nominal_s: float) -> None:
-        """Take an operation of nominal length ``nominal_s``: sleep the scaled part, book the rest."""
+    def spend(self, nominal_s: float, wait: Callable[[float], None] | None = None) -> None:
+        """Take an operation of nominal length ``nominal_s``: sleep the scaled part, book the rest.
+
+        ``wait`` replaces the clock's own sleep for this call (the bench passes one that lets the other
+        instruments run meanwhile); an injected sleep (tests) always wins.
+        """
         if nominal_s <= 0:
             return
         real_part = nominal_s * self.time_scale
         if real_part > 0:
-            self._sleep(real_part)
+            (wait if wait is not None and self._sleep is time.sleep else self._sleep)(real_part)
         with self._lock:
             self._extra += nominal_s - real_part

@@ -1,12 +1,16 @@
 """Shared state of one simulated bench: clock, log, bag, fixture, noise and DUT faults.
 
-The three instruments hold a reference to one :class:`BenchCore` and execute every message
-under its lock, so the circuit is always solved from one consistent state.
+The three instruments hold a reference to one :class:`BenchCore`. Each instrument executes its
+messages under its own lock and every command under the core's lock, so the circuit is always
+solved from one consistent state; the core's lock is let go while an operation takes time
+(integration, settling, dwell), so a meter busy integrating never holds up the supply's
+``OUTP OFF``.
 """
 
 from __future__ import annotations
 
 import threading
+import time
 
 import numpy as np
 
@@ -41,6 +45,7 @@ class BenchCore:
     def __init__(self, fixture: Fixture, bag: tuple[PartPhysics, ...], clock: VirtualClock, log: BenchLog,
                  noise_seed: int = 0, faults: tuple[FaultSpec, ...] = ()):
         self.lock = threading.RLock()
+        self._wake = threading.Condition(self.lock)
         self.fixture = fixture
         self.bag = bag
         self.clock = clock
@@ -65,8 +70,15 @@ class BenchCore:
     def spend(self, nominal_s: float) -> None:
         """Let ``nominal_s`` of virtual time pass (settling, dwell), the part heating meanwhile."""
         self.catch_up()
-        self.clock.spend(nominal_s)
+        self.clock.spend(nominal_s, wait=self._wait_unlocked)
         self.catch_up()
+
+    def _wait_unlocked(self, seconds: float) -> None:
+        """Sleep ``seconds`` of real time with the core's lock let go (it is held again on return)."""
+        deadline = time.monotonic() + seconds
+        with self._wake:  # re-entrant: the caller already holds the lock; wait() lets go of every level
+            while (left := deadline - time.monotonic()) > 0:
+                self._wake.wait(left)
 
     def take_reading(self, integration_s: float) -> OperatingPoint:
         """Integrate for ``integration_s`` and return the operating point at the end of it.

@@ -12,6 +12,9 @@ ROLE is ``supply``, ``meter``, ``smu`` or ``all`` (the default). Kinds:
 ``garble=N``     the N-th reply line of the instrument is garbled (digits turned into letters).
 ``open=N``       the part in the fixture fails open after N readings (counted over the whole bench).
 ``short=N``      the part fails short after N readings.
+``unsettled=V[/N]`` the instrument's readings never settle (after its first N readings, default 0):
+                 volts readings swing +/-V/2 about the true value from one reading to the next, and a
+                 SMU forcing volts sees its current swing by the same VGS wobble (a part oscillating).
 
 Messages are lines received, counted per instrument over all its connections since the bench started.
 """
@@ -22,7 +25,7 @@ from dataclasses import dataclass
 
 from benchlab.errors import InputError
 
-FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short")
+FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short", "unsettled")
 FAULT_ROLES = ("supply", "meter", "smu", "all")
 DEFAULT_INJECTED_ERROR = -240
 
@@ -51,7 +54,7 @@ class FaultSpec:
 
     @property
     def slow_after(self) -> int:
-        """The N of ``slow=S/N`` (0 when not given)."""
+        """The N of ``slow=S/N`` or ``unsettled=V/N`` (0 when not given)."""
         parts = self.value.split("/", 1)
         return int(parts[1]) if len(parts) == 2 else 0
 
@@ -99,15 +102,16 @@ def parse_fault(text: str) -> FaultSpec:
         raise InputError(f"fault '{raw}': unknown role '{role}' (expected one of {', '.join(FAULT_ROLES)})")
     if kind == "garble" and not has_value:
         value = "1"
-    if kind == "slow":
+    if kind in ("slow", "unsettled"):
         seconds, _, after = value.partition("/")
         try:
-            ok = float(seconds) >= 0 and (not after or after.isdigit())
+            ok = 0 <= float(seconds) <= (3600 if kind == "slow" else 100) and (not after or after.isdigit())
         except ValueError:
             ok = False
         if not ok:
-            raise InputError(f"fault '{raw}': slow needs seconds >= 0 and an optional whole count, "
-                             "e.g. slow=0.5 or slow=0.5/20")
+            what = "seconds from 0 to 3600" if kind == "slow" else "volts from 0 to 100"
+            raise InputError(f"fault '{raw}': {kind} needs {what} and an optional whole count, "
+                             f"e.g. {kind}=0.5 or {kind}=0.5/20")
     elif kind == "error":
         header, _, code = value.partition("/")
         if not header:
@@ -140,6 +144,9 @@ class RoleFaults:
         self.drop_at = min((f.count for f in mine if f.kind == "drop"), default=None)
         self.garble_at = {f.count for f in mine if f.kind == "garble"}
         self.error_rules = [(f.error_header, f.error_code) for f in mine if f.kind == "error"]
+        unsettled = [(f.slow_after, f.seconds) for f in mine if f.kind == "unsettled"]
+        self.unsettled_after, self.unsettled_v = min(unsettled) if unsettled else (0, 0.0)
+        self.readings = 0
         self.messages_seen = 0
         self.replies_sent = 0
         self.drop_done = False
@@ -152,6 +159,13 @@ class RoleFaults:
     def extra_delay_s(self, number: int) -> float:
         """Extra real delay for the reply to message ``number``."""
         return sum(seconds for after, seconds in self._slow if number > after)
+
+    def reading_wobble_v(self) -> float:
+        """Count one reading; the volts an ``unsettled`` fault adds to it (alternating +/-V/2, else 0)."""
+        self.readings += 1
+        if not self.unsettled_v or self.readings <= self.unsettled_after:
+            return 0.0
+        return self.unsettled_v / 2 * (1 if self.readings % 2 else -1)
 
     def hung(self, number: int) -> bool:
         """True when message ``number`` arrives after a ``hang`` fault fired (ignore it)."""

@@ -9,6 +9,7 @@ parses one received line and dispatches through the table.
 from __future__ import annotations
 
 import json
+import threading
 
 from benchlab.errors import InputError
 from benchlab.sim.core import BenchCore
@@ -23,6 +24,9 @@ from benchlab.sim.status import ESR_OPERATION_COMPLETE, StatusModel
 MAKER = "BENCHLAB-SIM"
 FIRMWARE = "0.1"
 SCPI_VERSION = "1999.0"
+# Most program message units one line may carry: bounds the instrument time one line can queue
+# (a line of READ? at 100 PLC each would otherwise keep the instrument busy for hours).
+MAX_UNITS_PER_MESSAGE = 32
 
 COMMON_COMMANDS: tuple[CommandSpec, ...] = (
     CommandSpec("*IDN", True, "query_identity"),
@@ -70,6 +74,7 @@ class SimInstrument:
         self.serial = serial
         self.faults = faults
         self.status = StatusModel()
+        self.lock = threading.RLock()  # this instrument's own: one message at a time, others unaffected
         self.table = CommandTable(COMMON_COMMANDS + self.COMMANDS)
         self._injected_errors = [(self._spec_for_header(header), code) for header, code in faults.error_rules]
         self.reset_state()
@@ -88,40 +93,55 @@ class SimInstrument:
     def execute(self, line: str) -> list[str]:
         """Execute one received line (a program message); returns the query replies in order.
 
-        Errors go to the error queue; a command error (-1xx) discards the rest of the message.
+        Errors go to the error queue; a command error (-1xx) discards the rest of the message. A
+        message of more than :data:`MAX_UNITS_PER_MESSAGE` units is refused whole (-223). The line
+        holds this instrument's lock; each unit holds the bench's shared lock only while it runs
+        (and not while it waits on the virtual clock).
         """
-        with self.core.lock:
+        with self.lock:
             replies: list[str] = []
             try:
                 units = split_message(line)
             except ScpiError as exc:
                 self.status.push(exc.code, exc.text)
                 return replies
+            if len(units) > MAX_UNITS_PER_MESSAGE:
+                self.status.push(-223, f"Too much data; more than {MAX_UNITS_PER_MESSAGE} commands in one line")
+                return replies
             path: tuple[str, ...] = ()
             for text in units:
-                try:
-                    unit = parse_unit(text)
-                    if unit is None:
-                        continue
-                    spec, path = self._resolve(unit, path)
-                    self._check_param_count(spec, unit.params)
-                    for faulty_spec, code in self._injected_errors:
-                        if faulty_spec is spec:
-                            self.core.log.add(self.ROLE, "fault", f"error {code} on {unit.header_text}", self.core.now())
-                            raise ScpiError(code, "injected fault")
-                    result = getattr(self, spec.handler)(list(unit.params))
-                    if spec.query:
-                        replies.append(str(result))
-                except ScpiError as exc:
-                    self.status.push(exc.code, exc.text)
-                    if exc.is_command_error:
+                with self.core.lock:
+                    if not self._execute_unit(text, path, replies):
                         break
-                except Exception as exc:  # a simulator bug must not take the connection down
-                    self.status.push(-300, f"Device-specific error; {type(exc).__name__}")
-                    self.core.log.add(self.ROLE, "fault", f"internal error on '{text[:80]}': {exc!r}",
-                                      self.core.now())
-                    break
+                    path = self._path
             return replies
+
+    def _execute_unit(self, text: str, path: tuple[str, ...], replies: list[str]) -> bool:
+        """Run one program message unit; False when the rest of the message is discarded."""
+        self._path = path
+        try:
+            unit = parse_unit(text)
+            if unit is None:
+                return True
+            spec, self._path = self._resolve(unit, path)
+            self._check_param_count(spec, unit.params)
+            for faulty_spec, code in self._injected_errors:
+                if faulty_spec is spec:
+                    self.core.log.add(self.ROLE, "fault", f"error {code} on {unit.header_text}", self.core.now())
+                    raise ScpiError(code, "injected fault")
+            result = getattr(self, spec.handler)(list(unit.params))
+            if spec.query:
+                replies.append(str(result))
+        except ScpiError as exc:
+            self.status.push(exc.code, exc.text)
+            if exc.is_command_error:
+                return False
+        except Exception as exc:  # a simulator bug must not take the connection down
+            self.status.push(-300, f"Device-specific error; {type(exc).__name__}")
+            self.core.log.add(self.ROLE, "fault", f"internal error on '{text[:80]}': {exc!r}",
+                              self.core.now())
+            return False
+        return True
 
     def _resolve(self, unit, path: tuple[str, ...]) -> tuple[CommandSpec, tuple[str, ...]]:
         # SCPI-1999 6.2.4: after ';' a header is relative to the previous command's path;

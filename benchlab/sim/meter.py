@@ -87,6 +87,9 @@ class SimMeter(SimInstrument):
         full_range = self.fixed_range[function] or range_for(true_value, ranges)
         sigma = NOISE_PER_RANGE[function] * full_range / math.sqrt(self.nplc[function])
         value = true_value + self.core.noise(sigma)
+        wobble = self.faults.reading_wobble_v()
+        if function == "VOLT" and wobble:
+            value += wobble
         if abs(value) > OVER_RANGE * full_range:
             value = math.copysign(math.inf, value)
         self.last_reading = value

@@ -5,10 +5,20 @@ TCP_NODELAY so a query's reply is not held back by Nagle's algorithm. Bad input 
 the server: a line that is not UTF-8 or holds control characters is a -101 error, a line
 longer than :data:`MAX_LINE_BYTES` is a -223 error (and is skipped up to its end), and a
 client that disconnects mid-line only loses that line.
+
+Bounds (so one client cannot exhaust the simulator): at most :data:`MAX_CONNECTIONS` open
+connections per instrument (a further one is accepted and closed at once, and logged); a listen
+backlog of :data:`LISTEN_BACKLOG`; at most :data:`~benchlab.sim.instrument.MAX_UNITS_PER_MESSAGE`
+commands per line. Two IEEE 488.2 query errors are produced where a socket makes them visible:
+-410 (query interrupted) when a new message arrives while the reply to a query is still held back
+(a ``slow`` fault), the reply then being discarded; -420 (query unterminated) when a query sits
+without its line end for :attr:`InstrumentServer.unterminated_s` (a controller waiting for the
+reply to a message it never ended), the partial message then being discarded.
 """
 
 from __future__ import annotations
 
+import select
 import socket
 import threading
 import time
@@ -17,6 +27,9 @@ from benchlab.sim.faults import RoleFaults, garble
 from benchlab.sim.instrument import SimInstrument
 
 MAX_LINE_BYTES = 256 * 1024
+MAX_CONNECTIONS = 16
+LISTEN_BACKLOG = 128
+UNTERMINATED_S = 2.0
 _POLL_S = 0.2
 _LOGGED_TEXT_CHARS = 4000
 
@@ -45,6 +58,8 @@ class InstrumentServer:
         self._threads: list[threading.Thread] = []
         self._connections: set[socket.socket] = set()
         self._lock = threading.Lock()
+        self.unterminated_s = UNTERMINATED_S
+        self.refused_connections = 0
 
     @property
     def role(self) -> str:
@@ -61,7 +76,7 @@ class InstrumentServer:
         except OSError:
             listener.close()
             raise
-        listener.listen(8)
+        listener.listen(LISTEN_BACKLOG)
         listener.settimeout(_POLL_S)
         self._listener = listener
         self.host, self.port = host, listener.getsockname()[1]
@@ -84,10 +99,20 @@ class InstrumentServer:
                 continue
             except OSError:
                 break
+            with self._lock:
+                full = len(self._connections) >= MAX_CONNECTIONS
+                if not full:
+                    self._connections.add(conn)
+            if full:
+                self.refused_connections += 1
+                self._log("connection", f"refused {peer[0]}:{peer[1]}: {MAX_CONNECTIONS} connections already open")
+                try:
+                    conn.close()
+                except OSError:
+                    pass
+                continue
             conn.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
             conn.settimeout(_POLL_S)
-            with self._lock:
-                self._connections.add(conn)
             self._log("connection", f"open {peer[0]}:{peer[1]}")
             self._spawn(self._serve, f"sim-{self.role}-conn", conn)
 
@@ -98,11 +123,17 @@ class InstrumentServer:
     def _serve(self, conn: socket.socket) -> None:
         buffer = b""
         skipping = False  # inside an over-long line, dropping bytes up to its newline
+        partial_since: float | None = None  # when the unterminated text in the buffer started waiting
         try:
             while not self._stopping.is_set():
                 try:
                     chunk = conn.recv(65536)
                 except socket.timeout:
+                    if (partial_since is not None and not skipping and b"?" in buffer
+                            and time.monotonic() - partial_since > self.unterminated_s):
+                        self._query_error(-420, "Query UNTERMINATED; a query waited "
+                                          f"{self.unterminated_s:g} s for its line end", "unterminated query")
+                        buffer, partial_since = b"", None
                     continue
                 except OSError:
                     break
@@ -117,8 +148,9 @@ class InstrumentServer:
                     if len(line) > MAX_LINE_BYTES:
                         self._too_long()
                         continue
-                    if not self._handle_line(conn, line):
+                    if not self._handle_line(conn, line, pending=lambda: b"\n" in buffer):
                         return
+                partial_since = (partial_since or time.monotonic()) if buffer else None
                 if len(buffer) > MAX_LINE_BYTES:
                     buffer = b""
                     if not skipping:
@@ -128,9 +160,30 @@ class InstrumentServer:
             self._close(conn)
 
     def _too_long(self) -> None:
-        with self.instrument.core.lock:
+        with self.instrument.lock:
             self.instrument.status.push(-223, f"Too much data; line longer than {MAX_LINE_BYTES} bytes")
         self._log("input", "over-long line skipped")
+
+    def _query_error(self, code: int, text: str, note: str) -> None:
+        with self.instrument.lock:
+            self.instrument.status.push(code, text)
+        self._log("input", f"{note}: {code} queued")
+
+    @staticmethod
+    def _input_waiting(conn: socket.socket, seconds: float) -> str:
+        """Wait up to ``seconds`` for the client: ``"data"`` (it sent more), ``"closed"`` or ``""`` (quiet)."""
+        deadline = time.monotonic() + seconds
+        while (left := deadline - time.monotonic()) > 0:
+            try:
+                readable, _, _ = select.select([conn], [], [], left)
+                if not readable:
+                    return ""
+                return "data" if conn.recv(1, socket.MSG_PEEK) else "closed"
+            except socket.timeout:
+                continue
+            except (OSError, ValueError):
+                return "closed"
+        return ""
 
     def _close(self, conn: socket.socket) -> None:
         with self._lock:
@@ -140,15 +193,17 @@ class InstrumentServer:
         except OSError:
             pass
 
-    def _handle_line(self, conn: socket.socket, raw: bytes) -> bool:
-        """Execute one line and send its reply; False when the connection must close."""
+    def _handle_line(self, conn: socket.socket, raw: bytes, pending=lambda: False) -> bool:
+        """Execute one line and send its reply; False when the connection must close.
+
+        ``pending()`` tells whether another complete line is already waiting behind this one.
+        """
         if raw.endswith(b"\r"):
             raw = raw[:-1]
         if not raw.strip():
             return True
         text = raw.decode("utf-8", errors="replace")
-        core = self.instrument.core
-        with core.lock:
+        with self.instrument.lock:
             number = self.faults.note_message()
             self._log("command", text[:_LOGGED_TEXT_CHARS])
         if self.faults.hung(number):
@@ -175,7 +230,14 @@ class InstrumentServer:
             reply = garble(reply)
         delay = self.faults.extra_delay_s(number)
         if delay > 0:
-            time.sleep(delay)
+            waiting = "data" if pending() else self._input_waiting(conn, delay)
+            if waiting == "data":
+                # IEEE 488.2 6.3.2.3: a new message before the reply was read interrupts the query
+                self._query_error(-410, "Query INTERRUPTED; a new message came before the reply was sent",
+                                  f"reply to message {number} discarded")
+                return True
+            if waiting == "closed":
+                return False
         try:
             conn.sendall(reply.encode("ascii", errors="replace") + b"\n")
         except OSError:

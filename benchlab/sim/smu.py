@@ -32,6 +32,9 @@ _VOLT_LEVEL = "[SOURce:]VOLTage[:LEVel][:IMMediate][:AMPLitude]"
 _CURR_LEVEL = "[SOURce:]CURRent[:LEVel][:IMMediate][:AMPLitude]"
 
 
+UNSETTLED_SLOPE_V = 0.04  # n UT, about 40 mV (Enz, Krummenacher, Vittoz 1995)
+
+
 class SimSmu(SimInstrument):
     """Source-measure unit with compliance, list sweeps and a reading buffer."""
 
@@ -168,6 +171,11 @@ class SimSmu(SimInstrument):
         self.tripped = tripped
         volts = point_v + self.core.noise(VOLT_NOISE_V * scale)
         amps = point_i + self.core.noise((CURRENT_NOISE_RELATIVE * abs(point_i) + CURRENT_NOISE_FLOOR_A) * scale)
+        wobble = self.faults.reading_wobble_v()
+        if wobble and self.core.fixture.sources.smu_function == "VOLTAGE":
+            amps *= math.exp(wobble / UNSETTLED_SLOPE_V)  # the same VGS wobble seen through the sub-threshold slope
+        elif wobble:
+            volts += wobble
         return volts, amps
 
     def measure_voltage(self, params: list[Param]) -> str:
