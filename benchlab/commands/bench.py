@@ -7,6 +7,7 @@ import json
 
 from benchlab.errors import InputError
 from benchlab.services import bench as service
+from benchlab.kinds import Fixture
 
 _CHECK_DESCRIPTION = """\
 Connect every instrument of a bench, identify it (*IDN?), clear its status (*CLS), then with the
@@ -40,7 +41,7 @@ def register(subparsers) -> None:
     check.add_argument("config", nargs="?", metavar="CONFIG", help="bench file (TOML)")
     check.add_argument("--sim", action="store_true",
                        help="start the built-in simulated bench in this process and check it (no CONFIG)")
-    check.add_argument("--fixture", choices=("resistor", "smu"), default="resistor",
+    check.add_argument("--fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
                        help="with --sim: supply + series resistor + meter, or a source-measure unit "
                             "(default: %(default)s)")
     check.add_argument("--json", action="store_true", help="print the report as one JSON object")

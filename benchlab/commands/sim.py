@@ -7,6 +7,7 @@ import argparse
 from benchlab.sim.bag import DEFAULT_BAG_SIZE
 from benchlab.sim.bench import DEFAULT_FIRST_PORT, DEFAULT_SERIES_RESISTOR_OHM, SimConfig
 from benchlab.sim.faults import parse_fault
+from benchlab.kinds import Fixture
 
 # A foreground simulator never reads its own log back (--log FILE keeps everything): bound the memory it uses.
 CLI_LOG_MEMORY_ENTRIES = 100_000
@@ -38,7 +39,7 @@ def register(subparsers) -> None:
     parser.add_argument("--port", type=int, default=DEFAULT_FIRST_PORT,
                         help=f"port of the supply; meter and SMU take the next two; 0 picks free ports "
                              f"(default {DEFAULT_FIRST_PORT})")
-    parser.add_argument("--fixture", choices=("resistor", "smu"), default="resistor",
+    parser.add_argument("--fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
                         help="resistor: supply -> series resistor -> part, meter across the part; "
                              "smu: SMU straight across the part (default resistor)")
     parser.add_argument("--seed", type=int, default=1, help="seed of the bag, errors and noise (default 1)")

@@ -8,6 +8,7 @@ from typing import Any, TextIO
 
 from benchlab.errors import InputError
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
+from benchlab.kinds import Fixture, SweepMode
 
 
 class ProgressBar:
@@ -64,7 +65,7 @@ def _add_bench_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--max-current", type=float, metavar="A", help="top target current (default 0.1 A)")
     p.add_argument("--min-current", type=float, metavar="A", help="first target current (default 10 uA)")
     p.add_argument("--start-v", type=float, metavar="V", help="first source voltage of an adaptive sweep")
-    p.add_argument("--mode", choices=("targets", "voltages", "currents"),
+    p.add_argument("--mode", choices=tuple(SweepMode),
                    help="targets: log-spaced currents, adaptive (default); voltages: --voltages list; "
                         "currents: SMU forcing log-spaced currents")
     p.add_argument("--voltages", type=_float_list, metavar="V1,V2,...", help="explicit source voltages")
@@ -77,7 +78,7 @@ def _add_bench_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--settle", type=float, metavar="S", dest="settle_s", help="wait after each setpoint (s)")
     p.add_argument("--nplc", type=float, help="integration time in power-line cycles")
     sim = p.add_argument_group("simulated bench (--sim)")
-    sim.add_argument("--sim-fixture", choices=("resistor", "smu"), default="resistor",
+    sim.add_argument("--sim-fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
                      help="resistor: supply, series resistor and meter; smu: source-measure unit across the part "
                           "(default resistor)")
     sim.add_argument("--sim-seed", type=int, default=1,
@@ -97,35 +98,14 @@ def _plan_options(args: argparse.Namespace) -> dict[str, Any]:
 
 
 def _prepare(args: argparse.Namespace):
-    """Config, plan and open bench, in that order (bad input stops before anything is connected)."""
+    """The bench and plan the options name (bad input stops before anything is connected)."""
     from benchlab.services import characterize as svc
 
-    if not args.bench and not args.sim:
-        raise InputError("say which bench: --bench CONFIG (a bench file) or --sim (the simulated bench)")
+    sim = None
     if args.sim:
-        options = svc.SimOptions(fixture=args.sim_fixture, seed=args.sim_seed, time_scale=args.sim_time_scale,
-                                 faults=tuple(args.sim_fault), log_path=args.sim_log)
-        from benchlab.sim.faults import coerce_faults
-        from benchlab.sim.bench import SimConfig
-
-        coerce_faults(options.faults)  # a bad fault spec is bad input: refuse before starting anything
-        SimConfig(fixture=options.fixture, seed=options.seed, time_scale=options.time_scale)
-        from benchlab.instruments.config import simulator_bench_config
-
-        # validate the plan against the simulated bench's limits before anything starts
-        probe = simulator_bench_config({"supply": "TCPIP0::127.0.0.1::1::SOCKET",
-                                        "meter": "TCPIP0::127.0.0.1::2::SOCKET",
-                                        "smu": "TCPIP0::127.0.0.1::3::SOCKET"},
-                                       fixture=options.fixture, series_resistor_ohm=47.0)
-        svc.build_plan(probe, **_plan_options(args))
-        simulator, config = svc.start_simulator(options)
-        plan = svc.build_plan(config, **_plan_options(args))
-    else:
-        config = svc.load_config(args.bench)
-        plan = svc.build_plan(config, **_plan_options(args))
-        simulator = None
-        print(svc.CAUTION, file=sys.stderr)
-    handle = svc.connect(config, simulator)
+        sim = svc.SimOptions(fixture=args.sim_fixture, seed=args.sim_seed, time_scale=args.sim_time_scale,
+                             faults=tuple(args.sim_fault), log_path=args.sim_log)
+    handle, plan = svc.prepare(args.bench, sim, _plan_options(args), say=lambda text: print(text, file=sys.stderr))
     return svc, handle, plan
 
 
@@ -135,22 +115,13 @@ def run_sweep(args: argparse.Namespace) -> int:
     check_name("part label", args.part)
     check_name("lot name", args.lot)
     svc, handle, plan = _prepare(args)
-    progress = ProgressBar()
     try:
-        with svc.sigterm_as_exception():
-            if handle.simulator is not None:
-                svc.SimPartLoader(handle.bench).seek(args.part)
-            svc.preflight(plan, handle.bench)  # a bench that refuses its settings writes no session
-            session = svc.SessionWriter.create(args.sessions, args.lot, operator=args.operator,
-                                               ambient_c=args.ambient, planned_count=1, **svc.session_meta(handle))
-            print(f"session: {session.path}", file=sys.stderr)
-            try:
-                outcome = svc.sweep_part(handle, plan, session, args.part, progress)
-            finally:
-                session.finish()
+        outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot, sessions_root=args.sessions,
+                                          operator=args.operator, ambient_c=args.ambient, on_event=ProgressBar(),
+                                          on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:
         handle.close()
-    print(f"wrote {session.path / (args.part + '.csv')}")
+    print(f"wrote {csv_path}")
     return 0 if outcome.complete else 1
 
 

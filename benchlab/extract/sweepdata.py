@@ -16,6 +16,7 @@ from functools import cached_property
 import numpy as np
 
 from benchlab.errors import InputError
+from benchlab.kinds import PointStatus
 
 # Above these magnitudes the numbers are almost surely in mA / mV, not A / V: a bench
 # fixture for discrete parts does not pass 20 A or reach 100 V (common practice).
@@ -254,7 +255,7 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     vgs, i_d, direction, rows, skipped = [], [], [], [], {}
     for row_number, row in body:
         status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
-        if status != "ok":
+        if status != PointStatus.OK:
             skipped[status] = skipped.get(status, 0) + 1
             continue
         values = []

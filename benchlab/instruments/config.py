@@ -19,8 +19,9 @@ from benchlab.errors import ConfigError
 from benchlab.instruments.profiles import LEGACY_ROLES, ROLES, Profile, legacy_role_message, load_profile
 from benchlab.units import parse_quantity
 from benchlab.instruments.transport import resource_kind
+from benchlab.kinds import Fixture
 
-FIXTURES = ("resistor", "smu")
+FIXTURES = tuple(Fixture)
 # The instruments each fixture needs.
 FIXTURE_ROLES: dict[str, tuple[str, ...]] = {"resistor": ("supply", "meter"), "smu": ("smu",)}
 BENCH_FORMAT_VERSION = 1
@@ -193,7 +194,7 @@ def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, p
     if lim.max_power_w > ceiling * (1 + 1e-12):
         raise fail("limits.max_power_w", f"{lim.max_power_w:g} W is more than max_supply_v x max_drain_a = "
                                          f"{ceiling:g} W, so it could never apply; check the units")
-    if config.fixture == "resistor" and config.series_resistor_power_w is not None:
+    if config.fixture == Fixture.RESISTOR and config.series_resistor_power_w is not None:
         heat = lim.max_drain_a ** 2 * config.series_resistor_ohm
         if heat > config.series_resistor_power_w:
             raise fail("series_resistor.power_rating_w",
@@ -207,7 +208,7 @@ def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, p
     if lim.max_drain_a > source.limits["max_current"]:
         raise fail("limits.max_drain_a", f"{lim.max_drain_a:g} A is above the instrument's "
                                          f"{source.limits['max_current']:g} A ({where})")
-    if config.fixture == "resistor" and lim.max_supply_v > profiles["meter"].limits["max_voltage"]:
+    if config.fixture == Fixture.RESISTOR and lim.max_supply_v > profiles["meter"].limits["max_voltage"]:
         # With the part open the meter sees the whole supply voltage: keep it within the meter's input.
         raise fail("limits.max_supply_v", f"{lim.max_supply_v:g} V is above the meter's "
                                           f"{profiles['meter'].limits['max_voltage']:g} V (profile "
@@ -279,8 +280,8 @@ def _resolve_profile_ref(reference: str, base_dir: Path | None) -> str:
 
 
 def _parse_resistor(data: Mapping[str, Any], fixture: str, fail) -> tuple[float, float, float | None]:
-    table = _sub(data, "series_resistor", fail, required=(fixture == "resistor"))
-    if fixture != "resistor":
+    table = _sub(data, "series_resistor", fail, required=(fixture == Fixture.RESISTOR))
+    if fixture != Fixture.RESISTOR:
         if table:
             raise fail("series_resistor", "only the 'resistor' fixture has a series resistor; remove this table")
         return 0.0, 0.01, None
@@ -382,6 +383,6 @@ def simulator_bench_config(resources: Mapping[str, str], fixture: str = "resisto
         "instruments": {role: {"resource": resources[role], "profile": SIM_PROFILES[role]}
                         for role in FIXTURE_ROLES[fixture] if role in resources},
     }
-    if fixture == "resistor":
+    if fixture == Fixture.RESISTOR:
         data["series_resistor"] = {"ohms": series_resistor_ohm}
     return parse_bench_config(data, path=None)

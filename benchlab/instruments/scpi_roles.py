@@ -17,6 +17,7 @@ from benchlab.errors import (BenchlabError, ConnectionLost, InputError, Instrume
 from benchlab.instruments.profiles import Profile
 from benchlab.instruments.scpi import parse_bool, parse_error_reply, parse_reading, parse_readings
 from benchlab.instruments.transport import Transport
+from benchlab.kinds import SourceFunction
 
 # A queue holds 16 entries in the simulator (more on some instruments); stop reading after this
 # many so an instrument that never reports "0" cannot hang us.
@@ -261,7 +262,7 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         """Force ``mode`` (``"voltage"``: compliance in A; ``"current"``: compliance in V)."""
         if mode not in ("voltage", "current"):
             raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
-        limit_of = "current" if mode == "voltage" else "voltage"
+        limit_of = "current" if mode == SourceFunction.VOLTAGE else "voltage"
         unit = "amps" if limit_of == "current" else "volts"
         # The limit first: whatever happens next, the protection for the new mode is already in place.
         self.configure(f"set_{limit_of}_compliance", **{unit: float(compliance)})
@@ -277,7 +278,7 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
     def set_level(self, value: float) -> None:
         """Set the forced level (V or A, by the configured mode)."""
         mode = self._require_mode()
-        unit = "volts" if mode == "voltage" else "amps"
+        unit = "volts" if mode == SourceFunction.VOLTAGE else "amps"
         self.configure(f"set_{mode}_level", **{unit: float(value)})
 
     def set_nplc(self, nplc: float) -> None:

@@ -10,6 +10,7 @@ from benchlab.errors import BenchlabError, LibraryError
 from benchlab.library.records import ImportedSweep, ImportSummary, finite_or_none, to_json, utc_now
 from benchlab.library.sessions import Session, SessionSweep, read_session
 from benchlab.models import DeviceParams
+from benchlab.kinds import PartClass
 
 if TYPE_CHECKING:
     from benchlab.library.store import Library
@@ -40,7 +41,7 @@ class PreparedSweep:
 
     @property
     def is_dud(self) -> bool:
-        return self.sweep.classification not in (None, "good")
+        return self.sweep.classification not in (None, PartClass.GOOD)
 
 
 def fit_outcome(result: Any) -> FitOutcome:
@@ -66,7 +67,7 @@ def fit_outcome(result: Any) -> FitOutcome:
 def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
                   fit_function: Callable | None) -> PreparedSweep:
     """Fit one sweep (pure computation, nothing written); a dud or an unfittable sweep carries the reason."""
-    if sweep.classification not in (None, "good"):
+    if sweep.classification not in (None, PartClass.GOOD):
         return PreparedSweep(session, sweep, lot, None, "")
     try:
         if refit:

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from benchlab.errors import InputError
+from benchlab.kinds import PointStatus
 
 REQUIRED_COLUMNS = ("vgs", "id")
 
@@ -63,7 +64,7 @@ class SessionSweep:
         vgs, ids, dirs = [], [], []
         directions = self.direction or ("",) * len(self.vgs)
         for v, i, s, d in zip(self.vgs, self.id, self.status, directions):
-            if s != "ok" or v is None or i is None or not (math.isfinite(v) and math.isfinite(i)):
+            if s != PointStatus.OK or v is None or i is None or not (math.isfinite(v) and math.isfinite(i)):
                 continue
             if (floor is not None and i < floor) or i <= 0:
                 continue

@@ -8,6 +8,7 @@ from typing import Any
 
 from benchlab.errors import LibraryError
 from benchlab.library import Library, PartRecord
+from benchlab.kinds import PointStatus
 
 
 @dataclass(frozen=True)
@@ -69,7 +70,7 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
                 # below the detection current a good part was not conducting yet: meter noise, not curve
                 floor = sweep.get("detect_current_a") if part.state != "rejected" else None
                 points = [(v, i) for v, i, s in zip(sweep["vgs"], sweep["id"], sweep["status"])
-                          if s == "ok" and v is not None and i is not None and math.isfinite(v) and i > 0
+                          if s == PointStatus.OK and v is not None and i is not None and math.isfinite(v) and i > 0
                           and (floor is None or i >= floor)]
                 if points:
                     traces.append(SweepTrace(part.label, tuple(p[0] for p in points), tuple(p[1] for p in points),

@@ -12,13 +12,14 @@ import signal
 import threading
 from dataclasses import dataclass, replace
 from pathlib import Path
-from typing import Any, Callable, Iterator
+from typing import Any, Callable, Iterator, Protocol, runtime_checkable
 
 from benchlab.errors import InputError, SweepCancelled
 from benchlab.sweep.engine import preflight, run
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
+from benchlab.kinds import Fixture
 
 DEFAULT_SESSIONS_DIR = "sessions"
 CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
@@ -88,9 +89,9 @@ def build_plan(config: Any, **options: Any) -> SweepPlan:
         values["voltages"] = tuple(float(v) for v in values["voltages"])
         values.setdefault("mode", "voltages")
     base = SweepPlan(fixture=config.fixture, limits=Limits.from_safety_limits(config.limits),
-                     series_resistor_ohm=float(config.series_resistor_ohm) if config.fixture == "resistor" else 0.0,
+                     series_resistor_ohm=float(config.series_resistor_ohm) if config.fixture == Fixture.RESISTOR else 0.0,
                      series_resistor_tolerance=(float(config.series_resistor_tolerance or 0.0)
-                                                if config.fixture == "resistor" else 0.0),
+                                                if config.fixture == Fixture.RESISTOR else 0.0),
                      settle_s=float(config.settle_s), nplc=float(config.nplc))
     try:
         plan = replace(base, **values)
@@ -141,41 +142,134 @@ def connect(config: Any, simulator: Any = None) -> BenchHandle:
 
 def source_instrument(bench: Any) -> Any:
     """The instrument that sources the part (supply or SMU): the one simulator commands are sent to."""
-    return bench.smu if bench.config.fixture == "smu" else bench.supply
+    return bench.smu if bench.config.fixture == Fixture.SMU else bench.supply
+
+
+def prepare(bench_path: str | None = None, sim: SimOptions | None = None, plan_options: dict[str, Any] | None = None,
+            say: Callable[[str], None] | None = None) -> tuple[BenchHandle, SweepPlan]:
+    """Check everything, then open the bench: config, plan, (simulator,) connection, in that order.
+
+    Bad input stops before anything is started, connected or powered: the plan is validated against
+    the bench's limits first (for the simulator, against its limits with any resistor value, since
+    the simulated resistor's actual value is only known once it runs). Nothing is switched on.
+
+    Parameters
+    ----------
+    bench_path : str, optional
+        A bench file (TOML); exactly one of ``bench_path`` and ``sim``.
+    sim : SimOptions, optional
+        Start the simulated bench in this process.
+    plan_options : dict, optional
+        Sweep options for :func:`build_plan` (``None`` values mean the default).
+    say : callable, optional
+        Gets the safety caution before a real bench is connected.
+
+    Returns
+    -------
+    (BenchHandle, SweepPlan)
+        Close the handle on every way out (it switches every output off first).
+    """
+    options = dict(plan_options or {})
+    if (bench_path is None) == (sim is None):
+        raise InputError("say which bench: --bench CONFIG (a bench file) or --sim (the simulated bench)")
+    if sim is not None:
+        from benchlab.instruments.config import simulator_bench_config
+        from benchlab.sim.bench import SimConfig
+        from benchlab.sim.faults import coerce_faults
+
+        coerce_faults(sim.faults)  # a bad fault spec is bad input: refuse before starting anything
+        SimConfig(fixture=sim.fixture, seed=sim.seed, time_scale=sim.time_scale)
+        # the plan against the simulated bench's limits, with the nominal resistor, before anything starts
+        nominal = simulator_bench_config({role: f"TCPIP0::127.0.0.1::{n}::SOCKET"
+                                          for n, role in enumerate(("supply", "meter", "smu"), start=1)},
+                                         fixture=sim.fixture)
+        build_plan(nominal, **options)
+        simulator, config = start_simulator(sim)
+        try:
+            plan = build_plan(config, **options)
+        except BaseException:
+            simulator.stop()
+            raise
+    else:
+        config = load_config(bench_path)
+        plan = build_plan(config, **options)
+        simulator = None
+        if say is not None:
+            say(CAUTION)
+    return connect(config, simulator), plan
+
+
+def sweep_one(handle: BenchHandle, plan: SweepPlan, label: str, *, lot: str = "single",
+              sessions_root: str | Path = DEFAULT_SESSIONS_DIR, operator: str = "", ambient_c: float | None = None,
+              on_event: Callable[[Any], None] | None = None, cancel=None,
+              on_session: Callable[[Path], None] | None = None) -> tuple[SweepOutcome, Path]:
+    """Sweep the part labelled ``label`` into a new one-part session; returns ``(outcome, csv path)``.
+
+    On the simulator the part of that label is seated first. A bench that refuses its settings
+    (preflight) writes no session. SIGTERM / SIGHUP stop the sweep with the output off.
+    """
+    check_name("part label", label)
+    check_name("lot name", lot)
+    with sigterm_as_exception():
+        if handle.simulator is not None:
+            SimPartLoader(handle.bench).seek(label)
+        preflight(plan, handle.bench)
+        session = SessionWriter.create(sessions_root, lot, operator=operator, ambient_c=ambient_c, planned_count=1,
+                                       **session_meta(handle))
+        if on_session:
+            on_session(session.path)
+        try:
+            outcome = sweep_part(handle, plan, session, label, on_event, cancel)
+        finally:
+            session.finish()
+    return outcome, session.path / f"{label}.csv"
 
 
 # --------------------------------------------------------------------------------------------- part loaders
+@runtime_checkable
+class PartLoader(Protocol):
+    """Who puts parts in the fixture: the simulator's bag, an operator at a prompt, the terminal UI.
+
+    ``next()`` returns the label of the part now in the fixture (the output is off while it is
+    called), or ``None`` when there are no more parts; ``progress(text)`` tells whoever loads the
+    parts what happened (a part skipped, a sweep done), in words.
+    """
+
+    def next(self) -> str | None: ...
+    def progress(self, text: str) -> None: ...
+
+
 class SimPartLoader:
-    """Loads parts from the simulated bag with ``SIMulation:PART:NEXT`` (the output must be off)."""
+    """Loads parts from the simulated bag (the output must be off); implements :class:`PartLoader`."""
 
-    def __init__(self, bench: Any):
-        self.instrument = source_instrument(bench)
+    def __init__(self, bench: Any, say: Callable[[str], None] | None = None):
+        from benchlab.instruments.sim_parts import SimPartHandler
+
+        self.parts = SimPartHandler(source_instrument(bench))
+        self.say = say
         self.started = False
-
-    def _query(self, command: str) -> str:
-        reply = self.instrument.transport.query(command)
-        self.instrument.check_errors(command)
-        return reply.strip().strip('"')
 
     def label(self) -> str | None:
         """Label of the part in the fixture, or None when the bag is used up."""
-        if int(float(self._query("SIMulation:PART:INDex?"))) < 0:
-            return None
-        return self._query("SIMulation:PART:LABel?")
+        return self.parts.label()
 
     def next(self) -> str | None:
         """Put the next part in the fixture (the first call keeps the part already there)."""
         if self.started:
-            self.instrument.send("SIMulation:PART:NEXT")
+            self.parts.load_next()
         self.started = True
         return self.label()
+
+    def progress(self, text: str) -> None:
+        if self.say is not None:
+            self.say(text)
 
     def seek(self, label: str, limit: int = 10000) -> None:
         """Advance to the part labelled ``label``; InputError when the bag has none."""
         for _ in range(limit):
             found = self.next()
             if found is None:
-                raise InputError(f"no part labelled '{label}' in the simulated bag")
+                break
             if found == label:
                 self.started = True
                 return
@@ -183,13 +277,19 @@ class SimPartLoader:
 
 
 class PromptPartLoader:
-    """Asks the operator for each part in turn: type its label, Enter to measure, ``q`` to stop."""
+    """Asks the operator for each part in turn: type its label, Enter to measure, ``q`` to stop.
+
+    Implements :class:`PartLoader`.
+    """
 
     def __init__(self, ask: Callable[[str], str] | None = None, say: Callable[[str], None] | None = None):
         # looked up at call time so a caller (or a test) replacing input/print is honoured
         self.ask = ask or (lambda prompt: input(prompt))
         self.say = say or (lambda text: print(text))
         self.used: list[str] = []  # distinct labels given so far
+
+    def progress(self, text: str) -> None:
+        self.say(text)
 
     def next(self) -> str | None:
         default = f"Q{len(self.used) + 1:02d}"
@@ -268,8 +368,8 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
         Where and under which names the new session goes.
     count : int, optional
         Parts to measure (a resumed session keeps its own count unless given).
-    loader : object, optional
-        ``next() -> label or None``; default: the simulator's bag when simulated, else prompts.
+    loader : PartLoader, optional
+        Who loads each part; default: the simulator's bag when simulated, else prompts on the terminal.
     resume : path, optional
         A session folder: parts already complete are skipped.
     on_event, cancel
@@ -306,8 +406,7 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
                 break
             if label in done:
                 skipped.append(label)
-                if isinstance(loader, PromptPartLoader):  # tell the operator now, not only at the end
-                    loader.say(f"{label} is already measured in this session: skipped")
+                loader.progress(f"{label} is already measured in this session: skipped")  # now, not only at the end
                 continue
             outcome = sweep_part(handle, plan, session, label, on_event, cancel)
             outcomes.append(outcome)
@@ -315,6 +414,7 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
                 stopped = outcome.stop_reason
                 break
             done.add(label)
+            loader.progress(f"{len(done)} of {count} parts done" if count else f"{len(done)} parts done")
     finally:
         session.finish()
     return BagResult(session.path, tuple(outcomes), tuple(skipped), stopped)
@@ -345,6 +445,7 @@ def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 1
         handle.close()
 
 
-__all__ = ["BagResult", "BenchHandle", "SimOptions", "PromptPartLoader", "SimPartLoader", "build_plan", "connect",
+__all__ = ["BagResult", "BenchHandle", "SimOptions", "PartLoader", "PromptPartLoader", "SimPartLoader", "build_plan",
+           "connect", "prepare", "sweep_one",
            "load_config", "preflight", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
            "CAUTION", "DEMO_STORY"]

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any, Callable
 
 from benchlab.errors import DesignError, InputError
+from benchlab.kinds import PartClass
 
 DEMO_LOT = "demo-led-rack"
 CHANNELS = 8  # LED strings on the invented rack: one reference part plus 8 outputs
@@ -82,7 +83,7 @@ def run_full_demo(out_root: str | Path, *, count: int = 12, seed: int = 1,
 
     say(f"1/5 sweeping {count} parts on the simulated bench ...")
     bag = characterize.run_demo(folder / "sessions", count=count, seed=seed, on_event=on_event)
-    duds = [f"{o.label} {o.classification}" for o in bag.outcomes if o.classification != "good"]
+    duds = [f"{o.label} {o.classification}" for o in bag.outcomes if o.classification != PartClass.GOOD]
     say(f"    {len(bag.outcomes)} swept, set aside: {', '.join(duds) or 'none'}")
 
     say("2/5 fitting every good sweep and storing the bag in a device library ...")

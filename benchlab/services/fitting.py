@@ -19,6 +19,7 @@ from benchlab.errors import FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
+from benchlab.kinds import PartClass
 
 # the temperatures fit_batch accepts (150-600 K), in degC
 T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
@@ -171,7 +172,7 @@ class FitRun:
 
 
 def _is_dud(source: SweepSource) -> bool:
-    return source.classification not in (None, "good")
+    return source.classification not in (None, PartClass.GOOD)
 
 
 def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
@@ -349,7 +350,7 @@ def format_table(records: list[FitRecord]) -> str:
         if r.at_current is not None:
             lines.append(f"  at {r.at_current:g} A: VGS {_num(r.vgs_at_current, '.4f')} V, "
                          f"gm {_num(r.gm, '.4g')} A/V (from the {r.model} fit)")
-        if rec.source.classification not in (None, "good"):
+        if rec.source.classification not in (None, PartClass.GOOD):
             lines.append(f"  note: the sweep classified this part '{rec.source.classification}'; its fit "
                          "does not describe a working transistor")
         lines += [f"  warning: {note}" for note in r.notes]

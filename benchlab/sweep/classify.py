@@ -10,9 +10,10 @@ from dataclasses import asdict, dataclass
 from typing import Any, Sequence
 
 from benchlab.sweep.records import SweepPoint, vgs_at_current
+from benchlab.kinds import Fixture, PartClass, PointStatus
 from benchlab.units import format_si
 
-CLASSES = ("good", "open", "shorted", "leaky", "unstable")
+CLASSES = tuple(c for c in PartClass if c is not PartClass.INTERRUPTED)  # what classify() can say
 
 # A diode-connected enhancement MOSFET cannot carry a real current with almost no voltage across
 # it: its threshold sits well above this (power parts: about 1-4 V, common practice).
@@ -27,7 +28,7 @@ UNSETTLED_FRACTION = 0.15
 class Classification:
     """A part's verdict."""
 
-    kind: str
+    kind: PartClass
     reason: str
 
     def to_dict(self) -> dict[str, Any]:
@@ -36,7 +37,7 @@ class Classification:
 
 def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_current_a: float,
              reference_current_a: float = 250e-6, failure: str | None = None,
-             fixture: str = "resistor") -> Classification:
+             fixture: str = Fixture.RESISTOR) -> Classification:
     """Classify a part from its sweep.
 
     Parameters
@@ -59,30 +60,31 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
     Classification
     """
     if failure:
-        kind = "shorted" if "short" in failure else "open" if "open" in failure else "unstable"
+        kind = (PartClass.SHORTED if "short" in failure else PartClass.OPEN if "open" in failure
+                else PartClass.UNSTABLE)
         return Classification(kind, failure)
     usable = [p for p in points if p.usable]
     if not usable:
-        return Classification("unstable", "no usable reading (every reading was over range or not a number)")
+        return Classification(PartClass.UNSTABLE, "no usable reading (every reading was over range or not a number)")
     carrying = [p for p in usable if p.id >= detect_current_a]  # compliance points included: a short hits it
     if carrying:
         peak = max(carrying, key=lambda p: p.id)
         if peak.vgs < SHORT_VGS_V:
-            return Classification("shorted", f"carries {format_si(peak.id, 'A')} with only {peak.vgs * 1e3:.0f} mV across "
+            return Classification(PartClass.SHORTED, f"carries {format_si(peak.id, 'A')} with only {peak.vgs * 1e3:.0f} mV across "
                                              f"it: drain-source short")
-    conducting = [p for p in carrying if p.status != "compliance"]
+    conducting = [p for p in carrying if p.status != PointStatus.COMPLIANCE]
     if not conducting:
         top = max(usable, key=lambda p: p.vgs)
-        if fixture == "smu" and any(p.status == "compliance" for p in usable):
-            return Classification("open", f"hit the voltage compliance ({top.vgs:.2f} V) without carrying the "
+        if fixture == Fixture.SMU and any(p.status == PointStatus.COMPLIANCE for p in usable):
+            return Classification(PartClass.OPEN, f"hit the voltage compliance ({top.vgs:.2f} V) without carrying the "
                                           f"forced current: no conduction path")
-        return Classification("open", f"no current above {format_si(detect_current_a, 'A')} with up to "
+        return Classification(PartClass.OPEN, f"no current above {format_si(detect_current_a, 'A')} with up to "
                                       f"{top.vgs:.2f} V across the part")
     peak = max(conducting, key=lambda p: p.id)
-    unsettled = [p for p in usable if p.status == "unsettled"]
+    unsettled = [p for p in usable if p.status == PointStatus.UNSETTLED]
     if unsettled and len(unsettled) >= max(2, UNSETTLED_FRACTION * len(usable)):
         spread = max(abs(p.spread_v) for p in unsettled)
-        return Classification("unstable", f"readings did not settle at {len(unsettled)} of {len(usable)} points "
+        return Classification(PartClass.UNSTABLE, f"readings did not settle at {len(unsettled)} of {len(usable)} points "
                                           f"(VGS moved up to {spread * 1e3:.1f} mV between repeated readings)")
     vref = vgs_at_current(points, reference_current_a, detect_current_a)
     onset = min(conducting, key=lambda p: p.vgs)
@@ -95,10 +97,10 @@ def classify(points: Sequence[SweepPoint], *, detect_current_a: float, leak_curr
             # that point says little about the threshold, so the message names it for what it is
             where = (f"where it reaches {format_si(reference_current_a, 'A')}" if vref is not None
                      else "where it starts to conduct")
-            return Classification("leaky", f"carries {format_si(worst.id, 'A')} at {worst.vgs:.2f} V, a small fraction "
+            return Classification(PartClass.LEAKY, f"carries {format_si(worst.id, 'A')} at {worst.vgs:.2f} V, a small fraction "
                                            f"of the {scale_v:.2f} V {where}: a leakage path, not channel current")
     if vref is not None:
-        return Classification("good", f"conducts normally from about {onset.vgs:.2f} V up to {format_si(peak.id, 'A')} "
+        return Classification(PartClass.GOOD, f"conducts normally from about {onset.vgs:.2f} V up to {format_si(peak.id, 'A')} "
                                       f"at {peak.vgs:.2f} V; no leakage or unsettled readings")
-    return Classification("good", f"conducts normally up to {format_si(peak.id, 'A')} at {peak.vgs:.3f} V "
+    return Classification(PartClass.GOOD, f"conducts normally up to {format_si(peak.id, 'A')} at {peak.vgs:.3f} V "
                                   f"({format_si(reference_current_a, 'A')} not bracketed)")

@@ -22,6 +22,7 @@ from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOu
 from benchlab.sweep.safety import GuardedSmu, GuardedSupply
 from benchlab.sweep.stepping import StopStepping as _Stop
 from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_step, overshoots, predict_vgs
+from benchlab.kinds import Fixture, PointStatus, SourceFunction, SweepMode
 
 ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
 
@@ -49,7 +50,7 @@ class _Sweep:
         self.points: list[SweepPoint] = []
         self.t0 = clock()
         self.pulsed = plan.pulsed_duty is not None and plan.pulsed_duty < 1.0
-        if plan.fixture == "resistor":
+        if plan.fixture == Fixture.RESISTOR:
             supply = getattr(instruments, "supply", None)
             self.meter = getattr(instruments, "meter", None)
             if supply is None or self.meter is None:
@@ -66,24 +67,24 @@ class _Sweep:
     def setup(self) -> None:
         """Output off, limit / compliance first, setpoint 0, meter configured. Nothing is powered."""
         plan = self.plan
-        if plan.fixture == "resistor":
+        if plan.fixture == Fixture.RESISTOR:
             self.source.safe_off()
             self.source.set_current_limit(plan.current_limit())
             self.source.set_voltage(0.0)
             self.meter_function = ""
             self.set_meter_function("voltage")
-            if plan.mode == "voltages":  # refuse a bad list before anything is switched on
+            if plan.mode == SweepMode.VOLTAGES:  # refuse a bad list before anything is switched on
                 for v in plan.voltages:
                     self.source.check_voltage(v)
         else:
             self.source.safe_off()
-            if plan.mode == "currents":
+            if plan.mode == SweepMode.CURRENTS:
                 self.source.configure_source("current", plan.limits.max_supply_v)
             else:
                 self.source.configure_source("voltage", plan.current_limit())
             self.source.set_nplc(plan.nplc)
             self.source.set_level(0.0)
-            if plan.mode == "voltages":
+            if plan.mode == SweepMode.VOLTAGES:
                 for v in plan.voltages:
                     self.source.check_level(v)
 
@@ -96,9 +97,9 @@ class _Sweep:
             self.meter_function = function
 
     def apply(self, level: float, expect_id: float | None, expect_vgs: float | None) -> None:
-        if self.plan.fixture == "resistor":
+        if self.plan.fixture == Fixture.RESISTOR:
             self.source.set_voltage(level, expect_id, expect_vgs)
-        elif self.source.mode == "voltage":
+        elif self.source.mode == SourceFunction.VOLTAGE:
             self.source.set_level(level, expect_id)
         else:
             self.source.set_level(level, expect_vgs)
@@ -120,7 +121,7 @@ class _Sweep:
 
     def _primary(self) -> tuple[float, float]:
         """The reading whose repeat decides settling: (VGS, 0) on the resistor fixture, the SMU's (V, I)."""
-        if self.plan.fixture == "resistor":
+        if self.plan.fixture == Fixture.RESISTOR:
             self.set_meter_function("voltage")
             return float(self.meter.read()), 0.0
         v, i = self.source.measure()
@@ -129,7 +130,7 @@ class _Sweep:
     def _settled(self, first: tuple[float, float], second: tuple[float, float]) -> bool:
         (v1, i1), (v2, i2) = first, second
         v_ok = abs(v2 - v1) <= max(self.plan.settle_tolerance * abs(v2), ABS_SETTLE_V)
-        if self.plan.fixture == "resistor" or self.source.mode == "current":
+        if self.plan.fixture == Fixture.RESISTOR or self.source.mode == SourceFunction.CURRENT:
             return v_ok
         # forcing volts, the current is what moves: allow the current change that the VGS tolerance implies
         # in sub-threshold (dI/I = dV / (n UT), n UT about 40 mV; Enz, Krummenacher, Vittoz 1995)
@@ -139,10 +140,10 @@ class _Sweep:
     def read_point(self, direction: str) -> SweepPoint:
         """Read (and re-read until settled) at the present setpoint; the point is not yet stored."""
         reading = self._primary()
-        status, spread = "ok", 0.0
+        status, spread = PointStatus.OK, 0.0
         finite = all(math.isfinite(x) and abs(x) < 1e30 for x in reading)
         if not finite:
-            status = "over_range"
+            status = PointStatus.OVER_RANGE
         elif self.plan.repeat_reading:
             for _ in range(self.plan.max_rereads + 1):
                 again = self._primary()
@@ -154,21 +155,21 @@ class _Sweep:
                 if settled:
                     break
             else:
-                status = "unsettled"
-        if self.plan.fixture == "resistor":
+                status = PointStatus.UNSETTLED
+        if self.plan.fixture == Fixture.RESISTOR:
             vgs = reading[0]
             i_d, v_src, i_src, at_limit = self._resistor_rest(vgs)
             if at_limit and math.isfinite(vgs):
                 # the supply went constant-current after VGS was read (a part failing short does that):
                 # read VGS again so the point describes one state of the part
                 vgs = self._primary()[0]
-            if status == "ok" and not (math.isfinite(i_d) and abs(i_d) < 1e30):
-                status = "over_range"
+            if status == PointStatus.OK and not (math.isfinite(i_d) and abs(i_d) < 1e30):
+                status = PointStatus.OVER_RANGE
         else:
             (vgs, i_d), (v_src, i_src) = reading, reading
             at_limit = bool(self.source.in_compliance())
-        if status == "ok" and at_limit:
-            status = "compliance"
+        if status == PointStatus.OK and at_limit:
+            status = PointStatus.COMPLIANCE
         return SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=vgs, id=i_d, v_source=v_src,
                           i_source=i_src, status=status, direction=direction, spread_v=spread)
 
@@ -190,7 +191,7 @@ class _Sweep:
             # cool-down so that on / (on + off) equals the duty cycle
             self.sleep(on_time * (1.0 / self.plan.pulsed_duty - 1.0))
         if judge is not None and judge(point):
-            point = replace(point, status="probe")
+            point = replace(point, status=PointStatus.PROBE)
         self.store(point)
         return point
 
@@ -214,7 +215,7 @@ class _Sweep:
         plan = self.plan
         if point.direction == "down":
             return 1.0
-        if plan.mode == "voltages":
+        if plan.mode == SweepMode.VOLTAGES:
             return min(1.0, len(self.points) / len(plan.voltages))
         if not (point.usable and point.id > plan.min_current_a):
             return 0.0
@@ -237,7 +238,7 @@ class _Sweep:
             if step is None:
                 return
             try:
-                if plan.fixture == "resistor":
+                if plan.fixture == Fixture.RESISTOR:
                     self.source.check_voltage(step.level, step.expect_id, step.expect_vgs)
                 else:
                     if step.expect_id is None:
@@ -246,13 +247,13 @@ class _Sweep:
             except SafetyError as exc:
                 # before the part has conducted this says nothing about the part (it is not "open"): the
                 # record stays incomplete and a bag stops, since the limits would stop every part alike
-                conducted = any(p.status == "ok" and p.id >= plan.detect_floor_a() for p in ups)
+                conducted = any(p.status == PointStatus.OK and p.id >= plan.detect_floor_a() for p in ups)
                 raise _Stop(f"next setpoint refused by the safety limits ({exc})",
                             interrupted=not conducted) from None
             point = self.measure(step.level, "up", step.expect_id, step.expect_vgs,
                                  judge=lambda p: overshoots(plan, ups, p, refinements))
             self.check_reading(point, ups)
-            if point.status == "probe":  # back to the last setpoint below conduction, finer steps
+            if point.status == PointStatus.PROBE:  # back to the last setpoint below conduction, finer steps
                 search_step, refinements = search_step / REFINE_FACTOR, refinements + 1
                 continue
             level = step.level
@@ -263,14 +264,14 @@ class _Sweep:
     def sweep_levels(self, levels, direction: str, expects=None) -> None:
         """Step through explicit levels (voltages, or currents on a SMU forcing current)."""
         self.source_on_if_continuous()
-        forcing_current = self.plan.mode == "currents"
+        forcing_current = self.plan.mode == SweepMode.CURRENTS
         for n, level in enumerate(levels):
             previous = [p for p in self.points if p.direction == direction]
             expect_id = expect_vgs = None
             if expects is not None:
                 expect_id, expect_vgs = expects[n]
             elif forcing_current:
-                conducting = [(p.vgs, p.id) for p in previous if p.usable and p.id > 0 and p.status == "ok"]
+                conducting = [(p.vgs, p.id) for p in previous if p.usable and p.id > 0 and p.status == PointStatus.OK]
                 if conducting:
                     expect_vgs = predict_vgs(sorted(conducting, key=lambda c: c[1]), level)
                     if level * expect_vgs > self.plan.limits.max_power_w:
@@ -290,9 +291,9 @@ class _Sweep:
             first = len(self.points)
             for v, i in readings:  # store the whole chunk first: every reading taken is kept
                 if not (math.isfinite(v) and math.isfinite(i) and abs(v) < 1e30):
-                    status = "over_range"
+                    status = PointStatus.OVER_RANGE
                 else:  # a list returns no compliance flag: a current at the compliance is one
-                    status = "compliance" if abs(i) >= 0.98 * self.source.compliance else "ok"
+                    status = PointStatus.COMPLIANCE if abs(i) >= 0.98 * self.source.compliance else PointStatus.OK
                 self.store(SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=float(v),
                                       id=float(i), v_source=float(v), i_source=float(i), status=status,
                                       direction="up"))
@@ -307,7 +308,7 @@ class _Sweep:
         the search for conduction below threshold and a good part would be judged open. The output is
         switched off while the compliance changes (the guard allows no reconfiguration while it is on).
         """
-        if self.source.mode != "voltage" or level <= 0:
+        if self.source.mode != SourceFunction.VOLTAGE or level <= 0:
             return
         allowed = self.plan.limits.max_power_w / level * (1.0 - 1e-6)
         if allowed >= self.source.compliance or allowed < 10 * self.plan.detect_floor_a():
@@ -329,10 +330,10 @@ class _Sweep:
         ups = [p for p in self.points if p.direction == "up" and p.usable and p.id >= self.plan.detect_floor_a()]
         if len(ups) < 2:
             return
-        if self.plan.mode == "currents":
+        if self.plan.mode == SweepMode.CURRENTS:
             levels = [p.id for p in ups[:-1]]
             expects = [(p.id, p.vgs) for p in ups[:-1]]
-        elif self.plan.fixture == "resistor":
+        elif self.plan.fixture == Fixture.RESISTOR:
             levels = [p.v_source for p in ups[:-1]]
             expects = [(p.id, p.vgs) for p in ups[:-1]]
         else:
@@ -343,10 +344,10 @@ class _Sweep:
 
     def body(self) -> str:
         plan = self.plan
-        if plan.mode == "targets":
+        if plan.mode == SweepMode.TARGETS:
             self.sweep_targets()
             reason = "reached the top target current"
-        elif plan.mode == "currents":
+        elif plan.mode == SweepMode.CURRENTS:
             self.sweep_levels(plan.forced_currents(), "up")
             reason = "swept every target current"
         elif plan.use_list:

@@ -24,9 +24,10 @@ from typing import Any
 import numpy as np
 
 from benchlab.errors import InputError, SafetyError
+from benchlab.kinds import Fixture, SweepMode
 
-FIXTURES = ("resistor", "smu")
-MODES = ("targets", "voltages", "currents")
+FIXTURES = tuple(Fixture)
+MODES = tuple(SweepMode)
 CURRENT_FROM = ("meter", "resistor")
 REFERENCE_CURRENT_A = 250e-6
 READBACK_RESOLUTION_V = 1e-3  # datasheet VGS(th) test current with VDS = VGS (common practice)
@@ -166,7 +167,7 @@ class SweepPlan:
         """Smallest current (A) the bench can tell from zero: ``detect_current_a``, or, when the current
         comes from the resistor drop, three steps of a 1 mV supply readback over R (a typical readback
         resolution, common practice)."""
-        if self.fixture == "resistor" and self.current_from == "resistor" and self.series_resistor_ohm > 0:
+        if self.fixture == Fixture.RESISTOR and self.current_from == "resistor" and self.series_resistor_ohm > 0:
             return max(self.detect_current_a, 3 * READBACK_RESOLUTION_V / self.series_resistor_ohm)
         return self.detect_current_a
 
@@ -268,19 +269,19 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
         raise InputError(f"max_duration_s must be a positive number of seconds, got {plan.max_duration_s!r}")
     if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
-    if plan.fixture == "resistor":
+    if plan.fixture == Fixture.RESISTOR:
         _positive("series resistor (ohm)", plan.series_resistor_ohm)
         if not (math.isfinite(plan.series_resistor_tolerance) and 0 <= plan.series_resistor_tolerance < 0.5):
             raise InputError(f"series resistor tolerance must be a fraction from 0 to below 0.5, got "
                              f"{plan.series_resistor_tolerance!r}")
-        if plan.mode == "currents":
+        if plan.mode == SweepMode.CURRENTS:
             raise InputError("forcing currents needs a source-measure unit (fixture 'smu')")
         if plan.use_list:
             raise InputError("list sweeps need a source-measure unit (fixture 'smu')")
         if plan.current_from not in CURRENT_FROM:
             raise InputError(f"unknown current source '{plan.current_from}' (expected one of "
                              f"{', '.join(CURRENT_FROM)})")
-    if plan.mode == "voltages":
+    if plan.mode == SweepMode.VOLTAGES:
         if not plan.voltages:
             raise InputError("a voltage-list sweep needs at least one voltage")
         for v in plan.voltages:
@@ -290,11 +291,11 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
                 raise SafetyError(f"sweep voltage {v:g} V is above the bench limit max_supply_v "
                                   f"{lim.max_supply_v:g} V")
             r_low = plan.worst_case_resistor_ohm()
-            if plan.fixture == "resistor" and line_worst_power(v, r_low, plan.current_limit()) > lim.max_power_w:
+            if plan.fixture == Fixture.RESISTOR and line_worst_power(v, r_low, plan.current_limit()) > lim.max_power_w:
                 raise SafetyError(f"sweep voltage {v:g} V through {r_low:g} ohm (the resistor less its tolerance) "
                                   f"could put up to {line_worst_power(v, r_low, plan.current_limit()):.3g} W "
                                   f"in the part, above max_power_w {lim.max_power_w:g} W")
-            if plan.fixture == "smu" and v * plan.current_limit() > lim.max_power_w:
+            if plan.fixture == Fixture.SMU and v * plan.current_limit() > lim.max_power_w:
                 # on a SMU all of the source power lands in the part: compliance x voltage bounds it
                 raise SafetyError(f"sweep voltage {v:g} V at compliance {plan.current_limit():g} A could put "
                                   f"{v * plan.current_limit():.3g} W in the part, above max_power_w "

@@ -11,8 +11,9 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
+from benchlab.kinds import PointStatus
 
-STATUSES = ("ok", "over_range", "compliance", "unsettled", "probe")
+STATUSES = tuple(PointStatus)
 CSV_COLUMNS = ("point", "time_s", "vgs", "id", "v_source", "i_source", "status", "direction", "spread_v")
 
 
@@ -47,7 +48,7 @@ class SweepPoint:
     id: float
     v_source: float
     i_source: float
-    status: str = "ok"
+    status: str = PointStatus.OK
     direction: str = "up"
     spread_v: float = 0.0
 
@@ -57,7 +58,7 @@ class SweepPoint:
     @property
     def usable(self) -> bool:
         """True when the reading can be fitted (finite, not over range)."""
-        return self.status in ("ok", "unsettled", "compliance") and math.isfinite(self.vgs) and math.isfinite(self.id)
+        return self.status in (PointStatus.OK, PointStatus.UNSETTLED, PointStatus.COMPLIANCE) and math.isfinite(self.vgs) and math.isfinite(self.id)
 
 
 @dataclass(frozen=True)
@@ -162,7 +163,7 @@ def vgs_at_current(points, current_a: float, floor_a: float = 0.0) -> float | No
         None when the data does not bracket the current.
     """
     usable = [p for p in points
-              if p.direction == "up" and p.usable and p.status != "compliance" and p.id > max(floor_a, 0.0)]
+              if p.direction == "up" and p.usable and p.status != PointStatus.COMPLIANCE and p.id > max(floor_a, 0.0)]
     if len(usable) < 2:
         return None
     ids = np.array([p.id for p in usable])

@@ -23,6 +23,7 @@ import numpy as np
 
 from benchlab.errors import InputError
 from benchlab.sweep.records import CSV_COLUMNS, STATUSES, SweepOutcome, SweepPoint
+from benchlab.kinds import PointStatus
 
 SESSION_FORMAT = "benchlab-session/1"
 SWEEP_FORMAT = "benchlab-sweep/1"
@@ -246,7 +247,7 @@ class SweepData:
 
     def usable_mask(self) -> np.ndarray:
         """Points fit for fitting: finite and not over range."""
-        ok = np.array([s != "over_range" for s in self.status], dtype=bool)
+        ok = np.array([s != PointStatus.OVER_RANGE for s in self.status], dtype=bool)
         return ok & np.isfinite(self.vgs) & np.isfinite(self.id)
 
     def to_dict(self) -> dict[str, Any]:

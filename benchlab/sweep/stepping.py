@@ -11,6 +11,7 @@ from typing import Sequence
 
 from benchlab.sweep.plan import SweepPlan
 from benchlab.sweep.records import SweepPoint
+from benchlab.kinds import Fixture, PointStatus
 
 # Sub-threshold slope assumed before two conducting points exist: n UT ln10 with n about 1.7
 # (S = n x 59.5 mV/decade at 300 K; Enz, Krummenacher, Vittoz 1995). A steeper guess would overshoot.
@@ -65,10 +66,10 @@ def overshoots(plan: SweepPlan, ups: Sequence[SweepPoint], point: SweepPoint, re
 
     Such a reading is recorded with status ``probe`` (kept, not fitted).
     """
-    if refinements >= MAX_REFINEMENTS or point.status != "ok":
+    if refinements >= MAX_REFINEMENTS or point.status != PointStatus.OK:
         return False
     floor = plan.detect_floor_a()
-    if any(p.status == "ok" and p.id >= floor for p in ups):
+    if any(p.status == PointStatus.OK and p.id >= floor for p in ups):
         return False  # the search is over: later points are targeted, not searched
     return point.id > 4.0 * max(plan.min_current_a, floor)
 
@@ -94,11 +95,11 @@ def next_adaptive_step(plan: SweepPlan, ups: Sequence[SweepPoint], level: float,
         When no further step may or need be taken (open part, limit, point cap).
     """
     lim = plan.limits
-    r = plan.series_resistor_ohm if plan.fixture == "resistor" else 0.0
+    r = plan.series_resistor_ohm if plan.fixture == Fixture.RESISTOR else 0.0
     if len(ups) >= plan.max_measured_points:
         raise StopStepping(f"stopped after {len(ups)} points (max_measured_points) below the top current")
     floor = plan.detect_floor_a()
-    conducting = [(p.vgs, p.id) for p in ups if p.status == "ok" and p.id >= floor]
+    conducting = [(p.vgs, p.id) for p in ups if p.status == PointStatus.OK and p.id >= floor]
     last = ups[-1]
     if not conducting:
         if math.isfinite(last.vgs) and last.vgs >= plan.max_search_v:
@@ -140,13 +141,13 @@ def check_reading(plan: SweepPlan, point: SweepPoint, previous: Sequence[SweepPo
     """
     lim = plan.limits
     floor = plan.detect_floor_a()
-    if point.status == "over_range":
+    if point.status == PointStatus.OVER_RANGE:
         recent = [p.status for p in list(previous)[-2:]] + [point.status]
-        if len(recent) == 3 and all(s == "over_range" for s in recent):
+        if len(recent) == 3 and all(s == PointStatus.OVER_RANGE for s in recent):
             raise StopStepping("three readings in a row over range")
         return
-    conducting = [p for p in previous if p.id >= max(10 * floor, 1e-5) and p.status == "ok"]
-    if conducting and point.status in ("ok", "compliance"):  # an unsettled reading proves no failure
+    conducting = [p for p in previous if p.id >= max(10 * floor, 1e-5) and p.status == PointStatus.OK]
+    if conducting and point.status in (PointStatus.OK, PointStatus.COMPLIANCE):  # an unsettled reading proves no failure
         last = conducting[-1]
         if point.id < floor and point.vgs > last.vgs:
             raise StopStepping("part failed open", f"failed open during the sweep at point {point.point}: it carried "
@@ -156,7 +157,7 @@ def check_reading(plan: SweepPlan, point: SweepPoint, previous: Sequence[SweepPo
             raise StopStepping("part failed short", f"failed short during the sweep at point {point.point}: "
                                                     f"{point.vgs * 1e3:.0f} mV across it at {point.id:.3g} A "
                                                     f"(was {last.vgs:.3f} V)")
-    if point.status == "compliance":
+    if point.status == PointStatus.COMPLIANCE:
         raise StopStepping("the source reached its current limit / compliance")
     if point.id >= lim.max_drain_a:
         raise StopStepping(f"reading reached max_drain_a ({lim.max_drain_a:g} A)")
