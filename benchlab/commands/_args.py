@@ -11,8 +11,9 @@ from benchlab.units import parse_quantity
 def library_option() -> argparse.ArgumentParser:
     """Parent parser with ``--library PATH`` (shared by every command that touches the library)."""
     parent = argparse.ArgumentParser(add_help=False)
-    parent.add_argument("--library", metavar="PATH",
-                        help="library file (default: $BENCHLAB_LIBRARY, else library.db in the user data folder)")
+    parent.add_argument("--library", metavar="PATH|URL",
+                        help="library file or postgresql://user@host/db URL (default: $BENCHLAB_LIBRARY, else "
+                             "library.db in the user data folder)")
     return parent
 
 

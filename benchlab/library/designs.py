@@ -43,9 +43,9 @@ class DesignStore:
             for r in records:
                 if r.state != "in_stock":
                     raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
-            cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
+            new_id = conn.insert("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
                                (utc_now(), str(design.get("kind") or design.get("mode") or ""), text))
-            design_id = int(cur.lastrowid)
+            design_id = new_id
             for position, r in enumerate(records):
                 conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
                              (design_id, r.id, position))
@@ -80,9 +80,9 @@ class DesignStore:
     def record_binning(self, scheme: Mapping[str, Any], members: Mapping[str, Sequence[PartRecord | str]]) -> int:
         """Store a binning: the scheme (plain JSON, e.g. current and window width) and the parts of each bin."""
         with self._lib.write() as conn:
-            cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
+            new_id = conn.insert("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
                                (utc_now(), to_json(dict(scheme))))
-            binning_id = int(cur.lastrowid)
+            binning_id = new_id
             for bin_name, parts in members.items():
                 for part in parts:
                     record = self._lib.get_part(part)

@@ -124,17 +124,17 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                 counts["parts"] += 1
                 sweep_ids = {}
                 for s in part.get("sweeps", []):
-                    cur = conn.execute(
+                    new_id = conn.insert(
                         "INSERT INTO sweeps (part_id, session_path, csv_path, session_id, started, complete, "
                         "classification, reason, sidecar_json, imported) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                         (pid, s.get("session_path"), s.get("csv_path"), s.get("session_id"), s.get("started"),
                          int(bool(s.get("complete", True))), s.get("classification"), s.get("reason"),
                          to_json(s.get("sidecar", {})), s.get("imported") or utc_now()))
-                    sweep_ids[s.get("key")] = int(cur.lastrowid)
+                    sweep_ids[s.get("key")] = new_id
                     pts = s.get("points", {})
                     conn.executemany(
                         "INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
-                        [(cur.lastrowid, int(p), finite_or_none(v), finite_or_none(i), str(st)) for p, v, i, st in
+                        [(new_id, int(p), finite_or_none(v), finite_or_none(i), str(st)) for p, v, i, st in
                          zip(pts.get("point", []), pts.get("vgs", []), pts.get("id", []), pts.get("status", []))])
                     counts["sweeps"] += 1
                 for f in part.get("fits", []):
@@ -149,18 +149,18 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                                  "VALUES (?, ?, ?, ?, ?)", (pid, h.get("changed_at") or utc_now(), h.get("old_state"),
                                                             h["new_state"], h.get("reason")))
             for d in data.get("designs", []):
-                cur = conn.execute("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
+                new_id = conn.insert("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
                                    (d.get("created") or utc_now(), d.get("kind", ""), to_json(d["design"])))
                 for m in d.get("parts", []):
                     conn.execute("INSERT INTO design_parts (design_id, part_id, position) VALUES (?, ?, ?)",
-                                 (cur.lastrowid, _member(lib, part_ids, m), int(m.get("at", 0))))
+                                 (new_id, _member(lib, part_ids, m), int(m.get("at", 0))))
                 counts["designs"] += 1
             for b in data.get("binnings", []):
-                cur = conn.execute("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
+                new_id = conn.insert("INSERT INTO binnings (created, scheme_json) VALUES (?, ?)",
                                    (b.get("created") or utc_now(), to_json(b["scheme"])))
                 for m in b.get("members", []):
                     conn.execute("INSERT INTO bin_members (binning_id, part_id, bin) VALUES (?, ?, ?)",
-                                 (cur.lastrowid, _member(lib, part_ids, m), str(m.get("at", ""))))
+                                 (new_id, _member(lib, part_ids, m), str(m.get("at", ""))))
                 counts["binnings"] += 1
     except (KeyError, TypeError, ValueError) as exc:
         raise LibraryError(f"malformed library export ({type(exc).__name__}: {exc}); nothing was imported") from exc

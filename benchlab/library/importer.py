@@ -110,13 +110,13 @@ def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
         part_id, state = int(row[0]), row[1]
         conn.execute("UPDATE parts SET classification = ? WHERE id = ?", (sweep.classification, part_id))
     sidecar = {k: v for k, v in sweep.sidecar.items() if k != "fits"}
-    cur = conn.execute(
+    new_id = conn.insert(
         "INSERT INTO sweeps (part_id, session_path, csv_path, session_id, started, complete, classification, "
         "reason, sidecar_json, imported) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (part_id, os.path.abspath(session.path), os.path.abspath(sweep.csv_path), session.id,
          sweep.sidecar.get("started"), int(sweep.complete), sweep.classification, sweep.reason or None,
          to_json(sidecar), utc_now()))
-    sweep_id = int(cur.lastrowid)
+    sweep_id = new_id
     conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
                      [(sweep_id, p, finite_or_none(v), finite_or_none(i), s)
                       for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status)])

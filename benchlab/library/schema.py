@@ -1,8 +1,10 @@
-"""Schema versions of the device library and the migrations between them.
+"""Schema versions of the device library and the migrations between them (one path for both backends).
 
-The schema version lives in ``PRAGMA user_version``. Migrations are the ordered ``.sql`` files of
-``benchlab/library/migrations/`` (``NNNN_name.sql`` migrates from version NNNN-1 to NNNN). Each one runs in
-its own transaction together with the version bump, so a crash mid-migration leaves the previous version.
+Migrations are the ordered ``.sql`` files of ``benchlab/library/migrations/`` (``NNNN_name.sql`` migrates
+from version NNNN-1 to NNNN), written in SQLite's dialect; the PostgreSQL backend translates their column
+types (:meth:`benchlab.library.backend.Database.ddl`). The version lives in ``PRAGMA user_version`` (SQLite)
+or the one-row table ``benchlab_schema`` (PostgreSQL). Each migration runs in its own transaction together
+with the version bump, so a crash mid-migration leaves the previous version.
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ from dataclasses import dataclass
 from importlib import resources
 
 from benchlab.errors import LibraryError
+from benchlab.library.backend import Database, SqliteDatabase
 
 _MIGRATION_NAME = re.compile(r"^(\d{4})_([a-z0-9_]+)\.sql$")
 
@@ -52,31 +55,37 @@ def latest_version() -> int:
     return len(load_migrations())
 
 
-def schema_version(connection: sqlite3.Connection) -> int:
-    """The database's ``PRAGMA user_version``."""
-    return int(connection.execute("PRAGMA user_version").fetchone()[0])
+def schema_version(db: Database | sqlite3.Connection) -> int:
+    """The database's schema version (0 for an empty database)."""
+    return _database(db).schema_version()
 
 
-def migrate(connection: sqlite3.Connection, target: int | None = None, *, path: str = "") -> int:
+def _database(db: Database | sqlite3.Connection) -> Database:
+    # tests hand in a bare sqlite3 connection to build old-version files
+    return SqliteDatabase(db, "") if isinstance(db, sqlite3.Connection) else db
+
+
+def migrate(db: Database | sqlite3.Connection, target: int | None = None, *, path: str = "") -> int:
     """Bring the database up to ``target`` (default: the latest version), one transaction per step.
 
     Parameters
     ----------
-    connection : sqlite3.Connection
-        Opened with ``isolation_level=None`` (transactions are explicit here).
+    db : Database or sqlite3.Connection
+        An open backend (a bare SQLite connection must be in autocommit mode, ``isolation_level=None``).
     target : int, optional
         Version to stop at; tests use it to build an old-version database.
     path : str
-        Database path, for error messages.
+        Database path or URL, for error messages.
 
     Returns
     -------
     int
         The schema version after migrating.
     """
+    db = _database(db)
     migrations = load_migrations()
     target = len(migrations) if target is None else target
-    current = schema_version(connection)
+    current = db.schema_version()
     if current > len(migrations):
         raise LibraryError(
             f"{path or 'library'}: schema version {current} is newer than this benchlab understands "
@@ -84,23 +93,22 @@ def migrate(connection: sqlite3.Connection, target: int | None = None, *, path: 
         )
     for migration in migrations[current:target]:
         try:
-            connection.execute("BEGIN IMMEDIATE")
+            db.begin_migration()
             # another process may have migrated while this one waited for the write lock
-            if schema_version(connection) >= migration.version:
-                connection.execute("COMMIT")
+            if db.schema_version() >= migration.version:
+                db.commit()
                 continue
             for statement in split_statements(migration.sql):
-                connection.execute(statement)
+                db.execute(db.ddl(statement))
             # the version bump shares the transaction: a crash leaves the previous version intact
-            connection.execute(f"PRAGMA user_version = {int(migration.version)}")
-            connection.execute("COMMIT")
-        except sqlite3.Error as exc:
-            if connection.in_transaction:
-                connection.execute("ROLLBACK")
+            db.set_schema_version(migration.version)
+            db.commit()
+        except db.errors as exc:
+            db.rollback()
             raise LibraryError(
                 f"{path or 'library'}: migration {migration.version} ({migration.name}) failed: {exc}"
             ) from exc
-    return schema_version(connection)
+    return db.schema_version()
 
 
 def split_statements(script: str) -> list[str]:

@@ -1,4 +1,5 @@
-"""The device library: one SQLite file (WAL mode, foreign keys on, every write in one transaction).
+"""The device library: a SQLite file (WAL mode, foreign keys on) or a PostgreSQL database, every write in one
+transaction (see :mod:`benchlab.library.backend`).
 
 All SQL is parameterized; labels, lots, notes and reasons never become part of a statement's text.
 """
@@ -8,16 +9,13 @@ from __future__ import annotations
 import json
 import math
 import os
-import re
-import sqlite3
-import time
 from contextlib import contextmanager
-from datetime import datetime, timezone
 from pathlib import Path
-from typing import Any, Callable, Iterable, Iterator, Mapping, Sequence
+from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 from benchlab.errors import LibraryError
 from benchlab.library import schema
+from benchlab.library.backend import Database, is_url, open_database
 from benchlab.library.designs import DesignStore
 from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, natural_key, to_json, utc_now
 from benchlab.models import DeviceParams
@@ -33,30 +31,18 @@ LEFT JOIN fits f ON f.id = (SELECT max(id) FROM fits WHERE part_id = p.id)
 """
 
 
-def default_library_path() -> Path:
+def default_library_path() -> Path | str:
     """Where the library lives unless ``--library`` says otherwise.
 
-    ``$BENCHLAB_LIBRARY`` when set, else ``user_data_dir("benchlab")/library.db`` (platformdirs).
+    ``$BENCHLAB_LIBRARY`` when set (a file path or a ``postgresql://`` URL, returned as text), else
+    ``user_data_dir("benchlab")/library.db`` (platformdirs).
     """
     env = os.environ.get(LIBRARY_ENV)
     if env:
-        return Path(env).expanduser()
+        return env.strip() if is_url(env.strip()) else Path(env).expanduser()
     from platformdirs import user_data_dir
 
     return Path(user_data_dir("benchlab")) / "library.db"
-
-
-def _switch_to_wal(connection: sqlite3.Connection, timeout_s: float) -> str:
-    # Several programs opening a new file at once: the switch needs the file to itself and SQLite
-    # answers "database is locked" at once instead of waiting (found by the concurrent-open test).
-    deadline = time.monotonic() + timeout_s
-    while True:
-        try:
-            return str(connection.execute("PRAGMA journal_mode = WAL").fetchone()[0])
-        except sqlite3.OperationalError as exc:
-            if "locked" not in str(exc) and "busy" not in str(exc) or time.monotonic() > deadline:
-                raise
-            time.sleep(0.01)
 
 
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
@@ -78,18 +64,18 @@ def _row_to_part(row: Sequence[Any]) -> PartRecord:
 
 
 class Library:
-    """An open device library. Use :meth:`open`; it is a context manager that closes the file.
+    """An open device library. Use :meth:`open`; it is a context manager that closes the connection.
 
     Parameters
     ----------
-    connection : sqlite3.Connection
-        An open connection in autocommit mode (``isolation_level=None``); transactions are explicit.
+    db : Database
+        An open backend (:func:`benchlab.library.backend.open_database`); transactions are explicit.
     path : str
-        The database path (for messages).
+        The file path or the URL without its password (for messages).
     """
 
-    def __init__(self, connection: sqlite3.Connection, path: str = ""):
-        self._conn = connection
+    def __init__(self, db: Database, path: str = ""):
+        self._db = db
         self.path = path
         self._in_write = False
         self.design_store = DesignStore(self)
@@ -102,8 +88,9 @@ class Library:
 
         Parameters
         ----------
-        path : path-like, optional
-            The database file; its folder is created when missing.
+        path : path-like or str, optional
+            The database file (its folder is created when missing), or a ``postgresql://`` URL of an
+            existing database (its tables are created on first use).
         timeout_s : float
             How long a write waits for another writer before giving up.
         create : bool
@@ -113,35 +100,24 @@ class Library:
         -------
         Library
         """
-        target = Path(path) if path is not None else default_library_path()
-        if target.exists() and target.is_dir():
-            raise LibraryError(f"{target}: is a folder, not a library file")
-        if not create and not target.exists():
-            raise LibraryError(f"{target}: no library here yet (add a part or import a session first, "
-                               f"or name another file with --library)")
+        target = path if path is not None else default_library_path()
+        target = str(target).strip() if is_url(str(target).strip()) else Path(target)
+        db = open_database(target, timeout_s=timeout_s, create=create)
         try:
-            target.parent.mkdir(parents=True, exist_ok=True)
-            connection = sqlite3.connect(str(target), isolation_level=None, timeout=timeout_s)
-        except (OSError, sqlite3.Error) as exc:
-            raise LibraryError(f"{target}: cannot open the library: {exc}") from exc
-        try:
-            connection.execute("PRAGMA foreign_keys = ON")
-            connection.execute(f"PRAGMA busy_timeout = {int(timeout_s * 1000)}")
-            mode = _switch_to_wal(connection, timeout_s)
-            if str(mode).lower() != "wal":
-                raise LibraryError(f"{target}: cannot switch the library to WAL mode (got {mode})")
-            schema.migrate(connection, path=str(target))
-        except sqlite3.DatabaseError as exc:
-            connection.close()
-            raise LibraryError(f"{target}: not a usable library file: {exc}") from exc
+            schema.migrate(db, path=db.target)
+        except db.errors as exc:
+            db.close()
+            if db.kind == "sqlite":
+                raise LibraryError(f"{db.target}: not a usable library file: {exc}") from exc
+            raise LibraryError(f"{db.target}: not a usable library database: {exc}") from exc
         except BaseException:
-            connection.close()
+            db.close()
             raise
-        return cls(connection, str(target))
+        return cls(db, db.target)
 
     def close(self) -> None:
-        """Close the database file."""
-        self._conn.close()
+        """Close the connection."""
+        self._db.close()
 
     def __enter__(self) -> "Library":
         return self
@@ -150,59 +126,78 @@ class Library:
         self.close()
 
     @property
-    def connection(self) -> sqlite3.Connection:
-        """The underlying connection (for the library's own modules and tests)."""
-        return self._conn
+    def connection(self) -> Database:
+        """The underlying backend (for the library's own modules and tests)."""
+        return self._db
+
+    @property
+    def backend(self) -> str:
+        """``sqlite`` or ``postgresql``."""
+        return self._db.kind
 
     # -- transactions ----------------------------------------------------------------------------
     @contextmanager
-    def write(self) -> Iterator[sqlite3.Connection]:
-        """One write transaction (``BEGIN IMMEDIATE``): everything inside commits together or not at all."""
+    def write(self) -> Iterator[Database]:
+        """One write transaction: everything inside commits together or not at all.
+
+        Writers take turns (SQLite: ``BEGIN IMMEDIATE``; PostgreSQL: an advisory lock held to the commit).
+        A lost connection is one ``LibraryError`` saying nothing of the change was kept.
+        """
         if self._in_write:
-            yield self._conn
+            yield self._db
             return
         try:
-            self._conn.execute("BEGIN IMMEDIATE")
-        except sqlite3.OperationalError as exc:
-            raise LibraryError(f"{self.path}: the library is busy (another program is writing): {exc}") from exc
+            self._db.begin_write()
+        except self._db.errors as exc:
+            raise self._failure(exc, "could not start a change") from exc
         self._in_write = True
         try:
-            yield self._conn
-        except sqlite3.Error as exc:
-            self._conn.execute("ROLLBACK")
-            raise LibraryError(f"{self.path}: the library refused the change, nothing was written: {exc}") from exc
+            yield self._db
+            self._db.commit()
+        except self._db.errors as exc:
+            self._db.rollback()
+            raise self._failure(exc, "the library refused the change") from exc
         except BaseException:
-            self._conn.execute("ROLLBACK")
+            self._db.rollback()
             raise
-        else:
-            self._conn.execute("COMMIT")
         finally:
             self._in_write = False
 
+    def _failure(self, exc: BaseException, what: str) -> LibraryError:
+        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        if self._db.is_connection_lost(exc):
+            return LibraryError(f"{self.path}: lost the connection to the library ({first}); nothing of this "
+                                f"change was written, the library is as it was")
+        return LibraryError(f"{self.path}: {what}, nothing was written: {first}")
+
     @contextmanager
-    def snapshot(self) -> Iterator[sqlite3.Connection]:
-        """A read transaction: several queries see one consistent state of the file."""
-        if self._in_write or self._conn.in_transaction:
-            yield self._conn
+    def snapshot(self) -> Iterator[Database]:
+        """A read transaction: several queries see one consistent state of the library."""
+        if self._in_write or self._db.in_transaction:
+            yield self._db
             return
-        self._conn.execute("BEGIN DEFERRED")
         try:
-            yield self._conn
+            self._db.begin_read()
+        except self._db.errors as exc:
+            raise self._failure(exc, "could not read") from exc
+        try:
+            yield self._db
         finally:
-            self._conn.execute("COMMIT")
+            if self._db.in_transaction:
+                self._db.commit()
 
     # -- lots ------------------------------------------------------------------------------------
     def lot_id(self, name: str, *, create: bool = False, description: str = "") -> int:
         """Database id of lot ``name``; created when ``create`` (inside the caller's transaction)."""
         name = _clean_name(name, "lot")
-        row = self._conn.execute("SELECT id FROM lots WHERE name = ?", (name,)).fetchone()
+        row = self._db.execute("SELECT id FROM lots WHERE name = ?", (name,)).fetchone()
         if row:
             return int(row[0])
         if not create:
             raise LibraryError(f"no lot named '{name}' in the library")
-        cur = self._conn.execute("INSERT INTO lots (name, description, created) VALUES (?, ?, ?)",
+        new_id = self._db.insert("INSERT INTO lots (name, description, created) VALUES (?, ?, ?)",
                                  (name, description, utc_now()))
-        return int(cur.lastrowid)
+        return new_id
 
     def lots(self) -> list[dict[str, Any]]:
         """Every lot with its part counts per state."""
@@ -250,29 +245,30 @@ class Library:
     def _insert_part(self, lot_id: int, label: str, polarity: str, package: str = "", notes: str = "",
                      state: str = "in_stock", reason: str | None = None,
                      classification: str | None = None, created: str | None = None) -> int:
-        try:
-            cur = self._conn.execute(
-                "INSERT INTO parts (lot_id, label, polarity, package, notes, state, reason, classification, "
-                "created) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (lot_id, label, polarity, package or "", notes or "", state, reason, classification,
-                 created or utc_now()))
-        except sqlite3.IntegrityError as exc:
-            if "UNIQUE" not in str(exc):
-                raise
-            lot = self._conn.execute("SELECT name FROM lots WHERE id = ?", (lot_id,)).fetchone()[0]
-            raise LibraryError(f"part '{lot}/{label}' already exists in the library") from exc
-        return int(cur.lastrowid)
+        # checked before the insert (inside the caller's write transaction, so no other writer can slip in):
+        # on PostgreSQL a failed statement would spoil the whole transaction
+        if self._db.execute("SELECT 1 FROM parts WHERE lot_id = ? AND label = ?", (lot_id, label)).fetchone():
+            lot = self._db.execute("SELECT name FROM lots WHERE id = ?", (lot_id,)).fetchone()[0]
+            raise LibraryError(f"part '{lot}/{label}' already exists in the library")
+        for what, text in (("package", package), ("notes", notes), ("reason", reason)):
+            if text and "\x00" in text:
+                raise LibraryError(f"part {label}: the {what} holds a NUL character")
+        return self._db.insert(
+            "INSERT INTO parts (lot_id, label, polarity, package, notes, state, reason, classification, "
+            "created) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (lot_id, label, polarity, package or "", notes or "", state, reason, classification,
+             created or utc_now()))
 
     def insert_fit(self, part_id: int, *, source: str, params: DeviceParams, stderr: Mapping | None = None,
                    flags: Iterable[str] = (), result: Mapping | None = None, sweep_id: int | None = None,
                    fitted_at: str | None = None, fitter_version: str | None = None) -> int:
         """Store a fit of a part (call inside :meth:`write`); it becomes the part's current curve."""
-        cur = self._conn.execute(
+        new_id = self._db.insert(
             "INSERT INTO fits (part_id, sweep_id, source, model, params_json, stderr_json, flags_json, "
             "result_json, fitted_at, fitter_version) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (part_id, sweep_id, source, params.model, to_json(params.to_dict()), to_json(dict(stderr or {})),
              to_json(list(flags)), to_json(dict(result or {})), fitted_at or utc_now(), fitter_version))
-        return int(cur.lastrowid)
+        return new_id
 
     def get_part(self, part: str | int | PartRecord) -> PartRecord:
         """A part by ``LABEL`` (when unique), ``LOT/LABEL``, database id or a record.
@@ -285,7 +281,7 @@ class Library:
         if isinstance(part, PartRecord):
             part = part.id
         if isinstance(part, int):
-            row = self._conn.execute(_PART_SELECT + "WHERE p.id = ?", (part,)).fetchone()
+            row = self._db.execute(_PART_SELECT + "WHERE p.id = ?", (part,)).fetchone()
             if row is None:
                 raise LibraryError(f"no part with id {part} in the library")
             return _row_to_part(row)
@@ -323,7 +319,7 @@ class Library:
             where.append("p.state = ?")
             args.append(_check_state(state))
         sql = _PART_SELECT + (("WHERE " + " AND ".join(where)) if where else "")
-        rows = self._conn.execute(sql, args).fetchall()
+        rows = self._db.execute(sql, args).fetchall()
         return sorted((_row_to_part(r) for r in rows), key=lambda p: (natural_key(p.lot), natural_key(p.label)))
 
     def set_state(self, part: str | int | PartRecord, state: str, reason: str | None = None) -> PartRecord:
@@ -338,21 +334,21 @@ class Library:
         return self.get_part(record.id)
 
     def _change_state(self, part_id: int, old: str | None, new: str, reason: str | None) -> None:
-        self._conn.execute("UPDATE parts SET state = ?, reason = ? WHERE id = ?", (new, reason, part_id))
-        self._conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
+        self._db.execute("UPDATE parts SET state = ?, reason = ? WHERE id = ?", (new, reason, part_id))
+        self._db.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
                            "VALUES (?, ?, ?, ?, ?)", (part_id, utc_now(), old, new, reason))
 
     def history(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
         """The part's state changes, oldest first."""
         record = self.get_part(part)
-        rows = self._conn.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
+        rows = self._db.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
                                   "WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
         return [{"changed_at": r[0], "old_state": r[1], "new_state": r[2], "reason": r[3]} for r in rows]
 
     def fits(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
         """Every fit of a part, oldest first, as plain data."""
         record = self.get_part(part)
-        rows = self._conn.execute(
+        rows = self._db.execute(
             "SELECT id, sweep_id, source, model, params_json, stderr_json, flags_json, fitted_at, fitter_version "
             "FROM fits WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
         return [{"id": r[0], "sweep_id": r[1], "source": r[2], "model": r[3], "params": json.loads(r[4]),
@@ -385,7 +381,7 @@ class Library:
     def fit_window(self, fit_id: int) -> tuple[float, float] | None:
         """The current range ``(i_min, i_max)`` (A) a fit was made on, or None when it has none
         (hand-entered curves, imports without a fit window)."""
-        row = self._conn.execute("SELECT result_json FROM fits WHERE id = ?", (int(fit_id),)).fetchone()
+        row = self._db.execute("SELECT result_json FROM fits WHERE id = ?", (int(fit_id),)).fetchone()
         try:
             window = (json.loads(row[0]).get("window") or {}) if row and row[0] else {}
             return float(window["i_min"]), float(window["i_max"])
@@ -415,14 +411,13 @@ class Library:
         return self.design_store.binning(binning_id)
 
     def info(self) -> dict[str, Any]:
-        """Path, schema version, journal mode and row counts."""
+        """Backend, where it is, schema version, row counts and backend facts (journal mode, server version)."""
         with self.snapshot() as conn:
             counts = {table: conn.execute(f"SELECT count(*) FROM {table}").fetchone()[0]  # fixed names, not input
                       for table in ("lots", "parts", "sweeps", "fits", "designs", "binnings")}
             version = schema.schema_version(conn)
-        return {"path": self.path, "schema_version": version, "schema_latest": schema.latest_version(),
-                "journal_mode": self._conn.execute("PRAGMA journal_mode").fetchone()[0],
-                "foreign_keys": bool(self._conn.execute("PRAGMA foreign_keys").fetchone()[0]), **counts}
+        return {"backend": self.backend, "path": self.path, "schema_version": version,
+                "schema_latest": schema.latest_version(), **self._db.facts(), **counts}
 
 
 def _clean_name(value: Any, what: str) -> str:

@@ -14,14 +14,20 @@ from typing import Any, Callable, Sequence
 from benchlab.errors import InputError, LibraryError
 from benchlab.library import (Library, PartRecord, default_library_path, export_library, import_library,
                               import_sessions as import_into)
+from benchlab.library.backend import is_url
 from benchlab.library.exchange import CSV_COLUMNS, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
 
 
-def library_path(path: str | os.PathLike | None = None) -> Path:
-    """The library file to use: ``--library`` when given, else ``$BENCHLAB_LIBRARY``, else the user data folder."""
-    return Path(path).expanduser() if path else default_library_path()
+def library_path(path: str | os.PathLike | None = None) -> Path | str:
+    """The library to use: ``--library`` when given, else ``$BENCHLAB_LIBRARY``, else the user data folder.
+
+    A file path comes back as a ``Path``, a ``postgresql://`` URL as text.
+    """
+    if not path:
+        return default_library_path()
+    return str(path).strip() if is_url(str(path).strip()) else Path(path).expanduser()
 
 
 def open_library(path: str | os.PathLike | None = None, *, create: bool = False) -> Library:

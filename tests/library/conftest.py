@@ -1,4 +1,5 @@
-"""Fixtures of the library tests."""
+"""Fixtures of the library tests: every test that takes ``lib`` (or ``library_target``) runs on both backends,
+SQLite and PostgreSQL (see tests/conftest.py)."""
 
 from __future__ import annotations
 
@@ -8,6 +9,6 @@ from benchlab.library import Library
 
 
 @pytest.fixture
-def lib(tmp_path):
-    with Library.open(tmp_path / "library.db") as library:
+def lib(library_target):
+    with Library.open(library_target) as library:
         yield library

@@ -22,8 +22,8 @@ def run(capsys, *argv):
     return code, out, err
 
 
-def test_parts_commands(capsys, tmp_path):
-    db = str(tmp_path / "lib.db")
+def test_parts_commands(capsys, library_target):
+    db = library_target
     code, out, _ = run(capsys, "parts", "add", "Q07", "--lot", "demo-bag", "--vth", "3.9", "--gm", "0.544",
                        "--library", db)
     assert code == 0 and "demo-bag/Q07" in out and "linear" in out
@@ -65,19 +65,21 @@ def test_parts_commands(capsys, tmp_path):
         assert lib.info()["parts"] == 3  # the refused adds wrote nothing
 
 
-def test_library_import_and_exports(capsys, tmp_path, monkeypatch):
-    db = tmp_path / "env.db"
+def test_library_import_and_exports(capsys, tmp_path, monkeypatch, library_target, new_library_target):
+    db = library_target
     monkeypatch.setenv("BENCHLAB_LIBRARY", str(db))  # no --library: the environment picks the file
     session = write_session(tmp_path, "20261202-101500-demo-bag", "demo-bag", demo_bag(5, duds=(1,)))
     code, out, _ = run(capsys, "library", "import", str(session), "--no-refit", "--json")
     summary = json.loads(out)
     assert code == 0 and summary["fitted"] == 4 and summary["rejected"] == 1
-    assert db.exists()
+    with Library.open(db) as lib:  # the environment's library holds the import
+        assert len(lib.parts(state=None)) == 5
 
     code, out, _ = run(capsys, "library", "lots")
     assert re.search(r"demo-bag\s+5\s+4\s+0\s+0\s+1", out)
     code, out, _ = run(capsys, "library", "info")
-    assert "journal_mode: wal" in out and "parts: 5" in out
+    assert "parts: 5" in out and f"backend: {'postgresql' if '://' in db else 'sqlite'}" in out
+    assert ("journal_mode: wal" in out) == ("://" not in db)
 
     out_csv = tmp_path / "parts.csv"
     assert run(capsys, "export", "csv", "--state", "in_stock", "--out", str(out_csv))[0] == 0
@@ -89,7 +91,7 @@ def test_library_import_and_exports(capsys, tmp_path, monkeypatch):
     assert len(data["parts"]) == 5
     dump = tmp_path / "dump.json"
     dump.write_text(out)
-    other = tmp_path / "other.db"
+    other = new_library_target()
     code, out, _ = run(capsys, "library", "import-json", str(dump), "--library", str(other))
     assert code == 0 and "5 parts" in out
     code, _, err = run(capsys, "library", "import-json", str(dump), "--library", str(other))
@@ -103,8 +105,8 @@ def test_library_import_and_exports(capsys, tmp_path, monkeypatch):
 
 
 @pytest.mark.ngspice
-def test_exported_spice_cards_reproduce_the_stored_curves_in_ngspice(capsys, tmp_path, ngspice_path):
-    db = str(tmp_path / "lib.db")
+def test_exported_spice_cards_reproduce_the_stored_curves_in_ngspice(capsys, tmp_path, ngspice_path, library_target):
+    db = library_target
     run(capsys, "parts", "add", "Q-1", "--lot", "bag", "--vth", "2.9", "--kp", "1.3", "--library", db)
     run(capsys, "parts", "add", "Q 2", "--lot", "bag", "--vth", "3.1", "--kp", "0.9", "--theta", "0.12",
         "--library", db)
@@ -139,8 +141,8 @@ def test_read_commands_do_not_create_a_library(capsys, tmp_path):
     assert not missing.exists() and not missing.parent.exists() and not (tmp_path / "r").exists()
 
 
-def test_spice_export_keeps_polarity_and_names_by_label(capsys, tmp_path):
-    db = str(tmp_path / "lib.db")
+def test_spice_export_keeps_polarity_and_names_by_label(capsys, library_target):
+    db = library_target
     run(capsys, "parts", "add", "QP1", "--polarity", "P", "--vth", "2.2", "--kp", "0.7", "--library", db)
     run(capsys, "parts", "add", "QN1", "--vth", "2.4", "--kp", "0.8", "--library", db)
     run(capsys, "parts", "add", "BARE", "--library", db)

@@ -38,11 +38,11 @@ def filled(lib, tmp_path):
     return lib, design_id
 
 
-def test_json_round_trip_is_lossless(filled, tmp_path):
+def test_json_round_trip_is_lossless(filled, tmp_path, new_library_target):
     lib, design_id = filled
     exported = export_library(lib)
     text = json.dumps(exported, allow_nan=False)  # RFC 8259 JSON: no NaN / Infinity tokens
-    with Library.open(tmp_path / "copy.db") as copy:
+    with Library.open(new_library_target()) as copy:
         counts = import_library(copy, json.loads(text))
         assert counts["parts"] == 7 and counts["designs"] == 1 and counts["binnings"] == 1
         assert _strip_volatile(export_library(copy)) == _strip_volatile(exported)
@@ -67,7 +67,7 @@ def test_filtered_export_and_conflicting_import_writes_nothing(filled, tmp_path)
     with pytest.raises(LibraryError, match="not a benchlab library export"):
         import_library(lib, {"parts": []})
     one_lot["parts"][0].update(lot="elsewhere", state="misplaced")  # not a part state: the CHECK refuses it
-    with pytest.raises(LibraryError, match="refused the change, nothing was written.*CHECK"):
+    with pytest.raises(LibraryError, match="(?i)refused the change, nothing was written.*check"):
         import_library(lib, one_lot)
     assert lib.info() == before
     # a fit with a missing number was imported, and then every listing of the library was a traceback

@@ -41,13 +41,13 @@ def _simulate(ngspice_path, tmp_path, name):
 
 
 @pytest.mark.ngspice
-def test_cli_import_refits_ngspice_sweeps_with_the_fitter(tmp_path, ngspice_path, capsys):
+def test_cli_import_refits_ngspice_sweeps_with_the_fitter(tmp_path, ngspice_path, capsys, library_target):
     parts = []
     for name in CARDS:
         vgs, i_d = _simulate(ngspice_path, tmp_path, name)
         parts.append({"label": name, "vgs": vgs, "id": i_d})
     session = write_session(tmp_path, "20261202-101500-spice", "spice-bag", parts)
-    db = str(tmp_path / "lib.db")
+    db = library_target
     assert main(["library", "import", str(session), "--library", db, "--json"]) == 0
     summary = json.loads(capsys.readouterr().out)
     assert summary["fitted"] == 2

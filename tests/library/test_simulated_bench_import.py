@@ -12,10 +12,10 @@ fitting = pytest.importorskip("benchlab.services.fitting")
 
 
 @pytest.mark.slow
-def test_demo_session_imports_with_the_same_fits_as_the_fit_command(tmp_path):
+def test_demo_session_imports_with_the_same_fits_as_the_fit_command(tmp_path, library_target):
     result = characterize.run_demo(tmp_path / "sessions", count=5, seed=1)
     session = next((tmp_path / "sessions").iterdir())
-    db = tmp_path / "lib.db"
+    db = library_target
     summary = library_service.import_sessions(db, [str(session)])
     run = fitting.fit_files([str(session)])
     records = {r.source.label: r.result for r in getattr(run, "records", run)}
