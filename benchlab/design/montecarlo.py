@@ -1,10 +1,12 @@
 """Seeded Monte Carlo of a current sink over resistor tolerance and fit uncertainties.
 
 Resistors are drawn uniformly inside their tolerance band (a worst-case-like choice; real
-resistor lots are often narrower). Each fitted parameter is drawn from a normal law with the
-fit's standard error, independently (the fitter's covariance is not used, so correlated
-VTH/KP errors make this spread somewhat pessimistic). Parameters are clipped to their valid
-ranges (KP, gm > 0, THETA >= 0, n >= 1).
+resistor lots are often narrower). Each part's fitted parameters are drawn together from a
+multivariate normal law with the fit's full covariance: its standard errors and the correlation
+coefficients the fitter stores beside them (``corr_<a>_<b>`` in ``stderr``; a threshold and KP
+fitted to one sweep are strongly correlated, and drawing them independently misstates a mirror's
+spread). A part stored without correlations (an older library, a hand entry) is drawn with
+independent parameters. Parameters are clipped to their valid ranges (KP, gm > 0, THETA >= 0, n >= 1).
 """
 
 from __future__ import annotations
@@ -18,6 +20,8 @@ from benchlab.design.mirror import solve_mirror_batch
 from benchlab.design.parts import Part, PartArrays
 
 _PERTURBED = ("vth", "kp", "theta", "n", "gm")
+_MODEL_PARAMS = {"linear": ("vth", "gm"), "square": ("vth", "kp"), "theta": ("vth", "kp", "theta"),
+                 "ekv": ("vth", "kp", "theta", "n")}
 
 
 def _spread(values: np.ndarray) -> dict[str, float]:
@@ -44,16 +48,31 @@ class MonteCarloResult:
                 "worst_error_p97_5": self.worst_error_p97_5}
 
 
+def covariance_of(part: Part) -> tuple[tuple[str, ...], np.ndarray]:
+    """The names and covariance matrix of ``part``'s fitted parameters (from ``stderr`` and its
+    ``corr_<a>_<b>`` entries; unknown errors count as 0, unknown correlations as 0)."""
+    names = tuple(n for n in _PERTURBED if n in _MODEL_PARAMS[part.params.model])
+    sd = np.array([float(part.stderr.get(n, 0.0) or 0.0) for n in names])
+    sd = np.where(np.isfinite(sd) & (sd > 0), sd, 0.0)
+    corr = np.eye(len(names))
+    for a in range(len(names)):
+        for b in range(a + 1, len(names)):
+            value = part.stderr.get(f"corr_{names[a]}_{names[b]}", part.stderr.get(f"corr_{names[b]}_{names[a]}"))
+            if isinstance(value, (int, float)) and np.isfinite(value):
+                corr[a, b] = corr[b, a] = float(np.clip(value, -1.0, 1.0))
+    return names, corr * np.outer(sd, sd)
+
+
 def perturbed_arrays(part: Part, samples: int, rng: np.random.Generator) -> PartArrays:
-    """``samples`` copies of ``part``'s curve with each parameter drawn from N(value, stderr)."""
+    """``samples`` copies of ``part``'s curve, its parameters drawn from N(value, covariance)."""
     base = PartArrays.from_params([part.params]).take(np.zeros(samples, dtype=int))
-    fields = {}
-    for name in _PERTURBED:
-        values = getattr(base, name).copy()
-        sigma = float(part.stderr.get(name, 0.0) or 0.0)
-        if sigma > 0 and np.isfinite(sigma):
-            values = values + rng.normal(0.0, sigma, samples)
-        fields[name] = values
+    fields = {name: getattr(base, name).copy() for name in _PERTURBED}
+    names, covariance = covariance_of(part)
+    if names and np.any(np.diag(covariance) > 0):
+        # eigh tolerates a covariance that rounding left a hair short of positive definite
+        draws = rng.multivariate_normal(np.zeros(len(names)), covariance, size=samples, method="eigh")
+        for k, name in enumerate(names):
+            fields[name] = fields[name] + draws[:, k]
     used = part.params.model
     fields["kp"] = np.maximum(fields["kp"], 1e-12) if used != "linear" else fields["kp"]
     fields["gm"] = np.maximum(fields["gm"], 1e-12) if used == "linear" else fields["gm"]

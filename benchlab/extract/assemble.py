@@ -14,7 +14,7 @@ import numpy as np
 from benchlab.errors import FitError
 from benchlab.extract import diagnostics
 from benchlab.extract.batch_thresholds import constant_current_stderr_batch, thresholds_batch
-from benchlab.extract.engine import PARAM_NAMES, BatchFit, model_current, solve_batch
+from benchlab.extract.engine import PARAM_NAMES, BatchFit, _current_and_jacobian, model_current, solve_batch
 from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NOT_CONVERGED,
                                      FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
 from benchlab.models import T_NOMINAL_K, DeviceParams, overdrive_at_current, thermal_voltage
@@ -56,25 +56,63 @@ def _delta_stderr(model, params, covariance, current, ut):
     return np.sqrt(np.clip(var_v, 0, None)), np.sqrt(np.clip(var_g, 0, None))
 
 
-def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current, ut):
-    # residual bootstrap: resample the relative residuals onto the fitted curve and refit all
-    # resamples in one batched solve
+def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current, ut, sigma):
+    # wild bootstrap (Wu, Annals of Statistics 14 (1986) 1261): each point keeps its own residual,
+    # sign-flipped at random (Rademacher) and scaled by 1 / (1 - h) for its leverage, on the fitted
+    # curve. A point's current residual holds its VGS noise seen through the slope, so both axes'
+    # noise and their changing size along the sweep stay in every resample (drawing the residuals
+    # of other points, as before, mixed near-threshold and high-current noise and read 2-3x small).
     used = mask > 0
     v = vgs[used]
-    fitted = model_current(model, v[None], p[None], ut)[0]
-    on = fitted > 0  # a hard cut-off model predicts nothing below its threshold
-    rel = i_d[used][on] / fitted[on] - 1.0
-    rel = rel - rel.mean() if rel.size else np.zeros(1)
-    draws = np.random.default_rng(seed).choice(rel, size=(resamples, v.size), replace=True)
-    # points the model puts below threshold keep their measured value in every resample
-    synthetic = np.where(on, np.maximum(fitted[None, :] * (1.0 + draws), 1e-30), i_d[used][None, :])
+    s = sigma[used] if sigma is not None else i_d[used]
+    fitted, columns = _current_and_jacobian(model, v[None], p[None], ut)
+    fitted = fitted[0]
+    jac = np.stack([c[0] / s for c in columns], axis=-1)
+    bread = np.linalg.pinv(jac.T @ jac)
+    leverage = np.clip(np.einsum("np,pq,nq->n", jac, bread, jac), 0.0, 0.95)
+    resid = (i_d[used] - fitted) / (1.0 - leverage)
+    signs = np.random.default_rng(seed).choice((-1.0, 1.0), size=(resamples, v.size))
+    synthetic = np.maximum(fitted[None, :] + signs * resid[None, :], 1e-30)
     fit = solve_batch(model, np.broadcast_to(v, synthetic.shape).copy(), synthetic, np.ones_like(synthetic),
-                      np.tile(p, (resamples, 1)), ut=ut, with_covariance=False)
+                      np.tile(p, (resamples, 1)), ut=ut, with_covariance=False,
+                      sigma=np.broadcast_to(s, synthetic.shape))
     spread = fit.params.std(axis=0, ddof=1)
+    covariance = np.atleast_2d(np.cov(fit.params, rowvar=False))
     if at_current is None:
-        return spread, None, None
+        return spread, None, None, covariance
     v_at, g_at = vgs_and_gm(model, fit.params, at_current, ut)
-    return spread, float(np.std(g_at, ddof=1)), float(np.std(v_at, ddof=1))
+    return spread, float(np.std(g_at, ddof=1)), float(np.std(v_at, ddof=1)), covariance
+
+
+# the size a standard error is judged against: the parameter itself, except the threshold (an
+# absolute 0.5 V: a threshold near 0 V is no less well known) and n, whose physical part is n - 1
+def poorly_determined(names, values, errors) -> list[str]:
+    """Fitted parameters whose standard error exceeds half their size (every parameter is checked).
+
+    Sizes: ``vth`` 1 V (so an error above 0.5 V), ``n`` its excess over the bound, n - 1, every
+    other parameter its own magnitude.
+    """
+    loose = []
+    for name, value, error in zip(names, values, errors):
+        size = 1.0 if name == "vth" else (value - 1.0 if name == "n" else abs(value))
+        if error is not None and np.isfinite(error) and error > 0.5 * size:
+            loose.append(f"{name} {value:.4g} +- {error:.2g}")
+    return loose
+
+
+def correlations(names, covariance) -> dict[str, float]:
+    """Correlation coefficients ``corr_<a>_<b>`` of the fitted parameters, from their covariance.
+
+    They travel with the standard errors (and into the library) so a Monte Carlo can draw the
+    parameters together: a threshold and KP fitted to one sweep are strongly correlated.
+    """
+    sd = np.sqrt(np.clip(np.diagonal(covariance), 0.0, None))
+    out = {}
+    for a in range(len(names)):
+        for b in range(a + 1, len(names)):
+            if sd[a] > 0 and sd[b] > 0 and np.isfinite(covariance[a, b]):
+                out[f"corr_{names[a]}_{names[b]}"] = float(np.clip(covariance[a, b] / (sd[a] * sd[b]), -1.0, 1.0))
+    return out
 
 
 def _optional(value) -> float | None:
@@ -83,7 +121,7 @@ def _optional(value) -> float | None:
 
 def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *, at_current, cc_current,
              reasons: list[str], criteria: list[dict], bootstrap: int, seed: int,
-             temperature_k: float = T_NOMINAL_K) -> list[FitResult]:
+             temperature_k: float = T_NOMINAL_K, sigma=None) -> list[FitResult]:
     """Results of one model's batched fit.
 
     Parameters
@@ -101,6 +139,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         As :func:`benchlab.extract.fit_batch`.
     reasons, criteria : list
         The model-choice explanation and AICc table per sweep.
+    sigma : ndarray, shape (B, N), optional
+        The point standard deviations (A) the fit was weighted with (default: relative residuals).
     """
     vgs, i_d, mask, points = stacked
     used = mask > 0
@@ -116,7 +156,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     with np.errstate(divide="ignore", invalid="ignore"):
         rel = np.where(used, fitted / i_d - 1.0, 0.0)
     n_used = used.sum(axis=1)
-    rms_rel = np.sqrt(fit.rss / np.maximum(n_used, 1))
+    rms_rel = np.sqrt((rel * rel).sum(axis=1) / np.maximum(n_used, 1))
     rms_abs = np.sqrt(np.where(used, (fitted - i_d) ** 2, 0.0).sum(axis=1) / np.maximum(n_used, 1))
     param_sd = np.sqrt(np.clip(np.diagonal(fit.covariance, axis1=1, axis2=2), 0.0, None))
     vth = params[:, 0]
@@ -155,9 +195,10 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             gm, v_at = float(gm_at[row]), float(vgs_at[row])
             gm_sd, vgs_sd = _optional(g_sd[row]), _optional(v_sd[row])
         method = "covariance"
+        covariance = fit.covariance[row]
         if bootstrap:
-            spread, gm_sd, vgs_sd = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
-                                               at_current, ut)
+            spread, gm_sd, vgs_sd, covariance = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
+                                               at_current, ut, None if sigma is None else sigma[row])
             sd = dict(zip(names, (float(x) for x in spread)))
             method = f"bootstrap/{int(bootstrap)}"
         row_thresholds = {"model": float(device.vth)}
@@ -179,13 +220,14 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         if not fit.converged[row]:
             flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {int(fit.iterations[row])} "
                                                     "iterations"))
-        size = {"vth": 1.0, "kp": device.kp, "gm": device.gm}
-        if any(name in sd and sd[name] > 0.5 * abs(ref) for name, ref in size.items() if ref):
-            flags_found.append((FLAG_UNCERTAIN, "a standard error exceeds half its parameter (vth: 0.5 V)"))
+        loose = poorly_determined(names, p, [sd[name] for name in names])
+        if loose:
+            flags_found.append((FLAG_UNCERTAIN, "standard error above half the parameter: " + ", ".join(loose)))
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
                   "theta": sd.get("theta"), "n": sd.get("n"),
                   "gm": gm_sd,
                   "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd}
+        stderr.update(correlations(names, covariance))
         u = used[row]
         window = {"i_min": float(i_d[row][u].min()), "i_max": float(i_d[row][u].max()),
                   "vgs_min": float(vgs[row][u].min()), "vgs_max": float(vgs[row][u].max()),

@@ -22,6 +22,7 @@ import numpy as np
 
 from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
+from benchlab.extract.eiv import effective_variance_fit
 from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, fit_stacked
 from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
@@ -121,7 +122,7 @@ def _choose(criteria: dict[str, float]) -> tuple[str, str]:
 
 
 def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start=None,
-               ut: float = thermal_voltage()):
+               ut: float = thermal_voltage(), weighted: bool = False):
     vgs, i_d, mask, valid = _stack(points, masks)
     need = len(PARAM_NAMES[model]) + 1
     for p, m in zip(points, masks):
@@ -129,7 +130,12 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
             where = f"{p.sweep.source}: " if p.sweep.source else ""
             raise FitError(f"{where}only {int(m.sum())} of the {p.id.size} points (measured {p.id.min():.3g} to "
                            f"{p.id.max():.3g} A) lie in the fit window; the {model} model needs at least {need}")
-    return fit_stacked(model, vgs, i_d, mask, start, ut=ut), (vgs, i_d, mask, valid)
+    fit = fit_stacked(model, vgs, i_d, mask, start, ut=ut)
+    if not weighted:
+        return fit, (vgs, i_d, mask, valid), None
+    # the reported fit: effective-variance weights for noise on both axes (see extract/eiv.py)
+    fit, sigma = effective_variance_fit(model, vgs, i_d, mask, fit.params, ut=ut)
+    return fit, (vgs, i_d, mask, valid), sigma
 
 
 def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
@@ -187,12 +193,13 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
     criteria: list[dict] = [{} for _ in points]
     fits: dict[str, tuple] = {}
     if model == "auto":
-        masks = [_window("square", p.id, window, at_current)[0] for p in points]
+        ranked = [_window("square", p.id, window, at_current) for p in points]
+        masks = [m for m, _ in ranked]
         for candidate in AUTO_CANDIDATES:
             usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
             if not usable:
                 continue
-            fit, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], ut=ut)
+            fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], ut=ut)
             for row, b in enumerate(usable):
                 criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]),
                                                len(PARAM_NAMES[candidate]))
@@ -205,14 +212,18 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
         # cache-sized groups: the batched arrays of a few hundred kB are about twice as fast
         for first in range(0, len(members), CHUNK_ROWS):
             group = members[first:first + CHUNK_ROWS]
-            masks = [_window(name, points[b].id, window, at_current) for b in group]
+            # automatic choice: the winner is reported on the window the models were ranked on
+            masks = ([ranked[b] for b in group] if model == "auto"
+                     else [_window(name, points[b].id, window, at_current) for b in group])
             start = None
             if name in fits:
                 # reuse the comparison fit as the start (it is the answer when the window is the same)
                 fit_c, row_of = fits[name]
                 start = np.array([fit_c.params[row_of[b]] for b in group])
-            fit, stacked = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start, ut=ut)
+            fit, stacked, sigma = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start, ut=ut,
+                                             weighted=True)
             done = assemble(name, [points[b].sweep for b in group], fit, stacked, [how for _, how in masks],
+                            sigma=sigma,
                             at_current=at_current, cc_current=cc_current, reasons=[reasons[b] for b in group],
                             criteria=[criteria[b] for b in group], bootstrap=bootstrap, seed=seed,
                             temperature_k=temperature_k)

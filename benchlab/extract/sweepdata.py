@@ -53,6 +53,7 @@ class Sweep:
     rows: np.ndarray
     source: str | None = None
     skipped: dict = field(default_factory=dict)
+    fold_backs: tuple = ()  # (row, vgs, id) where VGS and ID fell together far beyond the noise
 
     def select(self, direction: str) -> tuple[np.ndarray, np.ndarray]:
         """VGS and ID of one direction's points, sorted by rising current (then VGS)."""
@@ -74,8 +75,37 @@ class Sweep:
         return bool(np.any(self.direction == "up") and np.any(self.direction == "down"))
 
 
+def step_noise(values) -> float:
+    """Standard deviation of one reading's noise in a sequence taken in measurement order.
+
+    From second differences, which cancel a smooth curve's slope: for independent noise s they
+    scatter as N(curvature, 6 s^2); the median absolute value / 0.6745 is robust to the few
+    places a sweep bends sharply (MAD estimate, Hampel, J. Am. Stat. Assoc. 69 (1974) 383).
+    """
+    values = np.asarray(values, float)
+    if values.size < 5:
+        return 0.0
+    d2 = np.diff(values, 2)
+    return float(np.median(np.abs(d2)) / (0.6745 * np.sqrt(6.0)))
+
+
+# a joint step back (VGS and ID both against the sweep's direction) is noise unless both steps
+# exceed this many standard deviations of a difference of two readings (our choice: normal noise
+# passes 5 sigma about once in 3 million steps)
+REVERSAL_NOISE_SIGMAS = 5.0
+
+
+def _significant_back(vgs, i_d, sign):
+    """Steps (between consecutive points) where VGS and ID both go back by far more than the noise."""
+    dv, di = sign * np.diff(vgs), sign * np.diff(i_d)
+    sv = step_noise(vgs) * np.sqrt(2.0) * REVERSAL_NOISE_SIGMAS
+    # the current's noise taken relative to the reading (it grows with the current)
+    si = step_noise(np.log(np.maximum(np.abs(i_d), 1e-300))) * np.sqrt(2.0) * REVERSAL_NOISE_SIGMAS
+    return (dv < -sv) & (di < -si * np.abs(i_d[1:]))
+
+
 def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None = None,
-                    skipped: dict | None = None) -> Sweep:
+                    skipped: dict | None = None, ordered: bool = False) -> Sweep:
     """Check measured points and wrap them as a :class:`Sweep`.
 
     Parameters
@@ -91,6 +121,11 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
         File name to name in errors.
     skipped : dict, optional
         Counts of points already left out, carried into the result.
+    ordered : bool
+        The order is known to be the measurement order (a session record's point index or
+        source setpoint): VGS and ID falling together far beyond the sweep's own noise is then a
+        heating fold-back, kept and reported in ``fold_backs``, not a row out of order. Joint
+        steps back within the noise (meter noise where the part is steep) are always accepted.
 
     Returns
     -------
@@ -134,13 +169,14 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
         raise InputError(f"vgs {vgs[big[0]]:g} looks like mV, not V (the vgs column must be in volts)",
                          path=source, row=int(rows[big[0]]))
     if direction is None:
-        direction = _infer_direction(vgs, i_d, rows, source)
+        direction = _infer_direction(vgs, i_d, rows, source, ordered)
     else:
         direction = np.asarray([str(d).strip().lower() for d in direction])
         unknown = np.flatnonzero(~np.isin(direction, DIRECTIONS))
         if unknown.size:
             raise InputError(f"direction '{direction[unknown[0]]}' is not 'up' or 'down'", path=source,
                              row=int(rows[unknown[0]]))
+    folds = []
     for name, sign in (("up", 1.0), ("down", -1.0)):
         idx = np.flatnonzero(direction == name)
         dv, di = sign * np.diff(vgs[idx]), sign * np.diff(i_d[idx])
@@ -149,14 +185,17 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
             k = idx[1:][same][0]
             raise InputError(f"duplicate point: vgs {vgs[k]:g} V, id {i_d[k]:g} A repeats the row before",
                              path=source, row=int(rows[k]))
-        # VGS alone may step back by meter noise where the part is steep; both VGS and ID
-        # going backwards means the rows are out of order
-        back = (dv < 0) & (di < 0)
-        if np.any(back):
+        # VGS alone may step back by meter noise where the part is steep, and both together by a
+        # little; both going back by far more than the noise means the rows are out of order (or,
+        # in a record whose order is known, that the part folded back as it heated)
+        back = _significant_back(vgs[idx], i_d[idx], sign) if idx.size > 1 else np.zeros(0, bool)
+        if np.any(back) and not ordered:
             k = idx[1:][back][0]
             raise InputError(f"unsorted point: vgs {vgs[k]:g} V, id {i_d[k]:g} A goes back against the "
                              f"{name} sweep's order", path=source, row=int(rows[k]))
-    return Sweep(vgs=vgs, id=i_d, direction=direction, rows=rows, source=source, skipped=dict(skipped or {}))
+        folds += [(int(rows[k]), float(vgs[k]), float(i_d[k])) for k in idx[1:][back]]
+    return Sweep(vgs=vgs, id=i_d, direction=direction, rows=rows, source=source, skipped=dict(skipped or {}),
+                 fold_backs=tuple(folds))
 
 
 def _plainly_good(vgs, i_d) -> bool:
@@ -168,24 +207,27 @@ def _plainly_good(vgs, i_d) -> bool:
                 and np.isfinite(vgs[-1]) and np.isfinite(i_d[-1]))
 
 
-def _infer_direction(vgs, i_d, rows, source):
-    # a rising sweep, then at most one turn into a falling pass; a step counts as falling
-    # when both VGS and ID fall (VGS alone can jitter back by meter noise)
-    steps_v, steps_i = np.diff(vgs), np.diff(i_d)
-    falling = (steps_v < 0) & (steps_i < 0)
-    rising = (steps_v > 0) & (steps_i > 0)
+def _infer_direction(vgs, i_d, rows, source, ordered=False):
+    # a rising sweep, then at most one turn into a falling pass. A step counts as falling when
+    # VGS and ID both fall by more than the noise (either alone, or both by a little, is meter noise)
+    falling = _significant_back(vgs, i_d, 1.0)
+    rising = _significant_back(vgs, i_d, -1.0)
     direction = np.full(vgs.size, "up", dtype=object)
     if not np.any(falling):
         return direction.astype(str)
-    turn = int(np.flatnonzero(falling)[0])
-    if turn == 0 and not np.any(rising):
+    if not np.any(rising) and np.all(np.diff(i_d)[:3] < 0):
         direction[:] = "down"
         return direction.astype(str)
-    later = np.flatnonzero(rising[turn:])
-    if turn == 0 or later.size:
-        k = turn + 1 + (int(later[0]) if turn and later.size else 0)
+    first = int(np.flatnonzero(falling)[0])
+    # the turn is the top of the rising pass (the last steps before it may be small)
+    turn = int(np.argmax(i_d[:first + 1]))
+    later = np.flatnonzero(rising[first:])
+    if (turn == 0 or later.size) and not ordered:
+        k = first + 1 + (int(later[0]) if later.size else 0)
         raise InputError(f"unsorted point: vgs {vgs[k]:g} V is out of order (expected a rising sweep, "
                          "optionally followed by one falling pass)", path=source, row=int(rows[k]))
+    if later.size:  # an ordered record that rises again after falling: one rising pass that folded back
+        return direction.astype(str)
     direction[turn + 1:] = "down"
     return direction.astype(str)
 

@@ -1,0 +1,69 @@
+"""Automatic model choice and the "poorly determined" flag, on ngspice data.
+
+Source of truth: ngspice level 1 (square law, no THETA, no subthreshold current) and level 3 (THETA)
+cards of a diode-connected part on a resistor line, read with meter noise in numpy.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from benchlab.extract import fit_batch, fit_sweep
+
+from .conftest import meter_readings
+
+pytestmark = pytest.mark.ngspice
+
+R_SERIES = 470.0
+LEVEL1 = ".model NMOD NMOS (LEVEL=1 VTO=2.1 KP=0.9)"
+LEVEL3 = ".model NMOD NMOS (LEVEL=3 VTO=2.85 KP=2.4 THETA=0.3)"
+
+
+def test_auto_choice_on_level1_never_worse_than_the_square_law(spice):
+    v_supply, v_part, _ = spice.resistor_sweep(LEVEL1, resistor=R_SERIES, step=0.05)
+    rng = np.random.default_rng(21)
+    sweeps = []
+    for _ in range(30):
+        vgs, i_d = meter_readings(v_supply, v_part, R_SERIES, rng)
+        # plus 0.05 % of reading on both axes, so the richer models have noise to chase
+        sweeps.append((vgs * (1 + rng.normal(0, 5e-4, vgs.size)), i_d * (1 + rng.normal(0, 5e-4, i_d.size))))
+    for (vgs, i_d), result in zip(sweeps, fit_batch(sweeps)):
+        window = (result.window["i_min"], result.window["i_max"])
+        square = fit_sweep(vgs, i_d, model="square", window=window)
+        # ranked and reported on the same points: the winner fits them at least as well as the square law
+        assert result.window["points"] == square.window["points"]
+        assert result.rms_relative <= square.rms_relative * (1 + 1e-6), result.reason
+        # ngspice level 1, VTO = 2.1 V: whatever wins, the threshold is the card's
+        assert abs(result.vth - 2.1) < 0.01, result.reason
+
+
+def test_poorly_determined_flag_looks_at_theta(spice):
+    v_supply, v_part, _ = spice.resistor_sweep(LEVEL3, resistor=R_SERIES, step=0.05)
+    rng = np.random.default_rng(22)
+    clean_v, clean_i = meter_readings(v_supply, v_part, R_SERIES, rng)
+    vgs, i_d = clean_v * (1 + rng.normal(0, 5e-4, clean_v.size)), clean_i * (1 + rng.normal(0, 5e-4, clean_i.size))
+    # 0.05 % noise on both axes over 1-20 mA pins the threshold and KP but not the bend of THETA
+    loose = fit_sweep(vgs, i_d, model="theta", window=(1e-3, 2e-2))
+    assert loose.stderr["vth"] < 0.5 and loose.stderr["kp"] < 0.5 * loose.kp
+    assert loose.stderr["theta"] > 0.5 * loose.theta
+    assert "parameters_poorly_determined" in loose.flags
+    assert any(note.startswith("standard error above half") and "theta" in note for note in loose.notes)
+    # the whole sweep read by a quieter meter does (ngspice THETA = 0.3 1/V)
+    full = fit_sweep(clean_v, clean_i, model="theta")
+    assert full.stderr["theta"] < 0.5 * full.theta
+    assert "parameters_poorly_determined" not in full.flags
+
+
+def test_auto_reports_the_winner_on_the_window_it_was_ranked_on():
+    # a curve with a weak-inversion tail (EKV, n = 1.5) and THETA: ekv wins the comparison on the
+    # top two decades, and the reported fit must be that one, not a re-fit over all eight decades
+    from benchlab.models import DeviceParams
+
+    part = DeviceParams("ekv", vth=2.0, kp=1.0, theta=0.2, n=1.5)
+    currents = np.geomspace(1e-8, 0.3, 120)
+    rng = np.random.default_rng(23)
+    result = fit_sweep(part.vgs_at(currents), currents * (1 + rng.normal(0, 1e-4, currents.size)))
+    assert result.model == "ekv", result.reason
+    assert result.window["i_min"] >= 0.3 / 100 * 0.999
+    assert result.window["points"] < 120
