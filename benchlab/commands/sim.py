@@ -17,7 +17,8 @@ _FAULT_HELP = (
     "Kinds: slow=S[/N] (replies S seconds late, after N messages), mute=N (no replies after N messages), hang=N (neither "
     "executes nor replies after N messages), drop=N (connection closed at message N), "
     "error=HEADER[/CODE] (that command refused with CODE, default -240), garble=N (N-th reply garbled), "
-    "open=N / short=N (the part fails open / short after N readings). Repeat for several."
+    "open=N / short=N (the part fails open / short after N readings), pull=N (the operator pulls the N-th part "
+    "out in the middle of its sweep; with --handling). Repeat for several."
 )
 
 
@@ -52,6 +53,10 @@ def register(subparsers) -> None:
                         help="extra real delay per message in seconds, like a LAN (default 0)")
     parser.add_argument("--resistor", type=float, default=DEFAULT_SERIES_RESISTOR_OHM, metavar="OHM",
                         help=f"nominal series resistor of the resistor fixture (default {DEFAULT_SERIES_RESISTOR_OHM:g})")
+    parser.add_argument("--handling", type=float, default=0.0, metavar="SECONDS",
+                        help="simulate an operator: when the output goes off after a sweep the part is taken out "
+                             "(the fixture is empty), and the next part of the bag is seated SECONDS later "
+                             "(default 0: no operator, parts change on SIMulation:PART:NEXT)")
     parser.add_argument("--fault", action="append", default=[], metavar="SPEC", help=_FAULT_HELP)
     parser.add_argument("--log", metavar="FILE",
                         help="append every command and output change to FILE as JSON lines, flushed per entry")
@@ -66,7 +71,7 @@ def run(args: argparse.Namespace) -> int:
     config = SimConfig(
         fixture=args.fixture, seed=args.seed, bag_size=args.bag_size, time_scale=args.time_scale,
         latency_s=args.latency, faults=faults, series_resistor_nominal_ohm=args.resistor, log_path=args.log,
-        log_memory_entries=CLI_LOG_MEMORY_ENTRIES,
+        log_memory_entries=CLI_LOG_MEMORY_ENTRIES, handling_s=args.handling,
     )
     return serve_until_signalled(config, args.host, args.port)
 

@@ -53,6 +53,7 @@ class SimOptions:
     time_scale: float = 0.0
     faults: tuple[str, ...] = ()
     log_path: str | None = None
+    handling_s: float = 0.0  # the simulated operator's time to swap parts (0: parts change on command only)
 
 
 @dataclass
@@ -116,7 +117,8 @@ def start_simulator(options: SimOptions) -> tuple[Any, Any]:
     from benchlab.sim.bench import SimBench, SimConfig
 
     sim = SimBench(SimConfig(fixture=options.fixture, seed=options.seed, bag_size=options.bag_size,
-                             time_scale=options.time_scale, faults=tuple(options.faults), log_path=options.log_path))
+                             time_scale=options.time_scale, faults=tuple(options.faults), log_path=options.log_path,
+                             handling_s=options.handling_s))
     try:
         resources = sim.start(first_port=0)
         config = simulator_bench_config(resources, fixture=options.fixture,
@@ -178,7 +180,7 @@ def prepare(bench_path: str | None = None, sim: SimOptions | None = None, plan_o
         from benchlab.sim.faults import coerce_faults
 
         coerce_faults(sim.faults)  # a bad fault spec is bad input: refuse before starting anything
-        SimConfig(fixture=sim.fixture, seed=sim.seed, time_scale=sim.time_scale)
+        SimConfig(fixture=sim.fixture, seed=sim.seed, time_scale=sim.time_scale, handling_s=sim.handling_s)
         # the plan against the simulated bench's limits, with the nominal resistor, before anything starts
         nominal = simulator_bench_config({role: f"TCPIP0::127.0.0.1::{n}::SOCKET"
                                           for n, role in enumerate(("supply", "meter", "smu"), start=1)},

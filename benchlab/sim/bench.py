@@ -66,6 +66,10 @@ class SimConfig:
         JSON-lines log file, flushed per entry.
     log_memory_entries : int, optional
         Newest log entries kept in memory (``SimBench.log``); None keeps all. The log file keeps all anyway.
+    handling_s : float
+        The simulated operator's time to swap parts (virtual seconds; 0 = no operator, parts change only
+        on ``SIMulation:PART:NEXT``). With an operator, a source going off after a sweep empties the
+        fixture, and the next part of the bag is seated ``handling_s`` later.
     """
 
     fixture: str = "resistor"
@@ -84,6 +88,7 @@ class SimConfig:
     tau_thermal_s: float = 45.0
     log_path: str | None = None
     log_memory_entries: int | None = None
+    handling_s: float = 0.0
     fault_specs: tuple[FaultSpec, ...] = field(init=False, repr=False, compare=False, default=())
 
     def __post_init__(self) -> None:
@@ -98,7 +103,7 @@ class SimConfig:
             "series_resistor_nominal_ohm": self.series_resistor_nominal_ohm > 0,
             "series_resistor_tolerance": 0 <= self.series_resistor_tolerance < 0.5,
             "ambient_k": self.ambient_k > 0, "rth_k_per_w": self.rth_k_per_w >= 0,
-            "tau_thermal_s": self.tau_thermal_s > 0,
+            "tau_thermal_s": self.tau_thermal_s > 0, "handling_s": 0 <= self.handling_s <= 3600,
         }
         for name, ok in checks.items():
             if not (ok and math.isfinite(float(getattr(self, name)))):
@@ -141,7 +146,7 @@ class SimBench:
                                                     tau_thermal_s=cfg.tau_thermal_s)
         fixture = Fixture(cfg.fixture, resistor, supply_error, cfg.ambient_k)
         self.core = BenchCore(fixture, self.bag, self.clock, self.log, noise_seed=cfg.seed,
-                              faults=cfg.fault_specs)
+                              faults=cfg.fault_specs, handling_s=cfg.handling_s)
         self.instruments = {}
         self._servers: dict[str, InstrumentServer] = {}
         for number, (role, cls) in enumerate(zip(ROLES, (SimSupply, SimMeter, SimSmu)), start=1):

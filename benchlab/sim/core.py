@@ -21,6 +21,13 @@ from benchlab.sim.log import BenchLog
 from benchlab.sim.physics import PartPhysics
 
 POWER_LINE_CYCLE_S = 0.02  # 50 Hz mains
+# The simulated operator (``handling_s`` > 0) tells a sweep from a harmless probe by the source's current
+# limit: a source switched on with a limit or compliance above this is sweeping; at or below it, probing.
+OPERATOR_PROBE_LIMIT_A = 2e-3
+# A ``pull=N`` fault takes the N-th part of the bag out after this many readings of its sweep at which it
+# conducted more than PULL_CONDUCTING_A (so the sweep has seen it conduct, and sees it stop).
+PULL_AFTER_SWEEP_READINGS = 6
+PULL_CONDUCTING_A = 1e-4
 
 
 class BenchCore:
@@ -39,11 +46,15 @@ class BenchCore:
     noise_seed : int
         Seed of the measurement-noise generator.
     faults : tuple of FaultSpec
-        Only the DUT faults (``open``, ``short``) are used here.
+        Only the DUT faults (``open``, ``short``) and the operator's ``pull`` are used here.
+    handling_s : float
+        The simulated operator (0: none, parts change only on ``SIMulation:PART:NEXT``): when a source
+        goes off after a sweep the operator takes the part out (the fixture is empty), and seats the
+        next part of the bag ``handling_s`` virtual seconds later, once no source is sweeping.
     """
 
     def __init__(self, fixture: Fixture, bag: tuple[PartPhysics, ...], clock: VirtualClock, log: BenchLog,
-                 noise_seed: int = 0, faults: tuple[FaultSpec, ...] = ()):
+                 noise_seed: int = 0, faults: tuple[FaultSpec, ...] = (), handling_s: float = 0.0):
         self.lock = threading.RLock()
         self._wake = threading.Condition(self.lock)
         self.fixture = fixture
@@ -54,6 +65,12 @@ class BenchCore:
         self.part_index = 0
         self.readings_taken = 0
         self._dut_faults = sorted((f.count, f.kind) for f in faults if f.kind in ("open", "short"))
+        self._pull_parts = {f.count - 1 for f in faults if f.kind == "pull"}  # 0-based bag indices
+        self.handling_s = float(handling_s)
+        self._sweep_readings = 0  # readings taken by a sweeping source since the part was seated
+        self._conducting_readings = 0  # of those, the ones at which the part conducted
+        self._pending_index: int | None = None  # the operator's next part, while the fixture is empty
+        self._seat_at: float | None = None
         fixture.load(bag[0] if bag else None, clock.now())
         if not bag:
             self.part_index = -1
@@ -92,7 +109,16 @@ class BenchCore:
             label = self.fixture.part.label if self.fixture.part else "-"
             self.log.add("bench", "fault", f"part {label} failed {kind} after {count} readings", self.now())
         self.readings_taken += 1
-        return self.fixture.operating_point()
+        point = self.fixture.operating_point()
+        if self.sweeping():
+            self._sweep_readings += 1
+            if point.part_i > PULL_CONDUCTING_A:
+                self._conducting_readings += 1
+            if self.part_index in self._pull_parts and self._conducting_readings >= PULL_AFTER_SWEEP_READINGS:
+                self._pull_parts.discard(self.part_index)
+                self.take_out("pulled out in the middle of its sweep")
+                point = self.fixture.operating_point()
+        return point
 
     def noise(self, sigma: float) -> float:
         """One Gaussian noise sample of standard deviation ``sigma``."""
@@ -109,9 +135,41 @@ class BenchCore:
         state = self.fixture.sources
         return state.supply_on or state.smu_on
 
+    def sweeping(self) -> bool:
+        """True when a source is on with more than a probe's current limit (see OPERATOR_PROBE_LIMIT_A)."""
+        src = self.fixture.sources
+        if self.fixture.kind == "resistor":
+            return src.supply_on and src.supply_i_limit > OPERATOR_PROBE_LIMIT_A
+        limit = src.smu_i_compliance if src.smu_function == "VOLTAGE" else src.smu_level_i
+        return src.smu_on and limit > OPERATOR_PROBE_LIMIT_A
+
+    def take_out(self, why: str) -> None:
+        """The operator takes the part out of the fixture; the next is seated after the handling time."""
+        label = self.fixture.part.label if self.fixture.part is not None else "-"
+        self._pending_index = self.part_index + 1
+        self.part_index = -1
+        self.fixture.load(None, self.now())
+        self._sweep_readings = self._conducting_readings = 0
+        self._seat_at = self.now() + self.handling_s if self.handling_s > 0 else None
+        self.log.add("bench", "operator", f"{label} {why}", self.now())
+
+    def output_changed(self, on: bool) -> None:
+        """A source was switched: with an operator, a source going off after a sweep ends the part's turn."""
+        if not on and self.handling_s > 0 and self._sweep_readings > 0 and self.part_index >= 0:
+            self.take_out("taken out after its sweep")
+
+    def operator_tick(self) -> None:
+        """Seat the operator's next part once the handling time has passed and no source is sweeping."""
+        if self._seat_at is not None and self.now() >= self._seat_at and not self.sweeping():
+            self.next_part()
+
     def next_part(self) -> None:
         """Load the next part of the bag (index -1 and an empty fixture once the bag is used up)."""
-        if self.part_index >= 0:
+        self._seat_at = None
+        self._sweep_readings = self._conducting_readings = 0
+        if self._pending_index is not None:  # the fixture is empty between two parts
+            self.part_index, self._pending_index = self._pending_index, None
+        elif self.part_index >= 0:
             self.part_index += 1
         if self.part_index < 0 or self.part_index >= len(self.bag):
             self.part_index = -1

@@ -12,6 +12,8 @@ ROLE is ``supply``, ``meter``, ``smu`` or ``all`` (the default). Kinds:
 ``garble=N``     the N-th reply line of the instrument is garbled (digits turned into letters).
 ``open=N``       the part in the fixture fails open after N readings (counted over the whole bench).
 ``short=N``      the part fails short after N readings.
+``pull=N``       the operator pulls the N-th part of the bag (1-based) out of the fixture in the middle of its
+                 sweep (after 6 readings at which it conducted): the fixture is empty from then on.
 ``unsettled=V[/N]`` the instrument's readings never settle (after its first N readings, default 0):
                  volts readings swing +/-V/2 about the true value from one reading to the next, and a
                  SMU forcing volts sees its current swing by the same VGS wobble (a part oscillating).
@@ -25,7 +27,7 @@ from dataclasses import dataclass
 
 from benchlab.errors import InputError
 
-FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short", "unsettled")
+FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short", "unsettled", "pull")
 FAULT_ROLES = ("supply", "meter", "smu", "all")
 DEFAULT_INJECTED_ERROR = -240
 
@@ -122,7 +124,7 @@ def parse_fault(text: str) -> FaultSpec:
             raise InputError(f"fault '{raw}': the error code must be a standard one (-100 to -499, e.g. /-240) "
                              "or a positive device-specific one (1 to 32767); 0 means no error")
     else:
-        if not value.isdigit() or (kind in ("garble",) and int(value) < 1):
+        if not value.isdigit() or (kind in ("garble", "pull") and int(value) < 1):
             raise InputError(f"fault '{raw}': {kind} needs a whole count, e.g. {kind}=10")
     return FaultSpec(kind, role, value)
 

@@ -111,6 +111,7 @@ class SimInstrument:
             path: tuple[str, ...] = ()
             for text in units:
                 with self.core.lock:
+                    self.core.operator_tick()
                     if not self._execute_unit(text, path, replies):
                         break
                     path = self._path
@@ -173,6 +174,7 @@ class SimInstrument:
     def set_output_logged(self, on: bool) -> None:
         """Record an output change in the log (subclasses call it when the state really changes)."""
         self.core.log.add(self.ROLE, "output", "ON" if on else "OFF", self.core.now())
+        self.core.output_changed(on)
 
     def trigger(self) -> None:
         """``*TRG``: subclasses without a trigger system report -211."""
