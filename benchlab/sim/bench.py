@@ -61,7 +61,9 @@ class SimConfig:
     ambient_k : float
         Ambient temperature (K).
     rth_k_per_w, tau_thermal_s : float
-        Thermal resistance and time constant of every part.
+        Thermal resistance (junction to the fixture block) and time constant of every part.
+    tau_fixture_s : float
+        Time constant of the fixture block following its temperature setpoint (s).
     log_path : str, optional
         JSON-lines log file, flushed per entry.
     log_memory_entries : int, optional
@@ -86,6 +88,7 @@ class SimConfig:
     ambient_k: float = REFERENCE_TEMPERATURE_K
     rth_k_per_w: float = 62.0
     tau_thermal_s: float = 45.0
+    tau_fixture_s: float = 120.0
     log_path: str | None = None
     log_memory_entries: int | None = None
     handling_s: float = 0.0
@@ -104,6 +107,7 @@ class SimConfig:
             "series_resistor_tolerance": 0 <= self.series_resistor_tolerance < 0.5,
             "ambient_k": self.ambient_k > 0, "rth_k_per_w": self.rth_k_per_w >= 0,
             "tau_thermal_s": self.tau_thermal_s > 0, "handling_s": 0 <= self.handling_s <= 3600,
+            "tau_fixture_s": self.tau_fixture_s > 0,
         }
         for name, ok in checks.items():
             if not (ok and math.isfinite(float(getattr(self, name)))):
@@ -144,7 +148,7 @@ class SimBench:
         resistor, supply_error = _draw_errors(cfg)
         self.bag: tuple[PartPhysics, ...] = make_bag(cfg.seed, cfg.bag_size, rth_k_per_w=cfg.rth_k_per_w,
                                                     tau_thermal_s=cfg.tau_thermal_s)
-        fixture = Fixture(cfg.fixture, resistor, supply_error, cfg.ambient_k)
+        fixture = Fixture(cfg.fixture, resistor, supply_error, cfg.ambient_k, cfg.tau_fixture_s)
         self.core = BenchCore(fixture, self.bag, self.clock, self.log, noise_seed=cfg.seed,
                               faults=cfg.fault_specs, handling_s=cfg.handling_s)
         self.instruments = {}
@@ -247,6 +251,13 @@ class SimBench:
         with self.core.lock:
             self.core.catch_up()
             return self.core.fixture.temperature_k
+
+    @property
+    def fixture_temperature_k(self) -> float:
+        """Temperature of the fixture block now (K): what a perfect block sensor would read."""
+        with self.core.lock:
+            self.core.catch_up()
+            return self.core.fixture.block_k
 
     @property
     def virtual_time_s(self) -> float:

@@ -7,8 +7,11 @@ offset error) until the branch current would pass the current limit, then consta
 at the limit. ``smu`` fixture: the SMU straight across the part, forcing volts (current
 compliance) or amps (voltage compliance). Instruments of the other fixture see an open circuit.
 
-Junction temperature follows dT/dt = (T_amb + P Rth - T) / tau on the virtual clock, with
-P = V I of the part recomputed along the way (exact exponential steps of at most tau/20).
+The part sits on a fixture block (a heated block or a chamber) whose temperature T_b follows its
+setpoint with its own time constant: dT_b/dt = (T_set - T_b) / tau_b (T_set starts at the ambient).
+Junction temperature follows dT/dt = (T_b + P Rth - T) / tau on the virtual clock, with P = V I of
+the part recomputed along the way (exact exponential steps of at most min(tau, tau_b)/20). A
+thermistor on the block is the simulated temperature sensor.
 """
 
 from __future__ import annotations
@@ -21,6 +24,16 @@ from scipy.optimize import brentq
 from benchlab.sim.physics import PartPhysics, part_current, voltage_at_current
 
 FIXTURES = ("resistor", "smu")
+# The simulated block sensor: an NTC thermistor, 10 kohm at 25 degC, B = 3950 K (typical catalogue values,
+# common practice), read through the B-parameter equation R = R25 exp(B (1/T - 1/T25)).
+THERMISTOR_R25_OHM = 10_000.0
+THERMISTOR_T25_K = 298.15
+THERMISTOR_BETA_K = 3950.0
+
+
+def thermistor_ohm(temperature_k: float) -> float:
+    """Resistance of the simulated block thermistor at ``temperature_k`` (B-parameter equation)."""
+    return THERMISTOR_R25_OHM * math.exp(THERMISTOR_BETA_K * (1.0 / temperature_k - 1.0 / THERMISTOR_T25_K))
 
 
 @dataclass(frozen=True)
@@ -130,10 +143,13 @@ class Fixture:
     supply_error : SupplyError
         Supply setpoint error.
     ambient_k : float
-        Ambient temperature (K).
+        Ambient temperature (K); the block starts there and is set there until told otherwise.
+    tau_block_s : float
+        Time constant of the fixture block following its setpoint (s).
     """
 
-    def __init__(self, kind: str, resistor_ohm: float, supply_error: SupplyError, ambient_k: float):
+    def __init__(self, kind: str, resistor_ohm: float, supply_error: SupplyError, ambient_k: float,
+                 tau_block_s: float = 120.0):
         if kind not in FIXTURES:
             raise ValueError(f"unknown fixture {kind!r}")
         self.kind = kind
@@ -143,13 +159,25 @@ class Fixture:
         self.sources = SourceState()
         self.part: PartPhysics | None = None
         self.temperature_k = ambient_k
+        self.block_k = ambient_k
+        self.block_setpoint_k = ambient_k
+        self.tau_block_s = tau_block_s
         self._thermal_time = 0.0
 
     def load(self, part: PartPhysics | None, now: float) -> None:
-        """Put a part (or nothing) in the fixture; it starts at ambient temperature."""
+        """Put a part (or nothing) in the fixture; it starts at the block's temperature."""
+        self.advance(now)
         self.part = part
-        self.temperature_k = self.ambient_k
+        self.temperature_k = self.block_k
         self._thermal_time = now
+
+    def set_block(self, setpoint_k: float, now: float) -> None:
+        """Give the fixture block a new temperature setpoint (it moves there with ``tau_block_s``)."""
+        self.advance(now)
+        self.block_setpoint_k = setpoint_k
+
+    def _move_block(self, dt: float) -> None:
+        self.block_k = self.block_setpoint_k + (self.block_k - self.block_setpoint_k) * math.exp(-dt / self.tau_block_s)
 
     def fail(self, kind: str, now: float) -> None:
         """The part in the fixture fails ``open`` or ``short`` from now on."""
@@ -185,21 +213,27 @@ class Fixture:
         return OperatingPoint(smu_v=state.smu_v_compliance, smu_tripped=True)
 
     def advance(self, now: float) -> None:
-        """Integrate the junction temperature up to virtual time ``now``."""
+        """Integrate the block and junction temperatures up to virtual time ``now``."""
         elapsed = now - self._thermal_time
-        if elapsed <= 0 or self.part is None:
-            self._thermal_time = max(self._thermal_time, now)
+        if elapsed <= 0:
+            return
+        self._thermal_time = now
+        powered = self.sources.supply_on if self.kind == "resistor" else self.sources.smu_on
+        block_still = abs(self.block_k - self.block_setpoint_k) < 1e-9
+        if self.part is None or (not powered and block_still):
+            self._move_block(elapsed)
+            if self.part is not None:  # exact: a constant target
+                decay = math.exp(-elapsed / self.part.tau_thermal_s)
+                self.temperature_k = self.block_k + (self.temperature_k - self.block_k) * decay
             return
         tau = self.part.tau_thermal_s
         rth = self.part.rth_k_per_w
-        powered = self.sources.supply_on if self.kind == "resistor" else self.sources.smu_on
-        if not powered:
-            self.temperature_k = self.ambient_k + (self.temperature_k - self.ambient_k) * math.exp(-elapsed / tau)
-        else:
-            steps = min(400, max(1, math.ceil(elapsed / (tau / 20.0))))
-            step = elapsed / steps
-            for _ in range(steps):
-                power = max(0.0, self.operating_point().part_power_w)
-                steady = self.ambient_k + power * rth
-                self.temperature_k = steady + (self.temperature_k - steady) * math.exp(-step / tau)
-        self._thermal_time = now
+        scale = tau if block_still else min(tau, self.tau_block_s)
+        steps = min(400 if powered else 4000, max(1, math.ceil(elapsed / (scale / 20.0))))
+        step = elapsed / steps
+        for _ in range(steps):
+            self._move_block(step / 2.0)  # the block at the middle of the step drives the junction
+            power = max(0.0, self.operating_point().part_power_w) if powered else 0.0
+            steady = self.block_k + power * rth
+            self.temperature_k = steady + (self.temperature_k - steady) * math.exp(-step / tau)
+            self._move_block(step / 2.0)

@@ -12,7 +12,8 @@ import json
 import threading
 
 from benchlab.errors import InputError
-from benchlab.sim.core import BenchCore
+from benchlab.sim.core import POWER_LINE_CYCLE_S, BenchCore
+from benchlab.sim.fixture import thermistor_ohm
 from benchlab.sim.faults import RoleFaults
 from benchlab.sim.physics import REFERENCE_TEMPERATURE_K
 from benchlab.sim.scpi import (
@@ -49,7 +50,19 @@ COMMON_COMMANDS: tuple[CommandSpec, ...] = (
     CommandSpec("SIMulation:PART:LABel", True, "query_part_label"),
     CommandSpec("SIMulation:PART:TRUTh", True, "query_part_truth"),
     CommandSpec("SIMulation:TEMPerature", True, "query_temperature"),
+    CommandSpec("SIMulation:FIXTure:TEMPerature", False, "set_fixture_temperature", 1, 1),
+    CommandSpec("SIMulation:FIXTure:TEMPerature", True, "query_fixture_temperature"),
+    CommandSpec("SIMulation:FIXTure:SENSor[:TEMPerature]", True, "query_sensor_temperature"),
+    CommandSpec("SIMulation:FIXTure:SENSor:RESistance", True, "query_sensor_resistance"),
+    CommandSpec("SIMulation:CLOCk:ADVance", False, "command_advance_clock", 1, 1),
+    CommandSpec("SIMulation:CLOCk", True, "query_clock"),
 )
+
+# The simulated fixture block: settable from 250 K to 450 K (an invented heater/chiller range); its sensor reads
+# the block with this much noise (sigma, K), an invented but typical thermistor-readout figure.
+FIXTURE_MIN_K, FIXTURE_MAX_K = 250.0, 450.0
+SENSOR_NOISE_K = 0.01
+MAX_CLOCK_ADVANCE_S = 3600.0
 
 
 class SimInstrument:
@@ -256,3 +269,27 @@ class SimInstrument:
     def query_temperature(self, params: list[Param]) -> str:
         self.core.catch_up()
         return format_number(self.core.fixture.temperature_k)
+
+    def set_fixture_temperature(self, params: list[Param]) -> None:
+        setpoint = numeric_value(params[0], FIXTURE_MIN_K, FIXTURE_MAX_K, unit="K")
+        self.core.fixture.set_block(setpoint, self.core.now())
+        self.core.log.add(self.ROLE, "fixture", f"block setpoint {setpoint:.3f} K", self.core.now())
+
+    def query_fixture_temperature(self, params: list[Param]) -> str:
+        return format_number(self.core.fixture.block_setpoint_k)
+
+    def _sensed_block_k(self) -> float:
+        self.core.spend(POWER_LINE_CYCLE_S)  # one reading of the sensor takes a power-line cycle
+        return self.core.fixture.block_k + self.core.noise(SENSOR_NOISE_K)
+
+    def query_sensor_temperature(self, params: list[Param]) -> str:
+        return format_number(self._sensed_block_k())
+
+    def query_sensor_resistance(self, params: list[Param]) -> str:
+        return format_number(thermistor_ohm(self._sensed_block_k()))
+
+    def command_advance_clock(self, params: list[Param]) -> None:
+        self.core.spend(numeric_value(params[0], 0.0, MAX_CLOCK_ADVANCE_S, unit="S"))
+
+    def query_clock(self, params: list[Param]) -> str:
+        return format_number(self.core.now())
