@@ -18,6 +18,7 @@ from typing import IO, Any, Mapping
 from benchlab.errors import ConfigError
 from benchlab.instruments.profiles import LEGACY_ROLES, ROLES, Profile, legacy_role_message, load_profile
 from benchlab.units import parse_quantity
+from benchlab.instruments.thermal_config import ThermalConfig, parse_thermal
 from benchlab.instruments.transport import resource_kind
 from benchlab.kinds import Fixture
 
@@ -66,6 +67,7 @@ class BenchConfig:
     source_path: str | None = None  # file it was read from (None: built in)
     notes: dict[str, str] = field(default_factory=dict)
     series_resistor_power_w: float | None = None  # the resistor's power rating, when given
+    thermal: ThermalConfig | None = None  # fixture temperature sensor, control and limits (``[thermal]``)
 
     def roles(self) -> tuple[str, ...]:
         """The instrument roles this fixture connects, in connection order."""
@@ -79,7 +81,7 @@ class BenchConfig:
 # ---------------------------------------------------------------------------------------------
 # loading
 _TOP_KEYS = {"format_version", "fixture", "visa_library", "limits", "measurement", "series_resistor",
-             "instruments", "notes"}
+             "instruments", "notes", "thermal"}
 _LIMIT_UNITS = {"max_supply_v": "V", "max_drain_a": "A", "max_power_w": "W"}
 _MEASUREMENT_UNITS = {"settle_s": "s", "nplc": ""}
 _RESISTOR_KEYS = {"ohms", "tolerance", "power_rating_w"}
@@ -167,10 +169,11 @@ def parse_bench_config(data: Mapping[str, Any], *, path: str | None = None, base
         if not isinstance(value, str):
             raise fail(f"notes.{key}", "must be a string")
 
+    thermal = parse_thermal(data["thermal"], fail, limits.max_power_w) if "thermal" in data else None
     config = BenchConfig(fixture=fixture, instruments=instruments, limits=limits, series_resistor_ohm=ohms,
                          series_resistor_tolerance=tolerance, settle_s=settle_s, nplc=nplc,
                          visa_library=visa_library.strip(), source_path=path, notes=dict(notes),
-                         series_resistor_power_w=rating)
+                         series_resistor_power_w=rating, thermal=thermal)
     check_consistency(config, {role: load_profile(spec.profile, environ=environ)
                                for role, spec in instruments.items()}, path=path)
     return config
