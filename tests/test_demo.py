@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import base64
 import json
+import re
 import sqlite3
 import subprocess
 
@@ -55,8 +57,10 @@ def test_demo_netlist_runs_in_ngspice_with_the_predicted_currents(demo_run, ngsp
 def test_demo_writes_report_and_model_cards(demo_run):
     html = demo_run.report.read_text(encoding="utf-8")
     assert "demo-led-rack" in html
-    pngs = list(demo_run.report.parent.glob("*.png"))
-    assert len(pngs) >= 3 and all(p.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" for p in pngs)
+    # one self-contained file: the figures are embedded PNGs (PNG signature, W3C / ISO/IEC 15948 section 5.2)
+    images = re.findall(r'<img src="data:image/png;base64,([A-Za-z0-9+/=]+)"', html)
+    assert len(images) >= 10 and all(base64.b64decode(b)[:8] == b"\x89PNG\r\n\x1a\n" for b in images)
+    assert "MEETS the target" in html and "Resistors to buy" in html
     cards = demo_run.models.read_text()
     assert cards.count(".model ") == 1 + CHANNELS
     sidecars = list(demo_run.session.glob("*.json"))

@@ -54,12 +54,17 @@ def _float_list(text: str) -> list[float]:
         raise argparse.ArgumentTypeError(f"expected comma-separated volts, got {text!r}") from None
 
 
+def _operator(args, svc) -> str:
+    return svc.default_operator() if args.operator is None else args.operator
+
+
 def _add_bench_options(p: argparse.ArgumentParser) -> None:
     where = p.add_mutually_exclusive_group()
     where.add_argument("--bench", metavar="CONFIG", help="bench file (TOML, see docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="use the built-in simulated bench (started in process)")
     p.add_argument("--sessions", metavar="DIR", default="sessions", help="where sessions go (default ./sessions)")
-    p.add_argument("--operator", default="", help="who is at the bench (stored in the session)")
+    p.add_argument("--operator", help="who is at the bench, stored in the session and shown in reports "
+                                      "(default: the login name)")
     p.add_argument("--ambient", type=float, metavar="C", help="ambient temperature in degC (stored in the session)")
     p.add_argument("--points", type=int, help="target points of the sweep (default 24)")
     p.add_argument("--max-current", type=float, metavar="A", help="top target current (default 0.1 A)")
@@ -117,7 +122,7 @@ def run_sweep(args: argparse.Namespace) -> int:
     svc, handle, plan = _prepare(args)
     try:
         outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot, sessions_root=args.sessions,
-                                          operator=args.operator, ambient_c=args.ambient, on_event=ProgressBar(),
+                                          operator=_operator(args, svc), ambient_c=args.ambient, on_event=ProgressBar(),
                                           on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:
         handle.close()
@@ -144,7 +149,7 @@ def run_bag(args: argparse.Namespace) -> int:
     try:
         with svc.sigterm_as_exception():
             result = svc.sweep_bag(handle, plan, sessions_root=args.sessions, lot=args.lot, count=args.count,
-                                   operator=args.operator, ambient_c=args.ambient, resume=args.resume,
+                                   operator=_operator(args, svc), ambient_c=args.ambient, resume=args.resume,
                                    on_event=progress,
                                    on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:

@@ -81,6 +81,29 @@ def perturbed_arrays(part: Part, samples: int, rng: np.random.Generator) -> Part
     return PartArrays(code=base.code, ut=base.ut, **fields)
 
 
+def monte_carlo_currents(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part], *,
+                         samples: int, seed: int, resistor_tolerance: float,
+                         source_resistor_ohm: float = 0.0) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The drawn samples behind :func:`run_monte_carlo` (same arguments, same seed, same numbers).
+
+    Returns
+    -------
+    i_ref : ndarray
+        The reference current of each draw (A).
+    i_outs : list of ndarray
+        Each output's current of each draw (A).
+    """
+    rng = np.random.default_rng(seed)
+    resistors = resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, samples))
+    source = None
+    if source_resistor_ohm > 0:
+        source = source_resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, (samples, 1 + len(outputs))))
+    ref_arrays = perturbed_arrays(ref, samples, rng)
+    out_arrays = [perturbed_arrays(p, samples, rng) for p in outputs]
+    _, i_ref, i_outs = solve_mirror_batch(supply_v, resistors, ref_arrays, out_arrays, source)
+    return i_ref, list(i_outs)
+
+
 def run_monte_carlo(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part], *,
                     samples: int, seed: int, resistor_tolerance: float,
                     source_resistor_ohm: float = 0.0) -> MonteCarloResult:
@@ -107,14 +130,9 @@ def run_monte_carlo(supply_v: float, resistor_ohm: float, ref: Part, outputs: Se
     """
     if samples < 2:
         raise ValueError("the Monte Carlo needs at least 2 samples")
-    rng = np.random.default_rng(seed)
-    resistors = resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, samples))
-    source = None
-    if source_resistor_ohm > 0:
-        source = source_resistor_ohm * (1.0 + resistor_tolerance * rng.uniform(-1.0, 1.0, (samples, 1 + len(outputs))))
-    ref_arrays = perturbed_arrays(ref, samples, rng)
-    out_arrays = [perturbed_arrays(p, samples, rng) for p in outputs]
-    _, i_ref, i_outs = solve_mirror_batch(supply_v, resistors, ref_arrays, out_arrays, source)
+    i_ref, i_outs = monte_carlo_currents(supply_v, resistor_ohm, ref, outputs, samples=samples, seed=seed,
+                                         resistor_tolerance=resistor_tolerance,
+                                         source_resistor_ohm=source_resistor_ohm)
     per_output = []
     worst = 0.0
     for part, i_out in zip(outputs, i_outs):

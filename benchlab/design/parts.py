@@ -55,6 +55,13 @@ class Part:
         return {"label": self.label, "lot": self.lot, "part_id": self.part_id,
                 "params": self.params.to_dict(), "stderr": {k: (float(v) if v is not None else None) for k, v in self.stderr.items()}}
 
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> "Part":
+        """Inverse of :meth:`to_dict` (a part as a stored design keeps it); unknown stderr values are dropped."""
+        stderr = {k: float(v) for k, v in (data.get("stderr") or {}).items() if isinstance(v, (int, float))}
+        return cls(str(data["label"]), DeviceParams.from_dict(data["params"]), stderr=stderr,
+                   lot=str(data.get("lot") or ""), part_id=data.get("part_id"))
+
 
 _INLINE_KEYS = {"vth", "kp", "theta", "n", "gm", "model", "label", "temperature_k"}
 

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import textwrap
-from typing import Sequence
+from typing import Any, Mapping, Sequence
 
 from benchlab.design.matching import MatchResult, VgsBin
 from benchlab.design.sink import SinkDesign
@@ -13,70 +13,134 @@ def _pct(value: float) -> str:
     return f"{value * 100:+.3f} %"
 
 
-def format_sink_report(design: SinkDesign, design_id: int | None = None) -> str:
-    """The sink design as a readable report; it always ends with the cautions."""
-    lines = []
-    title = "Current sink design" if design.mode == "synthesis" else "Current sink analysis"
-    lines.append(title + (f" (saved as design {design_id}, parts reserved)" if design_id is not None else ""))
-    lines.append(f"  supply          {format_si(design.supply, 'V', 4)}")
-    if design.i_target is not None:
-        lines.append(f"  target current  {format_si(design.i_target, 'A', 4)}")
-        lines.append(f"  resistor        exact {format_si(design.r_exact, 'ohm', 6)}, chosen {format_si(design.r_chosen, 'ohm', 4)} "
-                     f"({design.series}, +/-{design.resistor_tolerance * 100:g} %)")
+# The sink design's tables, from its plain-JSON form (``SinkDesign.to_dict()``, as stored in the library): one
+# formatter for the CLI's text and the HTML report, so both show the same numbers with the same units.
+OUTPUT_COLUMNS = ("part", "current", "error", "compliance", "power", "%/K", "%/K alone")
+
+
+def _has(d: Mapping[str, Any], *keys: str) -> bool:
+    return all(isinstance(d.get(k), (int, float)) and not isinstance(d.get(k), bool) for k in keys)
+
+
+def sink_parameter_rows(d: Mapping[str, Any]) -> list[tuple[str, str]]:
+    """The design's figures as (name, value with units) rows: supply, resistor(s), reference, drifts, powers.
+
+    A figure the design does not hold (an older or hand-made record) is left out.
+    """
+    rows = [("supply", format_si(d.get("supply"), "V", 4))]
+    tolerance = d.get("resistor_tolerance") or 0.0
+    if _has(d, "i_target"):
+        rows.append(("target current", format_si(d["i_target"], "A", 4)))
+        rows.append(("resistor", f"exact {format_si(d.get('r_exact'), 'ohm', 6)}, chosen {format_si(d.get('r_chosen'), 'ohm', 4)} "
+                                 f"({d.get('series')}, +/-{tolerance * 100:g} %)"))
     else:
-        lines.append(f"  resistor        {format_si(design.r_chosen, 'ohm', 4)} (given)")
-    if design.source_resistor > 0:
-        lines.append(f"  source resistor {format_si(design.source_resistor, 'ohm', 4)} in every source")
-    if design.degeneration:
-        d = design.degeneration
-        lines.append(f"  degeneration    smallest {design.series} value meeting {d['target'] * 100:g} %: "
-                     f"{format_si(d['suggested_ohm'], 'ohm', 4)} (worst error {d['worst_error'] * 100:.3f} %, "
-                     f"{d['worst_error_without'] * 100:.3f} % without)")
-    lines.append(f"  reference       {design.ref}: VGS {design.vgs:.5f} V, I {format_si(design.i_ref, 'A', 4)}"
-                 + (f" ({_pct(design.i_ref / design.i_target - 1)} vs target)" if design.i_target else ""))
-    lines.append(f"  gate node       {design.vg:.5f} V")
-    lines.append(f"  dI/dVsupply     {format_si(design.di_ref_dvsupply, 'A/V', 4)} "
-                 f"({design.di_ref_dvsupply / design.i_ref * 100:.3f} %/V)")
-    lines.append(f"  drift           {design.drift_ref_per_k * 100:+.4f} %/K (all parts warming together, "
-                 f"Vth {design.vth_tempco * 1e3:g} mV/K, KP ~ T^-1.5, resistors steady)")
-    lines.append(f"  dissipation     reference {format_si(design.p_ref, 'W', 4)}, resistor {format_si(design.p_resistor, 'W', 4)}")
-    if design.outputs:
-        lines.append(f"Outputs at {format_si(design.load_voltage, 'V', 4)} across each (compliance margin "
-                     f"{design.compliance_margin:g} V):")
-        header = f"  {'part':<16} {'current':>11} {'error':>10} {'compliance':>11} {'power':>10} {'%/K':>8} {'%/K alone':>10}"
-        lines.append(header)
-        for o in design.outputs:
-            flag = "" if o.in_compliance else "  OUT OF COMPLIANCE"
-            if o.region == "triode":
-                flag += " (triode, solved)"
-            elif o.region == "triode-unmodelled":
-                flag += " (triode; this law has no triode form: current overestimated)"
-            lines.append(f"  {o.part:<16} {format_si(o.i_out, 'A', 4):>11} {_pct(o.error):>10} {o.v_compliance:>9.3f} V "
-                         f"{format_si(o.p_part, 'W', 4):>10} {o.drift_per_k * 100:>+8.4f} {o.tc_fixed_vgs * 100:>+10.4f}{flag}")
-        lines.append(f"  worst error {design.worst_error * 100:.3f} %   ('%/K alone': one output warming at a fixed "
+        rows.append(("resistor", f"{format_si(d.get('r_chosen'), 'ohm', 4)} (given)"))
+    if (d.get("source_resistor") or 0) > 0:
+        rows.append(("source resistor", f"{format_si(d['source_resistor'], 'ohm', 4)} in every source"))
+    degeneration = d.get("degeneration")
+    if degeneration:
+        rows.append(("degeneration", f"smallest {d.get('series')} value meeting {degeneration['target'] * 100:g} %: "
+                                     f"{format_si(degeneration['suggested_ohm'], 'ohm', 4)} (worst error "
+                                     f"{degeneration['worst_error'] * 100:.3f} %, "
+                                     f"{degeneration['worst_error_without'] * 100:.3f} % without)"))
+    if _has(d, "vgs", "i_ref"):
+        versus = f" ({_pct(d['i_ref'] / d['i_target'] - 1)} vs target)" if _has(d, "i_target") else ""
+        rows.append(("reference", f"{d.get('ref')}: VGS {d['vgs']:.5f} V, I {format_si(d['i_ref'], 'A', 4)}{versus}"))
+    if _has(d, "vg"):
+        rows.append(("gate node", f"{d['vg']:.5f} V"))
+    if _has(d, "di_ref_dvsupply", "i_ref"):
+        rows.append(("dI/dVsupply", f"{format_si(d['di_ref_dvsupply'], 'A/V', 4)} "
+                                    f"({d['di_ref_dvsupply'] / d['i_ref'] * 100:.3f} %/V)"))
+    if _has(d, "drift_ref_per_k", "vth_tempco"):
+        rows.append(("drift", f"{d['drift_ref_per_k'] * 100:+.4f} %/K (all parts warming together, "
+                              f"Vth {d['vth_tempco'] * 1e3:g} mV/K, KP ~ T^-1.5, resistors steady)"))
+    if _has(d, "p_ref", "p_resistor"):
+        rows.append(("dissipation", f"reference {format_si(d['p_ref'], 'W', 4)}, resistor {format_si(d['p_resistor'], 'W', 4)}"))
+    return rows
+
+
+def sink_output_rows(d: Mapping[str, Any]) -> list[tuple[str, ...]]:
+    """One row per output, cells as in :data:`OUTPUT_COLUMNS` (units in each cell) plus a last cell of notes."""
+    rows = []
+
+    def fixed(value: Any, fmt: str, scale: float = 1.0, unit: str = "") -> str:
+        return format(value * scale, fmt) + unit if isinstance(value, (int, float)) else "-"
+
+    for o in d.get("outputs") or []:
+        note = "" if o.get("in_compliance", True) else "OUT OF COMPLIANCE"
+        if o.get("region") == "triode":
+            note += " (triode, solved)"
+        elif o.get("region") == "triode-unmodelled":
+            note += " (triode; this law has no triode form: current overestimated)"
+        rows.append((str(o.get("part")), format_si(o.get("i_out"), "A", 4), fixed(o.get("error"), "+.3f", 100, " %"),
+                     fixed(o.get("v_compliance"), ".3f", 1, " V"), format_si(o.get("p_part"), "W", 4),
+                     fixed(o.get("drift_per_k"), "+.4f", 100), fixed(o.get("tc_fixed_vgs"), "+.4f", 100),
+                     note.strip()))
+    return rows
+
+
+def worst_error(d: Mapping[str, Any]) -> float:
+    """Largest |error| among the outputs of a design's plain form (0 with none)."""
+    return max((abs(o["error"]) for o in d.get("outputs") or [] if isinstance(o.get("error"), (int, float))),
+               default=0.0)
+
+
+def monte_carlo_rows(d: Mapping[str, Any]) -> tuple[str, list[tuple[str, str]]]:
+    """Title and (quantity, spread) rows of the design's Monte Carlo run ("" and no rows without one)."""
+    mc = d.get("monte_carlo")
+    if not mc:
+        return "", []
+    title = (f"Monte Carlo ({mc['samples']} samples, seed {mc['seed']}, resistors +/-"
+             f"{mc['resistor_tolerance'] * 100:g} % uniform, fit errors normal)")
+    ref = mc["i_ref"]
+    rows = [("reference", f"95 % in {format_si(ref['p2_5'], 'A', 4)} .. {format_si(ref['p97_5'], 'A', 4)}")]
+    for o in mc["outputs"]:
+        e = o["error"]
+        rows.append((str(o["part"]), f"error 95 % in {e['p2_5'] * 100:+.3f} .. {e['p97_5'] * 100:+.3f} %, "
+                                     f"sigma {e['std'] * 100:.3f} %"))
+    return title, rows
+
+
+def self_heating_rows(d: Mapping[str, Any]) -> tuple[str, list[tuple[str, str]]]:
+    """Title and rows of the self-heated steady state ("" and no rows when it was not asked for)."""
+    sh = d.get("self_heating")
+    if not sh:
+        return "", []
+    title = f"Self-heating at {sh['thermal_resistance']:g} K/W per part"
+    if sh["runaway"]:
+        return title, [("all parts", "THERMAL RUNAWAY: the junction temperatures do not settle")]
+    rows = [("reference", f"+{sh['ref_rise']:.1f} K, I {format_si(sh['i_ref'], 'A', 4)}")]
+    for o, rise, i_out, err in zip(d.get("outputs") or [], sh["output_rise"], sh["i_out"], sh["error"]):
+        rows.append((str(o["part"]), f"+{rise:.1f} K, I {format_si(i_out, 'A', 4)}, error {_pct(err)}"))
+    return title, rows
+
+
+def format_sink_report(design: SinkDesign | Mapping[str, Any], design_id: int | None = None) -> str:
+    """The sink design as a readable report; it always ends with the cautions."""
+    d = design.to_dict() if isinstance(design, SinkDesign) else design
+    lines = []
+    title = "Current sink design" if d.get("mode") == "synthesis" else "Current sink analysis"
+    lines.append(title + (f" (saved as design {design_id}, parts reserved)" if design_id is not None else ""))
+    lines += [f"  {name:<15} {value}" for name, value in sink_parameter_rows(d)]
+    outputs = sink_output_rows(d)
+    if outputs:
+        lines.append(f"Outputs at {format_si(d.get('load_voltage'), 'V', 4)} across each (compliance margin "
+                     f"{d.get('compliance_margin', 0):g} V):")
+        widths = (16, 11, 10, 11, 10, 8, 10)
+        lines.append("  " + " ".join(h.ljust(w) if k == 0 else h.rjust(w)
+                                     for k, (h, w) in enumerate(zip(OUTPUT_COLUMNS, widths))))
+        for row in outputs:
+            cells = " ".join(c.ljust(w) if k == 0 else c.rjust(w) for k, (c, w) in enumerate(zip(row, widths)))
+            lines.append(f"  {cells}" + (f"  {row[-1]}" if row[-1] else ""))
+        lines.append(f"  worst error {worst_error(d) * 100:.3f} %   ('%/K alone': one output warming at a fixed "
                      "gate voltage)")
-    if design.monte_carlo:
-        mc = design.monte_carlo
-        lines.append(f"Monte Carlo ({mc['samples']} samples, seed {mc['seed']}, resistors +/-"
-                     f"{mc['resistor_tolerance'] * 100:g} % uniform, fit errors normal):")
-        ref = mc["i_ref"]
-        lines.append(f"  reference  95 % in {format_si(ref['p2_5'], 'A', 4)} .. {format_si(ref['p97_5'], 'A', 4)}")
-        for o in mc["outputs"]:
-            e = o["error"]
-            lines.append(f"  {o['part']:<10} error 95 % in {e['p2_5'] * 100:+.3f} .. {e['p97_5'] * 100:+.3f} %, "
-                         f"sigma {e['std'] * 100:.3f} %")
-    if design.self_heating:
-        sh = design.self_heating
-        lines.append(f"Self-heating at {sh['thermal_resistance']:g} K/W per part:")
-        if sh["runaway"]:
-            lines.append("  THERMAL RUNAWAY: the junction temperatures do not settle")
-        else:
-            lines.append(f"  reference +{sh['ref_rise']:.1f} K, I {format_si(sh['i_ref'], 'A', 4)}")
-            for o, rise, i_out, err in zip(design.outputs, sh["output_rise"], sh["i_out"], sh["error"]):
-                lines.append(f"  {o.part:<16} +{rise:.1f} K, I {format_si(i_out, 'A', 4)}, error {_pct(err)}")
+    for title, rows in (monte_carlo_rows(d), self_heating_rows(d)):
+        if rows:
+            lines.append(title + ":")
+            lines += [f"  {name:<10} {value}" for name, value in rows]
     lines.append("")
     lines.append("CAUTIONS")
-    for caution in design.cautions:
+    for caution in d.get("cautions") or []:
         lines.extend(textwrap.wrap(caution, width=100, initial_indent="  - ", subsequent_indent="    "))
     return "\n".join(lines) + "\n"
 

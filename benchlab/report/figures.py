@@ -2,58 +2,77 @@
 
 from __future__ import annotations
 
+import io
 from pathlib import Path
 from typing import Sequence
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.ticker import MaxNLocator
 
 from benchlab.library import PartRecord
 from benchlab.models import DeviceParams, solve_resistor_line
 from benchlab.report.data import SweepTrace
+from benchlab.report.part_figures import DPI
+from benchlab.report.part_figures import new_figure as _new_figure
 
-DPI = 100
 SET_MARKERS = ("*", "D", "s", "^", "v", "P", "X", "h")
-
-
-def _new_figure(width: float = 7.0, height: float = 4.5) -> Figure:
-    fig = Figure(figsize=(width, height), dpi=DPI)
-    FigureCanvasAgg(fig)
-    return fig
 
 
 def save(fig: Figure, path: Path) -> Path:
     """Write the figure as PNG."""
-    fig.tight_layout()
-    fig.savefig(path, format="png", dpi=DPI)
+    fig.savefig(path, format="png", dpi=DPI, bbox_inches="tight")
     return path
 
 
-def sweeps_figure(traces: Sequence[SweepTrace], title: str) -> Figure:
-    """Every sweep overlaid, drain current on a log axis against VGS."""
-    fig = _new_figure()
-    ax = fig.add_subplot()
-    kept = [t for t in traces if not t.rejected]
-    for trace, colour in zip(kept, _colours(len(kept))):
-        ax.semilogy(trace.vgs, trace.id, ".-", ms=2.5, lw=0.8, color=colour, label=trace.label)
-    for trace in traces:
-        if trace.rejected:  # duds stay visible, but greyed out
-            ax.semilogy(trace.vgs, trace.id, "--", lw=0.8, color="#b0b0b0", label=f"{trace.label} (rejected)")
-    if not traces:
-        ax.text(0.5, 0.5, "no measured sweeps in this lot", ha="center", va="center", transform=ax.transAxes)
+def png_bytes(fig: Figure) -> bytes:
+    """The figure as PNG bytes (for embedding in the HTML page)."""
+    buffer = io.BytesIO()
+    fig.savefig(buffer, format="png", dpi=DPI, bbox_inches="tight")
+    return buffer.getvalue()
+
+
+def sweeps_figure(traces: Sequence[SweepTrace], title: str, chosen: Sequence[str] = ()) -> Figure:
+    """Every sweep, drain current on a log axis against VGS: the good parts in grey with the chosen set in colour
+    (left), the duds on axes of their own (right) so an open or leaky part does not stretch the others' axes."""
+    chosen = list(chosen)
+    duds = [t for t in traces if t.rejected]
+    fig = _new_figure(9.5 if duds else 7.0, 4.6)
+    ax = fig.add_subplot(1, 2, 1) if duds else fig.add_subplot()
+    good = [t for t in traces if not t.rejected]
+    picked = {t.label: t for t in good if t.label in chosen}
+    for trace in good:
+        if trace.label not in picked:
+            ax.semilogy(trace.vgs, trace.id, "-", lw=0.7, color="#b8c2cc")
+    if good and len(picked) < len(good):
+        ax.plot([], [], "-", color="#b8c2cc", label=f"{len(good) - len(picked)} other good part(s)")
+    for label, colour in zip([c for c in chosen if c in picked], _colours(len(picked))):
+        trace = picked[label]
+        ax.semilogy(trace.vgs, trace.id, ".-", ms=3, lw=1.2, color=colour,
+                    label=label + (" (reference)" if label == chosen[0] else ""))
+    if not good:
+        ax.text(0.5, 0.5, "no good sweeps in this lot", ha="center", va="center", transform=ax.transAxes)
     ax.set_xlabel("VGS = VDS (V)")
     ax.set_ylabel("ID (A)")
     ax.set_title(title)
     ax.grid(True, which="both", alpha=0.3)
-    if 0 < len(traces) <= 16:
-        ax.legend(fontsize=7, ncol=2)
+    if ax.get_legend_handles_labels()[0]:
+        ax.legend(fontsize=7, ncol=2 if len(picked) > 6 else 1)
+    if duds:
+        dud_ax = fig.add_subplot(1, 2, 2)
+        for trace, colour in zip(duds, _colours(len(duds))):
+            dud_ax.semilogy(trace.vgs, trace.id, "--", lw=1, color=colour, label=trace.label)
+        dud_ax.set_xlabel("VGS = VDS (V)")
+        dud_ax.set_ylabel("ID (A)")
+        dud_ax.set_title(f"Set aside: {len(duds)} dud(s)")
+        dud_ax.grid(True, which="both", alpha=0.3)
+        dud_ax.legend(fontsize=7)
     return fig
 
 
-def histograms_figure(parts: Sequence[PartRecord]) -> Figure:
-    """Histograms of the threshold voltage and of KP (parts with a square / theta / EKV curve)."""
+def histograms_figure(parts: Sequence[PartRecord], chosen: Sequence[str] = ()) -> Figure:
+    """Histograms of the threshold voltage and of KP (parts with a square / theta / EKV curve), the chosen parts
+    marked as ticks under each histogram."""
     fig = _new_figure(9.0, 3.8)
     ax_vth, ax_kp = fig.add_subplot(1, 2, 1), fig.add_subplot(1, 2, 2)
     vth = [p.params.vth for p in parts if p.params is not None]
@@ -62,6 +81,12 @@ def histograms_figure(parts: Sequence[PartRecord]) -> Figure:
         if values:
             ax.hist(values, bins=max(5, min(20, len(values) // 2)), color="#3b6ea5", edgecolor="white")
             ax.axvline(float(np.median(values)), color="#c0392b", lw=1, label=f"median {np.median(values):.4g}")
+            picked = [p for p in parts if p.label in chosen and p.params is not None
+                      and (ax is ax_vth or p.params.model != "linear")]
+            if picked:
+                marks = [p.params.vth if ax is ax_vth else p.params.kp for p in picked]
+                ax.plot(marks, [0] * len(marks), "|", ms=14, mew=2, color="#e67e22", clip_on=False,
+                        label=f"chosen set ({len(marks)})")
             ax.legend(fontsize=8)
         else:
             ax.text(0.5, 0.5, "no values", ha="center", va="center", transform=ax.transAxes)

@@ -1,12 +1,15 @@
-"""The report's HTML page: every piece of text escaped, styles inline, figures as PNG files beside it."""
+"""The report's HTML page: every piece of text escaped, styles inline, figures embedded as base64 PNG."""
 
 from __future__ import annotations
 
+import base64
 import html
 import math
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable, Mapping, Sequence
 
-from benchlab.library import PartRecord
+from benchlab.design.text import (monte_carlo_rows, self_heating_rows, sink_output_rows,
+                                  sink_parameter_rows)
+from benchlab.units import format_si
 
 BENCH_CAUTIONS = (
     "Parts under test and their heat sinks get hot: let them cool before handling, and keep the dissipation "
@@ -20,26 +23,20 @@ BENCH_CAUTIONS = (
 _STYLE = """
 body { font-family: sans-serif; margin: 2em; color: #222; max-width: 1100px; }
 h1 { font-size: 1.5em; } h2 { font-size: 1.2em; margin-top: 1.6em; border-bottom: 1px solid #ccc; }
-table { border-collapse: collapse; font-size: 0.85em; }
+table { border-collapse: collapse; font-size: 0.85em; margin: 0.5em 0; }
 th, td { border: 1px solid #ccc; padding: 2px 6px; text-align: right; }
-th { background: #eee; } td.t { text-align: left; }
+th { background: #eee; } td.t { text-align: left; } caption { text-align: left; font-weight: bold; padding: 2px 0; }
 tr.rejected td { color: #999; } tr.chosen td { background: #fff6d5; }
-img { max-width: 100%; border: 1px solid #ddd; margin: 0.5em 0; }
+figure { margin: 1em 0; } figcaption { font-size: 0.9em; color: #333; }
+img { max-width: 100%; border: 1px solid #ddd; }
 .caution { background: #fff1f0; border-left: 4px solid #c0392b; padding: 0.5em 1em; }
+.verdict { font-size: 1.1em; font-weight: bold; } .meets { color: #1e7d32; } .misses { color: #b71c1c; }
+.summary { background: #f4f8fb; border-left: 4px solid #3b6ea5; padding: 0.5em 1em; }
 .meta { color: #555; font-size: 0.9em; }
 """
 
-
-# SI units of the numbers a sink design records (keys of benchlab.design's result); others are shown bare.
-# Drifts are relative current changes per kelvin (benchlab.design.sink: "drifts relative"), hence 1/K.
-UNITS = {"supply": "V", "i_target": "A", "r_exact": "ohm", "r_chosen": "ohm", "source_resistor": "ohm", "vg": "V",
-         "vgs": "V", "i_ref": "A", "load_voltage": "V", "compliance_margin": "V", "p_ref": "W", "p_resistor": "W",
-         "di_ref_dvsupply": "A/V", "drift_ref_per_k": "1/K", "vth_tempco": "V/K", "i_out": "A", "v_compliance": "V",
-         "p_part": "W", "p_source_resistor": "W", "drift_per_k": "1/K", "di_dvsupply": "A/V", "tc_fixed_vgs": "1/K"}
-
-
-def _key(name: str) -> str:
-    return f"{name} ({UNITS[name]})" if name in UNITS else name
+POWER_RATINGS_W = (0.125, 0.25, 0.5, 1.0, 2.0, 3.0, 5.0, 10.0)  # common through-hole resistor ratings
+DERATING = 2.0  # buy at least twice the dissipation (common practice; the design's own caution says so too)
 
 
 def esc(value: Any) -> str:
@@ -47,95 +44,153 @@ def esc(value: Any) -> str:
     return html.escape("" if value is None else str(value), quote=True)
 
 
-def _num(value: float | None, fmt: str = ".4g") -> str:
+def num(value: float | None, fmt: str = ".4g", scale: float = 1.0) -> str:
+    """A number for a table cell; ``-`` for missing or non-finite."""
     if value is None or (isinstance(value, float) and not math.isfinite(value)):
         return "-"
-    return format(value, fmt)
+    return format(value * scale, fmt)
 
 
-def parts_table(parts: Sequence[PartRecord], chosen: Iterable[str]) -> str:
-    """The parts of the lot, one row each, the chosen ones highlighted."""
-    chosen = set(chosen)
-    head = ("Part", "Lot", "State", "Sweep", "Model", "Vth (V)", "&sigma; Vth", "KP (A/V&sup2;)", "&sigma; KP",
-            "gm (A/V)", "THETA (1/V)", "Flags / reason")
-    rows = ["<table><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr>"]
-    for p in parts:
-        prm = p.params
-        classes = " ".join(c for c in ("rejected" if p.state == "rejected" else "",
-                                       "chosen" if p.label in chosen else "") if c)
-        note = p.reason if p.state == "rejected" else ", ".join(p.flags)
-        cells = [
-            f'<td class="t">{esc(p.label)}</td>', f'<td class="t">{esc(p.lot)}</td>',
-            f'<td class="t">{esc(p.state)}</td>', f'<td class="t">{esc(p.classification or "-")}</td>',
-            f'<td class="t">{esc(prm.model if prm else "-")}</td>',
-            f"<td>{_num(prm.vth if prm else None, '.4f')}</td>", f"<td>{_num(p.stderr.get('vth'), '.2g')}</td>",
-            f"<td>{_num(prm.kp if prm and prm.model != 'linear' else None)}</td>",
-            f"<td>{_num(p.stderr.get('kp'), '.2g')}</td>",
-            f"<td>{_num(prm.gm if prm and prm.model == 'linear' else None)}</td>",
-            f"<td>{_num(prm.theta if prm and prm.theta else None, '.3g')}</td>",
-            f'<td class="t">{esc(note)}</td>',
-        ]
-        rows.append(f'<tr class="{classes}">' + "".join(cells) + "</tr>")
-    rows.append("</table>")
-    return "\n".join(rows)
-
-
-def design_section(design: dict, figure_names: dict[str, str]) -> str:
-    """Summary of the design's numbers (whatever it recorded) and its outputs."""
-    out = [f"<h2>Design {esc(design.get('design_id'))}</h2>",
-           f'<p class="meta">recorded {esc(design.get("recorded_at"))}; parts: '
-           + esc(", ".join(f"{p['lot']}/{p['label']} ({p['state']})" for p in design.get("recorded_parts", [])))
-           + "</p>"]
-    scalars = [(k, v) for k, v in design.items()
-               if isinstance(v, (int, float, str)) and not isinstance(v, bool)
-               and k not in ("design_id", "recorded_at")]
-    if scalars:
-        out.append("<table>" + "".join(f'<tr><td class="t">{esc(_key(k))}</td><td class="t">{esc(_fmt(v))}</td></tr>'
-                                       for k, v in scalars) + "</table>")
-    outputs = design.get("outputs")
-    if isinstance(outputs, list) and outputs and all(isinstance(o, dict) for o in outputs):
-        keys = [k for k in outputs[0] if not isinstance(outputs[0][k], (dict, list))]
-        out.append("<h3>Outputs</h3><table><tr>" + "".join(f"<th>{esc(_key(k))}</th>" for k in keys) + "</tr>")
-        for o in outputs:
-            out.append("<tr>" + "".join(f'<td class="t">{esc(_fmt(o.get(k)))}</td>' for k in keys) + "</tr>")
-        out.append("</table>")
-    monte_carlo = design.get("monte_carlo")
-    if isinstance(monte_carlo, dict):
-        out.append(monte_carlo_section(monte_carlo))
-    if "operating_point" in figure_names:
-        out.append(f'<img src="{esc(figure_names["operating_point"])}" alt="operating point of the reference part">')
+def table(head: Sequence[str], rows: Iterable[Sequence[Any]], caption: str = "",
+          row_classes: Sequence[str] | None = None, text_columns: int = 1) -> str:
+    """A table; every header and cell escaped. The first ``text_columns`` columns are left-aligned."""
+    out = ["<table>" + (f"<caption>{esc(caption)}</caption>" if caption else "")
+           + "<tr>" + "".join(f"<th>{esc(h)}</th>" for h in head) + "</tr>"]
+    for k, row in enumerate(rows):
+        cls = f' class="{esc(row_classes[k])}"' if row_classes and row_classes[k] else ""
+        cells = "".join(f'<td class="t">{esc(c)}</td>' if j < text_columns else f"<td>{esc(c)}</td>"
+                        for j, c in enumerate(row))
+        out.append(f"<tr{cls}>{cells}</tr>")
+    out.append("</table>")
     return "\n".join(out)
 
 
-def monte_carlo_section(mc: dict) -> str:
-    """The spread of the design's Monte Carlo run: one row per statistic that has mean / std / 95 % band."""
+def figure_html(png: bytes, number: int, caption: str, alt: str) -> str:
+    """A numbered figure with its caption, the image embedded (the page stands alone)."""
+    data = base64.b64encode(png).decode("ascii")
+    return (f'<figure id="fig{number}"><img src="data:image/png;base64,{data}" alt="{esc(alt)}">'
+            f"<figcaption>Figure {number}. {esc(caption)}</figcaption></figure>")
+
+
+def resistor_rating(dissipation_w: float) -> float | None:
+    """The smallest common rating at least :data:`DERATING` times the dissipation (None above 10 W)."""
+    need = DERATING * max(dissipation_w, 0.0)
+    return next((r for r in POWER_RATINGS_W if r >= need), None)
+
+
+def shopping_rows(design: Mapping[str, Any]) -> list[tuple[str, ...]]:
+    """The resistors to buy: role, how many, value, series and tolerance, dissipation, rating to buy."""
+    tolerance = f"{design.get('series', '')} +/-{(design.get('resistor_tolerance') or 0) * 100:g} %"
     rows = []
 
-    def add(name: str, stats: Any) -> None:
-        if isinstance(stats, dict) and "mean" in stats:
-            cells = [stats.get(k) for k in ("mean", "std", "p2_5", "p97_5")]
-            rows.append(f'<tr><td class="t">{esc(name)}</td>' + "".join(f"<td>{_num(c, '.5g')}</td>" for c in cells)
-                        + "</tr>")
+    def add(role: str, count: int, ohms: float, watts: float) -> None:
+        rating = resistor_rating(watts)
+        rows.append((role, str(count), format_si(ohms, "ohm", 4), tolerance, format_si(watts, "W", 4),
+                     format_si(rating, "W", 4) if rating else "over 10 W: a power resistor on a heat sink"))
 
-    add("i_ref (A)", mc.get("i_ref"))
-    for output in mc.get("outputs") or []:
-        if isinstance(output, dict):
-            add(f"{output.get('part', '?')} i_out (A)", output.get("i_out"))
-            add(f"{output.get('part', '?')} error", output.get("error"))
-    head = (f"<h3>Monte Carlo: {esc(mc.get('samples'))} samples, seed {esc(mc.get('seed'))}, resistor tolerance "
-            f"{esc(mc.get('resistor_tolerance'))}</h3>")
-    return head + ("<table><tr><th>quantity</th><th>mean</th><th>std</th><th>2.5 %</th><th>97.5 %</th></tr>"
-                   + "".join(rows) + "</table>" if rows else "<p>no statistics recorded</p>")
+    add("reference resistor R", 1, design["r_chosen"], design.get("p_resistor") or 0.0)
+    rs = design.get("source_resistor") or 0.0
+    if rs > 0:
+        outputs = design.get("outputs") or []
+        worst = max([design["i_ref"] ** 2 * rs, *(o.get("p_source_resistor") or 0.0 for o in outputs)])
+        add("source resistor Rs (one per part)", 1 + len(outputs), rs, worst)
+    return rows
 
 
-def _fmt(value: Any) -> str:
-    return format(value, ".6g") if isinstance(value, float) else str(value)
+def verdict(design: Mapping[str, Any]) -> tuple[bool, str]:
+    """Whether the design meets its target, and the sentence that says so.
+
+    The target is the mismatch target the design was made for (``design sink --mismatch-target``); every output
+    must also stay in compliance. A design made without a target is judged on compliance alone, and says so.
+    """
+    outputs = design.get("outputs") or []
+    worst = max((abs(o["error"]) for o in outputs), default=0.0)
+    out_of = [str(o["part"]) for o in outputs if not o.get("in_compliance", True)]
+    target = (design.get("degeneration") or {}).get("target")
+    parts = []
+    ok = not out_of
+    if target:
+        ok = ok and worst <= target
+        parts.append(f"worst output error {worst * 100:.3f} % against a target of {target * 100:g} %")
+    else:
+        parts.append(f"worst output error {worst * 100:.3f} % (no mismatch target was set)")
+    if out_of:
+        parts.append("out of compliance: " + ", ".join(out_of))
+    else:
+        parts.append(f"every output in compliance at {format_si(design.get('load_voltage'), 'V', 4)}")
+    return ok, ("MEETS the target at nominal values: " if ok else "MISSES the target: ") + "; ".join(parts)
 
 
-def cautions_section(design_cautions: Sequence[str]) -> str:
+def design_tables(design: Mapping[str, Any]) -> str:
+    """The design's figures, outputs, Monte Carlo and self-heating tables (the CLI's formatter, as HTML)."""
+    out = [table(("quantity", "value (with units)"), sink_parameter_rows(design), caption="Design figures")]
+    outputs = sink_output_rows(design)
+    if outputs:
+        head = ("part", "current", "error vs reference", "compliance voltage", "dissipation",
+                "drift, all warming (%/K)", "drift, one warming at fixed gate (%/K)", "notes")
+        out.append(table(head, outputs, caption=f"Outputs at {format_si(design.get('load_voltage'), 'V', 4)} across each "
+                                                f"(compliance margin {design.get('compliance_margin', 0):g} V)"))
+    for title, rows in (monte_carlo_rows(design), self_heating_rows(design)):
+        if rows:
+            out.append(table(("quantity", "spread (with units)"), rows, caption=title))
+    return "\n".join(out)
+
+
+def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str], gm_current: float | None) -> str:
+    """The parts of the lot, one row each (rows from :func:`benchlab.report.data.part_row`), chosen highlighted."""
+    chosen = set(chosen)
+    gm_head = f"gm at {format_si(gm_current, 'A', 4)} (A/V)" if gm_current else "gm (A/V)"
+    head = ("part", "state", "sweep", "model", "Vth (V)", "sigma Vth (mV)", "KP (A/V^2)", "sigma KP (A/V^2)",
+            "THETA (1/V)", "n", "VGS at 250 uA (V)", gm_head, "flags / reason")
+    cells, classes = [], []
+    for r in rows:
+        classes.append(" ".join(c for c in ("rejected" if r["state"] == "rejected" else "",
+                                           "chosen" if r["label"] in chosen else "") if c))
+        note = r["reason"] if r["state"] == "rejected" else (r["flags"] or "").replace(",", ", ")
+        cells.append((r["label"], r["state"], r["classification"] or "-", r["model"] or "-", num(r["vth"], ".4f"),
+                      num(r["vth_stderr"], ".2g", 1e3), num(r["kp"]), num(r["kp_stderr"], ".2g"),
+                      num(r["theta"], ".3g"), num(r["n"], ".3f"), num(r["vth_cc"], ".4f"), num(r["gm"]), note or ""))
+    return table(head, cells, caption="Parts of the lot (chosen parts highlighted, rejected parts greyed)",
+                 row_classes=classes, text_columns=4)
+
+
+def statistics_table(lot: str, stats: Mapping[str, Any]) -> str:
+    """Count, yield, mean and sigma of Vth, KP and VGS at 250 uA of the lot."""
+    head = ("lot", "parts", "good", "yield (%)", "Vth mean (V)", "Vth sigma (mV)", "KP mean (A/V^2)",
+            "KP sigma (A/V^2)", "VGS at 250 uA mean (V)", "VGS at 250 uA sigma (mV)")
+    row = (lot, stats["parts"], stats["good"], num(stats["yield"], ".1f", 100.0), num(stats["vth_mean"], ".4f"),
+           num(stats["vth_std"], ".3g", 1e3), num(stats["kp_mean"]), num(stats["kp_std"], ".3g"),
+           num(stats["vth_cc_mean"], ".4f"), num(stats["vth_cc_std"], ".3g", 1e3))
+    return table(head, [row], caption="Statistics of the lot (good parts; sigma is the sample standard deviation)")
+
+
+def bench_section(sessions: Sequence[Mapping[str, Any]], software: str, fitter_versions: Sequence[str]) -> str:
+    """Bench and session details: instrument identities, fixture, series resistor, ambient, date, operator."""
+    rows = []
+    for meta in sessions:
+        if meta.get("missing") is not None or "format" not in meta:
+            rows.append((meta.get("id"), "-", "-", "-", "-", "-", f"session record not found at {meta.get('missing')}"))
+            continue
+        bench = meta.get("bench") or {}
+        series = bench.get("series_resistor_ohm")
+        fixture = str(bench.get("fixture") or "-")
+        if series:
+            fixture += f", series resistor {format_si(series, 'ohm', 6)} (measured)"
+        identities = "; ".join(f"{role}: {idn}" for role, idn in (meta.get("instruments") or {}).items())
+        ambient = meta.get("ambient_c")
+        rows.append((meta.get("id"), f"{meta.get('started') or '-'} .. {meta.get('ended') or '-'}",
+                     meta.get("operator") or "-", f"{ambient:g}" if isinstance(ambient, (int, float)) else "-",
+                     fixture, identities or "-", ""))
+    head = ("session", "date (UTC)", "operator", "ambient (degC)", "fixture", "instruments (*IDN?)", "note")
+    return (table(head, rows, caption="Sessions the lot's sweeps came from", text_columns=len(head))
+            + f'<p class="meta">Software: benchlab {esc(software)}; fitter version(s) of the parts\' curves: '
+            + f"{esc(', '.join(fitter_versions) or '-')}.</p>")
+
+
+def cautions_section(design_cautions: Sequence[str], heading: str = "Cautions") -> str:
     """The design's own cautions first, then the bench cautions every report carries."""
     items = [*design_cautions, *BENCH_CAUTIONS]
-    return ('<h2>Cautions</h2><div class="caution"><ul>' + "".join(f"<li>{esc(c)}</li>" for c in items)
+    return (f'<h2>{esc(heading)}</h2><div class="caution"><ul>' + "".join(f"<li>{esc(c)}</li>" for c in items)
             + "</ul></div>")
 
 

@@ -77,6 +77,16 @@ class BenchHandle:
 
 
 # --------------------------------------------------------------------------------------------- plans
+def default_operator() -> str:
+    """Who is at the bench unless ``--operator`` says otherwise: the login name ("" when it cannot be found)."""
+    import getpass
+
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError, ImportError):  # no login name in the environment nor the user database
+        return ""
+
+
 def build_plan(config: Any, **options: Any) -> SweepPlan:
     """A validated plan for ``config`` (a ``BenchConfig``) with option overrides (``None`` = default).
 

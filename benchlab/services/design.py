@@ -192,7 +192,6 @@ def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int
         When the library holds no such design, or the design is not a current sink.
     """
     from benchlab.design.spice import sink_netlist
-    from benchlab.models import DeviceParams
     from benchlab.services.library import open_library
 
     with open_library(library_path) as lib:
@@ -200,8 +199,7 @@ def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int
     if stored.get("kind") != "sink" or not stored.get("parts"):
         raise LibraryError(f"design {design_id} is not a current-sink design: no netlist to export")
     try:
-        parts = [Part(p["label"], DeviceParams.from_dict(p["params"]), lot=p.get("lot", ""))
-                 for p in stored["parts"]]
+        parts = [Part.from_dict(p) for p in stored["parts"]]
         currents = [float(stored["i_ref"]), *(float(o["i_out"]) for o in stored["outputs"])]
         return sink_netlist(float(stored["supply"]), float(stored["r_chosen"]), parts[0], parts[1:],
                             float(stored["load_voltage"]), source_resistor_ohm=float(stored["source_resistor"]),

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import base64
+import io
 import struct
 import zlib
 from html.parser import HTMLParser
@@ -24,15 +26,30 @@ PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (W3C / ISO/IEC 15948),
 class _Collector(HTMLParser):
     def __init__(self):
         super().__init__()
-        self.tags, self.text, self.images = [], [], []
+        self.tags, self.text, self.images, self.captions = [], [], [], []
+        self._in_caption = False
 
     def handle_starttag(self, tag, attrs):
         self.tags.append(tag)
         if tag == "img":
             self.images.append(dict(attrs)["src"])
+        self._in_caption = tag == "figcaption"
+
+    def handle_endtag(self, tag):
+        if tag == "figcaption":
+            self._in_caption = False
 
     def handle_data(self, data):
         self.text.append(data)
+        if self._in_caption:
+            self.captions.append(data)
+
+
+def embedded_pngs(images):
+    """The PNG bytes of every ``data:`` image (the page must stand alone: no other kind of source)."""
+    prefix = "data:image/png;base64,"
+    assert all(src.startswith(prefix) for src in images)
+    return [base64.b64decode(src[len(prefix):]) for src in images]
 
 
 @pytest.fixture
@@ -52,15 +69,14 @@ def lot_with_design(tmp_path):
     lib.close()
 
 
-def _check_png(path):
-    raw = path.read_bytes()
+def _check_png(raw):
     assert raw[:8] == PNG_SIGNATURE
     # first chunk is IHDR: length 13, then width and height (big-endian), CRC-32 over type + data
     length, kind = struct.unpack(">I4s", raw[8:16])
     width, height = struct.unpack(">II", raw[16:24])
     assert (length, kind) == (13, b"IHDR") and width >= 300 and height >= 200
     assert struct.unpack(">I", raw[29:33])[0] == zlib.crc32(raw[12:29])
-    pixels = imread(path)[..., :3]
+    pixels = imread(io.BytesIO(raw), format="png")[..., :3]
     not_white = np.any(pixels < 0.95, axis=-1).mean()
     colours = len(np.unique((pixels * 255).astype(np.uint8).reshape(-1, 3), axis=0))
     assert not_white > 0.02 and colours > 20  # drawn content, not a blank canvas
@@ -69,22 +85,22 @@ def _check_png(path):
 def test_report_files_figures_and_escaped_html(lot_with_design, tmp_path):
     lib, design_id = lot_with_design
     files = build_report(collect(lib, "demo-bag", design_id), tmp_path / "report")
-    names = {p.rsplit("/", 1)[-1] for p in files.figures}
-    assert names == {"sweeps.png", "histograms.png", "kp_vs_vth.png", "operating_point.png"}
-    for path in files.figures:
-        _check_png(tmp_path / "report" / path.rsplit("/", 1)[-1])
+    assert sorted(p.name for p in (tmp_path / "report").iterdir()) == ["index.html"]  # one self-contained file
 
     page = (tmp_path / "report" / "index.html").read_text(encoding="utf-8")
     parser = _Collector()
     parser.feed(page)
     text = "".join(parser.text)
+    pngs = embedded_pngs(parser.images)
+    assert len(pngs) == len(files.figures) >= 4
+    for raw in pngs:
+        _check_png(raw)
     assert "script" not in parser.tags and "b" not in parser.tags
     assert NASTY in text  # shown literally, escaped in the source
     for part in lib.parts(lot="demo-bag", state=None):
         assert part.label in text
     assert "Power <in the reference part> & heat-sinking: 32 mW" in text and "Eye safety for LED emitters" in text
     assert "licensed practice" in text
-    assert sorted(parser.images) == sorted(names)
     assert "open" in text  # the dud's classification shows in the table
 
     # common practice, no published source: Vth 3.9 V, gm 0.544 A/V on 12 V through 1 kOhm crosses at
@@ -110,7 +126,7 @@ def test_report_command_and_its_errors(lot_with_design, tmp_path, capsys):
     lib, design_id = lot_with_design
     out = tmp_path / "cli-report"
     assert main(["report", "--lot", "demo-bag", "--out", str(out), "--library", lib.path]) == 0
-    assert (out / "index.html").exists() and not (out / "operating_point.png").exists()
+    assert (out / "index.html").exists() and "Operating point" not in (out / "index.html").read_text()
     capsys.readouterr()
     assert main(["report", "--lot", "nope", "--out", str(out), "--library", lib.path]) == 2
     err = capsys.readouterr().err

@@ -30,11 +30,20 @@ def test_designed_sink_is_reported_at_its_own_operating_point(tmp_path, source_r
     # the report solves the reference branch again; it lands on the designer's recorded point
     assert op["id"] == pytest.approx(design.i_ref, rel=1e-9) and op["vgs"] == pytest.approx(design.vgs, abs=1e-9)
     text = html_to_text(html)
-    assert "Monte Carlo: 50 samples" in text and "demo-bag/Q2 i_out (A)" in text
+    # one formatter for the CLI and the report: every figure the CLI prints is in the page as printed
+    from benchlab.design.text import format_sink_report, monte_carlo_rows, sink_output_rows, sink_parameter_rows
+
+    cli = format_sink_report(design)
+    plain = design.to_dict()
+    for name, value in sink_parameter_rows(plain):
+        assert value in cli and value in text, name
+    for row in sink_output_rows(plain):
+        assert all(cell in text for cell in row[:7]) and row[1] in cli and row[2] in cli
+    title, rows = monte_carlo_rows(plain)
+    assert "Monte Carlo (50 samples" in title and title in text and all(v in text for _, v in rows)
     assert design.cautions and all(caution in text for caution in design.cautions)
     # the drifts are relative changes per kelvin (the designer's %/K), not amperes per kelvin
-    assert "drift_ref_per_k (1/K)" in text and "drift_per_k (1/K)" in text and "A/K" not in text
-    assert f"{design.drift_ref_per_k:.6g}" in text
+    assert f"{design.drift_ref_per_k * 100:+.4f} %/K" in text and "A/K" not in text
 
 
 def html_to_text(page: str) -> str:

@@ -91,6 +91,13 @@ def test_unknown_part_on_the_simulator_writes_nothing(tmp_path, capsys):
     assert not (tmp_path / "s").exists()
 
 
+def test_operator_defaults_to_the_login_name(tmp_path, capsys, monkeypatch):
+    # Python's getpass.getuser() takes the login name from LOGNAME first (Python library docs)
+    monkeypatch.setenv("LOGNAME", "ana-at-the-bench")
+    assert main(["sweep", "--part", "Q02", "--sim", "--sessions", str(tmp_path), "--points", "6"]) == 0
+    assert read_session(only_session(tmp_path)).meta["operator"] == "ana-at-the-bench"
+
+
 def test_sweep_command_prints_a_summary_line(tmp_path, capsys):
     assert main(["sweep", "--part", "Q02", "--sim", "--sessions", str(tmp_path), "--points", "10", "--lot", "L7",
                  "--operator", "kim", "--ambient", "24.5", "--down-sweep", "--start-v", "1.5", "--nplc", "2"]) == 0

@@ -1,0 +1,145 @@
+"""The report as a design record, rendered headless end to end through the CLI and checked for its content."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from benchlab.cli import main
+from benchlab.models import DeviceParams
+from benchlab.report.builder import monte_carlo_errors
+from benchlab.report.figures import sweeps_figure
+from benchlab.report.data import SweepTrace
+from benchlab.report.html_page import POWER_RATINGS_W
+from benchlab.report.schematic import sink_schematic
+from session_builder import write_session
+from test_report import _Collector, _check_png, embedded_pngs
+
+LOT = "demo-bag"  # invented test data in the demo scenario's style
+
+
+@pytest.fixture
+def recorded(tmp_path_factory):
+    """A bag of square-law parts (one open dud), imported with the real fitter, a sink designed and saved."""
+    root = tmp_path_factory.mktemp("record")
+    rng = np.random.default_rng(3)
+    parts = [{"label": f"Q{k:02d}", "params": DeviceParams("square", vth=float(2.9 + 0.004 * k),
+                                                            kp=float(1.0 + 0.01 * rng.standard_normal()))}
+             for k in range(1, 7)]
+    parts.append({"label": "Q07", "vgs": [0.5, 3.0, 9.5], "id": [2e-9, 3e-9, 4e-9], "classification": "open",
+                  "reason": "no current at the top of the sweep"})
+    session = write_session(root, "20261202-101500-demo-bag", LOT, parts)
+    lib = str(root / "lib.db")
+    assert main(["library", "import", str(session), "--library", lib]) == 0
+    return root, lib, parts
+
+
+def _run(capsys, args):
+    capsys.readouterr()
+    code = main(args)
+    return code, capsys.readouterr()
+
+
+def test_report_is_a_design_record(recorded, capsys, tmp_path):
+    root, lib, truth = recorded
+    code, out = _run(capsys, ["design", "sink", "--library", lib, "--supply", "12", "--current", "20m",
+                              "--outputs", "3", "--lot", LOT, "--mismatch-target", "0.05", "--monte-carlo", "200",
+                              "--save", "--json"])
+    assert code == 0, out.err
+    design = json.loads(out.out)
+    pdf = tmp_path / "record.pdf"
+    code, out = _run(capsys, ["report", "--library", lib, "--lot", LOT, "--design", str(design["design_id"]),
+                              "--out", str(tmp_path / "report"), "--pdf", str(pdf)])
+    assert code == 0, out.err
+    page = (tmp_path / "report" / "index.html").read_text(encoding="utf-8")
+    parser = _Collector()
+    parser.feed(page)
+    text = "".join(parser.text)
+
+    # self-contained: every image is embedded, each one a real PNG, each one captioned
+    pngs = embedded_pngs(parser.images)
+    for raw in pngs:
+        _check_png(raw)
+    captions = [c for c in parser.captions if c.startswith("Figure ")]
+    assert len(captions) == len(pngs) == page.count("<figcaption>")
+    # schematic, outputs chart, Monte Carlo, operating point, 4 parts' curves, lot curves, histograms, scatter
+    assert len(pngs) == 4 + 4 + 3
+
+    # the summary: verdict against the target, from the design's own numbers
+    worst = max(abs(o["error"]) for o in design["outputs"])
+    verdict = "MEETS the target" if worst <= 0.05 else "MISSES the target"
+    assert text.index("Summary") < text.index(verdict) < text.index("The design")
+    assert f"worst output error {worst * 100:.3f} %" in text and verdict in out.out
+    # the resistor to buy: Joule's law P = I^2 R through the reference resistor (handbook), bought at twice that
+    # or more (common practice); the rating is the smallest common one that covers it
+    power = design["i_ref"] ** 2 * design["r_chosen"]
+    assert design["p_resistor"] == pytest.approx(power, rel=1e-9)
+    rating = min(r for r in POWER_RATINGS_W if r >= 2 * power)
+    row = text[text.index("reference resistor R"):]
+    assert row.split("E24 +/-5 %")[1].strip().startswith(f"{power * 1e3:.4g} mW")
+    assert f"{rating * 1e3:g} mW" in row[:200] or f"{rating:g} W" in row[:200]
+    for caution in design["cautions"]:
+        assert caution in text[:text.index("The design")]  # the cautions are in the summary
+
+    # bench and session details as the session recorded them
+    for expected in ("BENCHLAB-SIM,SUPPLY,0,1", "22.5", "2026-12-02T10:15:00+00:00", "benchlab 0.1.0"):
+        assert expected in text
+    assert "operator" in text and "test" in text
+
+    # parts table: VGS at 250 uA interpolated in the data; square law ID = KP/2 (VGS - Vth)^2 (Sedra & Smith,
+    # Microelectronic Circuits) puts it at Vth + sqrt(2 I / KP) for the invented true curve
+    q01 = truth[0]["params"]
+    expected_cc = q01.vth + math.sqrt(2 * 250e-6 / q01.kp)
+    row = text[text.index("Parts of the lot"):]
+    row = row[row.index("Q01"):]
+    assert f"{expected_cc:.4f}" in row[:250] or f"{expected_cc - 1e-4:.4f}" in row[:250] \
+        or f"{expected_cc + 1e-4:.4f}" in row[:250]
+
+    # statistics of the lot: 6 good of 7 parts; mean Vth of the fitted curves
+    code, out = _run(capsys, ["parts", "list", "--library", lib, "--lot", LOT, "--state", "all", "--json"])
+    fitted = [p["params"]["vth"] for p in json.loads(out.out) if p["state"] != "rejected"]
+    stats = text[text.index("Statistics of the lot"):]
+    assert f"{np.mean(fitted):.4f}" in stats[:400] and "85.7" in stats[:400]  # 6 / 7
+
+    # the PDF: ISO 32000 files start with %PDF-; one page for the summary and one per figure
+    raw = pdf.read_bytes()
+    assert raw.startswith(b"%PDF-") and raw.count(b"/Type /Page\n") + raw.count(b"/Type /Page ") \
+        + raw.count(b"/Type /Page>") >= 1 + len(pngs)
+
+
+def test_monte_carlo_histograms_redraw_the_recorded_statistics(recorded, capsys):
+    root, lib, _ = recorded
+    code, out = _run(capsys, ["design", "sink", "--library", lib, "--supply", "12", "--current", "20m",
+                              "--outputs", "2", "--lot", LOT, "--monte-carlo", "300", "--seed", "5", "--json"])
+    design = json.loads(out.out)
+    errors, agree = monte_carlo_errors(design)
+    assert agree and len(errors) == 2
+    for stats, draws in zip(design["monte_carlo"]["outputs"], errors.values()):
+        assert draws.size == 300
+        assert np.std(draws, ddof=1) == pytest.approx(stats["error"]["std"], rel=1e-9)
+        assert np.percentile(draws, 97.5) == pytest.approx(stats["error"]["p97_5"], rel=1e-9)
+
+
+def test_schematic_carries_the_chosen_values(recorded, capsys):
+    root, lib, _ = recorded
+    code, out = _run(capsys, ["design", "sink", "--library", lib, "--supply", "12", "--current", "20m",
+                              "--outputs", "5", "--lot", LOT, "--degeneration", "47", "--json"])
+    design = json.loads(out.out)
+    texts = " ".join(t.get_text() for t in sink_schematic(design).axes[0].texts)
+    assert "12 V" in texts and f"R {design['r_chosen']:g} ohm" in texts and "Rs 47 ohm" in texts
+    labels = [o["part"].split("/")[-1] for o in design["outputs"]]
+    # five outputs: the first three, a gap naming how many more, and the last
+    assert all(label in texts for label in labels[:3] + labels[-1:]) and labels[3] not in texts
+    assert "2 more" in texts and design["ref"].split("/")[-1] in texts
+
+
+def test_duds_are_drawn_apart_and_do_not_stretch_the_axes():
+    good = SweepTrace("Q1", (2.9, 3.0, 3.2), (1e-4, 1e-3, 1e-2))
+    dud = SweepTrace("Q2", (0.5, 5.0, 9.8), (2e-9, 3e-9, 4e-9), rejected=True)
+    fig = sweeps_figure([good, dud], "lot", chosen=["Q1"])
+    main_ax, dud_ax = fig.axes
+    assert main_ax.get_xlim()[1] < 4 and main_ax.get_ylim()[0] > 1e-6
+    assert [line.get_label() for line in dud_ax.get_lines()] == ["Q2"] and dud_ax.get_xlim()[1] >= 9.8
