@@ -24,6 +24,7 @@ from typing import Sequence
 from benchlab.design.parts import Part
 from benchlab.errors import InputError
 from benchlab.models import DeviceParams
+from benchlab.names import spice_comment
 
 # Tight tolerances so ngspice's answer is reference data (about 1e-7), not 1 % near threshold.
 SPICE_OPTIONS = ".options RELTOL=1e-7 VNTOL=1e-9 ABSTOL=1e-15"
@@ -126,8 +127,8 @@ def model_card(label: str, params: DeviceParams, *, name: str | None = None, lam
         raise InputError(f"polarity must be N or P, got '{polarity}'")
     model_name = name or sanitize_model_name(label)
     sign = 1.0 if pol == "N" else -1.0
-    where = f" (lot {lot})" if lot else ""
-    comments = [f"* {label}{where}: {params.model} fit at {params.temperature_k - 273.15:.1f} degC; "
+    where = f" (lot {spice_comment(lot)})" if lot else ""
+    comments = [f"* {spice_comment(label)}{where}: {params.model} fit at {params.temperature_k - 273.15:.1f} degC; "
                 "use W=1 L=1 (KP per square)"]
     fields: list[tuple[str, float]] = []
     if params.model == "linear":
@@ -182,7 +183,7 @@ def model_cards(parts: Sequence[Part], *, lambdas: dict[str, float] | None = Non
 def model_library(parts: Sequence[Part], title: str = "benchlab SPICE models") -> str:
     """A text file of cards for ``parts`` (what ``benchlab export spice`` writes)."""
     cards = model_cards(parts)
-    return "\n".join([f"* {title}", *[c.text for c in cards], ""])
+    return "\n".join([f"* {spice_comment(title)}", *[c.text for c in cards], ""])
 
 
 def sink_netlist(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part],
@@ -222,7 +223,8 @@ def sink_netlist(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         raise InputError("operating_currents needs one value for the reference and one per output")
     cards = model_cards(parts, at_currents=currents)
     rs = float(source_resistor_ohm)
-    lines = [f"* {title}", f"* reference {ref.label}, outputs {', '.join(p.label for p in outputs)}; "
+    lines = [f"* {spice_comment(title)}",
+             f"* reference {spice_comment(ref.label)}, outputs {spice_comment(', '.join(p.label for p in outputs))}; "
              f"load voltage {_num(load_voltage)} V", f"VSUP vs 0 DC {_num(supply_v)}", f"RREF vs g {_num(resistor_ohm)}"]
     ref_source = "sref" if rs > 0 else "0"
     lines.append(f"MREF g g {ref_source} 0 {cards[0].name} W=1 L=1")

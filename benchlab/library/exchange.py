@@ -7,6 +7,7 @@ import math
 from typing import TYPE_CHECKING, Any, Mapping
 
 from benchlab.errors import LibraryError
+from benchlab.names import check_name
 from benchlab.library.records import PART_STATES, finite_or_none, natural_key, to_json, utc_now
 from benchlab.models import DeviceParams
 
@@ -110,6 +111,7 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
     try:
         with lib.write():
             for lot in data.get("lots", []):
+                check_name("lot name", lot["name"], error=LibraryError)
                 if conn.execute("SELECT 1 FROM lots WHERE name = ?", (lot["name"],)).fetchone() is None:
                     conn.execute("INSERT INTO lots (name, description, created) VALUES (?, ?, ?)",
                                  (lot["name"], lot.get("description", ""), lot.get("created") or utc_now()))

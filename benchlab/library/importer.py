@@ -11,6 +11,7 @@ from benchlab.library.records import ImportedSweep, ImportSummary, finite_or_non
 from benchlab.library.sessions import Session, SessionSweep, read_session
 from benchlab.models import DeviceParams
 from benchlab.kinds import PartClass
+from benchlab.names import check_name
 
 if TYPE_CHECKING:
     from benchlab.library.store import Library
@@ -172,6 +173,8 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
         raise LibraryError("no session folders to import")
     if refit and fit_function is None:
         raise LibraryError("re-fitting on import needs a fit function (benchlab.services.library.fit_function())")
+    if lot is not None:
+        check_name("lot name", lot, error=LibraryError)
     sessions = [read_session(p) for p in paths]  # every file read before anything is written
     prepared = []
     for session in sessions:

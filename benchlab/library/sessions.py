@@ -16,6 +16,7 @@ from typing import Any
 
 from benchlab.errors import InputError
 from benchlab.kinds import PointStatus
+from benchlab.names import check_name
 
 REQUIRED_COLUMNS = ("vgs", "id")
 
@@ -199,8 +200,14 @@ def read_session(path: str | Path) -> Session:
         if not csv_path.exists():
             raise InputError(f"sweep '{stem}' has a sidecar but no CSV", path=str(json_path))
         point, vgs, ids, status, direction = read_points(csv_path)
-        sweeps.append(SessionSweep(label=str(sidecar.get("label") or stem),
-                                   lot=sidecar.get("lot") or meta.get("lot"), csv_path=csv_path,
+        where = str(json_path or csv_path)
+        # labels and lots read from files obey the command line's rule (they become names in the library,
+        # SPICE, CSV and HTML); a crafted one is refused and nothing is imported
+        label = check_name("part label", sidecar.get("label") or stem, path=where)
+        lot = sidecar.get("lot") or meta.get("lot")
+        if lot is not None:
+            check_name("lot name", lot, path=where)
+        sweeps.append(SessionSweep(label=label, lot=lot, csv_path=csv_path,
                                    json_path=json_path, sidecar=sidecar, point=point, vgs=vgs, id=ids,
                                    status=status, direction=direction))
     return Session(path=folder, meta=meta, sweeps=tuple(sweeps))

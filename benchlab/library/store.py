@@ -19,6 +19,7 @@ from benchlab.library.backend import Database, is_url, open_database
 from benchlab.library.designs import DesignStore
 from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, natural_key, to_json, utc_now
 from benchlab.models import DeviceParams
+from benchlab.names import check_name
 
 LIBRARY_ENV = "BENCHLAB_LIBRARY"
 
@@ -189,7 +190,7 @@ class Library:
     # -- lots ------------------------------------------------------------------------------------
     def lot_id(self, name: str, *, create: bool = False, description: str = "") -> int:
         """Database id of lot ``name``; created when ``create`` (inside the caller's transaction)."""
-        name = _clean_name(name, "lot")
+        name = check_name("lot name", name, error=LibraryError) if create else _clean_name(name, "lot")
         row = self._db.execute("SELECT id FROM lots WHERE name = ?", (name,)).fetchone()
         if row:
             return int(row[0])
@@ -225,7 +226,7 @@ class Library:
         LibraryError
             When the label is empty, the polarity unknown, or the lot already holds that label.
         """
-        label = _clean_name(label, "label")
+        label = check_name("part label", label, error=LibraryError)
         polarity = _check_polarity(polarity)
         if params is not None and not isinstance(params, DeviceParams):
             raise LibraryError("params must be a DeviceParams")
@@ -245,6 +246,7 @@ class Library:
     def _insert_part(self, lot_id: int, label: str, polarity: str, package: str = "", notes: str = "",
                      state: str = "in_stock", reason: str | None = None,
                      classification: str | None = None, created: str | None = None) -> int:
+        check_name("part label", label, error=LibraryError)  # every way in: hand entry, session and JSON import
         # checked before the insert (inside the caller's write transaction, so no other writer can slip in):
         # on PostgreSQL a failed statement would spoil the whole transaction
         if self._db.execute("SELECT 1 FROM parts WHERE lot_id = ? AND label = ?", (lot_id, label)).fetchone():

@@ -20,6 +20,7 @@ from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operat
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
 from benchlab.kinds import PartClass
+from benchlab.names import check_name, inside
 
 # the temperatures fit_batch accepts (150-600 K), in degC
 T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
@@ -78,9 +79,9 @@ def _session_sources(folder: Path, allow_empty: bool = False) -> list[SweepSourc
     sources = []
     ambient = _ambient(meta)
     for label in meta.get("parts", []):
-        csv_path = folder / f"{label}.csv"
+        csv_path = inside(folder, label, ".csv")  # a crafted '../x' entry is refused, never followed
         if csv_path.exists():
-            sidecar = folder / f"{label}.json"
+            sidecar = inside(folder, label, ".json")
             verdict = _read_json(sidecar).get("classification") if sidecar.exists() else None
             sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict,
                                        ambient))
@@ -136,7 +137,8 @@ def resolve_inputs(paths) -> list[SweepSource]:
                 csv_path = path.with_suffix(".csv")
                 if not csv_path.exists():
                     raise InputError(f"the sidecar's raw points {csv_path.name} are missing", path=str(path))
-                sources.append(SweepSource(csv_path, path, str(data.get("label") or path.stem),
+                label = check_name("part label", data.get("label") or path.stem, path=str(path))
+                sources.append(SweepSource(csv_path, path, label,
                                            data.get("classification"), _folder_ambient(path.parent)))
             else:
                 raise InputError("not a benchlab sweep sidecar or session file", path=str(path))

@@ -18,6 +18,7 @@ from benchlab.library.backend import is_url
 from benchlab.library.exchange import CSV_COLUMNS, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
+from benchlab.names import csv_cell
 
 
 def library_path(path: str | os.PathLike | None = None) -> Path | str:
@@ -162,7 +163,8 @@ def export_csv_text(path, lot: str | None = None, state: str | None = None) -> s
     buffer = io.StringIO(newline="")
     writer = csv.DictWriter(buffer, fieldnames=list(CSV_COLUMNS), lineterminator="\n")
     writer.writeheader()
-    writer.writerows(rows)
+    # a label or note such as '=HYPERLINK(...)' must reach a spreadsheet as text, not as a formula
+    writer.writerows({key: csv_cell(value) for key, value in row.items()} for row in rows)
     return buffer.getvalue()
 
 

@@ -13,7 +13,6 @@ import io
 import json
 import math
 import os
-import re
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -21,13 +20,13 @@ from typing import Any
 
 import numpy as np
 
+from benchlab import names
 from benchlab.errors import InputError
 from benchlab.sweep.records import CSV_COLUMNS, STATUSES, SweepOutcome, SweepPoint
 from benchlab.kinds import PointStatus
 
 SESSION_FORMAT = "benchlab-session/1"
 SWEEP_FORMAT = "benchlab-sweep/1"
-_NAME_RE = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]{0,63}$")
 
 
 def now_iso() -> str:
@@ -36,11 +35,8 @@ def now_iso() -> str:
 
 
 def check_name(kind: str, name: str) -> str:
-    """Refuse a lot name or part label that cannot be a file name on every system."""
-    if not isinstance(name, str) or not _NAME_RE.match(name) or name in (".", ".."):
-        raise InputError(f"bad {kind} '{name}': use 1-64 letters, digits, '_', '.', '+' or '-', starting with a "
-                         f"letter or digit")
-    return name
+    """Refuse a lot name or part label that cannot be a file name on every system (see ``benchlab.names``)."""
+    return names.check_name(kind, name)
 
 
 def write_json_atomic(path: Path, data: dict[str, Any]) -> None:
@@ -191,8 +187,8 @@ class SessionWriter:
         """Labels whose sweep finished (``complete: true``)."""
         done = set()
         for label in self.meta.get("parts", []):
-            path = self.path / f"{label}.json"
             try:
+                path = names.inside(self.path, label, ".json")
                 if json.loads(path.read_text(encoding="utf-8")).get("complete"):
                     done.add(label)
             except (OSError, ValueError):
@@ -364,6 +360,7 @@ def read_session(directory: str | os.PathLike) -> SessionData:
         raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(directory))
     sweeps = {}
     for label in meta.get("parts", []):
-        if (directory / f"{label}.csv").exists():
-            sweeps[label] = read_sweep(directory / f"{label}.csv")
+        csv_path = names.inside(directory, label, ".csv")
+        if csv_path.exists():
+            sweeps[label] = read_sweep(csv_path)
     return SessionData(path=directory, meta=meta, sweeps=sweeps)

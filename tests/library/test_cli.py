@@ -108,16 +108,16 @@ def test_library_import_and_exports(capsys, tmp_path, monkeypatch, library_targe
 def test_exported_spice_cards_reproduce_the_stored_curves_in_ngspice(capsys, tmp_path, ngspice_path, library_target):
     db = library_target
     run(capsys, "parts", "add", "Q-1", "--lot", "bag", "--vth", "2.9", "--kp", "1.3", "--library", db)
-    run(capsys, "parts", "add", "Q 2", "--lot", "bag", "--vth", "3.1", "--kp", "0.9", "--theta", "0.12",
+    run(capsys, "parts", "add", "Q+2", "--lot", "bag", "--vth", "3.1", "--kp", "0.9", "--theta", "0.12",
         "--library", db)
     cards = tmp_path / "cards.lib"
-    code, out, _ = run(capsys, "export", "spice", "Q-1", "Q 2", "--out", str(cards), "--library", db)
+    code, out, _ = run(capsys, "export", "spice", "Q-1", "Q+2", "--out", str(cards), "--library", db)
     assert code == 0
     text = cards.read_text()
     names = re.findall(r"^\.model\s+(\S+)\s+NMOS\s+\(LEVEL=(\d)", text, flags=re.M)
     assert [level for _, level in names] == ["1", "3"]  # THETA only in a level-3 card
     with Library.open(db) as lib:
-        parts = [lib.get_part("Q-1"), lib.get_part("Q 2")]
+        parts = [lib.get_part("Q-1"), lib.get_part("Q+2")]
     for (name, _), part in zip(names, parts):
         for current in (1e-3, 0.05):
             deck = tmp_path / f"{name}.cir"

@@ -82,10 +82,11 @@ def test_postgresql_columns_keep_what_sqlite_keeps(lib):
     conn.execute("INSERT INTO sweep_points (sweep_id, point, vgs, id) VALUES (1, 0, ?, ?)",
                  (2.123456789012345, 1.2345678901234567e-9))
     assert conn.execute("SELECT vgs, id FROM sweep_points").fetchone() == (2.123456789012345, 1.2345678901234567e-9)
-    for label in ("b", "B", "a", "_"):
+    for label in ("b", "B", "a", "Q_", "Qa", "QB"):  # labels start with a letter or digit (benchlab.names)
         lib.add_part(label, lot="sort")
     rows = conn.execute("SELECT label FROM parts WHERE lot_id = 2 ORDER BY label").fetchall()
-    assert [r[0] for r in rows] == ["B", "_", "a", "b"]  # ASCII order: 'B' 0x42, '_' 0x5F, 'a' 0x61
+    # ASCII order: 'B' 0x42, '_' 0x5F, 'a' 0x61
+    assert [r[0] for r in rows] == ["B", "QB", "Q_", "Qa", "a", "b"]
 
 
 def test_not_a_database_gets_one_clear_error(tmp_path):
