@@ -103,5 +103,19 @@ class LibraryError(BenchlabError):
     """A device-library operation failed (unknown or ambiguous part, bad state change...)."""
 
 
+class PartUnavailableError(LibraryError):
+    """A design asked for a part that is no longer in stock (another engineer reserved or used it first).
+
+    ``label``, ``lot``, ``state``; ``design_id``, ``at`` (ISO UTC) and ``operator`` of the design that took it,
+    when a design did.
+    """
+
+    def __init__(self, message: str, *, label: str, lot: str, state: str, design_id: int | None = None,
+                 at: str | None = None, operator: str | None = None):
+        super().__init__(message)
+        self.label, self.lot, self.state = label, lot, state
+        self.design_id, self.at, self.operator = design_id, at, operator
+
+
 class DesignError(BenchlabError):
     """A design request has no valid solution (e.g. the supply cannot reach the current)."""

@@ -14,6 +14,8 @@ def library_option() -> argparse.ArgumentParser:
     parent.add_argument("--library", metavar="PATH|URL",
                         help="library file or postgresql://user@host/db URL (default: $BENCHLAB_LIBRARY, else "
                              "library.db in the user data folder)")
+    parent.add_argument("--operator", metavar="NAME",
+                        help="who is working, kept with every state change (default: your login name)")
     return parent
 
 

@@ -9,6 +9,7 @@ from benchlab.commands._args import library_option, quantity, whole_number
 from benchlab.design.eseries import SERIES_NAMES
 from benchlab.design.sink import SinkOptions
 from benchlab.design.text import format_bins, format_match, format_sink_report
+from benchlab.errors import InputError
 from benchlab.services import design as service
 
 
@@ -87,6 +88,9 @@ def register(subparsers) -> None:
     match.add_argument("--lot", help="only parts of this lot")
     match.add_argument("--count", type=whole_number, metavar="K", help="how many sets (default: as many as possible)")
     match.add_argument("--polarity", choices=("N", "P"), default="N", help="which parts (default: %(default)s)")
+    match.add_argument("--save", action="store_true",
+                       help="record the best set as a design and reserve its parts (when another engineer takes one "
+                            "of them first, the search runs again on what is left)")
     match.set_defaults(func=_match)
 
     bins = sub.add_parser("bin", parents=[common], help="bin the in-stock parts by VGS at an operating current")
@@ -110,7 +114,7 @@ def _sink(args) -> int:
     request = service.SinkRequest(supply=args.supply, current=args.current, resistor=args.resistor, ref=args.ref,
                                   out=out, outputs=args.outputs, ref_model=args.ref_model,
                                   out_models=tuple(args.out_model), lot=args.lot, options=options, save=args.save)
-    design, design_id = service.design_sink(request, args.library, spice_path=args.spice)
+    design, design_id = service.design_sink(request, args.library, spice_path=args.spice, operator=args.operator)
     if args.json:
         _print_json(dict(design.to_dict(), design_id=design_id))
     else:
@@ -121,6 +125,19 @@ def _sink(args) -> int:
 
 
 def _match(args) -> int:
+    if args.save:
+        if args.count is not None:
+            raise InputError("--save reserves the best set only; leave out --count")
+        reserved = service.reserve_match(args.library, args.current, args.size, current_max=args.current_max,
+                                         lot=args.lot, polarity=args.polarity, operator=args.operator)
+        if args.json:
+            _print_json(reserved.to_dict())
+            return 0
+        for note in reserved.notes:
+            print(note)
+        print(format_match(reserved.result), end="")
+        print(f"saved as design {reserved.design_id}; its parts are reserved")
+        return 0
     result = service.match_parts(args.library, args.current, args.size, current_max=args.current_max, lot=args.lot,
                                  count=args.count, polarity=args.polarity)
     if args.json:

@@ -40,7 +40,8 @@ def register(subparsers) -> None:
 
 
 def _import(args) -> int:
-    summary = service.import_sessions(args.library, args.sessions, lot=args.lot, refit=args.refit, model=args.model)
+    summary = service.import_sessions(args.library, args.sessions, lot=args.lot, refit=args.refit, model=args.model,
+                                      operator=args.operator)
     if args.json:
         print(json.dumps(summary.to_dict()))
         return 0

@@ -83,12 +83,12 @@ def _show(args) -> int:
 
 
 def _reject(args) -> int:
-    part = service.set_state(args.library, args.part, "rejected", args.reason)
+    part = service.set_state(args.library, args.part, "rejected", args.reason, operator=args.operator)
     print(f"{part.spec}: rejected ({part.reason})")
     return 0
 
 
 def _state(args) -> int:
-    part = service.set_state(args.library, args.part, args.state, args.reason)
+    part = service.set_state(args.library, args.part, args.state, args.reason, operator=args.operator)
     print(f"{part.spec}: {part.state}")
     return 0

@@ -8,7 +8,7 @@ from __future__ import annotations
 import json
 from typing import TYPE_CHECKING, Any, Mapping, Sequence
 
-from benchlab.errors import LibraryError
+from benchlab.errors import LibraryError, PartUnavailableError
 from benchlab.library.records import PartRecord, to_json, utc_now
 
 if TYPE_CHECKING:
@@ -42,7 +42,7 @@ class DesignStore:
                 raise LibraryError("a design lists the same part twice")
             for r in records:
                 if r.state != "in_stock":
-                    raise LibraryError(f"part '{r.spec}' is {r.state}, not in stock; the design was not saved")
+                    raise self.unavailable(r)
             new_id = conn.insert("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
                                (utc_now(), str(design.get("kind") or design.get("mode") or ""), text))
             design_id = new_id
@@ -51,6 +51,27 @@ class DesignStore:
                              (design_id, r.id, position))
                 self._lib._change_state(r.id, r.state, state, f"design {design_id}")
         return design_id
+
+    def unavailable(self, record: PartRecord) -> PartUnavailableError:
+        """The error that says why ``record`` is not in stock: which design took it, when, and who."""
+        # who took it: the latest design holding the part, and the operator of its latest state change
+        conn = self._lib.connection
+        row = conn.execute("SELECT d.id, d.created FROM design_parts dp JOIN designs d ON d.id = dp.design_id "
+                           "WHERE dp.part_id = ? ORDER BY d.id DESC LIMIT 1", (record.id,)).fetchone()
+        change = conn.execute("SELECT operator FROM state_changes WHERE part_id = ? ORDER BY id DESC LIMIT 1",
+                              (record.id,)).fetchone()
+        operator = change[0] if change else None
+        if row is None or record.state not in ("reserved", "used"):
+            return PartUnavailableError(f"part {record.label} (lot {record.lot}) is {record.state}, not in stock; "
+                                        f"the design was not saved", label=record.label, lot=record.lot,
+                                        state=record.state, operator=operator)
+        design_id, created = int(row[0]), str(row[1])
+        # ISO-8601 UTC 'YYYY-MM-DDTHH:MM:SS+00:00': the clock time is characters 11-16
+        return PartUnavailableError(
+            f"part {record.label} was {record.state} by design {design_id} at {created[11:16]} UTC"
+            + (f" ({operator}, lot {record.lot})" if operator else f" (lot {record.lot})")
+            + "; the design was not saved",
+            label=record.label, lot=record.lot, state=record.state, design_id=design_id, at=created, operator=operator)
 
     def get(self, design_id: int) -> dict[str, Any]:
         """A recorded design: its stored data plus ``design_id``, ``recorded_at`` and ``recorded_parts``.

@@ -64,8 +64,8 @@ def export_library(lib: "Library", lot: str | None = None, state: str | None = N
                     for f in conn.execute("SELECT sweep_id, source, model, params_json, stderr_json, flags_json, "
                                           "result_json, fitted_at, fitter_version FROM fits WHERE part_id = ? "
                                           "ORDER BY id", (pid,))]
-            history = [{"changed_at": h[0], "old_state": h[1], "new_state": h[2], "reason": h[3]}
-                       for h in conn.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
+            history = [{"changed_at": h[0], "old_state": h[1], "new_state": h[2], "reason": h[3], "operator": h[4]}
+                       for h in conn.execute("SELECT changed_at, old_state, new_state, reason, operator FROM state_changes "
                                              "WHERE part_id = ? ORDER BY id", (pid,))]
             parts.append({"lot": lot_name, "label": label, "polarity": polarity, "package": package, "notes": notes,
                           "state": pstate, "reason": reason, "classification": classification, "created": created,
@@ -147,9 +147,10 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                                    fitter_version=f.get("fitter_version"))
                     counts["fits"] += 1
                 for h in part.get("history", []):
-                    conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
-                                 "VALUES (?, ?, ?, ?, ?)", (pid, h.get("changed_at") or utc_now(), h.get("old_state"),
-                                                            h["new_state"], h.get("reason")))
+                    conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason, "
+                                 "operator) VALUES (?, ?, ?, ?, ?, ?)",
+                                 (pid, h.get("changed_at") or utc_now(), h.get("old_state"), h["new_state"],
+                                  h.get("reason"), h.get("operator")))
             for d in data.get("designs", []):
                 new_id = conn.insert("INSERT INTO designs (created, kind, design_json) VALUES (?, ?, ?)",
                                    (d.get("created") or utc_now(), d.get("kind", ""), to_json(d["design"])))

@@ -6,6 +6,7 @@ All SQL is parameterized; labels, lots, notes and reasons never become part of a
 
 from __future__ import annotations
 
+import getpass
 import json
 import math
 import os
@@ -46,6 +47,14 @@ def default_library_path() -> Path | str:
     return Path(user_data_dir("benchlab")) / "library.db"
 
 
+def default_operator() -> str:
+    """The login name of whoever runs benchlab (``getpass.getuser``), or ``unknown`` when it has none."""
+    try:
+        return getpass.getuser() or "unknown"
+    except (OSError, KeyError, ImportError):  # no LOGNAME/USER and no password-file entry
+        return "unknown"
+
+
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
     (pid, lot, label, polarity, state, reason, package, notes, classification,
      fit_id, params_json, stderr_json, flags_json) = row
@@ -73,18 +82,21 @@ class Library:
         An open backend (:func:`benchlab.library.backend.open_database`); transactions are explicit.
     path : str
         The file path or the URL without its password (for messages).
+    operator : str, optional
+        Who is working: kept with every state change (default :func:`default_operator`).
     """
 
-    def __init__(self, db: Database, path: str = ""):
+    def __init__(self, db: Database, path: str = "", operator: str | None = None):
         self._db = db
         self.path = path
+        self.operator = _clean_name(operator, "operator name") if operator else default_operator()
         self._in_write = False
         self.design_store = DesignStore(self)
 
     # -- opening ---------------------------------------------------------------------------------
     @classmethod
     def open(cls, path: str | os.PathLike | None = None, *, timeout_s: float = 30.0,
-             create: bool = True) -> "Library":
+             create: bool = True, operator: str | None = None) -> "Library":
         """Open (creating and migrating as needed) the library at ``path`` (default :func:`default_library_path`).
 
         Parameters
@@ -96,11 +108,14 @@ class Library:
             How long a write waits for another writer before giving up.
         create : bool
             Create the file when it does not exist (else a ``LibraryError`` names the missing file).
+        operator : str, optional
+            Who is working (kept with each state change); default :func:`default_operator`.
 
         Returns
         -------
         Library
         """
+        operator = _clean_name(operator, "operator name") if operator else None  # checked before connecting
         target = path if path is not None else default_library_path()
         target = str(target).strip() if is_url(str(target).strip()) else Path(target)
         db = open_database(target, timeout_s=timeout_s, create=create)
@@ -114,7 +129,7 @@ class Library:
         except BaseException:
             db.close()
             raise
-        return cls(db, db.target)
+        return cls(db, db.target, operator)
 
     def close(self) -> None:
         """Close the connection."""
@@ -337,15 +352,16 @@ class Library:
 
     def _change_state(self, part_id: int, old: str | None, new: str, reason: str | None) -> None:
         self._db.execute("UPDATE parts SET state = ?, reason = ? WHERE id = ?", (new, reason, part_id))
-        self._db.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason) "
-                           "VALUES (?, ?, ?, ?, ?)", (part_id, utc_now(), old, new, reason))
+        self._db.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason, operator) "
+                         "VALUES (?, ?, ?, ?, ?, ?)", (part_id, utc_now(), old, new, reason, self.operator))
 
     def history(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
         """The part's state changes, oldest first."""
         record = self.get_part(part)
-        rows = self._db.execute("SELECT changed_at, old_state, new_state, reason FROM state_changes "
-                                  "WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
-        return [{"changed_at": r[0], "old_state": r[1], "new_state": r[2], "reason": r[3]} for r in rows]
+        rows = self._db.execute("SELECT changed_at, old_state, new_state, reason, operator FROM state_changes "
+                                "WHERE part_id = ? ORDER BY id", (record.id,)).fetchall()
+        return [{"changed_at": r[0], "old_state": r[1], "new_state": r[2], "reason": r[3], "operator": r[4]}
+                for r in rows]
 
     def fits(self, part: str | int | PartRecord) -> list[dict[str, Any]]:
         """Every fit of a part, oldest first, as plain data."""

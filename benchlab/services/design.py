@@ -8,14 +8,14 @@ from __future__ import annotations
 
 import os
 from dataclasses import dataclass, field, replace
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
 import numpy as np
 
 from benchlab.design.matching import MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
 from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, synthesize_sink
-from benchlab.errors import DesignError, InputError, LibraryError
+from benchlab.errors import DesignError, InputError, LibraryError, PartUnavailableError
 from benchlab.units import format_si
 
 
@@ -44,10 +44,10 @@ def part_from_record(record) -> Part:
                 part_id=record.id)
 
 
-def _open(library_path):
+def _open(library_path, operator: str | None = None):
     from benchlab.services.library import open_library
 
-    return open_library(library_path)
+    return open_library(library_path, operator=operator)
 
 
 def _stock(lib, lot: str | None, polarity: str = "N") -> list:
@@ -208,40 +208,121 @@ def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int
         raise LibraryError(f"design {design_id} is stored without what a netlist needs ({exc})") from exc
 
 
+RESERVE_ATTEMPTS = 5  # searches for a set when other engineers keep taking parts from under this one
+
+
 def design_sink(req: SinkRequest, library_path: str | os.PathLike | None = None, *,
-                spice_path: str | None = None) -> tuple[SinkDesign, int | None]:
+                spice_path: str | None = None, operator: str | None = None) -> tuple[SinkDesign, int | None]:
     """Run ``benchlab design sink``: returns the design and, with ``save``, the library design id.
 
     The library is opened only when parts are named from it (or ``save`` is asked). With
     ``spice_path`` the design's netlist is written there. Every check runs before anything is
-    written: a request that fails writes no file and reserves no part.
+    written: a request that fails writes no file and reserves no part. When the tool picked the parts
+    (``--outputs N``) and another engineer reserves one of them first, the search runs again on what is
+    left, and the design's cautions say which part was taken by which design.
     """
     _check_request(req)
     needs_library = bool(req.ref or req.out or req.outputs is not None or req.save)
-    lib = _open(library_path) if needs_library else None
+    lib = _open(library_path, operator) if needs_library else None
+    taken: list[str] = []
     try:
-        ref, outputs, records = resolve_parts(req, lib)
-        if req.current is not None:
-            design = synthesize_sink(req.supply, req.current, ref, outputs, req.options)
-        else:
-            design = analyze_sink(req.supply, req.resistor, ref, outputs, req.options)
-        design = _with_range_caution(design, lib, records)
-        if req.save:
-            if len(records) != 1 + len(outputs):
-                raise InputError("--save records the design in the library and reserves its parts: every part must "
-                                 "come from the library (not --ref-model / --out-model); nothing was saved")
-            busy = [r.spec for r in records if r.state != "in_stock"]
-            if busy:
-                raise LibraryError(f"not in stock: {', '.join(busy)}; nothing was saved")
-        if spice_path:
-            write_text(spice_path, sink_netlist_text(design))
-        design_id = None
-        if req.save:
-            design_id = lib.record_design(dict(design.to_dict(), kind="sink"), records, state="reserved")
-        return design, design_id
+        for attempt in range(RESERVE_ATTEMPTS):
+            ref, outputs, records = resolve_parts(req, lib)
+            if req.current is not None:
+                design = synthesize_sink(req.supply, req.current, ref, outputs, req.options)
+            else:
+                design = analyze_sink(req.supply, req.resistor, ref, outputs, req.options)
+            design = _with_range_caution(design, lib, records)
+            if taken:
+                design = replace(design, cautions=(*taken, *design.cautions))
+            if req.save:
+                if len(records) != 1 + len(outputs):
+                    raise InputError("--save records the design in the library and reserves its parts: every part "
+                                     "must come from the library (not --ref-model / --out-model); nothing was saved")
+                busy = [r for r in records if r.state != "in_stock"]
+                if busy:
+                    raise lib.design_store.unavailable(busy[0])
+            if spice_path:
+                write_text(spice_path, sink_netlist_text(design))
+            if not req.save:
+                return design, None
+            try:
+                return design, lib.record_design(dict(design.to_dict(), kind="sink"), records, state="reserved")
+            except PartUnavailableError as exc:
+                if req.outputs is None or attempt == RESERVE_ATTEMPTS - 1:
+                    raise  # named parts: the engineer chose them, so say so rather than pick others
+                taken.append(_taken_note(exc))
+        raise AssertionError("unreachable")
     finally:
         if lib is not None:
             lib.close()
+
+
+def _taken_note(exc: PartUnavailableError) -> str:
+    return str(exc).replace("; the design was not saved", "") + "; the set was searched again on what is left"
+
+
+@dataclass(frozen=True)
+class ReservedMatch:
+    """A matched set recorded as a design (its parts reserved): the search that found it and what happened."""
+
+    design_id: int
+    result: MatchResult
+    notes: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"design_id": self.design_id, **self.result.to_dict(), "notes": list(self.notes)}
+
+
+def reserve_match(library_path, current: float, size: int, *, current_max: float | None = None,
+                  lot: str | None = None, polarity: str = "N", operator: str | None = None,
+                  confirm: Callable[[MatchResult], bool] | None = None) -> ReservedMatch:
+    """Run ``benchlab design match --save``: find the best set among the in-stock parts and reserve it.
+
+    When another engineer reserves one of its parts between the search and the reservation, the
+    library refuses the whole set (naming the part, the design that took it and when) and the search
+    runs again on what is left, up to ``RESERVE_ATTEMPTS`` times.
+
+    Parameters
+    ----------
+    confirm : callable, optional
+        Called with each search's result before its best set is reserved (a UI asks the engineer here);
+        returning False reserves nothing and raises ``DesignError``.
+
+    Returns
+    -------
+    ReservedMatch
+        The design id, the search that found the reserved set (its first set), and one note per retry.
+    """
+    currents = current_grid(current, current_max)
+    notes: list[str] = []
+    with _open(library_path, operator) as lib:
+        for attempt in range(RESERVE_ATTEMPTS):
+            records = _stock(lib, lot, polarity)
+            stock = [part_from_record(r) for r in records]
+            if len(stock) < size:
+                where = f" in lot '{lot}'" if lot else ""
+                raise DesignError(f"{len(stock)} in-stock part(s) with curves{where}; a set needs {size}"
+                                  + (" (" + "; ".join(notes) + ")" if notes else ""))
+            result = match_sets(stock, currents, size, count=1)
+            if not result.sets:
+                raise DesignError(f"no set of {size} could be formed from the {len(stock)} in-stock part(s)")
+            if confirm is not None and not confirm(result):
+                raise DesignError("the set was not confirmed; nothing was reserved")
+            best = result.sets[0]
+            chosen = [records[best.ref_index], *(records[i] for i in best.output_indices)]
+            design = {"kind": "match", "currents": list(result.currents), "size": size, "method": result.method,
+                      "objective": result.objective, "set": best.to_dict(),
+                      "sets": [[best.ref, *best.outputs]], "notes": list(notes)}
+            try:
+                design_id = lib.record_design(design, chosen, state="reserved")
+            except PartUnavailableError as exc:
+                if attempt == RESERVE_ATTEMPTS - 1:
+                    raise
+                notes.append(_taken_note(exc))
+                continue
+            return ReservedMatch(design_id=design_id, result=result, notes=tuple(notes))
+    raise AssertionError("unreachable")
 
 
 def match_parts(library_path, current: float, size: int, *, current_max: float | None = None,

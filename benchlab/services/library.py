@@ -31,9 +31,11 @@ def library_path(path: str | os.PathLike | None = None) -> Path | str:
     return str(path).strip() if is_url(str(path).strip()) else Path(path).expanduser()
 
 
-def open_library(path: str | os.PathLike | None = None, *, create: bool = False) -> Library:
-    """Open the library at :func:`library_path` ``(path)``; only commands that add data ``create`` it."""
-    return Library.open(library_path(path), create=create)
+def open_library(path: str | os.PathLike | None = None, *, create: bool = False,
+                 operator: str | None = None) -> Library:
+    """Open the library at :func:`library_path` ``(path)``; only commands that add data ``create`` it.
+    ``operator`` (default: the login name) is kept with every state change made through it."""
+    return Library.open(library_path(path), create=create, operator=operator)
 
 
 def hand_params(vth: float | None, gm: float | None = None, kp: float | None = None,
@@ -108,20 +110,20 @@ def show_part(path, spec: str) -> dict[str, Any]:
                 "history": lib.history(part)}
 
 
-def set_state(path, spec: str, state: str, reason: str | None = None) -> PartRecord:
-    """Move a part to another state (``rejected`` needs a reason)."""
-    with open_library(path) as lib:
+def set_state(path, spec: str, state: str, reason: str | None = None, *, operator: str | None = None) -> PartRecord:
+    """Move a part to another state (``rejected`` needs a reason), recorded as done by ``operator``."""
+    with open_library(path, operator=operator) as lib:
         return lib.set_state(spec, state, reason)
 
 
 def import_sessions(path, session_dirs: Sequence[str], *, lot: str | None = None, refit: bool = True,
-                    model: str = "auto"):
+                    model: str = "auto", operator: str | None = None):
     """Import session folders, or folders of them (re-fitting each good sweep unless ``refit`` is False)."""
     from benchlab.library.sessions import find_sessions
 
     folders = find_sessions(session_dirs)  # checked before the library file is opened or created
     fit = fit_function(model) if refit else None
-    with open_library(path, create=True) as lib:
+    with open_library(path, create=True, operator=operator) as lib:
         return import_into(lib, folders, refit=refit, lot=lot, fit_function=fit)
 
 
@@ -247,5 +249,6 @@ def format_part_details(details: dict[str, Any]) -> str:
                      f"{'' if sweep['complete'] else ' (incomplete)'}  {sweep['csv_path']}")
     for change in details["history"]:
         lines.append(f"  {change['changed_at']}: {change['old_state']} -> {change['new_state']}"
-                     + (f" ({change['reason']})" if change.get("reason") else ""))
+                     + (f" ({change['reason']})" if change.get("reason") else "")
+                     + (f" by {change['operator']}" if change.get("operator") else ""))
     return "\n".join(lines)

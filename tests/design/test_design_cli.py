@@ -91,7 +91,8 @@ def test_sink_picks_a_set_saves_it_and_reserves_the_parts(capsys, bag_library, t
     outs = ",".join(o["part"] for o in data["outputs"])
     code, out, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
                          "--ref", ref, "--out", outs, "--save")
-    assert code != 0 and "not in stock" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
+    # who took it, in the words an engineer at another bench needs
+    assert code != 0 and f"was reserved by design {data['design_id']} at " in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
     with Library.open(bag_library) as lib:
         assert len(lib.designs()) == 1
 
