@@ -63,6 +63,13 @@ def _fit(args) -> int:
             print(service.format_curve(record, args.curve))
     for source, why in run.skipped:
         print(f"skipped {source.label} (classified {source.classification}): {why}", file=sys.stderr)
+    for source, exc in run.failed:
+        print(f"benchlab: error: {exc}", file=sys.stderr)
+    if run.failed:
+        saved = "; nothing saved" if args.save else ""
+        print(f"benchlab: {len(run.failed)} of {len(run.failed) + len(run.records) + len(run.skipped)} sweep(s) "
+              f"refused, the others fitted{saved}", file=sys.stderr)
+        return max(exc.exit_code for _, exc in run.failed)
     if args.save:
         print(f"saved {len(run.records)} fit(s) to their session sidecars", file=sys.stderr)
     return 0

@@ -15,8 +15,8 @@ from benchlab.errors import FitError
 from benchlab.extract import diagnostics
 from benchlab.extract.batch_thresholds import constant_current_stderr_batch, thresholds_batch
 from benchlab.extract.engine import PARAM_NAMES, BatchFit, _current_and_jacobian, model_current, solve_batch
-from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NOT_CONVERGED,
-                                     FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
+from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NON_MONOTONIC,
+                                     FLAG_NOT_CONVERGED, FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
 from benchlab.models import T_NOMINAL_K, DeviceParams, overdrive_at_current, thermal_voltage
 
 
@@ -211,6 +211,12 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         if at_current is not None and not (i_lo[row] <= at_current <= i_hi[row]):
             flags_found.append((FLAG_AT_CURRENT_OUTSIDE, f"gm at {at_current:g} A comes from the model outside "
                                                          "the measured currents"))
+        if sweep.fold_backs:
+            row_no, v_fold, i_fold = sweep.fold_backs[0]
+            flags_found.append((FLAG_NON_MONOTONIC, f"VGS and ID fall together far beyond the sweep's noise "
+                                                    f"({len(sweep.fold_backs)} place(s), first at row {row_no}, "
+                                                    f"VGS={v_fold:.4f} V, ID={i_fold:.4g} A): likely a heating "
+                                                    "fold-back"))
         shift = None
         if sweep.has_both_directions:
             up_v, up_i = sweep.select("up")

@@ -294,6 +294,18 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     if not body:
         raise InputError("no data rows after the header", path=name)
     status_col, direction_col = index.get("status"), index.get("direction")
+    # a record with a point index (or the source setpoint) carries its measurement order: rows are
+    # taken in point order, and a heating fold-back in it is data, not disorder
+    point_col = index.get("point")
+    ordered = point_col is not None or "v_source" in index
+    if point_col is not None:
+        def point_of(item):
+            cells = item[1]
+            try:
+                return float(cells[point_col]) if point_col < len(cells) else math.inf
+            except ValueError:
+                return math.inf
+        body = sorted(body, key=point_of)
     vgs, i_d, direction, rows, skipped = [], [], [], [], {}
     for row_number, row in body:
         status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
@@ -319,7 +331,7 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     if not vgs:
         raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
     return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
-                           source=name, skipped=skipped)
+                           source=name, skipped=skipped, ordered=ordered)
 
 
 def _describe(skipped: dict) -> str:

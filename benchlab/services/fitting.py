@@ -10,12 +10,12 @@ from __future__ import annotations
 
 import json
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from benchlab.errors import FitError, InputError
+from benchlab.errors import BenchlabError, FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
@@ -167,10 +167,12 @@ def load_source(source: SweepSource) -> Sweep:
 
 @dataclass(frozen=True)
 class FitRun:
-    """The outcome of :func:`fit_files`: the fits, and the dud parts that could not be fitted."""
+    """The outcome of :func:`fit_files`: the fits, the dud parts that could not be fitted, and the
+    sweeps refused for bad data (``failed``: the run fitted the others; the command exits non-zero)."""
 
     records: list[FitRecord]
     skipped: list[tuple[SweepSource, str]]
+    failed: list[tuple[SweepSource, BenchlabError]] = field(default_factory=list)
 
 
 def _is_dud(source: SweepSource) -> bool:
@@ -183,8 +185,10 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
     """Fit every sweep found in ``paths`` (one batch) and optionally store the fits in the sidecars.
 
     A part the sweep classified as a dud (open, shorted, leaky, unstable) that has too few
-    conducting points to fit is skipped with its reason rather than stopping the run; bad
-    input anywhere else is an error.
+    conducting points to fit is skipped with its reason rather than stopping the run. A sweep
+    whose data are refused (bad rows, too few points for the model) is listed in ``failed``
+    and the others are still fitted; with ``save`` nothing is written then. Bad paths or
+    options are an error before anything is read.
 
     Parameters
     ----------
@@ -205,10 +209,8 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
     Raises
     ------
     InputError
-        Bad paths or data, or ``save`` with a plain CSV (no sidecar); raised before anything
+        Bad paths, or ``save`` with a plain CSV (no sidecar); raised before anything
         is written.
-    FitError
-        A (non-dud) sweep has too few points in the window for the model.
     """
     if temperature_c is not None and not (math.isfinite(temperature_c)
                                           and T_MIN_C <= temperature_c <= T_MAX_C):
@@ -220,14 +222,15 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         if plain:
             raise InputError("--save stores fits in a session record's sidecar; this CSV has none "
                              "(fit it without --save, or fit the session)", path=str(plain[0].csv_path))
-    loaded, skipped = [], []
+    loaded, skipped, failed = [], [], []
     for source in sources:
         try:
             loaded.append((source, load_source(source)))
         except InputError as exc:
-            if not _is_dud(source):
-                raise
-            skipped.append((source, str(exc)))
+            if _is_dud(source):
+                skipped.append((source, str(exc)))
+            else:
+                failed.append((source, exc))
     options = dict(at_current=at_current, cc_current=cc_current, window=window, bootstrap=bootstrap)
 
     def kelvin(source: SweepSource) -> float:
@@ -238,8 +241,18 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
     regular = [(s, w) for s, w in loaded if not _is_dud(s)]
     for temperature in sorted({kelvin(s) for s, _ in regular}):  # one batch per temperature
         group = [(s, w) for s, w in regular if kelvin(s) == temperature]
-        results = fit_batch([w for _, w in group], model, temperature_k=temperature, **options)
-        fitted.update(zip((id(s) for s, _ in group), results))
+        try:
+            results = fit_batch([w for _, w in group], model, temperature_k=temperature, **options)
+        except (FitError, InputError):
+            # one sweep the model cannot fit stops a batch: fit one by one to name it and keep the rest
+            results = []
+            for source, sweep in group:
+                try:
+                    results.append(fit_batch([sweep], model, temperature_k=temperature, **options)[0])
+                except (FitError, InputError) as exc:
+                    failed.append((source, exc))
+                    results.append(None)
+        fitted.update((id(s), r) for (s, _), r in zip(group, results) if r is not None)
     for source, sweep in loaded:
         if _is_dud(source):  # one by one, so a dud that cannot be fitted stops nothing
             try:
@@ -247,13 +260,15 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
             except (FitError, InputError) as exc:
                 skipped.append((source, str(exc)))
     records = [FitRecord(s, fitted[id(s)]) for s in sources if id(s) in fitted]
-    if save:
+    if failed and not records and not skipped:
+        raise failed[0][1]  # nothing else to show: the one clear error
+    if save and not failed:  # a refused sweep anywhere: nothing is written
         stored = {"model": model, "at_current": at_current, "cc_current": cc_current,
                   "window": list(window) if window else None, "bootstrap": int(bootstrap),
                   "temperature_c": temperature_c}
         for record in records:
             store_fit(record, stored)
-    return FitRun(records, skipped)
+    return FitRun(records, skipped, failed)
 
 
 def store_fit(record: FitRecord, options: dict[str, Any]) -> None:

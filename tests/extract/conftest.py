@@ -30,12 +30,13 @@ class Spice:
         self.ngspice = ngspice
         self.folder = folder
 
-    def resistor_sweep(self, model_line: str, resistor: float = 470.0, stop: float = 12.0, step: float = 0.02):
+    def resistor_sweep(self, model_line: str, resistor: float = 470.0, stop: float = 12.0, step: float = 0.02,
+                       geometry: str = "W=1 L=1"):
         """Supply stepped 0..stop through ``resistor`` into the part; returns (v_supply, v_part, i_d)."""
         deck = f"""* diode-connected part on a resistor line
 V1 vs 0 0
 R1 vs d {resistor}
-M1 d d 0 0 NMOD W=1 L=1
+M1 d d 0 0 NMOD {geometry}
 {model_line}
 {OPTIONS}
 .dc V1 0 {stop} {step}
