@@ -321,5 +321,8 @@ def rth_electrical(*, cal_temps_k: Sequence[float], cal_volts: Sequence[float], 
     rth = rise / power_w - heatsink_k_per_w
     rise_err = math.hypot(cooling.intercept_stderr, cal_sigma_v) / abs(k)
     rth_err = abs(rise / power_w) * math.hypot(k_err / abs(k), rise_err / abs(rise) if rise else 0.0)
+    # the cooling correction rests on an approximation (sqrt(t) heat flow): half of it counts as its uncertainty
+    correction = (rise - rise_first) / power_w
+    rth_err = math.hypot(rth_err, correction / 2.0)
     return {"rth": rth, "rth_stderr": rth_err, "rth_uncorrected": rise_first / power_w - heatsink_k_per_w,
             "k_factor": k, "k_factor_stderr": k_err, "junction_rise_k": rise, "delay_s": float(cooling_t_s[0])}

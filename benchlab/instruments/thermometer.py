@@ -156,3 +156,40 @@ def open_fixture_thermal(config: ThermalConfig, resource_manager: Any = None, *,
             transport.close()
         raise
     return FixtureThermal(config, transports, ask, say)
+
+
+class RealClock:
+    """Wall-clock time for a real bench (``now`` in s, ``wait`` sleeps)."""
+
+    def now(self) -> float:
+        import time
+
+        return time.monotonic()
+
+    def wait(self, seconds: float) -> None:
+        import time
+
+        if seconds > 0:
+            time.sleep(seconds)
+
+
+class SimClock:
+    """The built-in simulator's virtual time, read and advanced through its own ``SIMulation:CLOCk`` commands.
+
+    Waiting on the simulator costs no real time at time scale 0, so a thermal run of many minutes of
+    instrument time finishes in seconds; the simulated part heats and cools on the same clock.
+    """
+
+    MAX_STEP_S = 3600.0  # the simulator's largest single advance
+
+    def __init__(self, transport: Transport):
+        self.transport = transport
+
+    def now(self) -> float:
+        return float(self.transport.query("SIMulation:CLOCk?"))
+
+    def wait(self, seconds: float) -> None:
+        while seconds > 0:
+            step = min(seconds, self.MAX_STEP_S)
+            self.transport.query(f"SIMulation:CLOCk:ADVance {step:.6f};*OPC?")
+            seconds -= step

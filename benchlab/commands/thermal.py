@@ -1,0 +1,109 @@
+"""``benchlab thermal tempco`` and ``benchlab thermal rth``: thermal characterization of one part."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from benchlab.commands._args import library_option, quantity, whole_number
+
+
+def _temperatures(text: str) -> list[float]:
+    try:
+        values = [float(v) for v in text.split(",") if v.strip()]
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected comma-separated temperatures in degC, e.g. 25,60; got {text!r}") \
+            from None
+    if len(values) < 2:
+        raise argparse.ArgumentTypeError(f"give at least two temperatures in degC, e.g. 25,60; got {text!r}")
+    return values
+
+
+def _common(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--part", required=True, metavar="LABEL", help="label of the part in the fixture, e.g. Q07")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--bench", metavar="CONFIG", help="bench file with a [thermal] table (docs/bench-config.md)")
+    where.add_argument("--sim", action="store_true", help="the built-in simulated bench (SMU fixture, heated block)")
+    p.add_argument("--sessions", metavar="DIR", default="sessions", help="where the readings go (default ./sessions)")
+    p.add_argument("--json", action="store_true",
+                   help="print one JSON object: vth_tempco, kp_exponent, ztc_vgs, ztc_id, rth (null where not "
+                        "measured) and stderr with the same keys")
+    p.add_argument("--sim-seed", type=int, default=1, help="seed of the simulated bag and noise (default 1)")
+    p.add_argument("--sim-time-scale", type=float, default=0.0,
+                   help="real seconds per instrument second on the simulator (default 0: no waits)")
+
+
+def _sim_options(args):
+    if not args.sim:
+        return None
+    from benchlab.services.characterize import SimOptions
+
+    return SimOptions(fixture="smu", seed=args.sim_seed, time_scale=args.sim_time_scale)
+
+
+def _print(outcome, as_json: bool) -> int:
+    from benchlab.services import thermal as svc
+
+    if as_json:
+        print(svc.dumps(outcome))
+    else:
+        print("\n".join(svc.format_outcome(outcome)))
+    return 0
+
+
+def _say(args):
+    # messages go to stderr so that --json keeps stdout to the one object
+    return lambda text: print(text, file=sys.stderr, flush=True)
+
+
+def run_tempco(args: argparse.Namespace) -> int:
+    from benchlab.commands.sweep import ProgressBar
+    from benchlab.services import thermal as svc
+
+    outcome = svc.measure_tempco(args.part, args.temps, bench_path=args.bench, sim=_sim_options(args),
+                                 sessions_root=args.sessions, library=args.library, model=args.model,
+                                 bootstrap=args.bootstrap, on_event=None if args.json else ProgressBar(out=sys.stderr),
+                                 say=_say(args))
+    return _print(outcome, args.json)
+
+
+def run_rth(args: argparse.Namespace) -> int:
+    from benchlab.services import thermal as svc
+    from benchlab.sweep.thermal_plan import RthPlan
+
+    plan = RthPlan(sense_current_a=args.sense_current, heating_power_w=args.power, heatsink_k_per_w=args.heatsink,
+                   calibration_rise_k=args.calibration_rise)
+    outcome = svc.measure_rth(args.part, bench_path=args.bench, sim=_sim_options(args), sessions_root=args.sessions,
+                              library=args.library, plan=plan, say=_say(args))
+    return _print(outcome, args.json)
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser("thermal", help="thermal characterization of a part: tempco, ZTC point, Rth",
+                              description="Measure a part's threshold temperature coefficient, mobility exponent "
+                                          "and zero-temperature-coefficient point (tempco), or its thermal "
+                                          "resistance by the electrical method (rth); results go to the library "
+                                          "when the part is there.")
+    sub = p.add_subparsers(dest="thermal_command", metavar="MEASUREMENT")
+    t = sub.add_parser("tempco", parents=[library_option()],
+                       help="sweep the part at two or more fixture temperatures: dVth/dT, KP ~ T^-m, ZTC point")
+    _common(t)
+    t.add_argument("--temps", type=_temperatures, required=True, metavar="C1,C2,...",
+                   help="fixture temperatures in degC, e.g. 25,60")
+    t.add_argument("--model", choices=("auto", "square", "theta", "ekv"), default="auto",
+                   help="drain-current model of the fits (default auto, chosen on the coldest sweep)")
+    t.add_argument("--bootstrap", type=whole_number, default=100, help="resamples for the standard errors")
+    t.set_defaults(func=run_tempco)
+    r = sub.add_parser("rth", parents=[library_option()],
+                       help="thermal resistance in the fixture by the electrical method (K-factor, heat, sense)")
+    _common(r)
+    r.add_argument("--heatsink", type=quantity("K/W", "nonnegative"), default=0.0, metavar="K/W",
+                   help="heat sink between the part and the fixture's sensed point during the measurement "
+                        "(subtracted, so the stored Rth is the part's own; default 0)")
+    r.add_argument("--power", type=quantity("W"), metavar="W",
+                   help="heating power (default: the bench file's thermal.max_heating_w)")
+    r.add_argument("--sense-current", type=quantity("A"), default=1e-3, metavar="A",
+                   help="sense current of the K-factor and the cooling readings (default 1 mA)")
+    r.add_argument("--calibration-rise", type=quantity("", "positive"), default=40.0, metavar="K",
+                   help="second K-factor temperature, this many kelvin above the first (default 40)")
+    r.set_defaults(func=run_rth)

@@ -1,0 +1,301 @@
+"""Thermal characterization of one part: temperature coefficients and the ZTC point, thermal resistance.
+
+Used by ``benchlab thermal tempco`` / ``benchlab thermal rth`` (and the terminal UI and the API: every entry
+point takes callbacks and a cancel event and returns a :class:`ThermalOutcome`, plain data).
+Order of work, so bad input never writes or powers anything: read the bench (or the simulator's thermal
+setup), check the temperatures and powers against its ``[thermal]`` limits, connect, then create the
+session folder, refuse a fixture already above its limit, and measure. The output is off on every way out
+and a controlled fixture goes back to where it started.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+
+from benchlab.errors import InputError
+from benchlab.extract.sweepdata import validate_points
+from benchlab.extract.thermal import RthResult, TempcoResult, rth_electrical, tempco_from_sweeps
+from benchlab.kinds import Fixture, PointStatus
+from benchlab.services import characterize as chz
+from benchlab.sweep.plan import Limits
+from benchlab.sweep.session import SessionWriter, check_name, write_json_atomic
+from benchlab.sweep.thermal_plan import RthPlan, TempcoPlan, validate_rth_plan, validate_tempco_plan
+from benchlab.sweep.thermal_run import ThermalLog, run_rth, run_tempco
+
+KELVIN = 273.15
+RESULT_KEYS = ("vth_tempco", "kp_exponent", "ztc_vgs", "ztc_id", "rth")
+CAUTION = ("Caution: thermal runs heat the part and its fixture well above room temperature (up to the bench file's "
+           "max_junction_k); let them cool before touching them, keep the heated block away from anything flammable, "
+           "and follow local electrical codes and your workshop's rules.")
+# the sweep taken at each temperature: pulsed (5 % duty) so the junction stays at the fixture's temperature
+TEMPCO_SWEEP = {"points": 20, "max_current_a": 0.2, "pulsed_duty": 0.05, "down_sweep": False}
+PULSED_DC_TOLERANCE = 0.2  # relative disagreement between the pulsed/DC shift and its prediction that flags the part
+
+
+@dataclass(frozen=True)
+class ThermalOutcome:
+    """One thermal measurement of one part (SI units)."""
+
+    part: str
+    measurement: str  # "tempco" or "rth"
+    tempco: TempcoResult | None = None
+    rth: RthResult | None = None
+    session_path: str = ""
+    settle_criterion: str = ""
+    stored: str = ""  # where it went in the library ("" when the part is not there)
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    def values(self) -> dict[str, float | None]:
+        """The five headline numbers (None where this measurement does not give them)."""
+        t, r = self.tempco, self.rth
+        return {"vth_tempco": t.vth_tempco if t else None, "kp_exponent": t.kp_exponent if t else None,
+                "ztc_vgs": t.ztc_vgs if t else None, "ztc_id": t.ztc_id if t else None, "rth": r.rth if r else None}
+
+    def stderrs(self) -> dict[str, float | None]:
+        """Standard errors of :meth:`values`, same keys."""
+        out = dict(self.tempco.stderr) if self.tempco else {k: None for k in RESULT_KEYS[:4]}
+        out["rth"] = self.rth.rth_stderr if self.rth else None
+        return {k: out.get(k) for k in RESULT_KEYS}
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain JSON: the five values and ``stderr`` at the top, the details below."""
+        return {"part": self.part, "measurement": self.measurement, **self.values(), "stderr": self.stderrs(),
+                "session_path": self.session_path, "settle_criterion": self.settle_criterion,
+                "stored": self.stored, "notes": list(self.notes),
+                "tempco_details": self.tempco.to_dict() if self.tempco else None,
+                "rth_details": self.rth.to_dict() if self.rth else None}
+
+
+def _thermal_setup(bench_path: str | None, sim: chz.SimOptions | None):
+    """The bench's ``[thermal]`` table and limits, read before anything is started (sim: its built-in setup)."""
+    if (bench_path is None) == (sim is None):
+        raise InputError("say which bench: --bench CONFIG (a bench file) or --sim (the simulated bench)")
+    from benchlab.instruments.thermal_config import simulator_thermal_config
+
+    if sim is not None:
+        from benchlab.instruments.config import simulator_bench_config
+
+        nominal = simulator_bench_config({"smu": "TCPIP0::127.0.0.1::3::SOCKET"}, fixture=Fixture.SMU)
+        return simulator_thermal_config("TCPIP0::127.0.0.1::3::SOCKET"), Limits.from_safety_limits(nominal.limits)
+    config = chz.load_config(bench_path)
+    if config.thermal is None:
+        raise InputError("the bench file has no [thermal] table (fixture temperature sensor and limits): see "
+                         "docs/bench-config.md", path=bench_path)
+    return config.thermal, Limits.from_safety_limits(config.limits)
+
+
+def _open(bench_path, sim, plan_options, say):
+    """Connect the bench and its fixture sensor; returns (handle, sweep plan, FixtureThermal, clock)."""
+    from benchlab.instruments.thermal_config import simulator_thermal_config
+    from benchlab.instruments.thermometer import RealClock, SimClock, open_fixture_thermal
+
+    if sim is not None:
+        sim = replace(sim, fixture=Fixture.SMU)
+    handle, plan = chz.prepare(bench_path, sim, plan_options, say=say)
+    try:
+        if handle.simulator is not None:
+            resource = handle.config.instruments["smu"].resource
+            handle.config = replace(handle.config, thermal=simulator_thermal_config(resource))
+        thermal = open_fixture_thermal(handle.config.thermal, say=say)
+    except BaseException:
+        handle.close()
+        raise
+    clock = SimClock(next(iter(thermal.transports.values()))) if handle.simulator is not None else RealClock()
+    return handle, plan, thermal, clock
+
+
+def _sweep_of(outcome):
+    """The fittable points of a sweep outcome as a validated :class:`Sweep`."""
+    keep = [p for p in outcome.points if p.status == PointStatus.OK and p.id > 2e-6]
+    if len(keep) < 5:
+        raise InputError(f"{outcome.label}: only {len(keep)} usable points ({outcome.reason})")
+    return validate_points([p.vgs for p in keep], [p.id for p in keep], [p.direction for p in keep],
+                           source=outcome.label)
+
+
+def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
+                   sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
+                   model: str = "auto", bootstrap: int = 100, on_event: Callable[[Any], None] | None = None,
+                   say: Callable[[str], None] | None = None, cancel=None,
+                   sweep_options: dict[str, Any] | None = None) -> ThermalOutcome:
+    """Sweep ``part`` at each fixture temperature (degC) and extract dVth/dT, m and the ZTC point.
+
+    Raises
+    ------
+    InputError, SafetyError
+        Bad input (nothing connected or powered), a fixture above its limit (nothing powered).
+    BenchlabError
+        Instrument problems and cancellation, after the output is off.
+    """
+    check_name("part label", part)
+    temps_k = tuple(float(t) + KELVIN for t in temperatures_c)
+    thermal_cfg, _ = _thermal_setup(bench_path, sim)
+    validate_tempco_plan(TempcoPlan(temps_k, None, model, bootstrap), thermal_cfg)  # type: ignore[arg-type]
+    options = {**TEMPCO_SWEEP, **(sweep_options or {})}
+    if bench_path is not None and say is not None:
+        say(CAUTION)
+    handle, splan, thermal, clock = _open(bench_path, sim, options, say)
+    plan = validate_tempco_plan(TempcoPlan(temps_k, splan, model, bootstrap), thermal.config)
+    try:
+        with chz.sigterm_as_exception():
+            if handle.simulator is not None:
+                chz.SimPartLoader(handle.bench).seek(part)
+            chz.preflight(splan, handle.bench)
+            session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=len(temps_k),
+                                           **chz.session_meta(handle))
+            log = ThermalLog(session.path / "thermal.jsonl")
+            try:
+                log.add("plan", measurement="tempco", part=part, plan=plan.to_dict(),
+                        settle=thermal.config.settle_criterion())
+                records = run_tempco(plan, handle.bench, thermal, clock, session, part, log, on_event=on_event,
+                                     cancel=cancel, say=say)
+            finally:
+                log.close()
+                session.finish()
+    finally:
+        thermal.close()
+        handle.close()
+    result = tempco_from_sweeps([_sweep_of(outcome) for _, outcome, _, _ in records], [t for *_, t, _ in records],
+                                temperature_sigma_k=[s for *_, s in records], model=model, bootstrap=bootstrap)
+    outcome = ThermalOutcome(part=part, measurement="tempco", tempco=result, session_path=str(session.path),
+                             settle_criterion=thermal.config.settle_criterion(), notes=result.notes)
+    return _finish(outcome, session.path, library)
+
+
+def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
+                sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
+                plan: RthPlan | None = None, say: Callable[[str], None] | None = None,
+                cancel=None) -> ThermalOutcome:
+    """Thermal resistance of ``part`` in the fixture by the electrical method, with the pulsed/DC cross-check.
+
+    Raises
+    ------
+    InputError, SafetyError
+        Bad input (nothing connected or powered), a fixture above its limit (nothing powered), a junction or
+        power passing its limit while heating (output off at once).
+    BenchlabError
+        Instrument problems and cancellation, after the output is off.
+    """
+    check_name("part label", part)
+    plan = plan or RthPlan()
+    thermal_cfg, limits = _thermal_setup(bench_path, sim)
+    validate_rth_plan(plan, thermal_cfg, limits)
+    if bench_path is not None and say is not None:
+        say(CAUTION)
+    handle, _, thermal, clock = _open(bench_path, sim, {}, say)
+    limits = Limits.from_safety_limits(handle.config.limits)
+    try:
+        validate_rth_plan(plan, thermal.config, limits)
+        if handle.config.fixture != Fixture.SMU:
+            raise InputError("the thermal-resistance measurement needs a source-measure unit (fixture 'smu')")
+        with chz.sigterm_as_exception():
+            if handle.simulator is not None:
+                chz.SimPartLoader(handle.bench).seek(part)
+            session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=0,
+                                           **chz.session_meta(handle))
+            log = ThermalLog(session.path / "thermal.jsonl")
+            try:
+                log.add("plan", measurement="rth", part=part, plan=plan.to_dict(),
+                        settle=thermal.config.settle_criterion())
+                raw = run_rth(plan, handle.bench, thermal, clock, limits, log, cancel=cancel, say=say)
+            finally:
+                log.close()
+                session.finish()
+    finally:
+        thermal.close()
+        handle.close()
+    result = rth_result(raw, plan)
+    outcome = ThermalOutcome(part=part, measurement="rth", rth=result, session_path=str(session.path),
+                             settle_criterion=thermal.config.settle_criterion(), notes=result.notes)
+    return _finish(outcome, session.path, library)
+
+
+def rth_result(raw: dict[str, Any], plan: RthPlan) -> RthResult:
+    """Turn the raw readings of :func:`benchlab.sweep.thermal_run.run_rth` into an :class:`RthResult`.
+
+    The pulsed/DC cross-check: the heating current's VGS after heating (DC, self-heated) minus its pulsed
+    value at the reference temperature should equal (dVGS/dT at that current, from the two calibration
+    temperatures) x (the junction rise measured by the sense voltage); the part is flagged when the two differ
+    by more than 20 % of the prediction, 3 standard errors and 2 mV.
+    """
+    numbers = rth_electrical(cal_temps_k=raw["cal_temps_k"], cal_volts=raw["cal_volts"],
+                             cal_sigma_v=raw["cal_sigma_v"], cal_sigma_k=raw["cal_sigma_k"], cold_v=raw["cold_v"],
+                             cooling_t_s=raw["cooling_t_s"], cooling_v=raw["cooling_v"], power_w=raw["power_w"],
+                             heatsink_k_per_w=plan.heatsink_k_per_w)
+    measured = raw["v_heat_dc"] - raw["v_heat_cold"]
+    predicted = raw["dvdt_heat"] * numbers["junction_rise_k"]
+    sigma = abs(predicted) * numbers["k_factor_stderr"] / abs(numbers["k_factor"]) + raw["cal_sigma_v"] * 2
+    allowed = max(PULSED_DC_TOLERANCE * abs(predicted), 3 * sigma, 2e-3)
+    check = {"heating_current_a": raw["heating_current_a"], "vgs_pulsed": raw["v_heat_cold"],
+             "vgs_dc": raw["v_heat_dc"], "shift_measured_v": measured, "shift_predicted_v": predicted,
+             "allowed_v": allowed, "flag": bool(abs(measured - predicted) > allowed)}
+    notes = list(raw["notes"])
+    if check["flag"]:
+        notes.append(f"pulsed vs DC: the self-heated VGS moved {measured * 1e3:+.1f} mV, the measured Rth and tempco "
+                     f"predict {predicted * 1e3:+.1f} mV: check the part and the fixture")
+    if numbers["rth"] <= 0:
+        notes.append("the heat-sink figure is larger than the measured junction-to-reference resistance")
+    return RthResult(rth=numbers["rth"], rth_stderr=numbers["rth_stderr"], rth_uncorrected=numbers["rth_uncorrected"],
+                     k_factor=numbers["k_factor"], k_factor_stderr=numbers["k_factor_stderr"],
+                     power_w=raw["power_w"], junction_rise_k=numbers["junction_rise_k"], delay_s=numbers["delay_s"],
+                     sense_current_a=plan.sense_current_a, heating_current_a=raw["heating_current_a"],
+                     heating_s=raw["heating_s"], reference_k=raw["reference_k"],
+                     heatsink_k_per_w=plan.heatsink_k_per_w, pulsed_dc=check, notes=tuple(notes))
+
+
+def _finish(outcome: ThermalOutcome, session_path: Path, library: str | None) -> ThermalOutcome:
+    """Write the result next to the readings and store it in the library when the part is there."""
+    stored = store_in_library(outcome, library)
+    outcome = replace(outcome, stored=stored)
+    write_json_atomic(session_path / f"thermal-{outcome.measurement}.json", outcome.to_dict())
+    return outcome
+
+
+def store_in_library(outcome: ThermalOutcome, library: str | None) -> str:
+    """Store the measured values on the part in the library, if a part of that label is there ("" otherwise)."""
+    return ""
+
+
+def format_outcome(outcome: ThermalOutcome) -> list[str]:
+    """Lines for people: each value with its standard error and where it came from."""
+    values, errs = outcome.values(), outcome.stderrs()
+    units = {"vth_tempco": (1e3, "mV/K"), "kp_exponent": (1.0, ""), "ztc_vgs": (1.0, "V"), "ztc_id": (1e3, "mA"),
+             "rth": (1.0, "K/W")}
+    lines = [f"{outcome.part}: {outcome.measurement} (session {outcome.session_path})"]
+    for key, value in values.items():
+        if value is None:
+            continue
+        scale, unit = units[key]
+        err = errs.get(key)
+        plus = f" +/- {err * scale:.3g}" if err is not None and math.isfinite(err) else ""
+        lines.append(f"  {key:<12} {value * scale:.4g}{plus} {unit}")
+    if outcome.tempco is not None and outcome.tempco.ztc_extrapolated:
+        lines.append("  (ZTC point extrapolated beyond the swept range)")
+    if outcome.rth is not None:
+        r = outcome.rth
+        lines.append(f"  K-factor {r.k_factor * 1e3:.3f} mV/K at {r.sense_current_a * 1e3:g} mA; {r.power_w:.3g} W for "
+                     f"{r.heating_s:.0f} s; first reading {r.delay_s * 1e3:.0f} ms after the switch, extrapolated "
+                     f"to it against sqrt(t) (uncorrected {r.rth_uncorrected:.4g} K/W)")
+        flag = "FLAGGED" if r.pulsed_dc.get("flag") else "agrees"
+        lines.append(f"  pulsed vs DC at {r.heating_current_a * 1e3:.0f} mA: {flag} (shift "
+                     f"{r.pulsed_dc['shift_measured_v'] * 1e3:+.1f} mV, predicted "
+                     f"{r.pulsed_dc['shift_predicted_v'] * 1e3:+.1f} mV)")
+    lines.append(f"  fixture settling: {outcome.settle_criterion}")
+    lines.extend(f"  note: {n}" for n in outcome.notes)
+    lines.append(f"  library: {outcome.stored or 'part not in the library, not stored'}")
+    return lines
+
+
+def dumps(outcome: ThermalOutcome) -> str:
+    """The one JSON object ``--json`` prints."""
+    return json.dumps(outcome.to_dict(), default=lambda v: v.item() if isinstance(v, np.generic) else str(v))
+
+
+__all__ = ["ThermalOutcome", "measure_rth", "measure_tempco", "rth_result", "format_outcome", "dumps",
+           "store_in_library", "CAUTION"]

@@ -1,0 +1,103 @@
+"""Thermal measurements on the simulated bench: tempco and Rth against the simulator's truth, safety on every exit.
+
+The simulator's parts carry a configured threshold coefficient (drawn per part) and a junction-to-block thermal
+resistance (62 K/W); its readings have noise. JEDEC JESD51-1 (Integrated Circuit Thermal Measurement Method -
+Electrical Test Method, Single Semiconductor Device) defines the method checked here: a temperature-sensitive
+electrical parameter calibrated against temperature (the K-factor), heating at a known power, then
+Rth = junction rise / power.
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from benchlab.cli import main
+from benchlab.errors import SafetyError
+from benchlab.services import thermal as svc
+from benchlab.services.characterize import SimOptions
+from benchlab.sim.bag import make_bag
+from benchlab.sim.log import BenchLog
+
+GOOD = [p for p in make_bag(1, 40) if p.kind == "good"]
+
+
+@pytest.mark.parametrize("part", [p.label for p in GOOD[:5]])
+def test_tempco_matches_the_simulator_truth(part, tmp_path):
+    truth = next(p for p in GOOD if p.label == part)
+    outcome = svc.measure_tempco(part, [25, 60], sim=SimOptions(), sessions_root=tmp_path, bootstrap=20)
+    # the issue's tolerance: within 0.3 mV/K of the configured coefficient
+    assert outcome.tempco.vth_tempco == pytest.approx(truth.dvth_dt, abs=0.3e-3)
+    # the simulator's mobility law is KP ~ T^-1.5 (the ngspice level-1 law it copies)
+    assert outcome.tempco.kp_exponent == pytest.approx(1.5, abs=0.1)
+    assert outcome.tempco.ztc_vgs > truth.vth_ref  # the crossing lies above threshold
+    assert (tmp_path / outcome.session_path.split("/")[-1] / "thermal-tempco.json").is_file()
+
+
+@pytest.mark.parametrize("part", [p.label for p in GOOD[:6]])
+def test_rth_by_the_electrical_method_matches_the_simulator(part, tmp_path):
+    outcome = svc.measure_rth(part, sim=SimOptions(seed=1), sessions_root=tmp_path)
+    # the issue's tolerance: within 10 % of the configured 62 K/W (JESD51-1: Rth = dTj / P)
+    assert outcome.rth.rth == pytest.approx(62.0, rel=0.10)
+    assert not outcome.rth.pulsed_dc["flag"]  # DC and pulsed agree through the measured Rth and tempco
+    assert outcome.values()["vth_tempco"] is None and outcome.stderrs()["rth"] > 0
+
+
+def test_heatsink_figure_is_subtracted(tmp_path):
+    from benchlab.sweep.thermal_plan import RthPlan
+
+    plain = svc.measure_rth("Q01", sim=SimOptions(), sessions_root=tmp_path)
+    sunk = svc.measure_rth("Q01", sim=SimOptions(), sessions_root=tmp_path, plan=RthPlan(heatsink_k_per_w=5.0))
+    assert sunk.rth.rth == pytest.approx(plain.rth.rth - 5.0, abs=0.5)
+
+
+def test_output_off_when_interrupted_while_heating(tmp_path, monkeypatch):
+    from benchlab.instruments import thermometer
+
+    real_wait = thermometer.SimClock.wait
+    calls = {"heating": 0}
+
+    def wait(self, seconds):
+        if seconds == 10.0:  # the heating loop's check interval: the part is powered now
+            calls["heating"] += 1
+            if calls["heating"] == 3:
+                raise KeyboardInterrupt
+        real_wait(self, seconds)
+
+    monkeypatch.setattr(thermometer.SimClock, "wait", wait)
+    log = tmp_path / "sim.jsonl"
+    with pytest.raises(KeyboardInterrupt):
+        svc.measure_rth("Q01", sim=SimOptions(log_path=str(log)), sessions_root=tmp_path)
+    history = BenchLog.read_file(log)
+    assert history.output_was_ever_on("smu") and not history.output_was_left_on()
+    readings = [json.loads(line) for line in next(tmp_path.glob("*/thermal.jsonl")).read_text().splitlines()]
+    assert any(r.get("what") == "heating" for r in readings)  # what was measured before the stop is on disk
+
+
+def test_hot_fixture_is_refused_before_anything_is_powered(tmp_path, monkeypatch):
+    from benchlab.instruments import thermal_config
+
+    real = thermal_config.simulator_thermal_config
+
+    def cooler_limit(resource):
+        from dataclasses import replace
+        return replace(real(resource), max_fixture_k=299.0)  # the simulated block sits at 300.15 K
+
+    monkeypatch.setattr(thermal_config, "simulator_thermal_config", cooler_limit)
+    log = tmp_path / "sim.jsonl"
+    with pytest.raises(SafetyError, match="let it cool"):
+        svc.measure_rth("Q01", sim=SimOptions(log_path=str(log)), sessions_root=tmp_path / "s")
+    assert not BenchLog.read_file(log).output_was_ever_on()
+
+
+def test_cli_json_has_every_key_and_bad_input_is_one_error(tmp_path, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    assert main(["thermal", "tempco", "--part", "Q01", "--temps", "25,120", "--sim", "--json"]) != 0
+    err = capsys.readouterr().err
+    assert "max_fixture_k" in err and len(err.strip().splitlines()) == 1
+    assert not (tmp_path / "sessions").exists()  # nothing written, nothing started
+    assert main(["thermal", "rth", "--part", "Q01", "--sim", "--json", "--library", str(tmp_path / "lib.db")]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert set(svc.RESULT_KEYS) <= set(data) and set(data["stderr"]) == set(svc.RESULT_KEYS)
+    assert data["vth_tempco"] is None and data["rth"] > 0
