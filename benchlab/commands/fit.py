@@ -46,12 +46,19 @@ def register(subparsers) -> None:
     parser.add_argument("--curve", type=whole_number, default=0, metavar="N",
                         help="also give VGS, gm and gm/ID of the fit at N currents across the fitted window")
     parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
+    parser.add_argument("--plot", metavar="FILE.png",
+                        help="also draw each fitted sweep: its points, the fitted curve, every threshold found and "
+                             "the residuals (.png, .pdf or .svg; several sweeps go to FILE-LABEL.png)")
     parser.add_argument("--save", action="store_true",
                         help="append each fit to 'fits' in its session sidecar (session records only)")
     parser.set_defaults(func=_fit)
 
 
 def _fit(args) -> int:
+    if args.plot:
+        from benchlab.services.report import check_plot_path
+
+        check_plot_path(args.plot)  # a bad file name is refused before anything is fitted or written
     run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
                             cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
                             bootstrap=args.bootstrap, save=args.save, temperature_c=args.temperature)
@@ -61,6 +68,11 @@ def _fit(args) -> int:
         print(service.format_table(run.records))
         for record in run.records if args.curve else ():
             print(service.format_curve(record, args.curve))
+    if args.plot and run.records:
+        from benchlab.services.report import plot_fits
+
+        for path in plot_fits(run.records, args.plot):
+            print(f"wrote {path}", file=sys.stderr)
     for source, why in run.skipped:
         print(f"skipped {source.label} (classified {source.classification}): {why}", file=sys.stderr)
     for source, exc in run.failed:

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import sys
 
 from benchlab.commands._args import library_option
 from benchlab.library.records import PART_STATES, json_default
@@ -40,6 +41,9 @@ def register(subparsers) -> None:
     show = sub.add_parser("show", parents=[lib], help="show one part: curve, fits, sweeps, history")
     show.add_argument("part", help="LABEL or LOT/LABEL")
     show.add_argument("--json", action="store_true", help="everything as one JSON object")
+    show.add_argument("--plot", metavar="FILE.png",
+                      help="also draw the part: its latest stored sweep, the curve, the fitted threshold and VGS at "
+                           "250 uA, and the residuals (.png, .pdf or .svg)")
     show.set_defaults(func=_show)
 
     reject = sub.add_parser("reject", parents=[lib], help="mark a part rejected")
@@ -75,6 +79,10 @@ def _list(args) -> int:
 
 def _show(args) -> int:
     details = service.show_part(args.library, args.part)
+    if args.plot:
+        from benchlab.services.report import plot_part
+
+        print(f"wrote {plot_part(args.library, args.part, args.plot)}", file=sys.stderr)
     if args.json:
         print(json.dumps(details, indent=1, default=json_default))
     else:

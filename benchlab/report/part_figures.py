@@ -26,6 +26,7 @@ def new_figure(width: float = 7.0, height: float = 4.5) -> Figure:
 
 def part_fit_figure(label: str, vgs: Sequence[float], i_d: Sequence[float], params: DeviceParams | None, *,
                     vgs_at_cc: float | None = None, cc_current: float = CC_CURRENT_A,
+                    thresholds: dict | None = None, window: tuple[float, float] | None = None,
                     title: str | None = None) -> Figure:
     """One part: measured points and the fitted curve (log current), thresholds marked, residuals below.
 
@@ -41,6 +42,11 @@ def part_fit_figure(label: str, vgs: Sequence[float], i_d: Sequence[float], para
         VGS at ``cc_current`` interpolated in the data (the constant-current threshold), marked when given.
     cc_current : float
         Its criterion current (A).
+    thresholds : dict, optional
+        Other threshold definitions to mark (name -> V, None skipped), e.g. a fit result's ``thresholds``.
+    window : (float, float), optional
+        The current range (A) the curve was fitted on: points outside it are drawn hollow and left out of the
+        residuals' rms.
 
     Returns
     -------
@@ -54,9 +60,13 @@ def part_fit_figure(label: str, vgs: Sequence[float], i_d: Sequence[float], para
     i = np.asarray(i_d, dtype=float)
     keep = np.isfinite(v) & np.isfinite(i) & (i > 0)
     v, i = v[keep], i[keep]
-    ax.semilogy(v, i, "o", ms=3.5, color="#2c3e50", label=f"{label}: measured ({v.size} points)")
-    if params is not None and v.size:
-        grid_v = np.linspace(v.min(), v.max(), 300)
+    inside = np.ones(v.size, dtype=bool) if window is None else (i >= window[0] * (1 - 1e-9)) & (i <= window[1] * (1 + 1e-9))
+    ax.semilogy(v[inside], i[inside], "o", ms=3.5, color="#2c3e50", label=f"{label}: measured ({inside.sum()} points)")
+    if not inside.all():
+        ax.semilogy(v[~inside], i[~inside], "o", ms=3.5, mfc="none", color="#2c3e50",
+                    label=f"outside the fitted window ({(~inside).sum()})")
+    if params is not None:
+        grid_v = np.linspace(v.min(), v.max(), 300) if v.size else np.linspace(params.vth - 0.3, params.vth + 1.5, 300)
         model_i = np.asarray(params.current(grid_v), dtype=float)
         shown = model_i > 0
         ax.semilogy(grid_v[shown], model_i[shown], "-", lw=1.4, color="#d35400", label=f"{params.model} fit")
@@ -64,12 +74,18 @@ def part_fit_figure(label: str, vgs: Sequence[float], i_d: Sequence[float], para
         predicted = np.asarray(params.current(v), dtype=float)
         with np.errstate(divide="ignore", invalid="ignore"):
             residual = np.where(predicted > 0, (i / predicted - 1.0) * 100.0, np.nan)
-        res.plot(v, residual, "o", ms=3, color="#2c3e50")
-        finite = residual[np.isfinite(residual)]
+        res.plot(v[inside], residual[inside], "o", ms=3, color="#2c3e50")
+        res.plot(v[~inside], residual[~inside], "o", ms=3, mfc="none", color="#2c3e50")
+        finite = residual[inside & np.isfinite(residual)]
         if finite.size:
-            res.set_title(f"rms {np.sqrt(np.mean(finite ** 2)):.3g} %", fontsize=8, loc="right", pad=2)
+            res.set_title(f"rms {np.sqrt(np.mean(finite ** 2)):.3g} %" + (" in the window" if window else ""),
+                          fontsize=8, loc="right", pad=2)
     else:
         res.text(0.5, 0.5, "no fitted curve", ha="center", va="center", transform=res.transAxes)
+    styles = iter(((0, (1, 1)), (0, (5, 2, 1, 2)), (0, (3, 3)), (0, (1, 3))))
+    for name, value in (thresholds or {}).items():
+        if value is not None and name not in ("model", "constant_current"):  # those two are drawn already
+            ax.axvline(value, color="#7f8c8d", lw=1, ls=next(styles, ":"), label=f"{name.replace('_', ' ')} {value:.4f} V")
     if vgs_at_cc is not None:
         ax.plot([vgs_at_cc], [cc_current], "s", ms=7, mfc="none", mec="#27ae60", mew=1.8,
                 label=f"VGS at {cc_current * 1e6:g} uA: {vgs_at_cc:.4f} V (data)")
