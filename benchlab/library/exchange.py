@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING, Any, Mapping
 from benchlab.errors import LibraryError
 from benchlab.names import check_name
 from benchlab.library.records import PART_STATES, finite_or_none, natural_key, to_json, utc_now
+from benchlab.library.thermal import CSV_THERMAL_COLUMNS, csv_thermal_cells, import_thermal, thermal_history
 from benchlab.models import DeviceParams
 
 if TYPE_CHECKING:
@@ -18,7 +19,7 @@ EXPORT_FORMAT = "benchlab-library/1"
 PARAM_FIELDS = ("vth", "kp", "theta", "n", "gm", "temperature_k")
 CSV_COLUMNS = (("lot", "label", "polarity", "state", "reason", "package", "notes", "classification", "model")
                + PARAM_FIELDS + tuple(f"stderr_{f}" for f in PARAM_FIELDS[:5])
-               + ("flags", "fit_source", "fitted_at", "fitter_version"))
+               + ("flags", "fit_source", "fitted_at", "fitter_version") + CSV_THERMAL_COLUMNS)
 
 
 def _selected_parts(lib: "Library", lot: str | None, state: str | None) -> list[tuple]:
@@ -69,7 +70,8 @@ def export_library(lib: "Library", lot: str | None = None, state: str | None = N
                                              "WHERE part_id = ? ORDER BY id", (pid,))]
             parts.append({"lot": lot_name, "label": label, "polarity": polarity, "package": package, "notes": notes,
                           "state": pstate, "reason": reason, "classification": classification, "created": created,
-                          "sweeps": sweeps, "fits": fits, "history": history})
+                          "sweeps": sweeps, "fits": fits, "history": history,
+                          "thermal": thermal_history(lib, pid)})
         lot_names = sorted({p["lot"] for p in parts} | ({lot} if lot else set()), key=natural_key)
         lots = [{"name": r[0], "description": r[1], "created": r[2]} for name in lot_names
                 for r in conn.execute("SELECT name, description, created FROM lots WHERE name = ?", (name,))]
@@ -107,7 +109,7 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
     if not isinstance(data, Mapping) or data.get("format") != EXPORT_FORMAT:
         raise LibraryError(f"not a benchlab library export (expected format '{EXPORT_FORMAT}')")
     conn = lib.connection
-    counts = {"lots": 0, "parts": 0, "sweeps": 0, "fits": 0, "designs": 0, "binnings": 0}
+    counts = {"lots": 0, "parts": 0, "sweeps": 0, "fits": 0, "designs": 0, "binnings": 0, "thermal": 0}
     try:
         with lib.write():
             for lot in data.get("lots", []):
@@ -146,6 +148,7 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                                    sweep_id=sweep_ids.get(f.get("sweep")), fitted_at=f.get("fitted_at"),
                                    fitter_version=f.get("fitter_version"))
                     counts["fits"] += 1
+                counts["thermal"] += import_thermal(lib, pid, part.get("thermal"))
                 for h in part.get("history", []):
                     conn.execute("INSERT INTO state_changes (part_id, changed_at, old_state, new_state, reason, "
                                  "operator) VALUES (?, ?, ?, ?, ?, ?)",
@@ -207,5 +210,6 @@ def csv_rows(lib: "Library", lot: str | None = None, state: str | None = None) -
                 source, fitted_at, version = lib.connection.execute(
                     "SELECT source, fitted_at, fitter_version FROM fits WHERE id = ?", (part.fit_id,)).fetchone()
                 row.update(fit_source=source, fitted_at=fitted_at, fitter_version=version or "")
+            row.update(csv_thermal_cells(lib, part.id))
             rows.append(row)
     return rows

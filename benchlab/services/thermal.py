@@ -258,8 +258,32 @@ def _finish(outcome: ThermalOutcome, session_path: Path, library: str | None) ->
 
 
 def store_in_library(outcome: ThermalOutcome, library: str | None) -> str:
-    """Store the measured values on the part in the library, if a part of that label is there ("" otherwise)."""
-    return ""
+    """Store the measured values on the part in the library, if a part of that label is there ("" otherwise).
+
+    An existing library is opened (none is created for a thermal run); a label in several lots is ambiguous
+    and the values are not stored (said in the return value).
+    """
+    from benchlab.errors import LibraryError
+    from benchlab.library.thermal import record_thermal
+    from benchlab.services.library import library_path, open_library
+
+    where = library_path(library)
+    if isinstance(where, Path) and not where.exists():
+        return ""
+    try:
+        with open_library(library) as lib:
+            try:
+                part = lib.get_part(outcome.part)
+            except LibraryError as exc:
+                return "" if "no part" in str(exc) else f"not stored: {exc}"
+            details = outcome.to_dict()
+            with lib.write():
+                row = record_thermal(lib, part.id, outcome.measurement, outcome.values(), outcome.stderrs(),
+                                     session_path=outcome.session_path,
+                                     details={k: details[k] for k in ("tempco_details", "rth_details", "notes")})
+            return f"{lib.path}: part {part.lot}/{part.label}, thermal record {row}"
+    except LibraryError as exc:
+        return f"not stored: {exc}"
 
 
 def format_outcome(outcome: ThermalOutcome) -> list[str]:

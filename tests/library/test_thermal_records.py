@@ -1,0 +1,59 @@
+"""Measured thermal values in the library: stored by the thermal service, newest per quantity, exported, imported."""
+
+from __future__ import annotations
+
+import csv
+import io
+
+import pytest
+
+from benchlab.library import Library, export_library, import_library
+from benchlab.library.exchange import csv_rows
+from benchlab.library.thermal import measured_thermal, record_thermal
+from benchlab.models import DeviceParams
+from benchlab.services import thermal as svc
+from benchlab.services.characterize import SimOptions
+
+
+def test_newest_value_of_each_quantity_and_exchange(lib, new_library_target):
+    part = lib.add_part("Q01", lot="rack", params=DeviceParams(model="square", vth=2.9, kp=2.5))
+    with lib.write():
+        record_thermal(lib, part.id, "tempco", {"vth_tempco": -5.5e-3, "kp_exponent": 1.4, "ztc_vgs": 4.1,
+                                                 "ztc_id": 2.0}, {"vth_tempco": 1e-5}, measured_at="2026-01-01T00:00:00")
+        record_thermal(lib, part.id, "rth", {"rth": 61.0}, {"rth": 0.4}, measured_at="2026-01-02T00:00:00")
+        record_thermal(lib, part.id, "tempco", {"vth_tempco": -5.7e-3, "kp_exponent": 1.5, "ztc_vgs": 4.2,
+                                                 "ztc_id": 2.1}, {}, measured_at="2026-01-03T00:00:00")
+    found = measured_thermal(lib, part.id)
+    assert found["vth_tempco"]["value"] == pytest.approx(-5.7e-3)  # the newer tempco run wins
+    assert found["rth"]["value"] == pytest.approx(61.0)  # a tempco run does not blank the Rth
+    rows = list(csv.DictReader(io.StringIO(_csv_text(csv_rows(lib)))))
+    assert float(rows[0]["rth"]) == pytest.approx(61.0) and float(rows[0]["stderr_rth"]) == pytest.approx(0.4)
+    data = export_library(lib)
+    with Library.open(new_library_target()) as other:
+        counts = import_library(other, data)
+        assert counts["thermal"] == 3
+        assert measured_thermal(other, other.get_part("rack/Q01").id) == found
+
+
+def _csv_text(rows):
+    out = io.StringIO()
+    writer = csv.DictWriter(out, fieldnames=list(rows[0]))
+    writer.writeheader()
+    writer.writerows(rows)
+    return out.getvalue()
+
+
+def test_thermal_run_stores_its_result_on_the_library_part(tmp_path):
+    path = tmp_path / "lab.db"
+    with Library.open(path, create=True) as lib:
+        lib.add_part("Q01", lot="rack")
+    outcome = svc.measure_rth("Q01", sim=SimOptions(), sessions_root=tmp_path / "s", library=str(path))
+    assert "rack/Q01" in outcome.stored
+    with Library.open(path) as lib:
+        stored = measured_thermal(lib, lib.get_part("Q01").id)
+    assert stored["rth"]["value"] == pytest.approx(outcome.rth.rth)
+    assert stored["rth"]["session_path"] == outcome.session_path
+    # a part that is not in the library: nothing stored, said so, nothing created
+    other = svc.measure_rth("Q02", sim=SimOptions(), sessions_root=tmp_path / "s", library=str(path))
+    assert other.stored == ""
+    assert not (tmp_path / "missing.db").exists()
