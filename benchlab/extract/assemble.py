@@ -211,6 +211,9 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         if at_current is not None and not (i_lo[row] <= at_current <= i_hi[row]):
             flags_found.append((FLAG_AT_CURRENT_OUTSIDE, f"gm at {at_current:g} A comes from the model outside "
                                                          "the measured currents"))
+        if sweep.skipped.get("noise_floor"):  # a note, not a flag: nothing is wrong with the fit
+            flags_found.append((None, f"{sweep.skipped['noise_floor']} reading(s) at the noise floor (below "
+                                      "5 x the RMS of the negative readings: the part not yet conducting) left out"))
         if sweep.fold_backs:
             row_no, v_fold, i_fold = sweep.fold_backs[0]
             flags_found.append((FLAG_NON_MONOTONIC, f"VGS and ID fall together far beyond the sweep's noise "
@@ -244,7 +247,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             n=n_value, slope_mv_per_decade=n_value * ut * math.log(10.0) * 1e3 if model == "ekv" else None,
             gm=gm, at_current=at_current, vgs_at_current=v_at, vth_cc=vth_cc, cc_current=float(cc_current),
             rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]), stderr=stderr, stderr_method=method,
-            flags=tuple(dict.fromkeys(code for code, _ in flags_found)), notes=tuple(n for _, n in flags_found),
+            flags=tuple(dict.fromkeys(code for code, _ in flags_found if code)), notes=tuple(n for _, n in flags_found),
             thresholds=row_thresholds, window=window, reason=reasons[row],
             criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()},
             points_used=int(n_used[row]), points_skipped=int(sum(sweep.skipped.values())), hysteresis_v=shift,

@@ -264,7 +264,8 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     detect_current : float, optional
         For session records written by the sweep engine: ``ok`` points below this current
         (the plan's detection current: the part did not conduct yet) are left out and
-        counted instead of being rejected as zero/negative currents.
+        counted instead of being rejected as zero/negative currents. Without it (and with it,
+        when higher) the floor estimated by :func:`detection_floor` is used.
 
     Returns
     -------
@@ -320,18 +321,64 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
                 values.append(float(cell))
             except ValueError:
                 raise InputError(f"{column} value '{cell}' is not a number", path=name, row=row_number) from None
-        if detect_current is not None and math.isfinite(values[1]) and values[1] < detect_current:
-            skipped["not_conducting"] = skipped.get("not_conducting", 0) + 1
-            continue
         vgs.append(values[0])
         i_d.append(values[1])
         rows.append(row_number)
         if direction_col is not None:
             direction.append(row[direction_col] if direction_col < len(row) else "")
+    # the part's noise floor: readings before it conducts scatter around zero (some negative); they
+    # are dropped with the session's detection current when there is one, else below a floor
+    # estimated from the data (the same points either way, so a CSV fits as its session does)
+    floor = detection_floor(i_d)
+    why = "noise_floor"
+    if detect_current is not None and detect_current >= floor:
+        floor, why = detect_current, "not_conducting"
+    if floor > 0:
+        keep = [k for k, i in enumerate(i_d) if not (math.isfinite(i) and i < floor)]
+        if len(keep) < len(i_d):
+            skipped[why] = skipped.get(why, 0) + len(i_d) - len(keep)
+            vgs, i_d, rows = [vgs[k] for k in keep], [i_d[k] for k in keep], [rows[k] for k in keep]
+            direction = [direction[k] for k in keep] if direction_col is not None else direction
     if not vgs:
         raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
     return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
                            source=name, skipped=skipped, ordered=ordered)
+
+
+# readings below this many standard deviations of the noise floor are not conduction (our choice:
+# a normal reading passes 5 sigma about once in 3.5 million)
+FLOOR_SIGMAS = 5.0
+# a "noise floor" above this fraction of the largest current is not one (a sign error in a row is)
+MAX_FLOOR_FRACTION = 1e-2
+
+
+def detection_floor(currents) -> float:
+    """The current (A) below which a sweep's readings are its noise floor, estimated from the data.
+
+    Before the part conducts the meter reads noise around zero, so some readings are negative;
+    their RMS estimates the noise (a half-normal's E[x^2] is sigma^2) and the floor is
+    :data:`FLOOR_SIGMAS` times it. 0 when no reading is negative or zero (nothing to drop), or when
+    the "floor" would pass :data:`MAX_FLOOR_FRACTION` of the largest current (then the negative
+    reading is an error in the data, left for :func:`validate_points` to report), or when a
+    non-positive reading has no small neighbour in measurement order (the same).
+    """
+    i = np.asarray(currents, float)
+    i = i[np.isfinite(i)]
+    low = i[i <= 0]
+    if low.size == 0 or low.size == i.size:
+        return 0.0
+    floor = FLOOR_SIGMAS * float(np.sqrt(np.mean(low * low)))
+    top = float(i.max())
+    if floor >= MAX_FLOOR_FRACTION * top:
+        return 0.0
+    # a noise-floor reading sits among other small readings (in measurement order); a negative
+    # reading between conducting points is an error in the data, not noise
+    padded = np.concatenate(([np.inf], np.abs(i), [np.inf]))
+    at = np.flatnonzero(i <= 0) + 1
+    if np.any(np.minimum(padded[at - 1], padded[at + 1]) > 10.0 * max(floor, 1e-300)):
+        return 0.0
+    # exact zeros carry no scale: drop them (and only them) then
+    return floor if floor > 0 else float(np.nextafter(0.0, 1.0))
 
 
 def _describe(skipped: dict) -> str:

@@ -144,8 +144,10 @@ def test_status_other_than_ok_is_never_fitted(tmp_path):
 def test_session_record_search_points_below_detection_are_left_out(tmp_path):
     rows = [(0.5, -2e-9, "ok"), (1.5, 1e-9, "ok")] + [(v, i, "ok") for v, i in _good_rows()]
     path = _write(tmp_path / "Q01.csv", "vgs,id,status", rows)
-    with pytest.raises(InputError):
-        load_sweep_csv(path)  # a plain file: a negative current is an error
+    # a plain file: the noise floor is estimated from the negative reading (5 x 2 nA), and the same
+    # two rows are left out as with the session's detection current
+    plain = load_sweep_csv(path)
+    assert plain.skipped == {"noise_floor": 2} and plain.vgs.size == 20
     sweep = load_sweep_csv(path, detect_current=2e-6)
     assert sweep.skipped == {"not_conducting": 2} and sweep.vgs.size == 20
 

@@ -101,3 +101,39 @@ def test_one_refused_file_does_not_stop_the_others(spice, tmp_path, capsys):
     assert fitted == ["good", "also_good"]
     assert "bad.csv" in err and "1 of 3 sweep(s) refused" in err
     assert "Traceback" not in err
+
+
+def test_csv_copied_out_of_its_session_fits_as_the_session(spice, tmp_path):
+    # a session record: the search before the part conducts reads the meter's noise floor (2 nA RMS
+    # around zero, some readings negative); the plan's detection current leaves them out. The same CSV
+    # copied out of its session (no sidecar) must drop them by its own estimate and fit the same.
+    import shutil
+
+    from benchlab.services.fitting import fit_files
+    from benchlab.sweep.records import SweepPoint
+    from benchlab.sweep.session import SessionWriter
+
+    v_supply, v_part, i_d = spice.resistor_sweep(LEVEL3, resistor=470.0, step=0.05)
+    rng = np.random.default_rng(33)
+    noisy_i = np.where(i_d > 1e-6, i_d * (1 + rng.normal(0, 2e-4, i_d.size)), rng.normal(0, 2e-9, i_d.size))
+    noisy_v = v_part * (1 + rng.normal(0, 2e-4, v_part.size))
+    session = SessionWriter.create(tmp_path / "sessions", "BAG1", ambient_c=27.0)
+    recorder = session.start_part("Q01", {"detect_current_a": 1e-6})
+    for k, (vs, v, i) in enumerate(zip(v_supply, noisy_v, noisy_i)):
+        recorder.append(SweepPoint(point=k, time_s=0.01 * k, vgs=float(v), id=float(i), v_source=float(vs),
+                                   i_source=float(i), status="ok", direction="up", spread_v=0.0))
+    assert np.any(noisy_i < 0)
+    copy_dir = tmp_path / "copied"
+    copy_dir.mkdir()
+    shutil.copy(session.path / "Q01.csv", copy_dir / "Q01.csv")
+    for model in ("auto", "theta"):
+        (in_session,) = fit_files([session.path], model=model).records
+        (plain,) = fit_files([copy_dir / "Q01.csv"], model=model).records
+        a, b = in_session.result, plain.result
+        assert a.model == b.model
+        for name in ("vth", "kp", "theta"):
+            assert getattr(b, name) == pytest.approx(getattr(a, name), rel=1e-9, abs=1e-12)
+            assert b.stderr[name] == pytest.approx(a.stderr[name], rel=1e-6)
+        # ngspice level 3, VTO = 2.85 V
+        assert abs(b.vth - 2.85) < 2e-3
+        assert any("noise floor" in note for note in b.notes)
