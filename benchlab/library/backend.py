@@ -14,7 +14,7 @@ import re
 import sqlite3
 import time
 from pathlib import Path
-from typing import Any, Iterable, Sequence
+from typing import Any, Iterable, Iterator, Sequence
 from urllib.parse import urlsplit, urlunsplit
 
 from benchlab.errors import LibraryError
@@ -67,6 +67,12 @@ class Database:
     def executemany(self, sql: str, rows: Iterable[Sequence[Any]]) -> None:
         """Run one statement for every row of parameters."""
         raise NotImplementedError
+
+    def batches(self, sql: str, size: int) -> Iterator[list[tuple]]:
+        """The rows of a query in lists of at most ``size`` (without holding every row in memory)."""
+        cursor = self.execute(sql)
+        while rows := cursor.fetchmany(size):
+            yield [tuple(r) for r in rows]
 
     def insert(self, sql: str, params: Sequence[Any] = ()) -> int:
         """Run an ``INSERT`` into a table with an ``id`` key and return the new row's id."""
@@ -265,6 +271,13 @@ class PostgresDatabase(Database):
     def executemany(self, sql, rows):
         with self.raw.cursor() as cur:
             cur.executemany(_pg_sql(sql), [tuple(r) for r in rows])
+
+    def batches(self, sql, size):
+        # a server-side cursor (inside the caller's transaction): the rows come over in batches
+        with self.raw.cursor(name=f"benchlab_batches_{id(sql):x}") as cursor:
+            cursor.execute(_pg_sql(sql))
+            while rows := cursor.fetchmany(size):
+                yield [tuple(r) for r in rows]
 
     def begin_write(self):
         self.raw.execute("BEGIN ISOLATION LEVEL READ COMMITTED")

@@ -15,6 +15,8 @@ from benchlab.errors import InputError, LibraryError
 from benchlab.library import (Library, PartRecord, default_library_path, export_library, import_library,
                               import_sessions as import_into)
 from benchlab.library.backend import is_url
+from benchlab.library.copy import CopyReport
+from benchlab.library.copy import copy_library as copy_into
 from benchlab.library.exchange import CSV_COLUMNS, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
@@ -146,9 +148,20 @@ def lots(path) -> list[dict[str, Any]]:
 
 
 def info(path) -> dict[str, Any]:
-    """Library file facts: path, schema version, journal mode, row counts."""
+    """Library facts: backend, path or URL (no password), schema version, row counts, backend facts."""
     with open_library(path) as lib:
         return lib.info()
+
+
+def copy_library(source, destination) -> CopyReport:
+    """Copy the library at ``source`` into the empty (or new) library at ``destination``, verified.
+
+    Either may be a file or a ``postgresql://`` URL; see :func:`benchlab.library.copy.copy_library`.
+    """
+    if not source or not destination:
+        raise InputError("name both libraries: benchlab library copy SOURCE DESTINATION")
+    with open_library(source) as src, open_library(destination, create=True) as dst:
+        return copy_into(src, dst)
 
 
 def export_json_text(path, lot: str | None = None, state: str | None = None) -> str:
