@@ -72,6 +72,9 @@ _ROLE_COMMANDS: dict[str, dict[str, tuple[frozenset[str], bool]]] = {
         "set_current_nplc": (frozenset({"nplc"}), True),
         "get_current_nplc": (_NONE, False),
         "read": (_NONE, True),
+        # optional pair: start one reading and collect it later, so the sweep reads the supply meanwhile
+        "initiate": (_NONE, False),
+        "fetch": (_NONE, False),
     },
     "smu": {
         "source_voltage": (_NONE, True),

@@ -243,6 +243,26 @@ class ScpiMeter(ScpiInstrument):
         """Take one reading in the configured function (+inf/-inf/nan for the special values)."""
         return self.ask_float("read")
 
+    @property
+    def can_trigger(self) -> bool:
+        """True when the profile splits a reading into :meth:`trigger` and :meth:`fetch`."""
+        return self.profile.has("initiate") and self.profile.has("fetch")
+
+    def trigger(self) -> None:
+        """Start one reading and return at once (no error-queue read: :meth:`fetch` checks for both)."""
+        self._triggered_on = getattr(self.transport, "reopen_count", 0)
+        for line in self.profile.lines("initiate"):
+            self.transport.write(line, idempotent=False)
+
+    def fetch(self) -> float:
+        """Collect the reading :meth:`trigger` started, then read the error queue (an INIT the meter
+        refused would leave an older reading to fetch)."""
+        value = self.ask_float("fetch")
+        self.check_errors(self.profile.lines("initiate")[-1])
+        if getattr(self.transport, "reopen_count", 0) != getattr(self, "_triggered_on", 0):
+            return self.read()  # the link was reopened after the trigger: that reading may be an old one
+        return value
+
     def nplc_setting(self, function: str | None = None) -> float:
         """The integration time the instrument holds for ``function`` (default: the configured one)."""
         return self.ask_float(f"get_{function or self.function or 'voltage'}_nplc")

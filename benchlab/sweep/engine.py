@@ -25,6 +25,12 @@ from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_
 from benchlab.kinds import Fixture, PointStatus, SourceFunction, SweepMode
 
 ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
+# A first reading within this of the VGS the stepper predicted is taken as settled (no repeat); see
+# read_point. Chosen from the prediction errors of good parts on the simulated bench (docs/sweeps.md).
+PREDICTION_BAND_V = 0.01
+# A drain current this many times the predicted one has VGS read again (see read_point).
+SURPRISE_FACTOR = 10.0
+SUBTHRESHOLD_NUT_V = 0.04  # n UT, about 40 mV (Enz, Krummenacher, Vittoz 1995)
 
 
 class _NullRecorder:
@@ -104,17 +110,36 @@ class _Sweep:
         else:
             self.source.set_level(level, expect_vgs)
 
+    def _vgs_reading(self) -> float:
+        """Resistor fixture: one VGS reading. When the drain current comes from the resistor drop, the
+        supply's voltage readback is taken while the meter integrates (meter profiles with ``initiate`` and
+        ``fetch``) and kept in ``self.v_readback`` beside the VGS it goes with."""
+        self.set_meter_function("voltage")
+        with_supply = self.plan.current_from != "meter"
+        if getattr(self.meter, "can_trigger", False):
+            self.meter.trigger()
+            if with_supply:
+                self.v_readback = float(self.source.measure_voltage())
+            return float(self.meter.fetch())
+        vgs = float(self.meter.read())
+        if with_supply:
+            self.v_readback = float(self.source.measure_voltage())
+        return vgs
+
     def _resistor_rest(self, vgs: float) -> tuple[float, float, float, bool]:
-        """Resistor fixture, once VGS has settled: (id, v_source, i_source, at the current limit)."""
+        """Resistor fixture, once VGS has settled: (id, v_source, i_source, at the current limit).
+
+        The supply's current is the drain current (the meter across the part draws none): it is the meter's
+        current reading, or the resistor drop, never a separate readback that would cost one more conversion.
+        """
         if self.plan.current_from == "meter":
             self.set_meter_function("current")
             i_d = float(self.meter.read())
             v_src = self.source.setpoint_v  # the drain current is measured: no need to read the supply volts
-            i_src = float(self.source.measure_current())
         else:
-            v_src = float(self.source.measure_voltage())
-            i_src = float(self.source.measure_current())
+            v_src = self.v_readback
             i_d = (v_src - vgs) / self.plan.series_resistor_ohm
+        i_src = i_d
         # in constant-current mode the supply sits at its limit: the part no longer sets the current
         at_limit = self.source.current_limit_a is not None and i_src >= 0.98 * self.source.current_limit_a
         return i_d, v_src, i_src, at_limit
@@ -122,8 +147,7 @@ class _Sweep:
     def _primary(self) -> tuple[float, float]:
         """The reading whose repeat decides settling: (VGS, 0) on the resistor fixture, the SMU's (V, I)."""
         if self.plan.fixture == Fixture.RESISTOR:
-            self.set_meter_function("voltage")
-            return float(self.meter.read()), 0.0
+            return self._vgs_reading(), 0.0
         v, i = self.source.measure()
         return float(v), float(i)
 
@@ -137,14 +161,33 @@ class _Sweep:
         rel = max(self.plan.settle_tolerance * abs(v2), ABS_SETTLE_V) / 0.04
         return abs(i2 - i1) <= rel * max(abs(i1), abs(i2)) + 1e-9
 
-    def read_point(self, direction: str) -> SweepPoint:
-        """Read (and re-read until settled) at the present setpoint; the point is not yet stored."""
+    def _as_predicted(self, reading: tuple[float, float], expect: tuple[float | None, float | None]) -> bool:
+        """True when a first reading lands on the curve the points so far predict (then it needs no repeat).
+
+        An unsettled part lands off the predicted curve as often as not and is read again; one that lands
+        on it by chance is taken, which the repeated readings of the other points still catch.
+        """
+        expect_vgs, expect_id = expect
+        v, i = reading
+        if self.plan.fixture == Fixture.SMU and self.source.mode == SourceFunction.VOLTAGE:
+            if expect_id is None or expect_id <= 0 or i <= 0:
+                return False
+            return abs(math.log(i / expect_id)) <= PREDICTION_BAND_V / SUBTHRESHOLD_NUT_V
+        return expect_vgs is not None and abs(v - expect_vgs) <= PREDICTION_BAND_V
+
+    def read_point(self, direction: str, expect: tuple[float | None, float | None] = (None, None)) -> SweepPoint:
+        """Read (and re-read until settled) at the present setpoint; the point is not yet stored.
+
+        ``expect`` is (VGS, ID) the stepper predicted for this setpoint: a first reading that agrees with it
+        is taken as settled without a repeat (``plan.settle_by_prediction``).
+        """
         reading = self._primary()
         status, spread = PointStatus.OK, 0.0
         finite = all(math.isfinite(x) and abs(x) < 1e30 for x in reading)
         if not finite:
             status = PointStatus.OVER_RANGE
-        elif self.plan.repeat_reading:
+        elif self.plan.repeat_reading and not (self.plan.settle_by_prediction
+                                               and self._as_predicted(reading, expect)):
             for _ in range(self.plan.max_rereads + 1):
                 again = self._primary()
                 if not all(math.isfinite(x) and abs(x) < 1e30 for x in again):
@@ -159,9 +202,11 @@ class _Sweep:
         if self.plan.fixture == Fixture.RESISTOR:
             vgs = reading[0]
             i_d, v_src, i_src, at_limit = self._resistor_rest(vgs)
-            if at_limit and math.isfinite(vgs):
-                # the supply went constant-current after VGS was read (a part failing short does that):
-                # read VGS again so the point describes one state of the part
+            surprise = expect[1] is not None and expect[1] > 0 and i_d > SURPRISE_FACTOR * expect[1]
+            if (at_limit or surprise) and math.isfinite(vgs):
+                # the supply went constant-current after VGS was read, or the current is far above what the
+                # points so far predict (a part failing short between the two readings does either): read
+                # VGS again so the point describes one state of the part
                 vgs = self._primary()[0]
             if status == PointStatus.OK and not (math.isfinite(i_d) and abs(i_d) < 1e30):
                 status = PointStatus.OVER_RANGE
@@ -178,13 +223,15 @@ class _Sweep:
         """Apply one setpoint, wait, read, store the point durably, report it. ``judge(point)`` True
         records the reading as a ``probe`` (kept on disk, not part of the curve)."""
         self.check_interrupt()
+        applied_at = self.clock()
         self.apply(level, expect_id, expect_vgs)
         if self.pulsed:
-            on_at = self.clock()
+            on_at = applied_at = self.clock()
             self.source.set_output(True)
         if self.plan.settle_s:
-            self.sleep(self.plan.settle_s)
-        point = self.read_point(direction)
+            # the part starts settling when the setpoint is sent, not when its error check returns
+            self.sleep(max(0.0, self.plan.settle_s - (self.clock() - applied_at)))
+        point = self.read_point(direction, (expect_vgs, expect_id))
         if self.pulsed:
             self.source.set_output(False)
             on_time = self.clock() - on_at

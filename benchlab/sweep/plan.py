@@ -100,6 +100,9 @@ class SweepPlan:
         Repeat the up-sweep's setpoints in reverse (hysteresis / self-heating check).
     repeat_reading : bool
         Read twice at each point and compare (detects parts whose readings do not settle).
+    settle_by_prediction : bool
+        With ``repeat_reading``: a first reading that lands on the curve the points so far predict is
+        taken as settled without the repeat (the repeat is kept where nothing predicts the point).
     settle_tolerance : float
         Relative difference (of VGS) allowed between the two readings.
     max_rereads : int
@@ -137,6 +140,7 @@ class SweepPlan:
     pulsed_duty: float | None = None
     down_sweep: bool = False
     repeat_reading: bool = True
+    settle_by_prediction: bool = True
     settle_tolerance: float = 0.002
     max_rereads: int = 3
     use_list: bool = False
