@@ -59,6 +59,15 @@ TABLES: tuple[tuple[str, tuple[str, ...], str, str], ...] = (
      "SELECT id, part_id, changed_at, old_state, new_state, reason, operator FROM state_changes ORDER BY id",
      "INSERT INTO state_changes (id, part_id, changed_at, old_state, new_state, reason, operator) "
      "VALUES (?, ?, ?, ?, ?, ?, ?)"),
+    ("part_thermal", ("id", "part_id", "measurement", "vth_tempco", "vth_tempco_stderr", "kp_exponent",
+                      "kp_exponent_stderr", "ztc_vgs", "ztc_vgs_stderr", "ztc_id", "ztc_id_stderr", "rth", "rth_stderr",
+                      "session_path", "details_json", "measured_at"),
+     "SELECT id, part_id, measurement, vth_tempco, vth_tempco_stderr, kp_exponent, kp_exponent_stderr, ztc_vgs, "
+     "ztc_vgs_stderr, ztc_id, ztc_id_stderr, rth, rth_stderr, session_path, details_json, measured_at "
+     "FROM part_thermal ORDER BY id",
+     "INSERT INTO part_thermal (id, part_id, measurement, vth_tempco, vth_tempco_stderr, kp_exponent, "
+     "kp_exponent_stderr, ztc_vgs, ztc_vgs_stderr, ztc_id, ztc_id_stderr, rth, rth_stderr, session_path, "
+     "details_json, measured_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
 )
 BATCH_ROWS = 5000
 

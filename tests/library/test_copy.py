@@ -10,6 +10,7 @@ from benchlab.cli import main
 from benchlab.errors import LibraryError
 from benchlab.library import Library, export_library, import_session
 from benchlab.library.copy import TABLES, copy_library
+from benchlab.library.thermal import record_thermal
 from benchlab.models import DeviceParams
 from session_builder import demo_bag, write_session
 
@@ -20,6 +21,8 @@ def _fill(lib, tmp_path):
     lib.add_part("H1", lot="hand", params=DeviceParams("linear", vth=3.9, gm=0.544), notes="a 'quoted' note")
     lib.record_design({"kind": "sink", "supply": 12.0}, [lib.get_part("Q01"), lib.get_part("Q02")])
     lib.record_binning({"current": 0.01}, {"A": ["Q03"], "B": ["Q06"]})
+    with lib.write():
+        record_thermal(lib, lib.get_part("Q01").id, "tempco", {"vth_tempco": -4.1e-3}, {"vth_tempco": 2e-4})
 
 
 def _export(lib):
@@ -38,6 +41,7 @@ def test_a_library_goes_sqlite_to_postgresql_and_back_unchanged(tmp_path, fresh_
     report = json.loads(capsys.readouterr().out)
     rows = {t["table"]: t["rows"] for t in report["tables"]}
     assert rows["parts"] == 7 and rows["sweep_points"] == 6 * 40 and rows["state_changes"] == 3
+    assert rows["part_thermal"] == 1
     assert all(t["verified"] and t["checksum"] == t["copied_checksum"] for t in report["tables"])
     assert main(["library", "copy", server, back]) == 0
     assert "every table verified" in capsys.readouterr().out
@@ -80,7 +84,13 @@ def test_a_copy_that_reads_back_different_is_rolled_back(tmp_path, library_targe
 
 
 def test_the_copy_names_every_column_of_every_table(lib):
-    # a column added by a later migration must be copied too: this fails until copy.TABLES lists it
+    # a table or column added by a later migration must be copied too: this fails until copy.TABLES lists it
+    if lib.backend == "sqlite":
+        sql = "SELECT name FROM sqlite_master WHERE type = 'table'"
+    else:
+        sql = "SELECT table_name FROM information_schema.tables WHERE table_schema = current_schema()"
+    tables = {r[0] for r in lib.connection.execute(sql).fetchall()} - {"benchlab_schema"}
+    assert tables == {t[0] for t in TABLES}
     for table, columns, _select, _insert in TABLES:
         cursor = lib.connection.execute(f"SELECT * FROM {table} WHERE 1 = 0")  # noqa: S608 (a constant name)
         assert tuple(d[0] for d in cursor.description) == columns, table
