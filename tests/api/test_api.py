@@ -13,8 +13,7 @@ import pytest
 from benchlab import api
 from benchlab.cli import main
 from benchlab.errors import LibraryError
-from benchlab.models import DeviceParams
-from session_builder import write_session
+from session_builder import square_bag_with_dud, write_session
 
 LOT = "demo-bag"  # invented test data in the demo scenario's style
 
@@ -22,12 +21,7 @@ LOT = "demo-bag"  # invented test data in the demo scenario's style
 @pytest.fixture
 def bench_data(tmp_path):
     """A session of square-law parts (one open dud) imported into a library with the square-law fitter."""
-    rng = np.random.default_rng(11)
-    parts = [{"label": f"Q{k:02d}", "params": DeviceParams("square", vth=float(2.8 + 0.02 * k),
-                                                            kp=float(1.1 + 0.05 * rng.standard_normal()))}
-             for k in range(1, 6)]
-    parts.append({"label": "Q06", "vgs": [0.5, 3.0, 9.5], "id": [2e-9, 3e-9, 4e-9], "classification": "open",
-                  "reason": "no current at the top of the sweep"})
+    parts = square_bag_with_dud(5, vth0=2.8, vth_step=0.02, kp0=1.1, kp_sigma=0.05, seed=11)
     session = write_session(tmp_path, "20261202-101500-demo-bag", LOT, parts)
     lib = str(tmp_path / "lib.db")
     assert main(["library", "import", str(session), "--library", lib, "--model", "square"]) == 0

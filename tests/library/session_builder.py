@@ -93,3 +93,16 @@ def curve_fit_square(vgs, i_d, direction=None, temperature_k=None):
     err = np.sqrt(np.diag(pcov))
     return {"params": DeviceParams("square", vth=float(popt[0]), kp=float(popt[1])),
             "stderr": {"vth": float(err[0]), "kp": float(err[1])}, "flags": [], "fitter_version": "test-curve_fit"}
+
+
+def square_bag_with_dud(good: int, *, vth0: float, vth_step: float, kp0: float, kp_sigma: float,
+                        seed: int) -> list[dict]:
+    """An invented bag (test data only): ``good`` square-law parts with stepped thresholds and scattered KP, then
+    one open dud that never conducts (its sweep runs to 9.5 V)."""
+    rng = np.random.default_rng(seed)
+    parts = [{"label": f"Q{k:02d}", "params": DeviceParams("square", vth=float(vth0 + vth_step * k),
+                                                            kp=float(kp0 + kp_sigma * rng.standard_normal()))}
+             for k in range(1, good + 1)]
+    parts.append({"label": f"Q{good + 1:02d}", "vgs": [0.5, 3.0, 9.5], "id": [2e-9, 3e-9, 4e-9],
+                  "classification": "open", "reason": "no current at the top of the sweep"})
+    return parts

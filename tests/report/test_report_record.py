@@ -9,13 +9,12 @@ import numpy as np
 import pytest
 
 from benchlab.cli import main
-from benchlab.models import DeviceParams
 from benchlab.report.builder import monte_carlo_errors
 from benchlab.report.figures import sweeps_figure
 from benchlab.report.data import SweepTrace
 from benchlab.report.html_page import POWER_RATINGS_W
 from benchlab.report.schematic import sink_schematic
-from session_builder import write_session
+from session_builder import square_bag_with_dud, write_session
 from test_report import _Collector, _check_png, embedded_pngs
 
 LOT = "demo-bag"  # invented test data in the demo scenario's style
@@ -25,12 +24,7 @@ LOT = "demo-bag"  # invented test data in the demo scenario's style
 def recorded(tmp_path_factory):
     """A bag of square-law parts (one open dud), imported with the real fitter, a sink designed and saved."""
     root = tmp_path_factory.mktemp("record")
-    rng = np.random.default_rng(3)
-    parts = [{"label": f"Q{k:02d}", "params": DeviceParams("square", vth=float(2.9 + 0.004 * k),
-                                                            kp=float(1.0 + 0.01 * rng.standard_normal()))}
-             for k in range(1, 7)]
-    parts.append({"label": "Q07", "vgs": [0.5, 3.0, 9.5], "id": [2e-9, 3e-9, 4e-9], "classification": "open",
-                  "reason": "no current at the top of the sweep"})
+    parts = square_bag_with_dud(6, vth0=2.9, vth_step=0.004, kp0=1.0, kp_sigma=0.01, seed=3)
     session = write_session(root, "20261202-101500-demo-bag", LOT, parts)
     lib = str(root / "lib.db")
     assert main(["library", "import", str(session), "--library", lib]) == 0
