@@ -215,7 +215,7 @@ def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.
                     "are marked in the figures below.</p>")
     good = [p for p in data.parts if p.state != "rejected"]
     body.append("<h2>The lot</h2>")
-    body.append(hp.statistics_table(data.lot, stats))
+    body.append(hp.statistics_table([(data.lot, stats), *data.other_lots]))
     body.append(figs.add(figures.sweeps_figure(data.traces, f"Lot {data.lot}: {len(data.traces)} sweep(s)", chosen),
                          "Every sweep of the lot, drain current on a log axis against VGS: the good parts in grey, the "
                          "design's parts in colour (left); the parts set aside as duds on their own axes (right).",

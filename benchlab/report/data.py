@@ -43,6 +43,7 @@ class ReportData:
     extra: dict = field(default_factory=dict)
     sessions: tuple[dict, ...] = ()  # session.json of each session the lot's sweeps came from (when still on disk)
     fitter_versions: tuple[str, ...] = ()
+    other_lots: tuple[tuple[str, dict], ...] = ()  # (lot, lot_statistics) of every other lot in the library
 
     def trace_of(self, label: str) -> SweepTrace | None:
         """The part's latest sweep (None for a hand-entered part)."""
@@ -194,10 +195,22 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
     if reference is not None:  # the scatter marks the first part of each set as the reference
         sets = tuple((reference.label, *[x for x in s if x != reference.label]) if reference.label in s else s
                      for s in sets)
+        other_lots = []
+        for entry in lib.lots():
+            if entry["name"] == lot:
+                continue
+            members = lib.parts(lot=entry["name"], state=None)
+            latest = {}
+            for part in members:
+                for sweep in lib.sweeps(part):
+                    trace = trace_of_sweep(part, sweep)
+                    if trace is not None:
+                        latest[part.label] = trace
+            other_lots.append((entry["name"], lot_statistics(members, {k: vgs_at_cc(t) for k, t in latest.items()})))
     metas = []
     for session_id, path in sessions.items():
         meta = _session_meta(path)
         metas.append(meta if meta is not None else {"id": session_id, "missing": path})
     return ReportData(lot=lot, parts=tuple(parts), traces=tuple(traces), design=design, design_sets=sets,
                       reference=reference, library_path=lib.path, sessions=tuple(metas),
-                      fitter_versions=tuple(sorted(versions)))
+                      fitter_versions=tuple(sorted(versions)), other_lots=tuple(other_lots))

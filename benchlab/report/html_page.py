@@ -154,14 +154,16 @@ def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str], gm_cur
                  row_classes=classes, text_columns=4)
 
 
-def statistics_table(lot: str, stats: Mapping[str, Any]) -> str:
-    """Count, yield, mean and sigma of Vth, KP and VGS at 250 uA of the lot."""
+def statistics_table(lots: Sequence[tuple[str, Mapping[str, Any]]]) -> str:
+    """Count, yield, mean and sigma of Vth, KP and VGS at 250 uA, one row per lot (the report's lot first)."""
     head = ("lot", "parts", "good", "yield (%)", "Vth mean (V)", "Vth sigma (mV)", "KP mean (A/V^2)",
             "KP sigma (A/V^2)", "VGS at 250 uA mean (V)", "VGS at 250 uA sigma (mV)")
-    row = (lot, stats["parts"], stats["good"], num(stats["yield"], ".1f", 100.0), num(stats["vth_mean"], ".4f"),
-           num(stats["vth_std"], ".3g", 1e3), num(stats["kp_mean"]), num(stats["kp_std"], ".3g"),
-           num(stats["vth_cc_mean"], ".4f"), num(stats["vth_cc_std"], ".3g", 1e3))
-    return table(head, [row], caption="Statistics of the lot (good parts; sigma is the sample standard deviation)")
+    rows = [(lot, stats["parts"], stats["good"], num(stats["yield"], ".1f", 100.0), num(stats["vth_mean"], ".4f"),
+             num(stats["vth_std"], ".3g", 1e3), num(stats["kp_mean"]), num(stats["kp_std"], ".3g"),
+             num(stats["vth_cc_mean"], ".4f"), num(stats["vth_cc_std"], ".3g", 1e3)) for lot, stats in lots]
+    return table(head, rows, caption="Statistics by lot: this report's lot first, then the library's other lots "
+                                     "(good parts; sigma is the sample standard deviation)",
+                 row_classes=["chosen"] + [""] * (len(rows) - 1))
 
 
 def bench_section(sessions: Sequence[Mapping[str, Any]], software: str, fitter_versions: Sequence[str]) -> str:

@@ -44,6 +44,7 @@ def test_report_is_a_design_record(recorded, capsys, tmp_path):
                               "--save", "--json"])
     assert code == 0, out.err
     design = json.loads(out.out)
+    assert main(["parts", "add", "S1", "--lot", "spare-bag", "--vth", "3.3", "--kp", "0.9", "--library", lib]) == 0
     pdf = tmp_path / "record.pdf"
     code, out = _run(capsys, ["report", "--library", lib, "--lot", LOT, "--design", str(design["design_id"]),
                               "--out", str(tmp_path / "report"), "--pdf", str(pdf)])
@@ -95,8 +96,11 @@ def test_report_is_a_design_record(recorded, capsys, tmp_path):
     # statistics of the lot: 6 good of 7 parts; mean Vth of the fitted curves
     code, out = _run(capsys, ["parts", "list", "--library", lib, "--lot", LOT, "--state", "all", "--json"])
     fitted = [p["params"]["vth"] for p in json.loads(out.out) if p["state"] != "rejected"]
-    stats = text[text.index("Statistics of the lot"):]
+    stats = text[text.index("Statistics by lot"):]
     assert f"{np.mean(fitted):.4f}" in stats[:400] and "85.7" in stats[:400]  # 6 / 7
+    # the library's other lot, after the report's own
+    assert stats.index(LOT) < stats.index("spare-bag")
+    assert '<td class="t">spare-bag</td><td>1</td><td>1</td><td>100.0</td><td>3.3000</td>' in page
 
     # the PDF: ISO 32000 files start with %PDF-; one page for the summary and one per figure
     raw = pdf.read_bytes()
