@@ -13,6 +13,7 @@ import sys
 import warnings
 
 from benchlab import __version__
+from benchlab.commands._args import Parser
 from benchlab.errors import BenchlabError
 
 # Order is the order shown in --help.
@@ -23,7 +24,7 @@ COMMAND_MODULES: tuple[str, ...] = (
 
 def build_parser() -> argparse.ArgumentParser:
     """The ``benchlab`` parser with every command module's subcommands registered."""
-    parser = argparse.ArgumentParser(
+    parser = Parser(
         prog="benchlab",
         description=(
             "Characterize discrete MOSFETs on a SCPI bench (or the built-in simulated bench): sweep each part "

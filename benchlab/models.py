@@ -25,10 +25,10 @@ from typing import Any
 
 import numpy as np
 
+from benchlab.choices import MODEL_NAMES
+
 BOLTZMANN_OVER_Q = 8.617333262e-5  # V/K (CODATA 2018 k/e)
 T_NOMINAL_K = 300.15  # 27 degC, SPICE's default TNOM
-
-MODEL_NAMES = ("linear", "square", "theta", "ekv")
 
 
 def thermal_voltage(temperature_k: float = T_NOMINAL_K) -> float:

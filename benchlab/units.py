@@ -34,6 +34,7 @@ UNIT_SPELLINGS: dict[str, tuple[str, ...]] = {
     "%": ("%",),
     "": (),
     "degC": ("degC", "°C", "C"),
+    "K": ("K",),  # a temperature difference
     "A/V": ("A/V", "S"),
     "A/V2": ("A/V2", "A/V^2", "A/V²"),
     "1/V": ("1/V",),
@@ -76,6 +77,8 @@ def parse_quantity(value: object, unit: str) -> float:
             raise ValueError(f"must be a finite number, got {value!r}")
         return number
     match = _QUANTITY.match(value)
+    if match is None and value.strip().lstrip("+-").lower() in ("nan", "inf", "infinity"):
+        raise ValueError(f"'{value}' is not a finite number")
     if match is None:
         raise ValueError(f"'{value}' is not a quantity like '{example}'")
     number, suffix = float(match.group(1)), match.group(2)

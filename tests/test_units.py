@@ -31,7 +31,7 @@ def test_parse(text, unit, expected):
     ("20 mC", "degC", r"not in degC"),                  # no prefix on a temperature
     ("1 m%", "%", r"fraction"),
     ("abc", "A", r"not a quantity"),
-    ("1e999", "A", r"finite"),
+    ("1e999", "A", r"finite"), ("nan", "V", r"finite"), ("-inf", "A", r"finite"),
     (float("nan"), "A", r"finite"),
     (True, "A", r"number"),
     ("", "V", r"not a quantity"),

@@ -3,11 +3,9 @@
 from __future__ import annotations
 
 import argparse
-import json
 
+from benchlab.commands._args import add_sim_options, json_option, print_json, refuse_given, sim_settings
 from benchlab.errors import InputError
-from benchlab.services import bench as service
-from benchlab.kinds import Fixture
 
 _CHECK_DESCRIPTION = """\
 Connect every instrument of a bench, identify it (*IDN?), clear its status (*CLS), then with the
@@ -41,35 +39,42 @@ def register(subparsers) -> None:
     check.add_argument("config", nargs="?", metavar="CONFIG", help="bench file (TOML)")
     check.add_argument("--sim", action="store_true",
                        help="start the built-in simulated bench in this process and check it (no CONFIG)")
-    check.add_argument("--fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
-                       help="with --sim: supply + series resistor + meter, or a source-measure unit "
-                            "(default: %(default)s)")
-    check.add_argument("--json", action="store_true", help="print the report as one JSON object")
+    add_sim_options(check, "fixture", title="simulated bench (with --sim)")
+    json_option(check, "the report")
     check.set_defaults(func=_check)
 
     profiles = sub.add_parser("profiles", help="list instrument profiles and where they come from",
                               description=_PROFILES_DESCRIPTION, formatter_class=argparse.RawDescriptionHelpFormatter)
-    profiles.add_argument("--json", action="store_true", help="print the list as JSON")
+    json_option(profiles, "each profile")
     profiles.set_defaults(func=_profiles)
 
 
 def _check(args) -> int:
+    from benchlab.services import bench as service
+
     if args.sim and args.config:
         raise InputError("give either a bench file or --sim, not both")
     if args.sim:
-        report = service.check_simulator_bench(args.fixture)
+        report = service.check_simulator_bench(sim_settings(args, ["fixture"])["fixture"])
     elif args.config:
+        refuse_given(args, ["--sim-fixture"], "sets up the simulated bench: it goes with --sim, not with a bench "
+                                              "file (whose fixture is in the file)")
         report = service.check_bench_file(args.config)
     else:
         raise InputError("give a bench file (see docs/bench-config.md) or --sim for the built-in simulated bench")
-    print(json.dumps(report.to_dict()) if args.json else service.format_check_report(report))
+    if args.json:
+        print_json(report.to_dict())
+    else:
+        print(service.format_check_report(report))
     return 0 if report.ok else 1
 
 
 def _profiles(args) -> int:
+    from benchlab.services import bench as service
+
     search_path, entries = service.list_profiles()
     if args.json:
-        print(json.dumps({"search_path": search_path, "profiles": [entry.to_dict() for entry in entries]}))
+        print_json(*(dict(entry.to_dict(), search_path=search_path) for entry in entries))
         return 0
     print("search path (later overrides earlier):")
     for folder in search_path:

@@ -10,15 +10,24 @@ import argparse
 import sys
 import time
 
+from benchlab.commands._args import add_sim_options, counting_number, json_option, print_json, sim_settings
+
 
 def run_demo(args: argparse.Namespace) -> int:
     from benchlab.commands.sweep import ProgressBar
     from benchlab.services import characterize, demo
 
-    print(characterize.DEMO_STORY)
-    print("The simulated bench starts on free loopback ports; nothing real is powered.\n")
+    say = sys.stderr if args.json else sys.stdout
+    print(characterize.DEMO_STORY, file=say)
+    print("The simulated bench starts on free loopback ports; nothing real is powered.\n", file=say)
     started = time.monotonic()
-    run = demo.run_full_demo(args.out, count=args.count, seed=args.seed, on_event=ProgressBar())
+    run = demo.run_full_demo(args.out, count=args.count, seed=sim_settings(args, ["seed"])["seed"],
+                             on_event=ProgressBar(out=say), say=lambda line: print(line, file=say))
+    if args.json:
+        print_json({"folder": str(run.folder), "swept": run.swept, "fitted": run.fitted, "rejected": run.rejected,
+                    "session": str(run.session), "library": str(run.library), "models": str(run.models),
+                    "netlist": str(run.netlist), "report": str(run.report)})
+        return 0
     print(f"\nDone in {time.monotonic() - started:.1f} s: {run.swept} parts swept, {run.fitted} fitted, "
           f"{run.rejected} set aside. Everything is in {run.folder}:")
     for what, path in (("session (CSV + JSON per part)", run.session), ("device library (SQLite)", run.library),
@@ -39,6 +48,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                     "an HTML report. Everything goes into a new run folder under --out.")
     p.add_argument("--out", metavar="DIR", default="benchlab-demo",
                    help="folder that receives a new run-<time> folder (default ./benchlab-demo)")
-    p.add_argument("--count", type=int, default=40, help="parts of the 40-part bag to sweep (9-40, default 40)")
-    p.add_argument("--seed", type=int, default=1, help="seed of the simulated bag (default 1)")
+    p.add_argument("--count", type=counting_number, default=40, metavar="N",
+                   help="parts of the 40-part bag to sweep (9-40, default 40)")
+    add_sim_options(p, "seed")
+    json_option(p, "where everything went")
     p.set_defaults(func=run_demo)

@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-from benchlab.commands._args import library_option
+from benchlab.choices import PART_STATES
+from benchlab.commands._args import library_option, whole_number
 from benchlab.errors import InputError
-from benchlab.library.records import PART_STATES
-from benchlab.services import library as service
 
 
 def register(subparsers) -> None:
@@ -25,13 +24,15 @@ def register(subparsers) -> None:
                                        "level 3 with THETA when the part was fitted with it); with --design also "
                                        "the ngspice netlist (.op) of a current sink recorded in the library.")
     spice.add_argument("parts", nargs="*", metavar="PART", help="LABEL or LOT/LABEL")
-    spice.add_argument("--design", type=int, metavar="ID",
+    spice.add_argument("--design", type=whole_number, metavar="ID",
                        help="also write the netlist of this recorded sink design (benchlab design sink --save)")
     spice.add_argument("--out", metavar="FILE", help="write here instead of standard output")
     spice.set_defaults(func=_spice)
 
 
 def _emit(text: str, out: str | None) -> int:
+    from benchlab.services import library as service
+
     rest = service.write_output(text, out)
     if rest is not None:
         print(rest, end="")
@@ -41,16 +42,22 @@ def _emit(text: str, out: str | None) -> int:
 
 
 def _csv(args) -> int:
+    from benchlab.services import library as service
+
     return _emit(service.export_csv_text(args.library, lot=args.lot, state=args.state), args.out)
 
 
 def _json(args) -> int:
+    from benchlab.services import library as service
+
     return _emit(service.export_json_text(args.library, lot=args.lot, state=args.state), args.out)
 
 
 def _spice(args) -> int:
     if not args.parts and args.design is None:
         raise InputError("name at least one part to export, or a recorded design with --design ID")
+    from benchlab.services import library as service
+
     texts = []
     if args.parts:
         texts.append(service.export_spice_text(args.library, args.parts))

@@ -5,19 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
-from benchlab.commands._args import whole_number
-from benchlab.extract import MODEL_CHOICES
-from benchlab.services import fitting as service
-
-
-def _current(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"'{text}' is not a current in A (e.g. 250e-6)") from None
-    if not value > 0 or value != value or value == float("inf"):
-        raise argparse.ArgumentTypeError(f"{text} A: the current must be positive and finite")
-    return value
+from benchlab.choices import DEFAULT_CC_CURRENT, MODEL_CHOICES
+from benchlab.commands._args import json_option, quantity, whole_number
 
 
 def register(subparsers) -> None:
@@ -32,20 +21,20 @@ def register(subparsers) -> None:
                         help="CSV file, part sidecar (.json), session folder or folder of sessions")
     parser.add_argument("--model", choices=MODEL_CHOICES, default="auto",
                         help="model to fit; auto chooses among square, theta and ekv by AICc (default auto)")
-    parser.add_argument("--at-current", type=_current, metavar="A",
+    parser.add_argument("--at-current", type=quantity("A"), metavar="A",
                         help="operating current for gm and VGS (also centres the linear model's window)")
-    parser.add_argument("--cc-current", type=_current, default=service.DEFAULT_CC_CURRENT, metavar="A",
-                        help="constant-current threshold criterion (default 250e-6 A)")
-    parser.add_argument("--window", type=_current, nargs=2, metavar=("LOW", "HIGH"),
-                        help="fit only points with LOW <= ID <= HIGH (A)")
+    parser.add_argument("--cc-current", type=quantity("A"), default=DEFAULT_CC_CURRENT, metavar="A",
+                        help="constant-current threshold criterion (default 250u)")
+    parser.add_argument("--window", type=quantity("A"), nargs=2, metavar=("LOW", "HIGH"),
+                        help="fit only points with LOW <= ID <= HIGH (currents, e.g. 1m 50m)")
     parser.add_argument("--bootstrap", type=whole_number, default=0, metavar="N",
                         help="standard errors from N residual-bootstrap resamples (default: from the fit covariance)")
-    parser.add_argument("--temperature", type=float, metavar="C",
+    parser.add_argument("--ambient", type=quantity("degC", "any"), metavar="C",
                         help="the parts' temperature during the sweeps in degC (default: the session's ambient, "
                              "else 27); sets UT for the ekv slope factor and is stored with the parameters")
     parser.add_argument("--curve", type=whole_number, default=0, metavar="N",
                         help="also give VGS, gm and gm/ID of the fit at N currents across the fitted window")
-    parser.add_argument("--json", action="store_true", help="print one JSON object per sweep (JSON Lines)")
+    json_option(parser, "each sweep's fit")
     parser.add_argument("--plot", metavar="FILE.png",
                         help="also draw each fitted sweep: its points, the fitted curve, every threshold found and "
                              "the residuals (.png, .pdf or .svg; several sweeps go to FILE-LABEL.png)")
@@ -59,9 +48,12 @@ def _fit(args) -> int:
         from benchlab.services.report import check_plot_path
 
         check_plot_path(args.plot)  # a bad file name is refused before anything is fitted or written
+
+    from benchlab.services import fitting as service
+
     run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
                             cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
-                            bootstrap=args.bootstrap, save=args.save, temperature_c=args.temperature)
+                            bootstrap=args.bootstrap, save=args.save, temperature_c=args.ambient)
     if run.records and args.json:
         print(service.json_lines(run.records, args.curve))
     elif run.records:

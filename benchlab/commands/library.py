@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-import json
-
-from benchlab.commands._args import library_option
-from benchlab.services import library as service
+from benchlab.choices import MODEL_CHOICES
+from benchlab.commands._args import json_option, library_option, print_json
 
 
 def register(subparsers) -> None:
@@ -22,20 +20,22 @@ def register(subparsers) -> None:
     imp.add_argument("--lot", help="store the parts in this lot (default: the session's lot)")
     imp.add_argument("--no-refit", dest="refit", action="store_false",
                      help="use the fits stored in the session instead of fitting again")
-    imp.add_argument("--model", default="auto", choices=("auto", "linear", "square", "theta", "ekv"),
+    imp.add_argument("--model", default="auto", choices=MODEL_CHOICES,
                      help="model to re-fit with (default: %(default)s)")
-    imp.add_argument("--json", action="store_true", help="print the import summary as JSON")
+    json_option(imp, "the import summary")
     imp.set_defaults(func=_import)
 
     imj = sub.add_parser("import-json", parents=[lib], help="import a library export (benchlab export json)")
     imj.add_argument("file", help="a JSON file written by benchlab export json")
+    json_option(imj, "the counts imported")
     imj.set_defaults(func=_import_json)
 
     lots = sub.add_parser("lots", parents=[lib], help="list lots with part counts per state")
-    lots.add_argument("--json", action="store_true", help="print the lots as one JSON array")
+    json_option(lots, "each lot")
     lots.set_defaults(func=_lots)
 
     info = sub.add_parser("info", parents=[lib], help="backend, library file or URL, schema version and row counts")
+    json_option(info, "the facts")
     info.set_defaults(func=_info)
 
     copy = sub.add_parser("copy", help="copy a whole library to an empty one (SQLite <-> PostgreSQL), verified",
@@ -45,15 +45,17 @@ def register(subparsers) -> None:
                                       "checksums table by table. On any mismatch nothing is kept.")
     copy.add_argument("source", metavar="SOURCE", help="library file or postgresql:// URL to copy from")
     copy.add_argument("destination", metavar="DESTINATION", help="empty library file or postgresql:// URL")
-    copy.add_argument("--json", action="store_true", help="print the verification as JSON")
+    json_option(copy, "the verification")
     copy.set_defaults(func=_copy)
 
 
 def _import(args) -> int:
+    from benchlab.services import library as service
+
     summary = service.import_sessions(args.library, args.sessions, lot=args.lot, refit=args.refit, model=args.model,
                                       operator=args.operator)
     if args.json:
-        print(json.dumps(summary.to_dict()))
+        print_json(summary.to_dict())
         return 0
     for sweep in summary.sweeps:
         print(f"{sweep.lot}/{sweep.label:<12} {sweep.action:<9} {sweep.detail}")
@@ -63,15 +65,22 @@ def _import(args) -> int:
 
 
 def _import_json(args) -> int:
+    from benchlab.services import library as service
+
     counts = service.import_json_file(args.library, args.file)
+    if args.json:
+        print_json(counts)
+        return 0
     print("imported " + ", ".join(f"{n} {k}" for k, n in counts.items()))
     return 0
 
 
 def _lots(args) -> int:
+    from benchlab.services import library as service
+
     lots = service.lots(args.library)
     if args.json:
-        print(json.dumps(lots))
+        print_json(*lots)
         return 0
     print(f"{'LOT':<24} {'PARTS':>5} {'IN_STOCK':>8} {'RESERVED':>8} {'USED':>5} {'REJECTED':>8}")
     for lot in lots:
@@ -81,9 +90,11 @@ def _lots(args) -> int:
 
 
 def _copy(args) -> int:
+    from benchlab.services import library as service
+
     report = service.copy_library(args.source, args.destination)
     if args.json:
-        print(json.dumps(report.to_dict()))
+        print_json(report.to_dict())
         return 0
     print(f"copied {report.source} -> {report.destination}")
     for t in report.tables:
@@ -94,6 +105,12 @@ def _copy(args) -> int:
 
 
 def _info(args) -> int:
-    for key, value in service.info(args.library).items():
+    from benchlab.services import library as service
+
+    facts = service.info(args.library)
+    if args.json:
+        print_json(facts, default=str)
+        return 0
+    for key, value in facts.items():
         print(f"{key}: {value}")
     return 0

@@ -6,9 +6,11 @@ import argparse
 import sys
 from typing import Any, TextIO
 
-from benchlab.errors import InputError
-from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
-from benchlab.kinds import Fixture, SweepMode
+from benchlab.choices import CURRENT_FROM, DEFAULT_SESSIONS_DIR
+from benchlab.commands._args import (add_sim_options, counting_number, json_option, name_options, print_json,
+                                     quantity, quantity_list, refuse_given, sim_settings)
+from benchlab.errors import BenchlabError, InputError
+from benchlab.kinds import SweepMode
 
 
 class ProgressBar:
@@ -23,6 +25,8 @@ class ProgressBar:
         self.live = bool(getattr(self.stream, "isatty", lambda: False)())
 
     def __call__(self, event: Any) -> None:
+        from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
+
         if isinstance(event, PointMeasured):
             if not self.live:
                 return
@@ -47,11 +51,11 @@ class ProgressBar:
                       file=self.out, flush=True)
 
 
-def _float_list(text: str) -> list[float]:
-    try:
-        return [float(v) for v in text.split(",") if v.strip()]
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected comma-separated volts, got {text!r}") from None
+# internal field (or phrase) of a plan error -> the option a user typed
+_PLAN_OPTIONS = {"points must": "--points must", "max_current_a": "--max-current", "min_current_a": "--min-current",
+                 "start_v": "--start-v", "use_list": "--list", "pulsed duty cycle": "--pulsed duty cycle",
+                 "current_from": "--current-from", "settle_s": "--settle", "nplc": "--nplc"}
+_SIM_NAMES = ("fixture", "seed", "time_scale", "fault", "log")
 
 
 def _operator(args, svc) -> str:
@@ -62,44 +66,48 @@ def _add_bench_options(p: argparse.ArgumentParser) -> None:
     where = p.add_mutually_exclusive_group()
     where.add_argument("--bench", metavar="CONFIG", help="bench file (TOML, see docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="use the built-in simulated bench (started in process)")
-    p.add_argument("--sessions", metavar="DIR", default="sessions", help="where sessions go (default ./sessions)")
+    p.add_argument("--sessions", metavar="DIR", help=f"where sessions go (default ./{DEFAULT_SESSIONS_DIR})")
     p.add_argument("--operator", help="who is at the bench, stored in the session and shown in reports "
                                       "(default: the login name)")
-    p.add_argument("--ambient", type=float, metavar="C", help="ambient temperature in degC (stored in the session)")
-    p.add_argument("--points", type=int, help="target points of the sweep (default 24)")
-    p.add_argument("--max-current", type=float, metavar="A", help="top target current (default 0.1 A)")
-    p.add_argument("--min-current", type=float, metavar="A", help="first target current (default 10 uA)")
-    p.add_argument("--start-v", type=float, metavar="V", help="first source voltage of an adaptive sweep")
+    p.add_argument("--ambient", type=quantity("degC", "any"), metavar="C",
+                   help="ambient temperature in degC (stored in the session)")
+    p.add_argument("--points", type=counting_number, metavar="N", help="target points of the sweep (default 24)")
+    p.add_argument("--max-current", type=quantity("A", why="targets are spread in log(current)"), metavar="A",
+                   help="top target current (default 100m)")
+    p.add_argument("--min-current", type=quantity("A", why="targets are spread in log(current)"), metavar="A",
+                   help="first target current (default 10u)")
+    p.add_argument("--start-v", type=quantity("V", "nonnegative"), metavar="V",
+                   help="first source voltage of an adaptive sweep")
     p.add_argument("--mode", choices=tuple(SweepMode),
                    help="targets: log-spaced currents, adaptive (default); voltages: --voltages list; "
                         "currents: SMU forcing log-spaced currents")
-    p.add_argument("--voltages", type=_float_list, metavar="V1,V2,...", help="explicit source voltages")
-    p.add_argument("--list", dest="use_list", action="store_true", default=None,
+    p.add_argument("--voltages", type=quantity_list("V"), metavar="V1,V2,...", help="explicit source voltages")
+    p.add_argument("--list", action="store_true", default=None,
                    help="SMU: upload --voltages as lists (fewer round trips)")
-    p.add_argument("--pulsed", type=float, metavar="DUTY", help="pulsed sweep: output on only to measure, duty 0-1")
+    p.add_argument("--pulsed", type=quantity("%"), metavar="DUTY",
+                   help="pulsed sweep: output on only to measure, duty 0-1 (or 0-100 %%)")
     p.add_argument("--down-sweep", action="store_true", default=None, help="sweep back down after the up-sweep")
-    p.add_argument("--current-from", choices=("meter", "resistor"),
+    p.add_argument("--current-from", choices=CURRENT_FROM,
                    help="resistor fixture: drain current read by the meter (default) or from the resistor drop")
-    p.add_argument("--settle", type=float, metavar="S", dest="settle_s", help="wait after each setpoint (s)")
-    p.add_argument("--nplc", type=float, help="integration time in power-line cycles")
-    sim = p.add_argument_group("simulated bench (--sim)")
-    sim.add_argument("--sim-fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
-                     help="resistor: supply, series resistor and meter; smu: source-measure unit across the part "
-                          "(default resistor)")
-    sim.add_argument("--sim-seed", type=int, default=1,
-                     help="seed of the simulated bag, resistor error and noise (default 1)")
-    sim.add_argument("--sim-time-scale", type=float, default=0.0,
-                     help="real seconds per instrument second (1 = real time, 0 = no waits; default 0)")
-    sim.add_argument("--sim-fault", action="append", default=[], metavar="SPEC",
-                     help="inject a simulator fault, e.g. mute@meter=12 (see benchlab sim --help)")
-    sim.add_argument("--sim-log", metavar="FILE", help="write the simulator's log (JSON lines) to FILE")
+    p.add_argument("--settle", type=quantity("s", "nonnegative"), metavar="S",
+                   help="wait after each setpoint (e.g. 50ms)")
+    p.add_argument("--nplc", type=quantity(""), metavar="N", help="integration time in power-line cycles")
+    add_sim_options(p, *_SIM_NAMES, title="simulated bench (with --sim)")
+    json_option(p, "each swept part")
 
 
 def _plan_options(args: argparse.Namespace) -> dict[str, Any]:
     return {"points": args.points, "max_current_a": args.max_current, "min_current_a": args.min_current,
-            "start_v": args.start_v, "mode": args.mode, "voltages": args.voltages, "use_list": args.use_list,
+            "start_v": args.start_v, "mode": args.mode, "voltages": args.voltages, "use_list": args.list,
             "pulsed_duty": args.pulsed, "down_sweep": args.down_sweep, "current_from": args.current_from,
-            "settle_s": args.settle_s, "nplc": args.nplc}
+            "settle_s": args.settle, "nplc": args.nplc}
+
+
+def _outcome_json(outcome: Any, session_path: Any) -> dict[str, Any]:
+    return {"part": outcome.label, "session": str(session_path), "complete": outcome.complete,
+            "classification": outcome.classification, "reason": outcome.reason,
+            "stop_reason": outcome.stop_reason, "points": len(outcome.points), "vgs_at_ref": outcome.vgs_at_ref,
+            "reference_current": outcome.reference_current_a, "error": outcome.error}
 
 
 def _prepare(args: argparse.Namespace):
@@ -108,9 +116,17 @@ def _prepare(args: argparse.Namespace):
 
     sim = None
     if args.sim:
-        sim = svc.SimOptions(fixture=args.sim_fixture, seed=args.sim_seed, time_scale=args.sim_time_scale,
-                             faults=tuple(args.sim_fault), log_path=args.sim_log)
-    handle, plan = svc.prepare(args.bench, sim, _plan_options(args), say=lambda text: print(text, file=sys.stderr))
+        s = sim_settings(args, _SIM_NAMES)
+        sim = svc.SimOptions(fixture=s["fixture"], seed=s["seed"], time_scale=s["time_scale"],
+                             faults=tuple(s["fault"]), log_path=s["log"])
+    elif args.bench:
+        refuse_given(args, ["--sim-" + n.replace("_", "-") for n in _SIM_NAMES],
+                     "sets up the simulated bench: it goes with --sim, not with --bench")
+    try:
+        handle, plan = svc.prepare(args.bench, sim, _plan_options(args),
+                                   say=lambda text: print(text, file=sys.stderr))
+    except BenchlabError as exc:
+        raise name_options(exc, _PLAN_OPTIONS) from None
     return svc, handle, plan
 
 
@@ -121,48 +137,55 @@ def run_sweep(args: argparse.Namespace) -> int:
     check_name("lot name", args.lot)
     svc, handle, plan = _prepare(args)
     try:
-        outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot, sessions_root=args.sessions,
-                                          operator=_operator(args, svc), ambient_c=args.ambient, on_event=ProgressBar(),
+        outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot,
+                                          sessions_root=args.sessions or DEFAULT_SESSIONS_DIR,
+                                          operator=_operator(args, svc), ambient_c=args.ambient,
+                                          on_event=ProgressBar(out=sys.stderr if args.json else None),
                                           on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:
         handle.close()
-    print(f"wrote {csv_path}")
+    if args.json:
+        print_json(_outcome_json(outcome, csv_path.parent))
+    else:
+        print(f"wrote {csv_path}")
     return 0 if outcome.complete else 1
 
 
 def run_bag(args: argparse.Namespace) -> int:
     if args.resume is None and args.count is None:
         raise InputError("say how many parts: --count N (or --resume DIR to finish an earlier session)")
-    if args.count is not None and args.count < 1:
-        raise InputError(f"--count must be 1 or more, got {args.count}")
     if args.resume is not None:
         from pathlib import Path
 
+        refuse_given(args, ("--lot", "--sessions", "--operator", "--ambient"),
+                     "is kept from the session being resumed: leave it out with --resume")
         if not (Path(args.resume) / "session.json").is_file():
             raise InputError("not a session folder (no session.json)", path=args.resume)
     else:
         from benchlab.sweep.session import check_name
 
-        check_name("lot name", args.lot)
+        check_name("lot name", args.lot or "bag")
     svc, handle, plan = _prepare(args)
-    progress = ProgressBar()
+    progress = ProgressBar(out=sys.stderr if args.json else None)
     try:
         with svc.sigterm_as_exception():
-            result = svc.sweep_bag(handle, plan, sessions_root=args.sessions, lot=args.lot, count=args.count,
-                                   operator=_operator(args, svc), ambient_c=args.ambient, resume=args.resume,
-                                   on_event=progress,
+            result = svc.sweep_bag(handle, plan, sessions_root=args.sessions or DEFAULT_SESSIONS_DIR,
+                                   lot=args.lot or "bag", count=args.count, operator=_operator(args, svc),
+                                   ambient_c=args.ambient, resume=args.resume, on_event=progress,
                                    on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:
         handle.close()
+    if args.json:
+        print_json(*(_outcome_json(o, result.session_path) for o in result.outcomes))
     if result.skipped:
-        print(f"skipped (already measured): {', '.join(result.skipped)}")
+        print(f"skipped (already measured): {', '.join(result.skipped)}", file=sys.stderr if args.json else None)
     if result.stopped_early:
-        print(f"stopped: {result.stopped_early}")
+        print(f"stopped: {result.stopped_early}", file=sys.stderr if args.json else None)
     kinds: dict[str, int] = {}
     for outcome in result.outcomes:
         kinds[outcome.classification] = kinds.get(outcome.classification, 0) + 1
     print(f"{len(result.outcomes)} parts swept ({', '.join(f'{n} {k}' for k, n in sorted(kinds.items()))}); "
-          f"session in {result.session_path}")
+          f"session in {result.session_path}", file=sys.stderr if args.json else None)
     return 0 if all(o.complete for o in result.outcomes) else 1
 
 
@@ -170,7 +193,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser("sweep", help="sweep the part in the fixture (diode-connected) into a session",
                               description="Sweep one diode-connected part and record every point in a session.")
     p.add_argument("--part", required=True, metavar="LABEL", help="label of the part in the fixture, e.g. Q07")
-    p.add_argument("--lot", default="single", help="lot name (session folder suffix)")
+    p.add_argument("--lot", default="single", help="lot name (session folder suffix; default single)")
     _add_bench_options(p)
     p.set_defaults(func=run_sweep)
 
@@ -178,8 +201,8 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                               description="Sweep parts one after another: on the simulator the next part of its "
                                           "bag is loaded automatically; on a real bench you are asked for each "
                                           "part (label, Enter to measure, q to stop).")
-    b.add_argument("--lot", default="bag", help="lot name (session folder suffix)")
-    b.add_argument("--count", type=int, metavar="N", help="number of parts")
+    b.add_argument("--lot", help="lot name (session folder suffix; default bag)")
+    b.add_argument("--count", type=counting_number, metavar="N", help="number of parts to sweep")
     b.add_argument("--resume", metavar="DIR", help="continue an interrupted session: sweep the parts not yet done")
     _add_bench_options(b)
     b.set_defaults(func=run_bag)

@@ -5,18 +5,11 @@ from __future__ import annotations
 import argparse
 import sys
 
-from benchlab.commands._args import library_option, quantity, whole_number
+from benchlab.choices import DEFAULT_SESSIONS_DIR
+from benchlab.commands._args import (add_sim_options, json_option, library_option, quantity, quantity_list,
+                                     refuse_given, sim_settings, whole_number)
 
-
-def _temperatures(text: str) -> list[float]:
-    try:
-        values = [float(v) for v in text.split(",") if v.strip()]
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected comma-separated temperatures in degC, e.g. 25,60; got {text!r}") \
-            from None
-    if len(values) < 2:
-        raise argparse.ArgumentTypeError(f"give at least two temperatures in degC, e.g. 25,60; got {text!r}")
-    return values
+_SIM_NAMES = ("seed", "time_scale")
 
 
 def _common(p: argparse.ArgumentParser) -> None:
@@ -24,21 +17,22 @@ def _common(p: argparse.ArgumentParser) -> None:
     where = p.add_mutually_exclusive_group()
     where.add_argument("--bench", metavar="CONFIG", help="bench file with a [thermal] table (docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="the built-in simulated bench (SMU fixture, heated block)")
-    p.add_argument("--sessions", metavar="DIR", default="sessions", help="where the readings go (default ./sessions)")
-    p.add_argument("--json", action="store_true",
-                   help="print one JSON object: vth_tempco, kp_exponent, ztc_vgs, ztc_id, rth (null where not "
-                        "measured) and stderr with the same keys")
-    p.add_argument("--sim-seed", type=int, default=1, help="seed of the simulated bag and noise (default 1)")
-    p.add_argument("--sim-time-scale", type=float, default=0.0,
-                   help="real seconds per instrument second on the simulator (default 0: no waits)")
+    p.add_argument("--sessions", metavar="DIR", default=DEFAULT_SESSIONS_DIR,
+                   help=f"where the readings go (default ./{DEFAULT_SESSIONS_DIR})")
+    json_option(p, "the result (vth_tempco, kp_exponent, ztc_vgs, ztc_id, rth, null where not measured, and stderr "
+                   "with the same keys)")
+    add_sim_options(p, *_SIM_NAMES, title="simulated bench (with --sim; its SMU fixture with a heated block)")
 
 
 def _sim_options(args):
     if not args.sim:
+        refuse_given(args, ["--sim-seed", "--sim-time-scale"],
+                     "sets up the simulated bench: it goes with --sim, not with --bench")
         return None
     from benchlab.services.characterize import SimOptions
 
-    return SimOptions(fixture="smu", seed=args.sim_seed, time_scale=args.sim_time_scale)
+    sim = sim_settings(args, _SIM_NAMES)
+    return SimOptions(fixture="smu", seed=sim["seed"], time_scale=sim["time_scale"])
 
 
 def _print(outcome, as_json: bool) -> int:
@@ -88,11 +82,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     t = sub.add_parser("tempco", parents=[library_option()],
                        help="sweep the part at two or more fixture temperatures: dVth/dT, KP ~ T^-m, ZTC point")
     _common(t)
-    t.add_argument("--temps", type=_temperatures, required=True, metavar="C1,C2,...",
+    t.add_argument("--temps", type=quantity_list("degC", "any", min_count=2), required=True, metavar="C1,C2,...",
                    help="fixture temperatures in degC, e.g. 25,60")
     t.add_argument("--model", choices=("auto", "square", "theta", "ekv"), default="auto",
                    help="drain-current model of the fits (default auto, chosen on the coldest sweep)")
-    t.add_argument("--bootstrap", type=whole_number, default=100, help="resamples for the standard errors")
+    t.add_argument("--bootstrap", type=whole_number, default=100, metavar="N",
+                   help="resamples for the standard errors (default 100)")
     t.set_defaults(func=run_tempco)
     r = sub.add_parser("rth", parents=[library_option()],
                        help="thermal resistance in the fixture by the electrical method (K-factor, heat, sense)")
@@ -104,6 +99,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
                    help="heating power (default: the bench file's thermal.max_heating_w)")
     r.add_argument("--sense-current", type=quantity("A"), default=1e-3, metavar="A",
                    help="sense current of the K-factor and the cooling readings (default 1 mA)")
-    r.add_argument("--calibration-rise", type=quantity("", "positive"), default=40.0, metavar="K",
+    r.add_argument("--calibration-rise", type=quantity("K"), default=40.0, metavar="K",
                    help="second K-factor temperature, this many kelvin above the first (default 40)")
     r.set_defaults(func=run_rth)

@@ -12,13 +12,13 @@ import math
 
 import numpy as np
 
+from benchlab.choices import SERIES_NAMES
 from benchlab.errors import InputError
 
 # IEC 60063:2015, E24 as listed (two significant digits, one decade).
 _E24_LISTED = (1.0, 1.1, 1.2, 1.3, 1.5, 1.6, 1.8, 2.0, 2.2, 2.4, 2.7, 3.0,
                3.3, 3.6, 3.9, 4.3, 4.7, 5.1, 5.6, 6.2, 6.8, 7.5, 8.2, 9.1)
 
-SERIES_NAMES = ("E3", "E6", "E12", "E24", "E48", "E96", "E192")
 
 # Tolerance usually paired with each series (IEC 60063 groups them this way; common practice).
 SERIES_TOLERANCE = {"E3": 0.40, "E6": 0.20, "E12": 0.10, "E24": 0.05, "E48": 0.02, "E96": 0.01, "E192": 0.005}

@@ -72,7 +72,7 @@ def parse_inline_model(text: str, default_label: str) -> Part:
     Parameters
     ----------
     text : str
-        Comma-separated ``key=value`` pairs, e.g. ``"vth=3.9,gm=0.544"`` (linear model),
+        Comma-separated ``key=value`` pairs, e.g. ``"vth=2.95,gm=0.8"`` (linear model; invented values),
         ``"vth=2.1,kp=0.8"`` (square law), ``"vth=2.1,kp=0.8,theta=0.12"`` (theta law),
         ``"vth=2.1,kp=0.8,n=1.4"`` (ekv). ``model=`` forces the model, ``label=`` names the part.
     default_label : str

@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from benchlab.choices import DEFAULT_CC_CURRENT, MODEL_CHOICES
 from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
 from benchlab.extract.eiv import effective_variance_fit
@@ -28,8 +29,6 @@ from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
 from benchlab.models import MODEL_NAMES, T_NOMINAL_K, thermal_voltage
 
-DEFAULT_CC_CURRENT = 250e-6
-MODEL_CHOICES = ("auto",) + MODEL_NAMES
 AUTO_CANDIDATES = ("square", "theta", "ekv")
 AICC_MARGIN = 2.0
 # The strong-inversion window of the square-law family: the top two decades of current.

@@ -9,9 +9,9 @@ from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from typing import Any
 
+from benchlab.choices import PART_STATES
 from benchlab.models import DeviceParams
 
-PART_STATES = ("in_stock", "reserved", "used", "rejected")
 POLARITIES = ("N", "P")
 
 

@@ -14,6 +14,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable, Iterator, Protocol, runtime_checkable
 
+from benchlab.choices import DEFAULT_SESSIONS_DIR
 from benchlab.errors import InputError, SweepCancelled
 from benchlab.sweep.engine import preflight, run
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
@@ -21,7 +22,6 @@ from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
 from benchlab.kinds import Fixture
 
-DEFAULT_SESSIONS_DIR = "sessions"
 CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
            "voltage; switch the output off before touching or changing a part. Follow local electrical codes and "
            "licensed practice for anything mains-powered.")
@@ -96,6 +96,9 @@ def build_plan(config: Any, **options: Any) -> SweepPlan:
         One clear message for the first bad value; nothing has been connected or powered.
     """
     values = {k: v for k, v in options.items() if v is not None}
+    if config.fixture != "resistor" and "current_from" in values:
+        raise InputError("current_from only applies to the resistor fixture (a source-measure unit measures the "
+                         "current itself)")
     if "voltages" in values:
         values["voltages"] = tuple(float(v) for v in values["voltages"])
         values.setdefault("mode", "voltages")

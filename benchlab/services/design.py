@@ -1,7 +1,7 @@
 """Service behind ``benchlab design sink|match|bin``: resolve parts (library or inline), run the design, save.
 
-Parts come from the device library (``--ref``, ``--out``, ``--outputs N``) or inline
-(``--ref-model "vth=3.9,gm=0.544"``); the design itself is pure code in ``benchlab.design``.
+Parts come from the device library (``--ref``, ``--outputs-from``, ``--outputs N``) or inline
+(``--ref-model "vth=2.95,kp=2.5"``, invented values); the design itself is pure code in ``benchlab.design``.
 """
 
 from __future__ import annotations
@@ -59,16 +59,16 @@ def _check_request(req: SinkRequest) -> None:
     if not (req.supply and req.supply > 0):
         raise InputError("--supply must be a positive voltage")
     if (req.current is None) == (req.resistor is None):
-        raise InputError("give exactly one of --current (design the resistor) or --resistor (analyse it)")
+        raise InputError("give exactly one of --at-current (design the resistor) or --resistor (analyse it)")
     if req.current is not None and not req.current > 0:
-        raise InputError("--current must be positive")
+        raise InputError("--at-current must be positive")
     if req.resistor is not None and not req.resistor > 0:
         raise InputError("--resistor must be positive")
     if req.ref and req.ref_model:
         raise InputError("give the reference either from the library (--ref) or inline (--ref-model), not both")
     picks = sum(bool(x) for x in (req.out, req.out_models, req.outputs is not None))
     if picks > 1:
-        raise InputError("give the outputs one way: --out, --out-model, or --outputs N")
+        raise InputError("give the outputs one way: --outputs-from, --output-model, or --outputs N")
     if req.outputs is not None and req.outputs < 1:
         raise InputError("--outputs must be at least 1")
     if not (req.ref or req.ref_model) and req.outputs is None:
@@ -104,7 +104,7 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
 
     def from_library(spec: str) -> Part:
         if lib is None:
-            raise InputError("naming parts needs a device library (use --ref-model / --out-model without one)")
+            raise InputError("naming parts needs a device library (use --ref-model / --output-model without one)")
         record = lib.get_part(spec)
         if record.polarity != "N":
             raise InputError(f"part '{record.spec}' is {record.polarity}-channel; the sink is built from N-channel parts")
@@ -238,7 +238,7 @@ def design_sink(req: SinkRequest, library_path: str | os.PathLike | None = None,
             if req.save:
                 if len(records) != 1 + len(outputs):
                     raise InputError("--save records the design in the library and reserves its parts: every part "
-                                     "must come from the library (not --ref-model / --out-model); nothing was saved")
+                                     "must come from the library (not --ref-model / --output-model); nothing was saved")
                 busy = [r for r in records if r.state != "in_stock"]
                 if busy:
                     raise lib.design_store.unavailable(busy[0])
@@ -330,7 +330,7 @@ def match_parts(library_path, current: float, size: int, *, current_max: float |
     """Run ``benchlab design match`` on the in-stock parts of the library (one polarity)."""
     currents = current_grid(current, current_max)
     if count is not None and count < 1:
-        raise InputError("--count must be at least 1")
+        raise InputError("--sets must be at least 1")
     with _open(library_path) as lib:
         stock = [part_from_record(r) for r in _stock(lib, lot, polarity)]
     if len(stock) < size:

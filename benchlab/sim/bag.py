@@ -13,9 +13,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchlab.choices import SIM_BAG_SIZE as DEFAULT_BAG_SIZE
 from benchlab.sim.physics import PartPhysics
-
-DEFAULT_BAG_SIZE = 40
 
 
 def part_label(index: int) -> str:

@@ -14,6 +14,8 @@ from typing import IO
 
 import numpy as np
 
+from benchlab.choices import SIM_FIRST_PORT as DEFAULT_FIRST_PORT
+from benchlab.choices import SIM_SERIES_RESISTOR_OHM as DEFAULT_SERIES_RESISTOR_OHM
 from benchlab.errors import InputError, InstrumentError
 from benchlab.sim.bag import DEFAULT_BAG_SIZE, make_bag
 from benchlab.sim.clock import VirtualClock
@@ -28,8 +30,6 @@ from benchlab.sim.smu import SimSmu
 from benchlab.sim.supply import SimSupply
 
 ROLES = ("supply", "meter", "smu")
-DEFAULT_FIRST_PORT = 5025  # raw SCPI socket port (common practice)
-DEFAULT_SERIES_RESISTOR_OHM = 47.0  # E12; 30 V supply, ~3 V part -> about 0.55 A at most
 
 
 @dataclass(frozen=True)

@@ -23,12 +23,12 @@ from typing import Any
 
 import numpy as np
 
+from benchlab.choices import CURRENT_FROM
 from benchlab.errors import InputError, SafetyError
 from benchlab.kinds import Fixture, SweepMode
 
 FIXTURES = tuple(Fixture)
 MODES = tuple(SweepMode)
-CURRENT_FROM = ("meter", "resistor")
 REFERENCE_CURRENT_A = 250e-6
 READBACK_RESOLUTION_V = 1e-3  # datasheet VGS(th) test current with VDS = VGS (common practice)
 
@@ -257,13 +257,13 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
     if not (math.isfinite(plan.settle_s) and plan.settle_s >= 0):
         raise InputError(f"settle_s must be >= 0, got {plan.settle_s!r}")
     if not (math.isfinite(plan.start_v) and 0 <= plan.start_v <= lim.max_supply_v):
-        raise SafetyError(f"start voltage {plan.start_v!r} V must be between 0 and max_supply_v {lim.max_supply_v:g} V")
+        raise SafetyError(f"start_v {plan.start_v!r} V must be between 0 and the bench limit max_supply_v {lim.max_supply_v:g} V")
     if not isinstance(plan.points, int) or plan.points < 2:
         raise InputError(f"points must be an integer >= 2, got {plan.points!r}")
     if plan.min_current_a >= plan.max_current_a:
-        raise InputError(f"min current {plan.min_current_a:g} A must be below max current {plan.max_current_a:g} A")
+        raise InputError(f"min_current_a {plan.min_current_a:g} A must be below max_current_a {plan.max_current_a:g} A")
     if plan.max_current_a > lim.max_drain_a:
-        raise SafetyError(f"max current {plan.max_current_a:g} A is above the bench limit max_drain_a "
+        raise SafetyError(f"max_current_a {plan.max_current_a:g} A is above the bench limit max_drain_a "
                           f"{lim.max_drain_a:g} A")
     if plan.pulsed_duty is not None and not (0 < plan.pulsed_duty <= 1):
         raise InputError(f"pulsed duty cycle must be in (0, 1], got {plan.pulsed_duty!r}")

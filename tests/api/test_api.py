@@ -38,7 +38,7 @@ def _cli_json(capsys, args, lines=False):
 def test_parts_frame_matches_parts_list_json(bench_data, capsys):
     session, lib, truth = bench_data
     frame = api.parts(lib)
-    listed = _cli_json(capsys, ["parts", "list", "--library", lib, "--state", "all", "--json"])
+    listed = _cli_json(capsys, ["parts", "list", "--library", lib, "--state", "all", "--json"], lines=True)
     assert list(frame.label) == [p["label"] for p in listed]
     for (_, row), part in zip(frame.iterrows(), listed):
         assert row.lot == part["lot"] and row.state == part["state"] and row.classification == part["classification"]
@@ -96,7 +96,7 @@ def test_fits_frame_is_the_fit_commands_json(bench_data, capsys):
 
 def test_designs_and_design_frames_match_the_cli(bench_data, capsys):
     session, lib, truth = bench_data
-    made = _cli_json(capsys, ["design", "sink", "--library", lib, "--supply", "12", "--current", "20m",
+    made = _cli_json(capsys, ["design", "sink", "--library", lib, "--supply", "12", "--at-current", "20m",
                               "--outputs", "2", "--lot", LOT, "--save", "--json"])
     listing = api.designs(lib)
     exported = _cli_json(capsys, ["export", "json", "--library", lib])["designs"]

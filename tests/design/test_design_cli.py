@@ -34,7 +34,7 @@ def run(capsys, *argv):
 
 def test_inline_sink_json_has_the_documented_shape(capsys):
     code, out, _ = run(capsys, "design", "sink", "--supply", "12", "--resistor", "1k",
-                       "--ref-model", "vth=3.9,gm=0.544", "--out-model", "vth=3.9,gm=0.544,label=TWIN",
+                       "--ref-model", "vth=3.9,gm=0.544", "--output-model", "vth=3.9,gm=0.544,label=TWIN",
                        "--load-voltage", "5", "--json")
     assert code == 0
     data = json.loads(out)
@@ -49,8 +49,8 @@ def test_inline_sink_json_has_the_documented_shape(capsys):
 
 
 def test_text_report_ends_with_the_cautions(capsys):
-    code, out, _ = run(capsys, "design", "sink", "--supply", "12", "--current", "20m", "--ref-model", "vth=2.5,kp=0.8",
-                       "--out-model", "vth=2.52,kp=0.8", "--series", "E96")
+    code, out, _ = run(capsys, "design", "sink", "--supply", "12", "--at-current", "20m", "--ref-model", "vth=2.5,kp=0.8",
+                       "--output-model", "vth=2.52,kp=0.8", "--series", "E96")
     assert code == 0
     tail = out.strip().split("CAUTIONS", 1)
     assert len(tail) == 2 and "licensed practice" in tail[1] and "Spirito" in tail[1]
@@ -58,8 +58,8 @@ def test_text_report_ends_with_the_cautions(capsys):
 
 
 def test_match_from_the_library_equals_brute_force(capsys, bag_library):
-    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--current", "50m",
-                       "--current-max", "0.2", "--size", "2", "--json")
+    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--at-current", "50m",
+                       "--at-current-max", "0.2", "--outputs", "1", "--json")
     assert code == 0
     data = json.loads(out)
     with Library.open(bag_library) as lib:
@@ -67,14 +67,14 @@ def test_match_from_the_library_equals_brute_force(capsys, bag_library):
     # outside check: exhaustive search over every pair
     expected = brute_force_pairs(parts, current_grid(0.05, 0.2))
     assert [s["worst_error"] for s in data["sets"]] == pytest.approx(expected, rel=1e-12)
-    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--current", "50m", "--size", "4",
-                       "--count", "2")
+    code, out, _ = run(capsys, "design", "match", "--library", str(bag_library), "--at-current", "50m", "--outputs", "3",
+                       "--sets", "2")
     assert code == 0 and out.count("ref grow-rack/") == 2
 
 
 def test_sink_picks_a_set_saves_it_and_reserves_the_parts(capsys, bag_library, tmp_path):
     netlist = tmp_path / "sink.cir"
-    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--at-current", "0.3",
                        "--outputs", "3", "--load-voltage", "6", "--save", "--json", "--spice", str(netlist))
     assert code == 0
     data = json.loads(out)
@@ -89,8 +89,8 @@ def test_sink_picks_a_set_saves_it_and_reserves_the_parts(capsys, bag_library, t
     # the same parts again: not in stock any more, one clear error, nothing saved
     ref = data["ref"]
     outs = ",".join(o["part"] for o in data["outputs"])
-    code, out, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
-                         "--ref", ref, "--out", outs, "--save")
+    code, out, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--at-current", "0.3",
+                         "--ref", ref, "--outputs-from", outs, "--save")
     # who took it, in the words an engineer at another bench needs
     assert code != 0 and f"was reserved by design {data['design_id']} at " in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
     with Library.open(bag_library) as lib:
@@ -98,7 +98,7 @@ def test_sink_picks_a_set_saves_it_and_reserves_the_parts(capsys, bag_library, t
 
 
 def test_sink_with_a_named_reference_picks_its_closest_outputs(capsys, bag_library):
-    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current", "0.3",
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--at-current", "0.3",
                        "--ref", "Q05", "--outputs", "2", "--json")
     assert code == 0
     data = json.loads(out)
@@ -114,7 +114,7 @@ def test_sink_with_a_named_reference_picks_its_closest_outputs(capsys, bag_libra
 
 
 def test_bin_counts_and_save(capsys, bag_library):
-    code, out, _ = run(capsys, "design", "bin", "--library", str(bag_library), "--current", "0.1", "--width", "0.05",
+    code, out, _ = run(capsys, "design", "bin", "--library", str(bag_library), "--at-current", "0.1", "--width", "0.05",
                        "--save", "--json")
     assert code == 0
     data = json.loads(out)
@@ -126,8 +126,8 @@ def test_bin_counts_and_save(capsys, bag_library):
 
 @pytest.mark.parametrize("argv,needle", [
     (["--supply", "12", "--ref-model", "vth=2.5,kp=0.8"], "required"),
-    (["--supply", "12", "--current", "0.02", "--resistor", "100", "--ref-model", "vth=2.5,kp=0.8"], "not allowed"),
-    (["--supply", "12", "--current", "abc", "--ref-model", "vth=2.5,kp=0.8"], "argument --current: 'abc' is not a quantity"),
+    (["--supply", "12", "--at-current", "0.02", "--resistor", "100", "--ref-model", "vth=2.5,kp=0.8"], "not allowed"),
+    (["--supply", "12", "--at-current", "abc", "--ref-model", "vth=2.5,kp=0.8"], "argument --at-current: 'abc' is not a quantity"),
 ])
 def test_usage_errors_exit_before_doing_anything(capsys, argv, needle):
     with pytest.raises(SystemExit) as info:
@@ -137,14 +137,14 @@ def test_usage_errors_exit_before_doing_anything(capsys, argv, needle):
 
 
 @pytest.mark.parametrize("argv,needle", [
-    (["--supply", "12", "--current", "0.02"], "name a reference"),
-    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5"], "KP"),
-    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8,bogus=1"], "expected key=value"),
-    (["--supply", "1", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8"], "cannot drive"),
-    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--save"], "library"),
+    (["--supply", "12", "--at-current", "0.02"], "name a reference"),
+    (["--supply", "12", "--at-current", "0.02", "--ref-model", "vth=2.5"], "KP"),
+    (["--supply", "12", "--at-current", "0.02", "--ref-model", "vth=2.5,kp=0.8,bogus=1"], "expected key=value"),
+    (["--supply", "1", "--at-current", "0.02", "--ref-model", "vth=2.5,kp=0.8"], "cannot drive"),
+    (["--supply", "12", "--at-current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--save"], "library"),
     # a NaN reached the root solver as a traceback
     (["--supply", "12", "--resistor", "1k", "--ref-model", "vth=nan,gm=0.5"], "finite"),
-    (["--supply", "12", "--current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--out-model", "vth=2.5,kp=inf"],
+    (["--supply", "12", "--at-current", "0.02", "--ref-model", "vth=2.5,kp=0.8", "--output-model", "vth=2.5,kp=inf"],
      "finite"),
 ])
 def test_bad_requests_give_one_line_and_write_nothing(capsys, tmp_path, monkeypatch, argv, needle):
@@ -159,7 +159,7 @@ def test_bad_requests_give_one_line_and_write_nothing(capsys, tmp_path, monkeypa
 def test_a_p_channel_part_is_refused_for_the_sink(capsys, bag_library):
     with Library.open(bag_library) as lib:
         lib.add_part("P1", lot="grow-rack", polarity="P", params=DeviceParams("square", 2.0, kp=0.5))
-    code, _, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "12", "--current", "0.1",
+    code, _, err = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "12", "--at-current", "0.1",
                        "--ref", "P1")
     assert code == 2 and "N-channel" in err
 
@@ -173,7 +173,7 @@ def test_the_cli_netlist_of_a_library_design_agrees_with_ngspice(capsys, bag_lib
     from benchlab.design.spice import parse_ngspice_print
 
     netlist = tmp_path / "sink.cir"
-    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current",
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--at-current",
                        "0.3", "--outputs", "3", "--load-voltage", "6", "--mismatch-target", "0.02", "--json",
                        "--spice", str(netlist))
     assert code == 0
@@ -194,7 +194,7 @@ def test_export_spice_writes_the_netlist_of_a_recorded_design(capsys, bag_librar
 
     from benchlab.design.spice import parse_ngspice_print
 
-    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--current",
+    code, out, _ = run(capsys, "design", "sink", "--library", str(bag_library), "--supply", "24", "--at-current",
                        "0.3", "--outputs", "2", "--load-voltage", "6", "--degeneration", "1", "--save", "--json")
     data = json.loads(out)
     netlist = tmp_path / "again.cir"
@@ -224,13 +224,13 @@ def test_a_design_beyond_the_fitted_current_range_says_so(capsys, tmp_path):
             with lib.write():
                 lib.insert_fit(part.id, source="fit", params=DeviceParams("theta", vth, kp=1.0, theta=0.1),
                                result={"window": {"i_min": 1e-5, "i_max": 0.1}})
-    argv = ["design", "sink", "--library", str(path), "--supply", "24", "--ref", "Q01", "--out", "Q02",
+    argv = ["design", "sink", "--library", str(path), "--supply", "24", "--ref", "Q01", "--outputs-from", "Q02",
             "--load-voltage", "6", "--json"]
-    code, out, _ = run(capsys, *argv, "--current", "0.3")
+    code, out, _ = run(capsys, *argv, "--at-current", "0.3")
     cautions = json.loads(out)["cautions"]
     assert code == 0
     outside = [c for c in cautions if c.startswith("Outside the measured range")]
     assert len(outside) == 1 and "grow-rack/Q01" in outside[0] and "grow-rack/Q02" in outside[0]
     assert "100 mA" in outside[0] and "licensed practice" in cautions[-1]
-    code, out, _ = run(capsys, *argv, "--current", "0.02")
+    code, out, _ = run(capsys, *argv, "--at-current", "0.02")
     assert code == 0 and not any("measured range" in c for c in json.loads(out)["cautions"])

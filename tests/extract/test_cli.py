@@ -111,7 +111,7 @@ def test_bad_option_values_rejected(tmp_path, capsys):
         main(["fit", str(folder), "--bootstrap", "x"])
     capsys.readouterr()
     # the temperature is refused in the unit the user typed, before anything is read or written
-    assert main(["fit", str(folder), "--temperature", "-500", "--save"]) == 2
+    assert main(["fit", str(folder), "--ambient", "-500", "--save"]) == 2
     err = capsys.readouterr().err
     assert "-500 degC is not a bench temperature" in err and err.count("\n") == 1
     assert json.loads((folder / "Q01.json").read_text())["fits"] == []
@@ -185,7 +185,7 @@ def test_session_ambient_sets_the_fit_temperature(tmp_path, capsys):
     (folder / "session.json").write_text(json.dumps(meta))
     assert main(["fit", str(folder / "Q01.json"), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["params"]["temperature_k"] == pytest.approx(308.15)
-    assert main(["fit", str(folder), "--json", "--temperature", "20"]) == 0
+    assert main(["fit", str(folder), "--json", "--ambient", "20"]) == 0
     rows = [json.loads(line) for line in capsys.readouterr().out.strip().splitlines()]
     assert all(row["params"]["temperature_k"] == pytest.approx(293.15) for row in rows)
 

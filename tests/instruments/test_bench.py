@@ -180,11 +180,10 @@ def test_cli_bench_help_and_profiles(capsys):
     with pytest.raises(SystemExit):
         cli.main(["bench", "check", "--help"])
     text = capsys.readouterr().out
-    assert "No output is ever enabled" in text and "--sim" in text and "--fixture" in text
+    assert "No output is ever enabled" in text and "--sim" in text and "--sim-fixture" in text
     assert cli.main(["bench", "profiles", "--json"]) == 0
-    listing = json.loads(capsys.readouterr().out)
-    assert {entry["name"] for entry in listing["profiles"]} >= {"generic-scpi-supply", "generic-scpi-meter",
-                                                                "generic-scpi-smu"}
+    listing = [json.loads(line) for line in capsys.readouterr().out.splitlines()]  # one object per line
+    assert {entry["name"] for entry in listing} >= {"generic-scpi-supply", "generic-scpi-meter", "generic-scpi-smu"}
 
 
 LONG_FORM_SUPPLY = """\

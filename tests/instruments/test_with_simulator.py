@@ -36,7 +36,7 @@ def _config(bench, fixture="resistor"):
 
 @pytest.mark.parametrize("fixture", ["resistor", "smu"])
 def test_cli_check_on_the_simulator(fixture, capsys):
-    assert cli.main(["bench", "check", "--sim", "--fixture", fixture, "--json"]) == 0
+    assert cli.main(["bench", "check", "--sim", "--sim-fixture", fixture, "--json"]) == 0
     report = json.loads(capsys.readouterr().out)
     assert report["ok"] is True
     identities = [check["identity"] for check in report["instruments"]]

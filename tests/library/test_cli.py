@@ -49,14 +49,16 @@ def test_parts_commands(capsys, library_target):
     # a NaN or infinity was stored as null and then every later listing of the library was a traceback
     for bad in (["--vth", "nan", "--kp", "0.5"], ["--vth", "3", "--kp", "inf"], ["--vth", "3", "--kp", "1",
                                                                              "--theta", "nan"]):
-        code, _, err = run(capsys, "parts", "add", "Q09", *bad, "--library", db)
-        assert code == 2 and "finite" in err and len(err.strip().splitlines()) == 1
+        with pytest.raises(SystemExit) as stop:  # refused by the option's quantity type, before the library opens
+            main(["parts", "add", "Q09", *bad, "--library", db])
+        err = capsys.readouterr().err
+        assert stop.value.code == 2 and "finite" in err and len(err.strip().splitlines()) == 1
     code, out, err = run(capsys, "parts", "list", "--library", db)
     assert code == 0 and "Q09" not in out and "Traceback" not in err
 
     assert run(capsys, "parts", "reject", "Q08", "--reason", "bent leg", "--library", db)[0] == 0
     code, out, _ = run(capsys, "parts", "list", "--state", "rejected", "--json", "--library", db)
-    listed = json.loads(out)
+    listed = [json.loads(line) for line in out.splitlines()]  # one object per line
     assert [(p["label"], p["reason"]) for p in listed] == [("Q08", "bent leg")]
     assert run(capsys, "parts", "state", "demo-bag/Q08", "in_stock", "--library", db)[0] == 0
     code, out, _ = run(capsys, "parts", "list", "--lot", "demo-bag", "--library", db)

@@ -127,7 +127,7 @@ def test_thermal_history_follows_the_virtual_clock_not_the_wall(make_bench, rm):
 def _start_cli(tmp_path, *extra):
     log_path = tmp_path / "cli.jsonl"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "benchlab", "sim", "--port", "0", "--time-scale", "0", "--log", str(log_path),
+        [sys.executable, "-m", "benchlab", "sim", "--port", "0", "--sim-time-scale", "0", "--sim-log", str(log_path),
          *extra],
         cwd=REPO, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
     )
@@ -137,7 +137,7 @@ def _start_cli(tmp_path, *extra):
 
 @pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGINT])
 def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum):
-    proc, log_path, resources = _start_cli(tmp_path, "--fixture", "smu", "--seed", "5")
+    proc, log_path, resources = _start_cli(tmp_path, "--sim-fixture", "smu", "--sim-seed", "5")
     try:
         assert set(resources) == {"supply", "meter", "smu"}
         smu = open_client(rm, resources["smu"])
@@ -156,8 +156,8 @@ def test_cli_serves_until_signal_and_log_proves_output_off(tmp_path, rm, signum)
 
 def test_cli_fault_and_resistor_options_reach_the_bench(tmp_path, rm):
     # the options of `benchlab sim` are not only help text: an injected error and the nominal resistor take effect
-    proc, log_path, resources = _start_cli(tmp_path, "--fault", "error@supply=OUTP/-241", "--resistor", "100",
-                                           "--bag-size", "3")
+    proc, log_path, resources = _start_cli(tmp_path, "--sim-fault", "error@supply=OUTP/-241", "--sim-resistor",
+                                           "100", "--sim-bag-size", "3")
     try:
         supply = open_client(rm, resources["supply"])
         supply.write("CURR 0.1;VOLT 5;OUTP ON")
@@ -177,7 +177,7 @@ def test_cli_fault_and_resistor_options_reach_the_bench(tmp_path, rm):
 
 
 def test_cli_bad_fault_is_one_line_error():
-    run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--fault", "explode=1"], cwd=REPO,
+    run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--sim-fault", "explode=1"], cwd=REPO,
                          capture_output=True, text=True, timeout=60)
     assert run.returncode == 2
     assert run.stderr.strip().startswith("benchlab: error: fault 'explode=1'")
@@ -185,9 +185,10 @@ def test_cli_bad_fault_is_one_line_error():
 
 
 @pytest.mark.parametrize("args, start", [
-    (["--seed", "-1"], "benchlab: error: simulator seed -1"),
-    (["--fault", "error@supply=OUTP/0"], "benchlab: error: fault 'error@supply=OUTP/0'"),
-    (["--bag-size", "0"], "benchlab: error: the bag needs at least one part"),
+    (["--sim-seed", "-1"], "benchlab: error: argument --sim-seed: must be 0 or more"),
+    (["--sim-fault", "error@supply=OUTP/0"], "benchlab: error: fault 'error@supply=OUTP/0'"),
+    (["--sim-bag-size", "0"], "benchlab: error: argument --sim-bag-size: must be 1 or more"),
+    (["--sim-time-scale", "-1"], "benchlab: error: argument --sim-time-scale: must be 0 or more"),
 ])
 def test_cli_bad_settings_are_one_line_errors(args, start):
     run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--port", "0", *args], cwd=REPO,
@@ -201,8 +202,8 @@ def test_cli_bad_settings_are_one_line_errors(args, start):
 def test_cli_help_lists_every_option():
     run = subprocess.run([sys.executable, "-m", "benchlab", "sim", "--help"], cwd=REPO, capture_output=True,
                          text=True, timeout=60)
-    for option in ("--host", "--port", "--fixture", "--seed", "--bag-size", "--time-scale", "--latency",
-                   "--fault", "--log"):
+    for option in ("--host", "--port", "--sim-fixture", "--sim-seed", "--sim-bag-size", "--sim-time-scale",
+                   "--sim-latency", "--sim-resistor", "--sim-fault", "--sim-log"):
         assert option in run.stdout
 
 

@@ -156,9 +156,17 @@ def test_demo_bag_sweep_has_a_dud_and_complete_sessions(tmp_path):
 
 @pytest.mark.parametrize("options,needle", [(["--count", "0"], "--count"), ([], "--count N"),
                                             (["--resume", "nowhere"], "session.json"),
-                                            (["--count", "3", "--lot", "a/b"], "lot name")])
-def test_bad_bag_options_one_error_nothing_written(tmp_path, capsys, options, needle):
-    code = main(["bag", "--sim", "--sessions", str(tmp_path / "s"), *options])
+                                            (["--count", "3", "--lot", "a/b"], "lot name"),
+                                            (["--sim-fixture", "smu", "--count", "1", "--sessions", "s"], "--sim"),
+                                            (["--resume", "s/x", "--lot", "b"], "--lot is kept from the session")])
+def test_bad_bag_options_one_error_nothing_written(tmp_path, capsys, options, needle, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    where = [] if "--resume" in options or "--sessions" in options else ["--sessions", str(tmp_path / "s")]
+    bench = ["--bench", "bench.toml"] if "--sim-fixture" in options else ["--sim"]  # simulator option, real bench
+    try:
+        code = main(["bag", *bench, *where, *options])
+    except SystemExit as stop:  # a usage error (refused by the option's type) is one line too
+        code = stop.code
     assert code == 2 and needle in one_error_line(capsys)
     assert not (tmp_path / "s").exists()
 
