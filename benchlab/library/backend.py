@@ -90,14 +90,14 @@ class Database:
         self.begin_write()
 
     def commit(self) -> None:
-        self.execute("COMMIT")
+        self.execute("COMMIT")  # on PostgreSQL a lost connection here is the LibraryError of execute
 
     def rollback(self) -> None:
         """Roll back the open transaction; a connection already lost has nothing left to roll back."""
         try:
             if self.in_transaction:
                 self.execute("ROLLBACK")
-        except self.errors:
+        except (LibraryError, *self.errors):
             pass
 
     @property
@@ -266,11 +266,25 @@ class PostgresDatabase(Database):
         return cls(connection, shown, psycopg)
 
     def execute(self, sql, params=()):
-        return self.raw.execute(_pg_sql(sql), tuple(params))
+        try:
+            return self.raw.execute(_pg_sql(sql), tuple(params))
+        except self._pg.OperationalError as exc:
+            raise self._lost(exc) from exc
 
     def executemany(self, sql, rows):
-        with self.raw.cursor() as cur:
-            cur.executemany(_pg_sql(sql), [tuple(r) for r in rows])
+        try:
+            with self.raw.cursor() as cur:
+                cur.executemany(_pg_sql(sql), [tuple(r) for r in rows])
+        except self._pg.OperationalError as exc:
+            raise self._lost(exc) from exc
+
+    def _lost(self, exc: BaseException) -> BaseException:
+        # a dropped server or network: one LibraryError (the server rolls back what was not committed);
+        # other operational errors (a lock wait that timed out...) go to the caller as they are
+        if not (self.raw.closed or self.raw.broken):
+            return exc
+        return LibraryError(f"{self.target}: lost the connection to the library ({_first_line(exc)}); nothing of "
+                            f"this change was written, the library is as it was")
 
     def batches(self, sql, size):
         # a server-side cursor (inside the caller's transaction): the rows come over in batches

@@ -156,8 +156,23 @@ def test_connection_lost_mid_import_leaves_the_library_as_it_was(tmp_path, fresh
 
         with pytest.raises(LibraryError, match="lost the connection.*nothing of this change was written"):
             import_sessions(lib, sessions, refit=False, progress=progress)
+        # the same handle used again after the drop: the same one clear error, not a driver traceback
+        with pytest.raises(LibraryError, match="lost the connection"):
+            lib.parts()
     with Library.open(target) as lib:
         assert [p.spec for p in lib.parts(state=None)] == ["earlier/KEEP"]
         # the bench kept its session files: the same import later goes through whole
         assert import_sessions(lib, sessions, refit=False).fitted == 24
         assert len(lib.parts(state=None)) == 25
+
+
+def test_the_python_api_reads_a_shared_library(library_target):
+    from benchlab import api
+
+    with Library.open(library_target) as lib:
+        lib.add_part("Q01", lot="bag", params=DeviceParams("square", vth=2.9, kp=1.1))
+        lib.add_part("Q02", lot="bag", params=DeviceParams("square", vth=3.1, kp=1.0))
+        lib.record_design({"kind": "sink", "supply": 12.0}, ["Q01", "Q02"])
+    table = api.parts(library_target)
+    assert list(table["label"]) == ["Q01", "Q02"] and set(table["state"]) == {"reserved"}
+    assert list(api.designs(library_target)["parts"]) == [2]
