@@ -191,10 +191,6 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
                 candidates = match or candidates
             if candidates:
                 reference = lib.get_part(candidates[0])
-    sets = _design_sets(design) if design else ()
-    if reference is not None:  # the scatter marks the first part of each set as the reference
-        sets = tuple((reference.label, *[x for x in s if x != reference.label]) if reference.label in s else s
-                     for s in sets)
         other_lots = []
         for entry in lib.lots():
             if entry["name"] == lot:
@@ -207,6 +203,10 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
                     if trace is not None:
                         latest[part.label] = trace
             other_lots.append((entry["name"], lot_statistics(members, {k: vgs_at_cc(t) for k, t in latest.items()})))
+    sets = _design_sets(design) if design else ()
+    if reference is not None:  # the scatter marks the first part of each set as the reference
+        sets = tuple((reference.label, *[x for x in s if x != reference.label]) if reference.label in s else s
+                     for s in sets)
     metas = []
     for session_id, path in sessions.items():
         meta = _session_meta(path)
