@@ -165,7 +165,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     if at_current is not None:
         vgs_at, gm_at = vgs_and_gm(model, params, at_current, ut)
         v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current, ut)
-    thresholds = thresholds_batch(vgs, i_d, points, cc_current)
+    threshold_errors: dict = {}
+    thresholds = thresholds_batch(vgs, i_d, points, cc_current, threshold_errors)
     # VGS error of an interpolated point: the readings' own scatter in VGS around that current
     # (model-free, like the threshold itself); with too few readings there, one reading's relative
     # noise over the fitted curve's local log-slope
@@ -235,7 +236,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
                   "theta": sd.get("theta"), "n": sd.get("n"),
                   "gm": gm_sd,
-                  "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd}
+                  "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd,
+                  "vth_sd": _optional(threshold_errors["second_derivative_sqrt"][row])}
         stderr.update(correlations(names, covariance))
         u = used[row]
         window = {"i_min": float(i_d[row][u].min()), "i_max": float(i_d[row][u].max()),

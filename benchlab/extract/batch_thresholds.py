@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from benchlab.extract.second_derivative import second_derivative_batch
 from benchlab.extract.thresholds import PEAK_SIGNIFICANCE
 
 BINS = 60
@@ -208,7 +209,7 @@ def constant_current_stderr_batch(vgs, i_d, valid, current: float) -> np.ndarray
     return np.where(usable, scatter, np.nan)
 
 
-def thresholds_batch(vgs, i_d, valid, cc_current: float) -> dict[str, np.ndarray]:
+def thresholds_batch(vgs, i_d, valid, cc_current: float, errors: dict | None = None) -> dict[str, np.ndarray]:
     """ESR, SD and constant-current thresholds of every row (NaN where a method gives none).
 
     Parameters
@@ -218,8 +219,13 @@ def thresholds_batch(vgs, i_d, valid, cc_current: float) -> dict[str, np.ndarray
     valid : ndarray of bool, shape (B, N)
     cc_current : float
         The constant-current criterion (A).
+    errors : dict, optional
+        Filled with the standard errors (V) of the methods that give one (the second-derivative one).
     """
     valid = np.asarray(valid, dtype=bool)
-    esr, sd = _derivative_thresholds(vgs, i_d, valid)
+    esr, _ = _derivative_thresholds(vgs, i_d, valid)
+    sd, sd_error = second_derivative_batch(vgs, i_d, valid)
+    if errors is not None:  # standard errors of the methods that give one
+        errors["second_derivative_sqrt"] = sd_error
     return {"extrapolation_sqrt_max_slope": esr, "second_derivative_sqrt": sd,
             "constant_current": constant_current_batch(vgs, i_d, valid, cc_current)}

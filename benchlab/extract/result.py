@@ -29,7 +29,7 @@ ALL_FLAGS = (FLAG_FEW_POINTS, FLAG_NARROW_RANGE, FLAG_POOR_FIT, FLAG_NON_MONOTON
              FLAG_POWER_DRIFT, FLAG_AT_BOUND, FLAG_NOT_CONVERGED, FLAG_CC_OUTSIDE, FLAG_AT_CURRENT_OUTSIDE,
              FLAG_UNCERTAIN)
 
-STDERR_KEYS = ("vth", "kp", "theta", "n", "gm", "vth_cc", "vgs_at_current")
+STDERR_KEYS = ("vth", "kp", "theta", "n", "gm", "vth_cc", "vgs_at_current", "vth_sd")
 
 
 def _clean(value):
@@ -70,7 +70,8 @@ class FitResult:
         RMS of the relative residuals (the quantity minimised).
     stderr : dict
         Standard errors of ``vth``, ``kp``, ``theta``, ``n``, ``gm``, ``vth_cc``,
-        ``vgs_at_current`` (None where not applicable).
+        ``vgs_at_current`` and ``vth_sd`` (the second-derivative threshold), None where not
+        applicable; and ``corr_<a>_<b>``, the correlation coefficient of two fitted parameters.
     stderr_method : str
         ``covariance`` (linearised, from the fit) or ``bootstrap/N``.
     flags : tuple of str

@@ -159,7 +159,13 @@ def second_derivative_peak(vgs, y, half_width: int = 2, fits: LocalFits | None =
         standard errors), or lies at the edge of the data (the threshold is not inside the
         measured range, e.g. a sweep that starts above threshold) or there are too few points.
     """
-    fits = fits if fits is not None else local_fits(vgs, y, half_width)
+    if fits is None:
+        # the method on the points themselves (kernel local quadratic, see extract/second_derivative.py)
+        from benchlab.extract.second_derivative import curvature_peak_batch
+
+        x = np.asarray(vgs, float)
+        peak, _ = curvature_peak_batch(x[None, :], np.asarray(y, float)[None, :], np.ones((1, x.size), bool))
+        return None if np.isnan(peak[0]) else float(peak[0])
     centres, curvature = fits.centres, fits.curvature
     if centres.size < 3:
         return None
@@ -257,6 +263,6 @@ def all_thresholds(vgs, i_d, cc_current: float) -> dict[str, float | None]:
     fits = local_fits(vgs, np.sqrt(np.asarray(i_d, dtype=float)))
     return {
         "extrapolation_sqrt_max_slope": max_slope_extrapolation(None, None, fits=fits),
-        "second_derivative_sqrt": second_derivative_peak(None, None, fits=fits),
+        "second_derivative_sqrt": second_derivative_peak(vgs, np.sqrt(np.asarray(i_d, dtype=float))),
         "constant_current": constant_current_threshold(vgs, i_d, cc_current),
     }
