@@ -101,7 +101,9 @@ def _summary(data: ReportData, design: dict | None, stats: dict,
         text = (f"Lot {data.lot}: {stats['parts']} part(s), {stats['good']} good (yield "
                 f"{hp.num(stats['yield'], '.1f', 100.0)} %). "
                 + ("No design is part of this report (benchlab report --design ID adds one)." if design is None
-                   else f"Design {design.get('design_id')} is not a current sink: its parts are marked below."))
+                   else f"Design {design.get('design_id')} is a {design.get('kind') or 'recorded'} design, not a current "
+                        f"sink" + (f": a matched set with worst error {hp.num(design['set'].get('worst_error'), '.3f', 100.0)} %"
+                                   if isinstance(design.get("set"), dict) else "") + "; its parts are marked below."))
         return f'<h2>Summary</h2><div class="summary"><p>{hp.esc(text)}</p></div>', None
     ok, sentence = hp.verdict(design)
     outputs = design.get("outputs") or []
@@ -120,6 +122,23 @@ def _summary(data: ReportData, design: dict | None, stats: dict,
     body.append('<div class="caution"><strong>Cautions</strong><ul>' + "".join(f"<li>{hp.esc(c)}</li>" for c in cautions)
                 + "</ul></div>")
     return '<h2>Summary</h2><div class="summary">' + "\n".join(body) + "</div>", sentence
+
+
+def _part_figures(data: ReportData, figs: _Figures, chosen: list[str], vgs_cc: dict) -> list[str]:
+    out = []
+    by_label = {p.label: p for p in data.parts}
+    for label in chosen:
+        part, trace = by_label.get(label), data.trace_of(label)
+        if part is None:
+            continue
+        role = "reference" if data.design_sets and label == data.design_sets[0][0] else "output"
+        model = part.params.model if part.params else "missing"
+        out.append(figs.add(part_fit_figure(part.spec, trace.vgs if trace else (), trace.id if trace else (),
+                                            part.params, vgs_at_cc=vgs_cc.get(label)),
+                            f"{part.spec} ({role}): measured points and the {model} fit on a log current axis, the "
+                            f"fitted threshold (dashed) and VGS at 250 uA from the data (square); below, the "
+                            f"residuals (measured / fit - 1).", f"curve and fit of {part.label}"))
+    return out
 
 
 def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.PathLike | None = None) -> ReportFiles:
@@ -197,22 +216,12 @@ def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.
                     f"line from {format_si(supply, 'V', 4)}, the crossing solved again here (circle) and the design's "
                     f"recorded point (cross); two separate marks would mean a stale design.",
                     "operating point of the reference part"))
-        body.append("<h2>The design's parts</h2>")
-        by_label = {p.label: p for p in data.parts}
-        for label in chosen:
-            part, trace = by_label.get(label), data.trace_of(label)
-            if part is None:
-                continue
-            role = "reference" if data.design_sets and label == data.design_sets[0][0] else "output"
-            body.append(figs.add(part_fit_figure(part.spec, trace.vgs if trace else (), trace.id if trace else (),
-                                                 part.params, vgs_at_cc=vgs_cc.get(label)),
-                                 f"{part.spec} ({role}): measured points and the {part.params.model if part.params else 'missing'} "
-                                 f"fit on a log current axis, the fitted threshold (dashed) and VGS at 250 uA from "
-                                 f"the data (square); below, the residuals (measured / fit - 1).",
-                                 f"curve and fit of {part.label}"))
     elif design is not None:
-        body.append(f"<h2>Design {hp.esc(design.get('design_id'))}</h2><p>Not a current-sink design; its parts "
-                    "are marked in the figures below.</p>")
+        body.append(f"<h2>Design {hp.esc(design.get('design_id'))}: {hp.esc(design.get('kind') or 'not a sink')}</h2>")
+        body.append(hp.matched_set_section(design))
+    if design is not None and chosen:
+        body.append("<h2>The design's parts</h2>")
+        body += _part_figures(data, figs, chosen, vgs_cc)
     good = [p for p in data.parts if p.state != "rejected"]
     body.append("<h2>The lot</h2>")
     body.append(hp.statistics_table([(data.lot, stats), *data.other_lots]))

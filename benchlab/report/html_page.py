@@ -136,6 +136,24 @@ def design_tables(design: Mapping[str, Any]) -> str:
     return "\n".join(out)
 
 
+def matched_set_section(design: Mapping[str, Any]) -> str:
+    """A recorded matched set (``design match --save``): how it was chosen, and each output's error."""
+    chosen = design.get("set") if isinstance(design.get("set"), Mapping) else None
+    currents = [c for c in design.get("currents") or [] if isinstance(c, (int, float))]
+    span = " .. ".join(format_si(c, "A", 4) for c in (currents[:1] + currents[-1:] if len(currents) > 1 else currents))
+    lines = [f"<p>{esc(design.get('method') or '')}: {esc(design.get('objective') or '')}"
+             + (f" at {esc(span)}" if span else "") + ".</p>"]
+    if chosen:
+        rows = [(chosen.get("ref"), "reference", f"VGS {chosen['vgs_ref']:.4f} V" if isinstance(
+                 chosen.get("vgs_ref"), (int, float)) else "-")]
+        rows += [(name, "output", f"{error * 100:+.3f} %") for name, error in zip(chosen.get("outputs") or [],
+                                                                                  chosen.get("errors") or [])]
+        lines.append(table(("part", "role", "VGS of the reference / error vs reference"), rows,
+                           caption=f"The matched set (worst error {num(chosen.get('worst_error'), '.3f', 100.0)} %)",
+                           text_columns=2))
+    return "\n".join(lines)
+
+
 def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str], gm_current: float | None) -> str:
     """The parts of the lot, one row each (rows from :func:`benchlab.report.data.part_row`), chosen highlighted."""
     chosen = set(chosen)

@@ -141,3 +141,19 @@ def test_duds_are_drawn_apart_and_do_not_stretch_the_axes():
     main_ax, dud_ax = fig.axes
     assert main_ax.get_xlim()[1] < 4 and main_ax.get_ylim()[0] > 1e-6
     assert [line.get_label() for line in dud_ax.get_lines()] == ["Q2"] and dud_ax.get_xlim()[1] >= 9.8
+
+
+def test_a_matched_set_is_reported_with_its_errors(recorded, capsys, tmp_path):
+    root, lib, _ = recorded
+    code, out = _run(capsys, ["design", "match", "--library", lib, "--at-current", "20m", "--outputs", "1",
+                              "--lot", LOT, "--save", "--json"])
+    assert code == 0, out.err
+    match = json.loads(out.out)
+    code, out = _run(capsys, ["report", "--library", lib, "--lot", LOT, "--design", str(match["design_id"]),
+                              "--out", str(tmp_path / "m")])
+    assert code == 0, out.err
+    page = (tmp_path / "m" / "index.html").read_text(encoding="utf-8")
+    best = match["sets"][0]
+    assert f"<td class=\"t\">{best['outputs'][0]}</td><td class=\"t\">output</td><td>{best['errors'][0] * 100:+.3f} %" \
+        in page
+    assert f"worst error {best['worst_error'] * 100:.3f} %" in page and page.count("<figure") == 2 + 3
