@@ -96,7 +96,7 @@ def _already_imported(lib: "Library", lot: str, label: str, session_id: str) -> 
     return row is not None
 
 
-def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
+def _write_sweep(lib: "Library", item: PreparedSweep, points: list) -> ImportedSweep:
     conn = lib.connection
     sweep, session = item.sweep, item.session
     if _already_imported(lib, item.lot, sweep.label, session.id):
@@ -118,9 +118,8 @@ def _write_sweep(lib: "Library", item: PreparedSweep) -> ImportedSweep:
          sweep.sidecar.get("started"), int(sweep.complete), sweep.classification, sweep.reason or None,
          to_json(sidecar), utc_now()))
     sweep_id = new_id
-    conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
-                     [(sweep_id, p, finite_or_none(v), finite_or_none(i), s)
-                      for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status)])
+    points.extend((sweep_id, p, finite_or_none(v), finite_or_none(i), s)
+                  for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status))
     if item.is_dud:
         reason = f"{sweep.classification}: {sweep.reason}" if sweep.reason else str(sweep.classification)
         if state != "rejected":
@@ -182,13 +181,15 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
             target_lot = lot or sweep.lot or session.lot or "default"
             prepared.append(prepare_sweep(session, sweep, target_lot, refit, fit_function))
     results = []
-    with lib.write():
+    points: list[tuple] = []
+    with lib.write() as conn:
         for item in prepared:
-            results.append(_write_sweep(lib, item))
+            results.append(_write_sweep(lib, item, points))
             if progress is not None:
                 progress(item.sweep.label)
+        # every sweep's points in one batch, same transaction (one round trip's worth on PostgreSQL, not one a part)
+        conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)", points)
     return ImportSummary(sessions=tuple(str(s.path) for s in sessions), sweeps=tuple(results))
-
 
 
 def import_session(lib: "Library", path: str | os.PathLike, *, refit: bool = True, lot: str | None = None,
