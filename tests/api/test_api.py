@@ -128,3 +128,11 @@ def test_library_handle_is_read_only_by_default(bench_data, tmp_path):
     with pytest.raises(LibraryError):
         api.parts(tmp_path / "nowhere.db")
     assert not (tmp_path / "nowhere.db").exists()  # reading never creates a library
+
+
+def test_sweeps_of_a_plain_csv_are_the_points_the_fitter_reads(tmp_path):
+    path = tmp_path / "bench-notes.csv"  # somebody else's CSV: just vgs and id
+    path.write_text("vgs,id\n2.5,1e-5\n2.7,1e-4\n2.9,1e-3\n3.1,5e-3\n3.3,1.2e-2\n", encoding="utf-8")
+    frame = api.sweeps(path)
+    assert list(frame.part.unique()) == ["bench-notes"] and list(frame.point) == [0, 1, 2, 3, 4]
+    assert list(frame.vgs) == [2.5, 2.7, 2.9, 3.1, 3.3] and list(frame.id) == [1e-5, 1e-4, 1e-3, 5e-3, 1.2e-2]
