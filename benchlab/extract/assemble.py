@@ -14,7 +14,8 @@ import numpy as np
 from benchlab.errors import FitError
 from benchlab.extract import diagnostics
 from benchlab.extract.batch_thresholds import constant_current_stderr_batch, thresholds_batch
-from benchlab.extract.engine import PARAM_NAMES, BatchFit, _current_and_jacobian, model_current, solve_batch
+from benchlab.extract.engine import (PARAM_NAMES, BatchFit, _current_and_jacobian, lower_bounds, model_current,
+                                     solve_batch)
 from benchlab.extract.result import (FLAG_AT_CURRENT_OUTSIDE, FLAG_CC_OUTSIDE, FLAG_NON_MONOTONIC,
                                      FLAG_NOT_CONVERGED, FLAG_UNCERTAIN, FITTER_VERSION, FitResult)
 from benchlab.models import T_NOMINAL_K, DeviceParams, overdrive_at_current, thermal_voltage
@@ -115,6 +116,18 @@ def correlations(names, covariance) -> dict[str, float]:
     return out
 
 
+def _sensitivities(model, vgs, i_d, params, ut):
+    # gm / ID of the fitted curve at each VGS (every model's first parameter is the threshold), and
+    # the Jacobian of the relative residual fitted / measured - 1
+    current, columns = _current_and_jacobian(model, vgs, params, ut)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        gm_over_id = np.where(current > 0, -columns[0] / np.where(current > 0, current, 1.0), 0.0)
+    # a parameter resting on its bound (THETA = 0, n = 1) cannot move further: its column would let
+    # the regression bend it past the bound (negative THETA looks just like heating)
+    free = params > lower_bounds(model) + 1e-12
+    return gm_over_id, [c / i_d * free[:, j:j + 1] for j, c in enumerate(columns)]
+
+
 def _optional(value) -> float | None:
     return float(value) if value is not None and np.isfinite(value) else None
 
@@ -178,11 +191,12 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     i_lo = np.where(points, i_d, np.inf).min(axis=1)
     i_hi = np.where(points, i_d, -np.inf).max(axis=1)
     found = [[] for _ in sweeps]
+    gm_over_id, jacobian = _sensitivities(model, vgs, i_d, params, ut)
     order_v, order_i, order_valid = _rising_pass_in_order(sweeps)
     for checks in (diagnostics.window_checks(model, vgs, i_d, used, vth), diagnostics.fit_quality(rms_rel),
                    diagnostics.monotonic_check(order_v, order_i, order_valid),
                    diagnostics.bound_checks(model, theta, slope_n),
-                   diagnostics.power_drift_check(vgs, i_d, used, rel)):
+                   diagnostics.power_drift_check(vgs, i_d, used, rel, gm_over_id, temperature_k, jacobian)):
         for row, items in enumerate(checks):
             found[row] += items
     results = []

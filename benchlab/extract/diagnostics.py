@@ -31,9 +31,6 @@ MIN_NOISE_SAMPLES = 5
 HYSTERESIS_LIMIT_V = 5e-3
 DRIFT_MIN_POWER_W = 0.05
 DRIFT_T_LIMIT = 4.0
-# and the trend must be big enough to matter: 0.5 % of the current, about what 1 K of heating does
-# to a part at 1 V overdrive (2 x 2.5 mV/K / 1 V); smaller trends are model detail, not heat
-DRIFT_MIN_EFFECT = 0.005
 
 
 def _rows(count):
@@ -165,43 +162,69 @@ def hysteresis_check(shift_v: float | None) -> list[tuple[str, str]]:
                               f"likely {why}")]
 
 
-def power_drift_check(vgs, i_d, mask, relative_residuals) -> list[list[tuple[str, str]]]:
-    """Residuals that trend with dissipated power VGS*ID: the fitted curve cannot follow a heating part.
+# the part's own temperature sensitivity (1/I) dI/dT = (gm/I) |dVth/dT| - M/T: threshold falls by
+# about 5 mV/K (datasheets span -2 to -8 mV/K, common practice) and KP falls as T^-1.5 (the SPICE
+# level-1 mobility exponent); near 1 V overdrive the two nearly cancel
+VTH_TEMPCO_V_PER_K = 5e-3
+MOBILITY_EXPONENT = 1.5
+DRIFT_MIN_KELVIN = 2.0  # the heating the residuals imply at the top power must reach this
+DRIFT_MIN_R2 = 0.8  # and the heating law must explain most of what the fit leaves (a mismatch has its own shape)
 
-    Compares the mean relative residual of the fitted points in the top third of power against
-    the middle third (Welch t statistic); only judged when a sweep dissipates at least
-    :data:`DRIFT_MIN_POWER_W`, since without power there is no heating, and only flagged when
-    the difference also exceeds :data:`DRIFT_MIN_EFFECT` (a quiet sweep makes a tiny model
-    mismatch statistically significant without any heat). Rows of ``(B, N)`` arrays.
+
+def power_drift_check(vgs, i_d, mask, relative_residuals, gm_over_id=None,
+                      temperature_k: float = 300.15, jacobian=None) -> list[list[tuple[str, str]]]:
+    """Residuals that follow what heating does to this part: the fitted curve cannot follow a warming part.
+
+    A part warmed by dT = Rth P (P = VGS ID) carries ID (1 + s dT), with s = (1/I) dI/dT from the fitted
+    model at each point (``gm_over_id`` x :data:`VTH_TEMPCO_V_PER_K` - :data:`MOBILITY_EXPONENT` / T;
+    positive below the zero-temperature-coefficient overdrive, negative above). The relative residuals
+    r = fitted / measured - 1 are regressed on x = s P: heating makes r = -Rth x. Flagged when the
+    implied Rth is positive by more than :data:`DRIFT_T_LIMIT` standard errors, warms the part by at
+    least :data:`DRIFT_MIN_KELVIN` at the top power, the law explains at least :data:`DRIFT_MIN_R2` of
+    the residuals' variance (a model mismatch has its own shape), and the sweep dissipates at least
+    :data:`DRIFT_MIN_POWER_W`. Rows of ``(B, N)`` arrays.
     """
     mask = np.asarray(mask, bool)
-    power = np.where(mask, np.asarray(vgs, float) * np.asarray(i_d, float), -np.inf)
-    r = np.asarray(relative_residuals, float)
+    vgs, i_d = np.asarray(vgs, float), np.asarray(i_d, float)
+    r = np.where(mask, np.asarray(relative_residuals, float), 0.0)
     found = _rows(mask.shape[0])
+    power = np.where(mask, vgs * i_d, 0.0)
+    if gm_over_id is None:  # without a model: a square law's 2 / Vov is not known; use the power alone
+        sensitivity = np.ones_like(power)
+    else:
+        sensitivity = np.asarray(gm_over_id, float) * VTH_TEMPCO_V_PER_K - MOBILITY_EXPONENT / temperature_k
+    x = np.where(mask, sensitivity * power, 0.0)
     count = mask.sum(axis=1)
-    rank = np.argsort(np.argsort(np.where(mask, power, np.inf), axis=1, kind="stable"), axis=1)
-    third = (count // 3)[:, None]
-    middle = mask & (rank >= third) & (rank < 2 * third)
-    top = mask & (rank >= count[:, None] - third)
-
-    def mean_var(sel):
-        k = sel.sum(axis=1)
-        mean = np.where(sel, r, 0.0).sum(axis=1) / np.maximum(k, 1)
-        var = np.where(sel, (r - mean[:, None]) ** 2, 0.0).sum(axis=1) / np.maximum(k - 1, 1)
-        return mean, var, np.maximum(k, 1)
-
-    m_mid, v_mid, k_mid = mean_var(middle)
-    m_top, v_top, k_top = mean_var(top)
-    spread = np.sqrt(v_mid / k_mid + v_top / k_top)
+    # design [1 (or the Jacobian), x]: x's coefficient is what the fitted parameters cannot take up
+    others = [np.where(mask, 1.0, 0.0)] if jacobian is None else [np.where(mask, c, 0.0) for c in jacobian]
+    design = np.stack(others + [x], axis=-1)
+    scale = np.sqrt(np.einsum("bnp,bnp->bp", design, design))
+    scale = np.where(scale > 0, scale, 1.0)
+    design = design / scale[:, None, :]
+    n_par = design.shape[-1]
+    normal = np.einsum("bnp,bnq->bpq", design, design) + 1e-12 * np.eye(n_par)
+    inverse = np.linalg.pinv(normal)
+    coef = np.einsum("bpq,bnq,bn->bp", inverse, design, r)
+    rss = np.maximum((r * r).sum(axis=1) - np.einsum("bp,bnp,bn->b", coef, design, r), 0.0)
+    # the residual sum without x: r projected on the other columns alone
+    d0 = design[..., :-1]
+    inv0 = np.linalg.pinv(np.einsum("bnp,bnq->bpq", d0, d0) + 1e-12 * np.eye(n_par - 1))
+    c0 = np.einsum("bpq,bnq,bn->bp", inv0, d0, r)
+    rss0 = np.maximum((r * r).sum(axis=1) - np.einsum("bp,bnp,bn->b", c0, d0, r), 0.0)
     with np.errstate(all="ignore"):
-        t_stat = np.where(spread > 0, (m_top - m_mid) / spread, 0.0)
+        slope = coef[:, -1] / scale[:, -1]
+        se = np.sqrt(rss / np.maximum(count - n_par, 1) * np.abs(inverse[:, -1, -1])) / scale[:, -1]
+        t_stat = np.where(se > 0, -slope / se, 0.0)
+        r2 = np.where(rss0 > 0, 1.0 - rss / rss0, 0.0)  # share of what is left that heating explains
+    rth = -slope
     p_max = power.max(axis=1)
-    judged = (count >= 9) & (p_max >= DRIFT_MIN_POWER_W)
-    big = np.abs(m_top - m_mid) > DRIFT_MIN_EFFECT
-    for row in np.flatnonzero(judged & big & (np.abs(t_stat) > DRIFT_T_LIMIT)):
-        # residuals are fitted / measured - 1: negative at the top means the part carries more
-        sign = "less" if t_stat[row] > 0 else "more"
-        found[row].append((FLAG_POWER_DRIFT, f"at the highest dissipation (up to {p_max[row]:.3g} W) the part "
-                                             f"carries {sign} current than the fitted curve (t={t_stat[row]:.1f}): "
-                                             "likely self-heating; use a heat sink or a pulsed sweep"))
+    judged = (count >= 9) & (p_max >= DRIFT_MIN_POWER_W) & np.isfinite(t_stat)
+    warm = rth * p_max >= DRIFT_MIN_KELVIN
+    for row in np.flatnonzero(judged & warm & (t_stat > DRIFT_T_LIMIT) & (r2 >= DRIFT_MIN_R2)):
+        found[row].append((FLAG_POWER_DRIFT, f"the residuals follow self-heating at the highest dissipation: at least "
+                                             f"about {rth[row]:.3g} K/W, +{rth[row] * p_max[row]:.1f} K at {p_max[row]:.3g} W "
+                                             f"(what the fitted parameters could not take up; t={t_stat[row]:.1f}, "
+                                             f"it explains {100 * r2[row]:.0f} % of the residuals); where the part "
+                                             "is below its zero-temperature-coefficient point it carries more current "
+                                             "than the fitted curve; use a heat sink or a pulsed sweep"))
     return found

@@ -136,7 +136,8 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     below_left = np.where(usable & ~above & (idx < peak[:, None]), idx, -1).max(axis=1)
     below_right = np.where(usable & ~above & (idx > peak[:, None]), idx, width).min(axis=1)
     run = above & (idx > below_left[:, None]) & (idx < below_right[:, None])
-    weight = np.where(run, curvature - half, 0.0)
+    with np.errstate(invalid="ignore"):
+        weight = np.where(run, curvature - half, 0.0)
     total = np.maximum(weight.sum(axis=1), 1e-300)
     refined = (weight * np.where(run, x_s, 0.0)).sum(axis=1) / total
     # standard error: each window's curvature noise moves the centroid by (x - centroid) / total.

@@ -30,7 +30,7 @@ def test_self_heating_drift_flagged_on_a_hot_sweep():
     assert "parameter_at_bound" in result.flags and result.theta == 0.0
     # a hotter part has a lower threshold, so at the top it carries MORE current than the curve
     # fitted to the cooler points (threshold falls with temperature: the -2 to -8 mV/K datasheet range)
-    note = next(n for n in result.notes if "dissipation" in n)
+    note = next(n for n in result.notes if "self-heating" in n)
     assert "carries more current" in note
 
 
