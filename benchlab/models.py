@@ -215,3 +215,21 @@ def solve_resistor_line(params: DeviceParams, supply_v: float, resistor_ohm: flo
     i_d = brentq(mismatch, lo, i_max, xtol=tol * 1e-3, rtol=8.9e-16, maxiter=500)
     return float(params.vgs_at(i_d)), float(i_d)
 
+
+def ztc_crossing(cold: "DeviceParams", hot: "DeviceParams", search_v: float = 12.0) -> tuple[float, float] | None:
+    """VGS and ID (V, A) where the fitted curves of a cold and a hot part cross above threshold, or None.
+
+    Below the crossing the hot curve carries more current (threshold term), above it less (mobility term):
+    the zero-temperature-coefficient point (Spirito et al., MIEL 2002). Searched up to ``search_v`` above threshold.
+    """
+    from scipy.optimize import brentq
+
+    low = max(cold.vth, hot.vth) + 1e-3
+    grid = np.linspace(low, low + search_v, 1201)
+    diff = np.asarray(hot.current(grid), dtype=float) - np.asarray(cold.current(grid), dtype=float)
+    sign_change = np.nonzero((diff[:-1] > 0) & (diff[1:] <= 0))[0]
+    if sign_change.size == 0:
+        return None
+    k = int(sign_change[0])
+    vgs = brentq(lambda v: float(hot.current(v)) - float(cold.current(v)), grid[k], grid[k + 1], xtol=1e-9)
+    return float(vgs), float(cold.current(vgs))

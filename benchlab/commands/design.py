@@ -65,12 +65,16 @@ def register(subparsers) -> None:
     sink.add_argument("--tolerance", type=quantity("%", "nonnegative"), metavar="FRACTION",
                       help="resistor tolerance (default: 5 %% for E24, 1 %% for E96 ...)")
     sink.add_argument("--vth-tempco", type=quantity("V/K", "any"), default=-5e-3, metavar="V/K",
-                      help="threshold temperature coefficient for the drift figures (default: %(default)s)")
+                      help="threshold temperature coefficient of parts without a measured one (default: %(default)s; "
+                           "parts measured with 'benchlab thermal tempco' use their own)")
     sink.add_argument("--compliance-margin", type=quantity("V", "nonnegative"), default=0.2, metavar="V",
                       help="margin added to VGS - Vth in the compliance voltage (default: %(default)s)")
     sink.add_argument("--thermal-resistance", type=quantity("K/W"), metavar="K/W",
-                      help="junction-to-ambient thermal resistance of each part, heat sink included: also solve the "
-                           "self-heated steady state (or report thermal runaway)")
+                      help="thermal resistance of each part without a measured one (default: the 62 K/W package "
+                           "assumption): also solve the self-heated steady state (or report thermal runaway)")
+    sink.add_argument("--heatsink", type=quantity("K/W", "nonnegative"), default=0.0, metavar="K/W",
+                      help="heat sink added to every part's own thermal resistance; solves the self-heated steady "
+                           "state with each part's Rth plus this")
     sink.add_argument("--spice", metavar="FILE", help="also write an ngspice netlist of the design (.op) to FILE")
     sink.add_argument("--save", action="store_true",
                       help="record the design in the library and reserve its parts")
@@ -89,6 +93,9 @@ def register(subparsers) -> None:
     match.add_argument("--sets", type=counting_number, metavar="K",
                        help="how many sets (default: as many as possible)")
     match.add_argument("--polarity", choices=POLARITIES, default="N", help="which parts (default: %(default)s)")
+    match.add_argument("--warm", type=quantity("", "nonnegative"), default=0.0, metavar="K",
+                       help="tempco as a criterion: also match with every part this many kelvin warmer, each with "
+                            "its own measured threshold coefficient (default 0: off)")
     match.add_argument("--save", action="store_true",
                        help="record the best set as a design and reserve its parts (when another engineer takes one "
                             "of them first, the search runs again on what is left)")
@@ -113,7 +120,8 @@ def _sink(args) -> int:
                           source_resistor_ohm=args.degeneration or 0.0, mismatch_target=args.mismatch_target,
                           compliance_margin_v=args.compliance_margin, vth_tempco=args.vth_tempco,
                           monte_carlo=args.monte_carlo, seed=1 if args.seed is None else args.seed,
-                          resistor_tolerance=args.tolerance, thermal_resistance=args.thermal_resistance)
+                          resistor_tolerance=args.tolerance, thermal_resistance=args.thermal_resistance,
+                          heatsink_k_per_w=args.heatsink)
     outputs_from = tuple(s.strip() for s in args.outputs_from.split(",") if s.strip()) if args.outputs_from else ()
     request = service.SinkRequest(supply=args.supply, current=args.at_current, resistor=args.resistor, ref=args.ref,
                                   out=outputs_from, outputs=args.outputs, ref_model=args.ref_model,
@@ -148,7 +156,7 @@ def _match(args) -> int:
         print(f"saved as design {reserved.design_id}; its parts are reserved")
         return 0
     result = service.match_parts(args.library, args.at_current, args.outputs + 1, current_max=args.at_current_max,
-                                 lot=args.lot, count=args.sets, polarity=args.polarity)
+                                 lot=args.lot, count=args.sets, polarity=args.polarity, warm_k=args.warm)
     if args.json:
         print_json(result.to_dict())
     else:

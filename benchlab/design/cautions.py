@@ -72,15 +72,17 @@ def sink_cautions(*, supply_v: float, load_voltage: float, p_ref: float, p_resis
     out.append(base)
     if self_heating is not None:
         rth = self_heating.thermal_resistance
+        rth_words = (f"{rth:g} K/W per part" if not isinstance(rth, tuple)
+                     else f"each part's own {min(rth):.3g}-{max(rth):.3g} K/W")
         if self_heating.runaway:
-            out.append(f"Self-heating at {rth:g} K/W per part: THERMAL RUNAWAY predicted, the junctions do not settle "
+            out.append(f"Self-heating at {rth_words}: THERMAL RUNAWAY predicted, the junctions do not settle "
                        f"below {RUNAWAY_RISE_K:.0f} K above ambient. Use a larger heat sink (lower K/W), source resistors, "
                        "or a lower load voltage.")
         elif self_heating.output_rise:
             hottest = max(range(len(self_heating.output_rise)), key=lambda k: self_heating.output_rise[k])
             worst = max(range(len(self_heating.error)), key=lambda k: abs(self_heating.error[k]))
             name = output_names[worst] if output_names else f"output {worst + 1}"
-            out.append(f"Self-heating at {rth:g} K/W per part: the reference settles {self_heating.ref_rise:.0f} K and "
+            out.append(f"Self-heating at {rth_words}: the reference settles {self_heating.ref_rise:.0f} K and "
                        f"the outputs up to {self_heating.output_rise[hottest]:.0f} K above ambient; the worst output "
                        f"error then becomes {self_heating.error[worst] * 100:+.2f} % ({name}). Reference and outputs "
                        "dissipate differently, so a shared heat sink or degeneration keeps them closer.")

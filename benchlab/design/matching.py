@@ -250,8 +250,27 @@ def brute_force_pairs(parts: Sequence[Part], currents: np.ndarray, count: int | 
     return out
 
 
-def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: int | None = None) -> MatchResult:
-    """Sets of one reference and ``size - 1`` outputs (pairs go to :func:`match_pairs`).
+def _warmed(parts: Sequence[Part], warm_k: float) -> list[Part]:
+    """Every part ``warm_k`` hotter with its own coefficients (measured, else the designer's default assumption)."""
+    from dataclasses import replace
+
+    from benchlab.design.part_thermal import thermal_values
+
+    out = []
+    for p in parts:
+        values = thermal_values(p.name, p.params, p.thermal)
+        out.append(replace(p, params=values.at(p.params, p.params.temperature_k + warm_k)))
+    return out
+
+
+def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: int | None = None, *,
+               warm_k: float = 0.0) -> MatchResult:
+    """Sets of one reference and ``size - 1`` outputs (pairs go to :func:`match_pairs` unless ``warm_k``).
+
+    With ``warm_k`` > 0 the threshold temperature coefficient is a criterion too: each set's error is the worst
+    over the currents at the parts' temperature and with every part ``warm_k`` hotter, each with its own
+    coefficients (``Part.thermal``, measured; else the default assumption), so parts that drift together
+    are preferred.
 
     Parameters
     ----------
@@ -273,9 +292,10 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
         raise InputError(f"a matched set needs at least 2 parts, got size {size}")
     if len(parts) < size:
         raise InputError(f"{len(parts)} part(s) in stock cannot make a set of {size}")
-    if size == 2:
+    if size == 2 and not warm_k:
         return match_pairs(parts, currents, count)
     arrays = parts_to_arrays(parts)
+    warm_arrays = parts_to_arrays(_warmed(parts, warm_k)) if warm_k else None
     currents = np.asarray(currents, dtype=float)
     vgs0 = arrays.vgs_at(float(currents[len(currents) // 2]))
     n_out = size - 1
@@ -293,6 +313,8 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
         cand = order[np.clip(pos, 0, m - 1)]
         refs = np.repeat(order[:, None], offsets.size, axis=1)
         errs = orientation_errors(arrays, refs.ravel(), cand.ravel(), currents)
+        if warm_arrays is not None:
+            errs = np.concatenate([errs, orientation_errors(warm_arrays, refs.ravel(), cand.ravel(), currents)], axis=1)
         worst = np.max(np.abs(errs), axis=1).reshape(m, offsets.size)
         signed = signed_worst(errs).reshape(m, offsets.size)
         worst = np.where(valid, worst, np.inf)
@@ -312,8 +334,10 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
                                      errors=tuple(float(x) for x in signed[r, pick[r]]), ref_index=ref,
                                      output_indices=tuple(int(i) for i in members), vgs_ref=float(vgs0[ref])))
     return MatchResult(currents=tuple(float(c) for c in currents), size=size, method="heuristic",
-                       objective=f"sets of 1 reference + {n_out} outputs taken best first by worst-case error; "
-                                 f"outputs sought among the {reach} VGS neighbours on each side (heuristic)",
+                       objective=f"sets of 1 reference + {n_out} outputs taken best first by worst-case error"
+                                 + (f" at the parts' temperature and {warm_k:g} K warmer (each part's own tempco)"
+                                    if warm_k else "")
+                                 + f"; outputs sought among the {reach} VGS neighbours on each side (heuristic)",
                        sets=tuple(chosen), unmatched=int(free.sum()))
 
 

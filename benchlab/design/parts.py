@@ -37,6 +37,9 @@ class Part:
         The lot/bag it belongs to ("" when given inline).
     part_id : int or None
         Its id in the device library, when it came from there.
+    thermal : dict
+        Its measured thermal values, ``{quantity: {"value", "stderr", "measured_at", ...}}`` as the library
+        keeps them (``benchlab.library.thermal.measured_thermal``); empty when never measured.
     """
 
     label: str
@@ -44,6 +47,7 @@ class Part:
     stderr: dict = field(default_factory=dict)
     lot: str = ""
     part_id: int | None = None
+    thermal: dict = field(default_factory=dict)
 
     @property
     def name(self) -> str:

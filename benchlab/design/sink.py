@@ -18,6 +18,7 @@ from benchlab.design.eseries import nearest_preferred, series_decade, series_tol
 from benchlab.design.mirror import output_in_circuit, resistor_for_current, solve_mirror
 from benchlab.design.montecarlo import run_monte_carlo
 from benchlab.design.parts import Part
+from benchlab.design.part_thermal import DEFAULT_VTH_TEMPCO, loop_gain, thermal_values, ztc_position
 from benchlab.design.thermal import self_heated_point
 from benchlab.errors import DesignError, InputError
 
@@ -51,8 +52,14 @@ class SinkOptions:
     resistor_tolerance : float or None
         Tolerance band of the resistors (None: the one usually sold with the series).
     thermal_resistance : float or None
-        Junction-to-ambient thermal resistance of each part (K/W, heat sink included); when set,
-        the steady state with every part at its own self-heated temperature is solved too.
+        Thermal resistance of each part without a measured one (K/W; default the 62 K/W package assumption).
+        When set, or when any part has a measured Rth, or a heat sink is given, the steady state with every
+        part at its own self-heated temperature is solved too.
+    heatsink_k_per_w : float
+        Heat sink added to every part's own thermal resistance (K/W).
+
+    Parts with measured thermal values (``Part.thermal``) use them; the others use ``vth_tempco``, the
+    KP ~ T^-1.5 law and the thermal resistance above, and the design says which value came from where.
     """
 
     series: str = "E24"
@@ -66,6 +73,7 @@ class SinkOptions:
     seed: int = 1
     resistor_tolerance: float | None = None
     thermal_resistance: float | None = None
+    heatsink_k_per_w: float = 0.0
 
     def validated(self) -> "SinkOptions":
         """These options, after checking every value (an ``InputError`` names the first bad one)."""
@@ -82,6 +90,8 @@ class SinkOptions:
             raise InputError("the resistor tolerance is a fraction between 0 and 1")
         if self.thermal_resistance is not None and not self.thermal_resistance > 0:
             raise InputError("the thermal resistance must be a positive number of K/W")
+        if not self.heatsink_k_per_w >= 0:
+            raise InputError("the heat-sink figure must be 0 K/W or more")
         return self
 
 
@@ -101,6 +111,8 @@ class OutputResult:
     drift_per_k: float
     tc_fixed_vgs: float
     region: str = "saturation"
+    ztc: str = ""  # where its operating point lies against its ZTC point
+    loop_gain: float = 0.0  # electro-thermal loop gain at a fixed gate voltage (above 1: runaway)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain-JSON form (SI units)."""
@@ -136,6 +148,8 @@ class SinkDesign:
     monte_carlo: dict | None = None
     degeneration: dict | None = None
     self_heating: dict | None = None
+    thermal: tuple[dict, ...] = ()  # each part's thermal values and their sources (reference first)
+    runaway: dict | None = None  # the electro-thermal verdict
 
     @property
     def worst_error(self) -> float:
@@ -155,6 +169,8 @@ class SinkDesign:
         data["monte_carlo"] = self.monte_carlo
         data["degeneration"] = self.degeneration
         data["self_heating"] = self.self_heating
+        data["thermal"] = list(self.thermal)
+        data["runaway"] = self.runaway
         return data
 
 
@@ -218,9 +234,13 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         d_outs = [d if region == "saturation" else (u - w) / (2 * h)
                   for d, region, u, w in zip(d_outs, point.regions, up.i_out, down.i_out)]
 
-    # Everything at +delta_t: resistors assumed not to drift, all parts at the same temperature.
-    hot = [p.params.with_temperature(p.params.temperature_k + options.delta_t_k, options.vth_tempco)
-           for p in (ref, *outputs)]
+    tempco_source = "" if options.vth_tempco == DEFAULT_VTH_TEMPCO else "option --vth-tempco"
+    tvals = [thermal_values(p.name, p.params, p.thermal, vth_tempco=options.vth_tempco,
+                            vth_tempco_source=tempco_source, rth=options.thermal_resistance,
+                            heatsink=options.heatsink_k_per_w) for p in (ref, *outputs)]
+    # Everything at +delta_t: resistors assumed not to drift, all parts at the same temperature, each with its
+    # own coefficients.
+    hot = [tv.at(p.params, p.params.temperature_k + options.delta_t_k) for p, tv in zip((ref, *outputs), tvals)]
     hot_point = solve_mirror(supply_v, resistor_ohm, hot[0], hot[1:], rs, drain_v=load_v)
     drift_ref = (hot_point.i_ref / point.i_ref - 1.0) / options.delta_t_k
 
@@ -231,14 +251,17 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         compliance = max(vgs - part.params.vth, 0.0) + i_out * rs + options.compliance_margin_v
         p_rs = i_out * i_out * rs
         # one output warming alone by 1 K at a fixed gate voltage (its own self-heating)
-        warm = part.params.with_temperature(part.params.temperature_k + 1.0, options.vth_tempco)
+        tv = tvals[1 + k]
+        warm = tv.at(part.params, part.params.temperature_k + 1.0)
         i_warm = output_in_circuit(warm, point.vg, rs, load_v)[0]
         tc = (i_warm / i_out - 1.0) if i_out > 0 else 0.0
         drift = (hot_point.i_out[k] / i_out - 1.0) / options.delta_t_k if i_out > 0 else 0.0
         result = OutputResult(part=part.name, i_out=i_out, error=i_out / point.i_ref - 1.0, vgs=vgs,
                               v_compliance=compliance, in_compliance=load_v >= compliance,
                               p_part=max(load_v - i_out * rs, 0.0) * i_out, p_source_resistor=p_rs,
-                              di_dvsupply=d_outs[k], drift_per_k=drift, tc_fixed_vgs=tc, region=point.regions[k])
+                              di_dvsupply=d_outs[k], drift_per_k=drift, tc_fixed_vgs=tc, region=point.regions[k],
+                              ztc=ztc_position(tv, vgs),
+                              loop_gain=loop_gain(tv, tc, i_out, max(load_v - i_out * rs, 0.0)))
         results.append(result)
         heat.append(OutputHeat(part.name, result.p_part, tc, result.in_compliance, compliance))
 
@@ -247,10 +270,13 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     p_sources = point.i_ref ** 2 * rs + sum(r.p_source_resistor for r in results)
     tolerance = series_tolerance(options.series) if options.resistor_tolerance is None else options.resistor_tolerance
     self_heating = None
-    if options.thermal_resistance is not None:
+    if (options.thermal_resistance is not None or options.heatsink_k_per_w
+            or any("rth" in p.thermal for p in (ref, *outputs))):
         self_heating = self_heated_point(supply_v, resistor_ohm, ref.params, [p.params for p in outputs], load_v,
-                                         options.thermal_resistance, source_resistor_ohm=rs,
-                                         vth_tempco=options.vth_tempco)
+                                         [tv.rth for tv in tvals], source_resistor_ohm=rs,
+                                         vth_tempco=[tv.vth_tempco for tv in tvals],
+                                         kp_exponent=[tv.kp_exponent for tv in tvals])
+    runaway = _runaway_verdict(results, self_heating)
     cautions = sink_cautions(supply_v=supply_v, load_voltage=load_v, p_ref=p_ref, p_resistor=p_resistor,
                              r_chosen=resistor_ohm, outputs=heat, p_source_resistors=p_sources,
                              self_heating=self_heating, output_names=[p.name for p in outputs])
@@ -266,7 +292,21 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         compliance_margin=options.compliance_margin_v, p_ref=p_ref, p_resistor=p_resistor, di_ref_dvsupply=d_ref,
         drift_ref_per_k=drift_ref, vth_tempco=options.vth_tempco, outputs=tuple(results), cautions=cautions,
         parts=(ref, *outputs), monte_carlo=monte_carlo,
-        self_heating=self_heating.to_dict() if self_heating is not None else None)
+        self_heating=self_heating.to_dict() if self_heating is not None else None,
+        thermal=tuple(tv.to_dict() for tv in tvals), runaway=runaway)
+
+
+def _runaway_verdict(results: Sequence[OutputResult], self_heating) -> dict[str, Any]:
+    """Runaway when any output's electro-thermal loop gain reaches 1 or the self-heated solve does not settle."""
+    worst = max(results, key=lambda r: r.loop_gain, default=None)
+    gain = worst.loop_gain if worst is not None else 0.0
+    solved = self_heating is not None and self_heating.runaway
+    runaway = gain >= 1.0 or solved
+    why = (f"loop gain {gain:.2f} at {worst.part}" if worst is not None else "no outputs")
+    if solved:
+        why += "; the self-heated steady state does not settle"
+    return {"runaway": bool(runaway), "worst_loop_gain": gain, "part": worst.part if worst else None,
+            "verdict": ("THERMAL RUNAWAY: " if runaway else "thermally stable: ") + why}
 
 
 def _synthesize_once(supply_v: float, target_a: float, ref: Part, outputs: Sequence[Part],

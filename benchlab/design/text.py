@@ -52,8 +52,10 @@ def sink_parameter_rows(d: Mapping[str, Any]) -> list[tuple[str, str]]:
         rows.append(("dI/dVsupply", f"{format_si(d['di_ref_dvsupply'], 'A/V', 4)} "
                                     f"({d['di_ref_dvsupply'] / d['i_ref'] * 100:.3f} %/V)"))
     if _has(d, "drift_ref_per_k", "vth_tempco"):
-        rows.append(("drift", f"{d['drift_ref_per_k'] * 100:+.4f} %/K (all parts warming together, "
-                              f"Vth {d['vth_tempco'] * 1e3:g} mV/K, KP ~ T^-1.5, resistors steady)"))
+        how = ("each part's own coefficients, see below" if d.get("thermal")
+               else f"Vth {d['vth_tempco'] * 1e3:g} mV/K, KP ~ T^-1.5")
+        rows.append(("drift", f"{d['drift_ref_per_k'] * 100:+.4f} %/K (all parts warming together, {how}, "
+                              "resistors steady)"))
     if _has(d, "p_ref", "p_resistor"):
         rows.append(("dissipation", f"reference {format_si(d['p_ref'], 'W', 4)}, resistor {format_si(d['p_resistor'], 'W', 4)}"))
     return rows
@@ -106,13 +108,38 @@ def self_heating_rows(d: Mapping[str, Any]) -> tuple[str, list[tuple[str, str]]]
     sh = d.get("self_heating")
     if not sh:
         return "", []
-    title = f"Self-heating at {sh['thermal_resistance']:g} K/W per part"
+    rth = sh["thermal_resistance"]
+    title = (f"Self-heating at {rth:g} K/W per part" if not isinstance(rth, (list, tuple))
+             else f"Self-heating at each part's own Rth ({min(rth):.3g}-{max(rth):.3g} K/W)")
     if sh["runaway"]:
         return title, [("all parts", "THERMAL RUNAWAY: the junction temperatures do not settle")]
     rows = [("reference", f"+{sh['ref_rise']:.1f} K, I {format_si(sh['i_ref'], 'A', 4)}")]
     for o, rise, i_out, err in zip(d.get("outputs") or [], sh["output_rise"], sh["i_out"], sh["error"]):
         rows.append((str(o["part"]), f"+{rise:.1f} K, I {format_si(i_out, 'A', 4)}, error {_pct(err)}"))
     return title, rows
+
+
+def thermal_rows(d: Mapping[str, Any]) -> tuple[str, list[tuple[str, str]]]:
+    """Title and rows of each part's thermal values with their sources, the ZTC positions and the verdict."""
+    parts = d.get("thermal") or []
+    if not parts:
+        return "", []
+    rows = []
+    by_output = {o.get("part"): o for o in d.get("outputs") or []}
+    for tv in parts:
+        src = tv.get("sources", {})
+        ztc = f"ZTC {tv['ztc_vgs']:.2f} V / {format_si(tv['ztc_id'], 'A', 3)}" if tv.get("ztc_vgs") else "no ZTC"
+        rows.append((str(tv["part"]), f"Vth {tv['vth_tempco'] * 1e3:+.2f} mV/K [{src.get('vth_tempco', '')}], "
+                                      f"KP ~ T^-{tv['kp_exponent']:.2f} [{src.get('kp_exponent', '')}], "
+                                      f"Rth {tv['rth_part']:.3g}+{tv['heatsink']:g} K/W [{src.get('rth', '')}], "
+                                      f"{ztc} [{src.get('ztc', '')}]"))
+        out = by_output.get(tv["part"])
+        if out is not None and out.get("ztc"):
+            rows.append(("", f"operating point {out['vgs']:.3f} V {out['ztc']}; loop gain {out.get('loop_gain', 0):.3f}"))
+    verdict = (d.get("runaway") or {}).get("verdict")
+    if verdict:
+        rows.append(("verdict", verdict))
+    return "Thermal values per part (source in brackets)", rows
 
 
 def format_sink_report(design: SinkDesign | Mapping[str, Any], design_id: int | None = None) -> str:
@@ -134,7 +161,7 @@ def format_sink_report(design: SinkDesign | Mapping[str, Any], design_id: int | 
             lines.append(f"  {cells}" + (f"  {row[-1]}" if row[-1] else ""))
         lines.append(f"  worst error {worst_error(d) * 100:.3f} %   ('%/K alone': one output warming at a fixed "
                      "gate voltage)")
-    for title, rows in (monte_carlo_rows(d), self_heating_rows(d)):
+    for title, rows in (monte_carlo_rows(d), self_heating_rows(d), thermal_rows(d)):
         if rows:
             lines.append(title + ":")
             lines += [f"  {name:<10} {value}" for name, value in rows]

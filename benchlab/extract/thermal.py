@@ -24,15 +24,14 @@ from dataclasses import asdict, dataclass, field
 from typing import Any, Sequence
 
 import numpy as np
-from scipy.optimize import brentq
 
 from benchlab.errors import FitError, InputError
 from benchlab.extract.fit import fit_batch
 from benchlab.extract.sweepdata import Sweep, validate_points
-from benchlab.models import DeviceParams
+from benchlab.models import DeviceParams, ztc_crossing
 
 DEFAULT_BOOTSTRAP = 100
-ZTC_SEARCH_V = 12.0  # look for the crossing up to this far above the threshold (V)
+ZTC_SEARCH_V = 12.0  # ZTC crossings are looked for up to this far above the threshold (V), see models.ztc_crossing
 
 
 @dataclass(frozen=True)
@@ -70,22 +69,6 @@ class TempcoResult:
 def _slope(x: np.ndarray, y: np.ndarray) -> float:
     xm = x - x.mean()
     return float(np.dot(xm, y - y.mean()) / np.dot(xm, xm))
-
-
-def ztc_crossing(cold: DeviceParams, hot: DeviceParams) -> tuple[float, float] | None:
-    """VGS and ID (V, A) where the fitted curves of a cold and a hot part cross above threshold, or None.
-
-    Below the crossing the hot curve carries more current (threshold term), above it less (mobility term).
-    """
-    low = max(cold.vth, hot.vth) + 1e-3
-    grid = np.linspace(low, low + ZTC_SEARCH_V, 1201)
-    diff = np.asarray(hot.current(grid), dtype=float) - np.asarray(cold.current(grid), dtype=float)
-    sign_change = np.nonzero((diff[:-1] > 0) & (diff[1:] <= 0))[0]
-    if sign_change.size == 0:
-        return None
-    k = int(sign_change[0])
-    vgs = brentq(lambda v: float(hot.current(v)) - float(cold.current(v)), grid[k], grid[k + 1], xtol=1e-9)
-    return float(vgs), float(cold.current(vgs))
 
 
 def _extract(fits, temps: np.ndarray) -> tuple[float, float | None, tuple[float, float] | None]:

@@ -36,12 +36,18 @@ class SinkRequest:
     save: bool = False
 
 
-def part_from_record(record) -> Part:
-    """A library :class:`PartRecord` as a design :class:`Part` (it must have a curve)."""
+def part_from_record(record, lib=None) -> Part:
+    """A library :class:`PartRecord` as a design :class:`Part` (it must have a curve); with ``lib`` it carries
+    the part's measured thermal values too."""
     if record.params is None:
         raise LibraryError(f"part '{record.spec}' has no fitted or hand-entered curve; fit or enter it first")
+    thermal = {}
+    if lib is not None:
+        from benchlab.library.thermal import measured_thermal
+
+        thermal = measured_thermal(lib, record.id)
     return Part(label=record.label, params=record.params, stderr=dict(record.stderr or {}), lot=record.lot,
-                part_id=record.id)
+                part_id=record.id, thermal=thermal)
 
 
 def _open(library_path, operator: str | None = None):
@@ -108,7 +114,7 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
         record = lib.get_part(spec)
         if record.polarity != "N":
             raise InputError(f"part '{record.spec}' is {record.polarity}-channel; the sink is built from N-channel parts")
-        part = part_from_record(record)
+        part = part_from_record(record, lib)
         records[part.name] = record
         return part
 
@@ -126,7 +132,7 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
         if lib is None:
             raise InputError("--outputs N picks parts from the device library; name the library or give parts inline")
         stock_records = _stock(lib, req.lot)
-        stock = [part_from_record(r) for r in stock_records]
+        stock = [part_from_record(r, lib) for r in stock_records]
         by_name = {p.name: r for p, r in zip(stock, stock_records)}
         if ref is not None:
             stock = [p for p in stock if p.name != ref.name]
@@ -326,17 +332,21 @@ def reserve_match(library_path, current: float, size: int, *, current_max: float
 
 
 def match_parts(library_path, current: float, size: int, *, current_max: float | None = None,
-                lot: str | None = None, count: int | None = None, polarity: str = "N") -> MatchResult:
-    """Run ``benchlab design match`` on the in-stock parts of the library (one polarity)."""
+                lot: str | None = None, count: int | None = None, polarity: str = "N",
+                warm_k: float = 0.0) -> MatchResult:
+    """Run ``benchlab design match`` on the in-stock parts of the library (one polarity); ``warm_k`` makes the
+    threshold temperature coefficient a criterion (see :func:`benchlab.design.matching.match_sets`)."""
     currents = current_grid(current, current_max)
     if count is not None and count < 1:
         raise InputError("--sets must be at least 1")
     with _open(library_path) as lib:
-        stock = [part_from_record(r) for r in _stock(lib, lot, polarity)]
+        stock = [part_from_record(r, lib) for r in _stock(lib, lot, polarity)]
     if len(stock) < size:
         where = f" in lot '{lot}'" if lot else ""
         raise DesignError(f"{len(stock)} in-stock part(s) with curves{where}; a set needs {size}")
-    return match_sets(stock, currents, size, count)
+    if not warm_k >= 0:
+        raise InputError("--warm must be 0 K or more")
+    return match_sets(stock, currents, size, count, warm_k=warm_k)
 
 
 def bin_parts(library_path, current: float, width: float, *, lot: str | None = None,
