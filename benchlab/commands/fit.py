@@ -76,4 +76,4 @@ def _fit(args) -> int:
         return max(exc.exit_code for _, exc in run.failed)
     if args.save:
         print(f"saved {len(run.records)} fit(s) to their session sidecars", file=sys.stderr)
-    return 0
+    return 0 if run.records else 1  # nothing fitted: say so to scripts too

@@ -23,10 +23,13 @@ class ProgressBar:
         self._drawn = False
         # redraw in place only on a terminal; a log file gets just the summary lines
         self.live = bool(getattr(self.stream, "isatty", lambda: False)())
+        self.stopped_label: str | None = None  # the part whose sweep stopped on an error or interrupt
 
     def __call__(self, event: Any) -> None:
         from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault
 
+        if isinstance(event, SweepFault):
+            self.stopped_label = event.label
         if isinstance(event, PointMeasured):
             if not self.live:
                 return
@@ -167,12 +170,22 @@ def run_bag(args: argparse.Namespace) -> int:
         check_name("lot name", args.lot or "bag")
     svc, handle, plan = _prepare(args)
     progress = ProgressBar(out=sys.stderr if args.json else None)
+    where: list = []
+
+    def on_session(path) -> None:
+        where.append(path)
+        print(f"session: {path}", file=sys.stderr)
+
     try:
         with svc.sigterm_as_exception():
             result = svc.sweep_bag(handle, plan, sessions_root=args.sessions or DEFAULT_SESSIONS_DIR,
                                    lot=args.lot or "bag", count=args.count, operator=_operator(args, svc),
                                    ambient_c=args.ambient, resume=args.resume, on_event=progress,
-                                   on_session=lambda p: print(f"session: {p}", file=sys.stderr))
+                                   on_session=on_session)
+    except BaseException:
+        if where:  # Ctrl-C, SIGTERM, a lost instrument: say which part and how to go on
+            print(_resume_hint(args, where[0], progress.stopped_label), file=sys.stderr, flush=True)
+        raise
     finally:
         handle.close()
     if args.json:
@@ -181,12 +194,40 @@ def run_bag(args: argparse.Namespace) -> int:
         print(f"skipped (already measured): {', '.join(result.skipped)}", file=sys.stderr if args.json else None)
     if result.stopped_early:
         print(f"stopped: {result.stopped_early}", file=sys.stderr if args.json else None)
+    if not result.outcomes:
+        if args.resume is not None and result.stopped_early is None:
+            print(f"session already complete: every planned part of {result.session_path} is measured",
+                  file=sys.stderr if args.json else None)
+        else:
+            print(f"no part was swept; session in {result.session_path}", file=sys.stderr if args.json else None)
+        return 0
     kinds: dict[str, int] = {}
     for outcome in result.outcomes:
         kinds[outcome.classification] = kinds.get(outcome.classification, 0) + 1
     print(f"{len(result.outcomes)} parts swept ({', '.join(f'{n} {k}' for k, n in sorted(kinds.items()))}); "
           f"session in {result.session_path}", file=sys.stderr if args.json else None)
-    return 0 if all(o.complete for o in result.outcomes) else 1
+    if not all(o.complete for o in result.outcomes):
+        print(_resume_hint(args, result.session_path, result.outcomes[-1].label), file=sys.stderr)
+        return 1
+    return 0
+
+
+def _resume_hint(args: argparse.Namespace, session_path, label: str | None) -> str:
+    """Which part was interrupted and the exact command that finishes the bag."""
+    import shlex
+
+    command = ["benchlab", "bag", "--resume", str(session_path)]
+    if args.sim:
+        command.append("--sim")
+        for flag, value, default in (("--sim-fixture", args.sim_fixture, Fixture.RESISTOR),
+                                     ("--sim-seed", args.sim_seed, 1)):
+            if value != default:
+                command += [flag, str(value)]
+    elif args.bench:
+        command += ["--bench", args.bench]
+    what = (f"the sweep of {label} was interrupted: its record is kept as 'interrupted' (not a dud; it is "
+            f"swept again on resume)" if label else "the bag was interrupted between parts")
+    return f"{what}; to finish the bag run: {shlex.join(command)}"
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

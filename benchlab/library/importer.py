@@ -67,7 +67,10 @@ def fit_outcome(result: Any) -> FitOutcome:
 
 def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
                   fit_function: Callable | None) -> PreparedSweep:
-    """Fit one sweep (pure computation, nothing written); a dud or an unfittable sweep carries the reason."""
+    """Fit one sweep (pure computation, nothing written); a dud, an interrupted or an unfittable sweep carries
+    the reason."""
+    if sweep.interrupted:
+        return PreparedSweep(session, sweep, lot, None, "interrupted sweep")
     if sweep.classification not in (None, PartClass.GOOD):
         return PreparedSweep(session, sweep, lot, None, "")
     try:
@@ -83,25 +86,29 @@ def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
             outcome = fit_outcome(stored[-1])
     except (BenchlabError, ValueError, ArithmeticError) as exc:
         return PreparedSweep(session, sweep, lot, None, f"fit failed: {exc}")
-    if not sweep.complete:
-        outcome = FitOutcome(outcome.params, outcome.stderr, outcome.flags + ("incomplete_sweep",),
-                             outcome.result, outcome.fitter_version)
     return PreparedSweep(session, sweep, lot, outcome, "")
 
 
-def _already_imported(lib: "Library", lot: str, label: str, session_id: str) -> bool:
-    row = lib.connection.execute(
-        "SELECT 1 FROM sweeps s JOIN parts p ON p.id = s.part_id JOIN lots l ON l.id = p.lot_id "
-        "WHERE l.name = ? AND p.label = ? AND s.session_id = ? LIMIT 1", (lot, label, session_id)).fetchone()
-    return row is not None
+def _earlier_sweeps(lib: "Library", lot: str, label: str, session_id: str) -> list[tuple]:
+    """``(started, complete)`` of the sweeps of this part already imported from this session."""
+    return lib.connection.execute(
+        "SELECT s.started, s.complete FROM sweeps s JOIN parts p ON p.id = s.part_id JOIN lots l ON l.id = p.lot_id "
+        "WHERE l.name = ? AND p.label = ? AND s.session_id = ? ORDER BY s.id", (lot, label, session_id)).fetchall()
 
 
 def _write_sweep(lib: "Library", item: PreparedSweep, points: list) -> ImportedSweep:
     conn = lib.connection
     sweep, session = item.sweep, item.session
-    if _already_imported(lib, item.lot, sweep.label, session.id):
+    if sweep.interrupted:  # never a part: it was not judged; its resumed sweep is imported when it exists
+        return ImportedSweep(item.lot, sweep.label, sweep.classification, "skipped",
+                             f"interrupted sweep, not imported (finish it: benchlab bag --resume {session.path})")
+    earlier = _earlier_sweeps(lib, item.lot, sweep.label, session.id)
+    if any(started == sweep.sidecar.get("started") for started, _ in earlier):
         return ImportedSweep(item.lot, sweep.label, sweep.classification, "skipped",
                              f"already imported from session {session.id}")
+    # the same session and part with another start time: the resumed sweep that replaces an interrupted one
+    # (an older benchlab imported those, some as rejected duds)
+    replaces = bool(earlier)
     lot_id = lib.lot_id(item.lot, create=True)
     row = conn.execute("SELECT id, state FROM parts WHERE lot_id = ? AND label = ?", (lot_id, sweep.label)).fetchone()
     if row is None:
@@ -122,9 +129,15 @@ def _write_sweep(lib: "Library", item: PreparedSweep, points: list) -> ImportedS
                   for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status))
     if item.is_dud:
         reason = f"{sweep.classification}: {sweep.reason}" if sweep.reason else str(sweep.classification)
-        if state != "rejected":
+        if state != "rejected" or replaces:
             lib._change_state(part_id, state, "rejected", reason)
         return ImportedSweep(item.lot, sweep.label, sweep.classification, "rejected", reason)
+    if replaces:
+        # a good sweep replaces the interrupted one: the part's curve, fit and state follow it, with a history entry
+        new_state = "in_stock" if state == "rejected" else state
+        lib._change_state(part_id, state, new_state,
+                          f"re-swept in session {session.id} (started {sweep.sidecar.get('started')}): "
+                          f"{sweep.classification}; replaces the interrupted sweep")
     if item.fit is None:
         return ImportedSweep(item.lot, sweep.label, sweep.classification, "stored", item.fit_problem)
     fit = item.fit

@@ -41,8 +41,15 @@ class SessionSweep:
         return bool(self.sidecar.get("complete", False))
 
     @property
+    def interrupted(self) -> bool:
+        """The sweep did not finish (stopped, killed, or cut short): the part was not judged."""
+        return not self.complete or self.sidecar.get("classification") == "interrupted"
+
+    @property
     def classification(self) -> str | None:
-        return self.sidecar.get("classification")
+        """The sweep's verdict; ``interrupted`` for any sweep that did not finish, whatever an older benchlab
+        wrote (it judged interrupted parts, and a good part became 'open' for good)."""
+        return "interrupted" if self.interrupted else self.sidecar.get("classification")
 
     @property
     def reason(self) -> str:

@@ -82,12 +82,21 @@ def _session_sources(folder: Path, allow_empty: bool = False) -> list[SweepSourc
         csv_path = inside(folder, label, ".csv")  # a crafted '../x' entry is refused, never followed
         if csv_path.exists():
             sidecar = inside(folder, label, ".json")
-            verdict = _read_json(sidecar).get("classification") if sidecar.exists() else None
+            verdict = sweep_verdict(_read_json(sidecar)) if sidecar.exists() else None
             sources.append(SweepSource(csv_path, sidecar if sidecar.exists() else None, str(label), verdict,
                                        ambient))
     if not sources and not allow_empty:
         raise InputError("the session holds no part sweeps yet", path=str(folder))
     return sources
+
+
+def sweep_verdict(sidecar: dict[str, Any]) -> str | None:
+    """A sweep record's classification; a sweep that did not finish (``complete`` false: stopped, killed, or
+    written by an older benchlab that judged interrupted parts) is ``interrupted`` whatever it says."""
+    if sidecar.get("complete") is False or sidecar.get("classification") == PartClass.INTERRUPTED:
+        return str(PartClass.INTERRUPTED)
+    value = sidecar.get("classification")
+    return None if value is None else str(value)
 
 
 def _ambient(meta: dict[str, Any]) -> float | None:
@@ -139,7 +148,7 @@ def resolve_inputs(paths) -> list[SweepSource]:
                     raise InputError(f"the sidecar's raw points {csv_path.name} are missing", path=str(path))
                 label = check_name("part label", data.get("label") or path.stem, path=str(path))
                 sources.append(SweepSource(csv_path, path, label,
-                                           data.get("classification"), _folder_ambient(path.parent)))
+                                           sweep_verdict(data), _folder_ambient(path.parent)))
             else:
                 raise InputError("not a benchlab sweep sidecar or session file", path=str(path))
         else:
@@ -147,7 +156,7 @@ def resolve_inputs(paths) -> list[SweepSource]:
             data = _read_json(sidecar) if sidecar.exists() else {}
             is_record = data.get("format") == SWEEP_FORMAT
             sources.append(SweepSource(path, sidecar if is_record else None, path.stem,
-                                       data.get("classification") if is_record else None,
+                                       sweep_verdict(data) if is_record else None,
                                        _folder_ambient(path.parent) if is_record else None))
     if not sources:
         raise InputError("no input files given")
@@ -184,8 +193,8 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
               save: bool = False, temperature_c: float | None = None) -> FitRun:
     """Fit every sweep found in ``paths`` (one batch) and optionally store the fits in the sidecars.
 
-    A part the sweep classified as a dud (open, shorted, leaky, unstable) that has too few
-    conducting points to fit is skipped with its reason rather than stopping the run. A sweep
+    A part the sweep classified as a dud (open, shorted, leaky, unstable) or whose sweep was
+    interrupted is skipped with the reason, never fitted, and stops nothing. A sweep
     whose data are refused (bad rows, too few points for the model) is listed in ``failed``
     and the others are still fitted; with ``save`` nothing is written then. Bad paths or
     options are an error before anything is read.
@@ -224,13 +233,17 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
                              "(fit it without --save, or fit the session)", path=str(plain[0].csv_path))
     loaded, skipped, failed = [], [], []
     for source in sources:
+        if source.classification == PartClass.INTERRUPTED:
+            skipped.append((source, "the sweep did not finish, so the part was not judged nor fitted; sweep it "
+                                    f"again (benchlab bag --resume {source.csv_path.parent})"))
+            continue
+        if _is_dud(source):
+            skipped.append((source, "a dud is not fitted: its curve does not describe a working transistor"))
+            continue
         try:
             loaded.append((source, load_source(source)))
         except InputError as exc:
-            if _is_dud(source):
-                skipped.append((source, str(exc)))
-            else:
-                failed.append((source, exc))
+            failed.append((source, exc))
     options = dict(at_current=at_current, cc_current=cc_current, window=window, bootstrap=bootstrap)
 
     def kelvin(source: SweepSource) -> float:
@@ -238,9 +251,8 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         return T_NOMINAL_K if celsius is None else celsius + 273.15
 
     fitted = {}
-    regular = [(s, w) for s, w in loaded if not _is_dud(s)]
-    for temperature in sorted({kelvin(s) for s, _ in regular}):  # one batch per temperature
-        group = [(s, w) for s, w in regular if kelvin(s) == temperature]
+    for temperature in sorted({kelvin(s) for s, _ in loaded}):  # one batch per temperature
+        group = [(s, w) for s, w in loaded if kelvin(s) == temperature]
         try:
             results = fit_batch([w for _, w in group], model, temperature_k=temperature, **options)
         except (FitError, InputError):
@@ -253,12 +265,6 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
                     failed.append((source, exc))
                     results.append(None)
         fitted.update((id(s), r) for (s, _), r in zip(group, results) if r is not None)
-    for source, sweep in loaded:
-        if _is_dud(source):  # one by one, so a dud that cannot be fitted stops nothing
-            try:
-                fitted[id(source)] = fit_batch([sweep], model, temperature_k=kelvin(source), **options)[0]
-            except (FitError, InputError) as exc:
-                skipped.append((source, str(exc)))
     records = [FitRecord(s, fitted[id(s)]) for s in sources if id(s) in fitted]
     if failed and not records and not skipped:
         raise failed[0][1]  # nothing else to show: the one clear error

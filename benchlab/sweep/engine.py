@@ -22,7 +22,7 @@ from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOu
 from benchlab.sweep.safety import GuardedSmu, GuardedSupply
 from benchlab.sweep.stepping import StopStepping as _Stop
 from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_step, overshoots, predict_vgs
-from benchlab.kinds import Fixture, PointStatus, SourceFunction, SweepMode
+from benchlab.kinds import Fixture, PartClass, PointStatus, SourceFunction, SweepMode
 
 ABS_SETTLE_V = 1e-3  # repeated readings closer than this count as settled whatever the relative tolerance
 # A first reading within this of the VGS the stepper predicted is taken as settled (no repeat); see
@@ -410,9 +410,15 @@ class _Sweep:
         plan = self.plan
         verdict = classify(self.points, detect_current_a=plan.detect_floor_a(), leak_current_a=plan.leak_current_a,
                            reference_current_a=REFERENCE_CURRENT_A, failure=failure, fixture=plan.fixture)
-        reason = verdict.reason if complete else f"{verdict.reason} (sweep interrupted: {stop_reason})"
+        kind, reason = verdict.kind, verdict.reason
+        if not complete:
+            # a sweep cut short judges nothing: never a dud class (a good part would be rejected for good);
+            # what the points showed so far stays in the reason
+            kind = PartClass.INTERRUPTED
+            reason = (f"sweep interrupted after {len(self.points)} points ({stop_reason}); the part was not judged: "
+                      f"sweep it again" + (f" (the points so far: {verdict.reason})" if self.points else ""))
         return SweepOutcome(label=self.label, complete=complete, stop_reason=stop_reason,
-                            classification=verdict.kind, reason=reason, points=tuple(self.points),
+                            classification=kind, reason=reason, points=tuple(self.points),
                             powered_s=self.source.powered_s, elapsed_s=self.clock() - self.t0,
                             vgs_at_ref=vgs_at_current(self.points, REFERENCE_CURRENT_A, plan.detect_floor_a()),
                             reference_current_a=REFERENCE_CURRENT_A, error=error,

@@ -69,16 +69,19 @@ def test_points_not_ok_are_not_fitted_and_stored_as_null(lib, tmp_path):
     assert sweep["id"][-1] is None and sweep["status"][-1] == "over_range"
 
 
-def test_truncated_last_line_is_dropped_and_incomplete_flagged(lib, tmp_path):
+def test_truncated_last_line_is_dropped_and_an_incomplete_sweep_is_never_a_part(lib, tmp_path):
     session = write_session(tmp_path, "s", "bag", [
-        {"label": "Q1", "params": DeviceParams("square", vth=3.0, kp=1.0), "complete": False}])
+        {"label": "Q1", "params": DeviceParams("square", vth=3.0, kp=1.0), "complete": False,
+         "classification": "open"},  # what an older benchlab wrote for a good part stopped by Ctrl-C
+        {"label": "Q2", "params": DeviceParams("square", vth=3.0, kp=1.0)}])
     csv_path = session / "Q1.csv"
     with csv_path.open("a") as handle:
         handle.write("40,2.000,3.1")  # the point in flight when the recorder was killed
-    import_session(lib, session, fit_function=curve_fit_square)
-    part = lib.get_part("Q1")
-    assert "incomplete_sweep" in part.flags
-    assert len(lib.sweeps(part)[0]["vgs"]) == 40
+    summary = import_session(lib, session, fit_function=curve_fit_square)
+    q1 = [s for s in summary.sweeps if s.label == "Q1"][0]
+    assert (q1.action, q1.classification) == ("skipped", "interrupted") and "--resume" in q1.detail
+    assert [p.label for p in lib.parts(state=None)] == ["Q2"]  # not imported, not rejected
+    assert len(lib.sweeps("Q2")[0]["vgs"]) == 40
 
 
 def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
