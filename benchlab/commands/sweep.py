@@ -219,10 +219,10 @@ def _resume_hint(args: argparse.Namespace, session_path, label: str | None) -> s
     command = ["benchlab", "bag", "--resume", str(session_path)]
     if args.sim:
         command.append("--sim")
-        for flag, value, default in (("--sim-fixture", args.sim_fixture, Fixture.RESISTOR),
-                                     ("--sim-seed", args.sim_seed, 1)):
-            if value != default:
-                command += [flag, str(value)]
+        for name in ("fixture", "seed", "bag_size", "resistor"):  # what decides which parts the bag holds
+            value = getattr(args, "sim_" + name, None)
+            if value is not None:
+                command += ["--sim-" + name.replace("_", "-"), str(value)]
     elif args.bench:
         command += ["--bench", args.bench]
     what = (f"the sweep of {label} was interrupted: its record is kept as 'interrupted' (not a dud; it is "

@@ -17,6 +17,8 @@ import pytest
 from newuser_cli import assert_one_clear_error, run
 from session_builder import demo_bag, write_session
 
+from benchlab.names import csv_cell
+
 
 def _victim(tmp_path: Path) -> tuple[Path, Path, str]:
     """A valid sweep record OUTSIDE the session folder (``victim/data.csv`` + ``.json``), and its sidecar text."""
@@ -113,8 +115,8 @@ def test_parts_add_refuses_a_label_with_a_newline(tmp_path):
 def _legacy_library(tmp_path: Path, label: str, notes: str = "") -> Path:
     """A library holding ``label`` as an older benchlab could have stored it (before names were checked)."""
     db = tmp_path / "lib.db"
-    assert run("parts", "add", "Q1", "--lot", "bag", "--vth", "-3", "--kp", "1", "--polarity", "P",
-               "--notes", notes, "--library", db).returncode == 0
+    result = run("parts", "add", "Q1", "--lot", "bag", "--vth", "3", "--kp", "1", "--notes", notes, "--library", db)
+    assert result.returncode == 0, result.stderr
     conn = sqlite3.connect(db)
     conn.execute("UPDATE parts SET label = ? WHERE label = 'Q1'", (label,))
     conn.commit()
@@ -141,7 +143,8 @@ def test_csv_export_neutralizes_formulas_and_keeps_one_row_per_part(tmp_path):
     assert len(rows) == 1
     # cells starting with = + - @ are prefixed with an apostrophe so a spreadsheet shows them as text (common practice)
     assert rows[0]["label"].startswith("'=") and rows[0]["notes"].startswith("'+")
-    assert float(rows[0]["vth"]) == -3.0  # a negative number stays a number
+    assert float(rows[0]["vth"]) == 3.0
+    assert csv_cell("-0.5") == "-0.5" and csv_cell("-x") == "'-x" and csv_cell(-2.0) == -2.0  # numbers stay numbers
     for row in rows:
         for value in row.values():
             assert not re.match(r"[=+@]", value or "")
