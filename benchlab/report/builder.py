@@ -134,10 +134,11 @@ def _part_figures(data: ReportData, figs: _Figures, chosen: list[str], vgs_cc: d
         role = "reference" if data.design_sets and label == data.design_sets[0][0] else "output"
         model = part.params.model if part.params else "missing"
         out.append(figs.add(part_fit_figure(part.spec, trace.vgs if trace else (), trace.id if trace else (),
-                                            part.params, vgs_at_cc=vgs_cc.get(label)),
+                                            part.params, vgs_at_cc=vgs_cc.get(label),
+                                            window=data.windows.get(label)),
                             f"{part.spec} ({role}): measured points and the {model} fit on a log current axis, the "
-                            f"fitted threshold (dashed) and VGS at 250 uA from the data (square); below, the "
-                            f"residuals (measured / fit - 1).", f"curve and fit of {part.label}"))
+                            f"fitted threshold (dashed) and VGS at 250 uA from the data (square); points outside the "
+                            f"fitted window hollow; below, the residuals (measured / fit - 1).", f"curve and fit of {part.label}"))
     return out
 
 

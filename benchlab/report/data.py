@@ -44,6 +44,7 @@ class ReportData:
     sessions: tuple[dict, ...] = ()  # session.json of each session the lot's sweeps came from (when still on disk)
     fitter_versions: tuple[str, ...] = ()
     other_lots: tuple[tuple[str, dict], ...] = ()  # (lot, lot_statistics) of every other lot in the library
+    windows: dict = field(default_factory=dict)  # label -> (i_min, i_max) the part's curve was fitted on
 
     def trace_of(self, label: str) -> SweepTrace | None:
         """The part's latest sweep (None for a hand-entered part)."""
@@ -158,6 +159,7 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
     """
     sessions: dict[str, str | None] = {}
     versions: set[str] = set()
+    windows: dict[str, tuple[float, float]] = {}
     with lib.snapshot():
         parts = lib.parts(lot=lot, state=None)
         if not parts:
@@ -171,6 +173,9 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
                 if trace is not None:
                     traces.append(trace)
             if part.fit_id is not None:
+                window = lib.fit_window(part.fit_id)
+                if window is not None:
+                    windows[part.label] = window
                 versions.update(str(f["fitter_version"]) for f in lib.fits(part)
                                 if f["id"] == part.fit_id and f.get("fitter_version"))
         design = lib.design(design_id) if design_id is not None else None
@@ -213,4 +218,4 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
         metas.append(meta if meta is not None else {"id": session_id, "missing": path})
     return ReportData(lot=lot, parts=tuple(parts), traces=tuple(traces), design=design, design_sets=sets,
                       reference=reference, library_path=lib.path, sessions=tuple(metas),
-                      fitter_versions=tuple(sorted(versions)), other_lots=tuple(other_lots))
+                      fitter_versions=tuple(sorted(versions)), other_lots=tuple(other_lots), windows=windows)

@@ -58,11 +58,12 @@ def plot_part(library_path, spec: str, out: str) -> str:
     with open_library(library_path) as lib:
         part = lib.get_part(spec)
         traces = [t for t in (trace_of_sweep(part, s) for s in lib.sweeps(part)) if t is not None]
+        window = lib.fit_window(part.fit_id) if part.fit_id is not None else None
     trace = traces[-1] if traces else None
     if trace is None and part.params is None:
         raise LibraryError(f"part '{part.spec}' has neither a sweep nor a curve: nothing to plot")
     fig = part_fit_figure(part.spec, trace.vgs if trace else (), trace.id if trace else (), part.params,
-                          vgs_at_cc=vgs_at_cc(trace),
+                          vgs_at_cc=vgs_at_cc(trace), window=window,
                           title=f"{part.spec} ({part.state}): stored sweep and curve" if trace else
                           f"{part.spec} ({part.state}): hand-entered curve, no sweep")
     return save_figure(fig, target)
