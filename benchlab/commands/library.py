@@ -34,6 +34,17 @@ def register(subparsers) -> None:
     json_option(lots, "each lot")
     lots.set_defaults(func=_lots)
 
+    refit = sub.add_parser("refit", parents=[lib], help="re-fit every stored sweep with the current fitter",
+                           description="Fit each part's newest good stored sweep again (after a fitter update), in "
+                                       "batches, and store the new fit as its current curve in one transaction; "
+                                       "older fits stay in the part's history. Parts without a fittable sweep are "
+                                       "listed and left as they are.")
+    refit.add_argument("--lot", help="only this lot's parts")
+    refit.add_argument("--model", default="auto", choices=MODEL_CHOICES,
+                       help="model to fit (default: %(default)s)")
+    json_option(refit, "the parts re-fitted and left")
+    refit.set_defaults(func=_refit)
+
     info = sub.add_parser("info", parents=[lib], help="backend, library file or URL, schema version and row counts")
     json_option(info, "the facts")
     info.set_defaults(func=_info)
@@ -61,6 +72,22 @@ def _import(args) -> int:
         print(f"{sweep.lot}/{sweep.label:<12} {sweep.action:<9} {sweep.detail}")
     print(f"{len(summary.sweeps)} sweep(s): {summary.fitted} fitted, {summary.rejected} rejected, "
           f"{summary.count('stored')} stored without fit, {summary.skipped} already in the library")
+    return 0
+
+
+def _refit(args) -> int:
+    from benchlab.services import library as service
+
+    summary = service.refit(args.library, lot=args.lot, model=args.model, operator=args.operator)
+    if args.json:
+        print_json(summary.to_dict())
+        return 0
+    for part, line in summary.refitted:
+        print(f"{part:<20} {line}")
+    for part, why in summary.unchanged:
+        print(f"{part:<20} unchanged: {why}")
+    print(f"{len(summary.refitted)} part(s) re-fitted with fitter {summary.fitter_version} ({summary.model}), "
+          f"{len(summary.unchanged)} left as they were")
     return 0
 
 

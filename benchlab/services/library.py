@@ -8,10 +8,11 @@ import io
 import json
 import math
 import os
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
-from benchlab.errors import InputError, LibraryError
+from benchlab.errors import BenchlabError, InputError, LibraryError
 from benchlab.library import (Library, PartRecord, default_library_path, export_library, import_library,
                               import_sessions as import_into)
 from benchlab.library.backend import is_url
@@ -265,3 +266,112 @@ def format_part_details(details: dict[str, Any]) -> str:
                      + (f" ({change['reason']})" if change.get("reason") else "")
                      + (f" by {change['operator']}" if change.get("operator") else ""))
     return "\n".join(lines)
+
+
+# ------------------------------------------------------------------------------------------- refit
+
+REFIT_BATCH = 1024  # sweeps fitted together (one vectorised solve per model and batch)
+
+
+@dataclass(frozen=True)
+class RefitSummary:
+    """What :func:`refit` did: parts re-fitted, and the parts left as they were with the reason."""
+
+    refitted: list[tuple[str, str]]  # (LOT/LABEL, one-line summary of the new fit)
+    unchanged: list[tuple[str, str]]  # (LOT/LABEL, why no new fit)
+    model: str
+    fitter_version: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"model": self.model, "fitter_version": self.fitter_version,
+                "refitted": [{"part": p, "fit": s} for p, s in self.refitted],
+                "unchanged": [{"part": p, "reason": r} for p, r in self.unchanged]}
+
+
+def _fittable_sweep(part: PartRecord, sweeps: list[dict[str, Any]], sweep_ids: list[int]):
+    # the part's newest good sweep with points the fitter may use: status ok, finite, at or above the
+    # plan's detection current (else above the noise floor the data show), in point order
+    from benchlab.extract import validate_points
+    from benchlab.extract.sweepdata import detection_floor
+
+    # (a sweep read with its points carries the currents under "id": the ids come from a listing without)
+    for sweep, sweep_id in reversed(list(zip(sweeps, sweep_ids))):
+        if sweep.get("classification") not in (None, "good"):
+            continue
+        rows = [(p, v, i) for p, v, i, s in zip(sweep["point"], sweep["vgs"], sweep["id"], sweep["status"])
+                if s == "ok" and v is not None and i is not None and math.isfinite(v) and math.isfinite(i)]
+        floor = max(detection_floor([i for _, _, i in rows]), sweep.get("detect_current_a") or 0.0)
+        rows = [r for r in rows if r[2] >= floor and r[2] > 0]
+        if len(rows) < 5:
+            continue
+        points, vgs, ids = zip(*rows)
+        return sweep_id, validate_points(vgs, ids, rows=points, source=f"{part.lot}/{part.label}", ordered=True)
+    return None, None
+
+
+def refit(path, *, lot: str | None = None, model: str = "auto", operator: str | None = None) -> RefitSummary:
+    """Re-fit every stored sweep of the library (or of one lot) with the current fitter, in one transaction.
+
+    Each part's newest good sweep is fitted again (in batches: one vectorised solve per model), at the
+    temperature of the part's current fit, and the new fit is stored as the part's current curve; the
+    older fits stay in its history. Parts with no fittable sweep (hand entries, imports without points,
+    duds) are left as they are and listed with the reason. Nothing is written if anything fails.
+
+    Parameters
+    ----------
+    path : str or Path
+        The library (file or URL).
+    lot : str, optional
+        Only this lot's parts.
+    model : str
+        ``auto`` or a model name, as ``benchlab fit --model``.
+    operator : str, optional
+        Who made the change.
+    """
+    from benchlab.extract import FITTER_VERSION, fit_batch
+    from benchlab.library.importer import fit_outcome
+    from benchlab.models import T_NOMINAL_K
+
+    refitted, unchanged = [], []
+    with open_library(path, operator=operator) as lib:
+        if lot is not None:
+            lib.lot_id(lot)  # an unknown lot is one clear error
+        todo = []
+        with lib.snapshot():
+            for part in lib.parts(lot=lot, state=None):
+                ids = [s["id"] for s in lib.sweeps(part, with_points=False)]
+                sweep_id, sweep = _fittable_sweep(part, lib.sweeps(part), ids)
+                if sweep is None:
+                    unchanged.append((f"{part.lot}/{part.label}", "no stored sweep with fittable points"))
+                    continue
+                kelvin = part.params.temperature_k if part.params is not None else T_NOMINAL_K
+                todo.append((part, sweep_id, sweep, float(kelvin)))
+        results = {}
+        for kelvin in sorted({t for *_, t in todo}):
+            group = [item for item in todo if item[3] == kelvin]
+            for first in range(0, len(group), REFIT_BATCH):
+                chunk = group[first:first + REFIT_BATCH]
+                try:
+                    fits = fit_batch([s for _, _, s, _ in chunk], model, temperature_k=kelvin)
+                except BenchlabError:
+                    # one sweep the model cannot fit: one by one, so it is named and the rest go on
+                    fits = []
+                    for part, _, sweep, _ in chunk:
+                        try:
+                            fits.append(fit_batch([sweep], model, temperature_k=kelvin)[0])
+                        except BenchlabError as exc:
+                            unchanged.append((f"{part.lot}/{part.label}", f"fit failed: {exc}"))
+                            fits.append(None)
+                results.update((part.id, (sweep_id, fit)) for (part, sweep_id, _, _), fit in zip(chunk, fits)
+                               if fit is not None)
+        with lib.write():
+            for part, *_ in todo:
+                if part.id not in results:
+                    continue
+                sweep_id, fit = results[part.id]
+                outcome = fit_outcome(fit)
+                lib.insert_fit(part.id, source="fit", params=outcome.params, stderr=outcome.stderr,
+                               flags=outcome.flags, result=outcome.result, sweep_id=sweep_id,
+                               fitter_version=outcome.fitter_version)
+                refitted.append((f"{part.lot}/{part.label}", fit.summary()))
+    return RefitSummary(refitted, unchanged, model, FITTER_VERSION)
