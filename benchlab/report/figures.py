@@ -13,7 +13,7 @@ from matplotlib.ticker import MaxNLocator
 from benchlab.library import PartRecord
 from benchlab.models import DeviceParams, solve_resistor_line
 from benchlab.report.data import SweepTrace
-from benchlab.report.part_figures import DPI
+from benchlab.report.part_figures import DPI, plain_text
 from benchlab.report.part_figures import new_figure as _new_figure
 
 SET_MARKERS = ("*", "D", "s", "^", "v", "P", "X", "h")
@@ -21,6 +21,7 @@ SET_MARKERS = ("*", "D", "s", "^", "v", "P", "X", "h")
 
 def save(fig: Figure, path: Path) -> Path:
     """Write the figure as PNG."""
+    plain_text(fig)
     fig.savefig(path, format="png", dpi=DPI, bbox_inches="tight")
     return path
 
@@ -28,6 +29,7 @@ def save(fig: Figure, path: Path) -> Path:
 def png_bytes(fig: Figure) -> bytes:
     """The figure as PNG bytes (for embedding in the HTML page)."""
     buffer = io.BytesIO()
+    plain_text(fig)
     fig.savefig(buffer, format="png", dpi=DPI, bbox_inches="tight")
     return buffer.getvalue()
 

@@ -10,11 +10,20 @@ from typing import Mapping, Sequence
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.text import Text
 
 from benchlab.models import DeviceParams
 
 DPI = 100
 CC_CURRENT_A = 250e-6  # the constant-current threshold criterion (benchlab.extract.fit.DEFAULT_CC_CURRENT)
+
+
+def plain_text(fig: Figure) -> Figure:
+    """Every text of the figure drawn literally: a part label holding ``$`` must not be read as math (matplotlib
+    would fail on it, or draw something else). Call it just before saving."""
+    for text in fig.findobj(Text):
+        text.set_parse_math(False)
+    return fig
 
 
 def new_figure(width: float = 7.0, height: float = 4.5) -> Figure:

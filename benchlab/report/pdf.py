@@ -11,7 +11,7 @@ from matplotlib.backends.backend_pdf import PdfPages
 from matplotlib.figure import Figure
 
 from benchlab.errors import InputError
-from benchlab.report.part_figures import new_figure
+from benchlab.report.part_figures import new_figure, plain_text
 
 
 def write_pdf(path: str | os.PathLike, title: str, lines: Sequence[str],
@@ -31,14 +31,14 @@ def write_pdf(path: str | os.PathLike, title: str, lines: Sequence[str],
             text = "\n\n".join("\n".join(textwrap.wrap(line, 90)) for line in lines)
             cover.text(0.08, 0.92, title, fontsize=14, weight="bold", va="top")
             cover.text(0.08, 0.86, text, fontsize=9, va="top")
-            pdf.savefig(cover)
+            pdf.savefig(plain_text(cover))
             for number, (fig, caption) in enumerate(items, start=1):
                 if fig is None:
                     continue
                 fig.subplots_adjust(bottom=0.22)
                 fig.text(0.02, 0.02, "\n".join(textwrap.wrap(f"Figure {number}. {caption}", 120)), fontsize=7,
                          va="bottom")
-                pdf.savefig(fig)
+                pdf.savefig(plain_text(fig))
         os.replace(tmp, target)
     except OSError as exc:
         raise InputError(f"cannot write: {exc.strerror or exc}", path=str(target)) from exc

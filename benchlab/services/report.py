@@ -8,7 +8,7 @@ from pathlib import Path
 from benchlab.errors import InputError, LibraryError
 from benchlab.report import ReportFiles, build_report, collect
 from benchlab.report.data import trace_of_sweep, vgs_at_cc
-from benchlab.report.part_figures import DPI, part_fit_figure
+from benchlab.report.part_figures import DPI, part_fit_figure, plain_text
 from benchlab.services.library import open_library
 
 
@@ -45,6 +45,7 @@ def save_figure(fig, target: Path) -> str:
     """Write ``fig`` to ``target`` atomically (temp file + rename); the format follows the extension."""
     tmp = target.with_name(target.name + ".tmp")
     try:
+        plain_text(fig)
         fig.savefig(tmp, format=target.suffix.lower().lstrip("."), dpi=DPI, bbox_inches="tight")
         os.replace(tmp, target)
     except OSError as exc:

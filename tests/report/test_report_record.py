@@ -9,6 +9,7 @@ import numpy as np
 import pytest
 
 from benchlab.cli import main
+from benchlab.models import DeviceParams
 from benchlab.report.builder import monte_carlo_errors
 from benchlab.report.figures import sweeps_figure
 from benchlab.report.data import SweepTrace
@@ -157,3 +158,18 @@ def test_a_matched_set_is_reported_with_its_errors(recorded, capsys, tmp_path):
     assert f"<td class=\"t\">{best['outputs'][0]}</td><td class=\"t\">output</td><td>{best['errors'][0] * 100:+.3f} %" \
         in page
     assert f"worst error {best['worst_error'] * 100:.3f} %" in page and page.count("<figure") == 2 + 3
+
+
+def test_a_label_that_looks_like_math_is_drawn_as_text():
+    # the CLI refuses such labels now, but older libraries and the Python API can hold them: matplotlib would
+    # read $...$ as math and fail on this one
+    from benchlab.report.figures import png_bytes
+    from benchlab.report.part_figures import part_fit_figure
+
+    label = "Q$\\frac{$"
+    fig = part_fit_figure(label, [2.9, 3.0, 3.1], [1e-4, 1e-3, 1e-2], DeviceParams("square", vth=2.8, kp=1.0))
+    _check_png(png_bytes(fig))
+    assert any(t.get_text().startswith(label) for t in fig.axes[0].get_legend().get_texts())
+    design = {"supply": 12.0, "r_chosen": 390.0, "ref": f"{LOT}/{label}", "i_ref": 0.02, "load_voltage": 3.0,
+              "outputs": [{"part": f"{LOT}/{label}x", "i_out": 0.02}]}
+    _check_png(png_bytes(sink_schematic(design)))
