@@ -104,7 +104,7 @@ _LIST_COMMANDS: dict[str, tuple[frozenset[str], bool]] = {
     "list_mode_current": (_NONE, True),
     "fixed_mode_voltage": (_NONE, True),
     "fixed_mode_current": (_NONE, True),
-    "clear_buffer": (_NONE, True),
+    "clear_buffer": (_NONE, False),  # optional: an instrument whose start does not empty its buffer
     "start": (_NONE, True),
     "fetch": (_NONE, True),
 }
@@ -135,6 +135,8 @@ class Profile:
     limits: Mapping[str, float]
     connection: Mapping[str, Any] = field(default_factory=dict)
     reading_fields: tuple[str, ...] = ("volts", "amps")
+    # "current"/"voltage" -> bit of a status register read by the *_compliance_tripped query (else it answers 0/1)
+    compliance_bits: Mapping[str, int] = field(default_factory=dict)
     list_commands: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
     list_settings: Mapping[str, Any] = field(default_factory=dict)
     format_version: int = PROFILE_FORMAT_VERSION
@@ -165,7 +167,7 @@ class Profile:
             "format_version": self.format_version, "source_path": self.source_path,
             "limits": dict(self.limits), "connection": dict(self.connection),
             "commands": {key: list(value) for key, value in self.commands.items()},
-            "reading_fields": list(self.reading_fields),
+            "reading_fields": list(self.reading_fields), "compliance_bits": dict(self.compliance_bits),
             "list_commands": {key: list(value) for key, value in self.list_commands.items()},
             "list_settings": dict(self.list_settings),
         }
@@ -292,17 +294,19 @@ def parse_profile(data: Mapping[str, Any], *, name: str, path: str | None = None
     connection = _parse_connection(data.get("connection", {}), fail)
 
     reading_fields: tuple[str, ...] = ("volts", "amps")
+    compliance_bits: dict[str, int] = {}
     list_commands: dict[str, tuple[str, ...]] = {}
     list_settings: dict[str, Any] = {}
     if role == "smu":
-        reading_fields = _parse_reading(data.get("reading", {}), fail)
+        reading_fields, compliance_bits = _parse_reading(data.get("reading", {}), fail)
         list_table = _table(data, "list", fail)
         settings_part = {key: value for key, value in list_table.items() if key in _LIST_SETTINGS}
         command_part = {key: value for key, value in list_table.items() if key not in _LIST_SETTINGS}
         list_commands = _parse_commands(command_part, _LIST_COMMANDS, "list", fail)
         list_settings = _parse_list_settings(settings_part, fail)
     return Profile(name=name, role=role, description=description, commands=commands, limits=limits,
-                   connection=connection, reading_fields=reading_fields, list_commands=list_commands,
+                   connection=connection, reading_fields=reading_fields, compliance_bits=compliance_bits,
+                   list_commands=list_commands,
                    list_settings=list_settings, format_version=version, source_path=path)
 
 
@@ -391,16 +395,23 @@ def _parse_connection(table: Any, fail) -> dict[str, Any]:
     return dict(table)
 
 
-def _parse_reading(table: Any, fail) -> tuple[str, ...]:
+def _parse_reading(table: Any, fail) -> tuple[tuple[str, ...], dict[str, int]]:
     if not isinstance(table, dict):
         raise fail("reading", "must be a table")
-    _reject_unknown(table, {"fields"}, "reading.", fail)
+    _reject_unknown(table, {"fields", "current_compliance_bit", "voltage_compliance_bit"}, "reading.", fail)
+    bits = {}
+    for limit_of in ("current", "voltage"):
+        key = f"{limit_of}_compliance_bit"
+        if key in table:
+            if type(table[key]) is not int or not 0 <= table[key] <= 15:
+                raise fail(f"reading.{key}", f"must be a bit number from 0 to 15, got {table[key]!r}")
+            bits[limit_of] = table[key]
     fields = table.get("fields", ["volts", "amps"])
     if (not isinstance(fields, list) or not all(isinstance(f, str) for f in fields)
             or not set(_READING_FIELDS) <= set(fields)):
         raise fail("reading.fields", "must list the reply's fields in order and include \"volts\" and \"amps\" "
                                      "(other fields are named anything and skipped)")
-    return tuple(fields)
+    return tuple(fields), bits
 
 
 def _parse_list_settings(table: Mapping[str, Any], fail) -> dict[str, Any]:

@@ -313,9 +313,22 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         return readings[0]
 
     def in_compliance(self) -> bool:
-        """True when the last reading hit the compliance limit."""
+        """True when the last reading hit the compliance limit.
+
+        With a ``reading.<limit>_compliance_bit`` in the profile the query answers a status register
+        (e.g. SCPI-1999 ``STATus:QUEStionable:CONDition?``) and that bit is tested; else it answers 0/1.
+        """
         limit_of = "current" if self._require_mode() == "voltage" else "voltage"
-        return self.ask_bool(f"{limit_of}_compliance_tripped")
+        bit = self.profile.compliance_bits.get(limit_of)
+        if bit is None:
+            return self.ask_bool(f"{limit_of}_compliance_tripped")
+        reply = self.ask(f"{limit_of}_compliance_tripped")
+        try:
+            register = int(float(reply))
+        except ValueError:
+            raise InstrumentError(f"unexpected reply {reply!r} to {limit_of}_compliance_tripped",
+                                  resource=self.resource) from None
+        return bool(register >> bit & 1)
 
     def compliance(self) -> float:
         """The compliance the instrument holds for the configured mode (needs the ``get_`` query)."""
@@ -344,6 +357,8 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         values = settings["separator"].join(format(float(level), settings["value_format"]) for level in levels)
         for operation, extra in (("clear_buffer", {}), (f"upload_{mode}", {"values": values}),
                                  ("dwell", {"seconds": float(dwell_s)}), (f"list_mode_{mode}", {})):
+            if operation not in self.profile.list_commands:  # optional (clear_buffer)
+                continue
             for line in self.profile.list_lines(operation, **extra):
                 self.send(line)
         for line in self.profile.list_lines("start"):

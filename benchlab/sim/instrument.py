@@ -28,6 +28,9 @@ SCPI_VERSION = "1999.0"
 # Most program message units one line may carry: bounds the instrument time one line can queue
 # (a line of READ? at 100 PLC each would otherwise keep the instrument busy for hours).
 MAX_UNITS_PER_MESSAGE = 32
+# STATus:QUEStionable condition bits (SCPI-1999 vol. 1, status reporting; from memory)
+QUESTIONABLE_VOLTAGE = 1 << 0
+QUESTIONABLE_CURRENT = 1 << 1
 
 COMMON_COMMANDS: tuple[CommandSpec, ...] = (
     CommandSpec("*IDN", True, "query_identity"),
@@ -45,6 +48,7 @@ COMMON_COMMANDS: tuple[CommandSpec, ...] = (
     CommandSpec("SYSTem:ERRor[:NEXT]", True, "query_error"),
     CommandSpec("SYSTem:ERRor:COUNt", True, "query_error_count"),
     CommandSpec("SYSTem:VERSion", True, "query_version"),
+    CommandSpec("STATus:QUEStionable:CONDition", True, "query_questionable_condition"),
     CommandSpec("SIMulation:PART:NEXT", False, "command_next_part"),
     CommandSpec("SIMulation:PART:INDex", True, "query_part_index"),
     CommandSpec("SIMulation:PART:LABel", True, "query_part_label"),
@@ -240,6 +244,17 @@ class SimInstrument:
 
     def query_version(self, params: list[Param]) -> str:
         return SCPI_VERSION
+
+    def questionable_condition(self) -> int:
+        """The QUEStionable condition register (SCPI-1999 vol. 1, status reporting): bit 0 VOLTage, bit 1 CURRent.
+
+        An instrument sets bit 1 while its current is held at a limit and bit 0 while its voltage is;
+        the others report 0.
+        """
+        return 0
+
+    def query_questionable_condition(self, params: list[Param]) -> str:
+        return str(self.questionable_condition())
 
     # ----------------------------------------------------------------- simulator-only commands
     def command_next_part(self, params: list[Param]) -> None:

@@ -18,9 +18,9 @@ from benchlab.sim.scpi import (
 )
 
 VOLTAGE_RANGES = (0.1, 1.0, 10.0, 100.0, 1000.0)
-CURRENT_RANGES = (0.01, 0.1, 1.0, 3.0)
+CURRENT_RANGES = (0.01, 0.1, 1.0, 2.0)  # A; ranges and NPLC bounds are our own figures
 OVER_RANGE = 1.2  # readable up to 120 % of the range (common practice)
-NPLC_MIN, NPLC_MAX = 0.02, 100.0
+NPLC_MIN, NPLC_MAX = 0.01, 50.0
 NOISE_PER_RANGE = {"VOLT": 1e-6, "CURR": 2e-6}  # sigma / range at 1 PLC
 FUNCTIONS = {"VOLT": VOLTAGE_RANGES, "CURR": CURRENT_RANGES}
 DEFAULT_RANGE = {"VOLT": 10.0, "CURR": 1.0}

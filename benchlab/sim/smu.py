@@ -1,9 +1,13 @@
 """The simulated source-measure unit (``SMU-1``), straight across the part in the ``smu`` fixture.
 
 Forces volts (0-20 V, current compliance) or amps (0-1 A, voltage compliance) and measures
-both. A list sweep is uploaded once (``LIST:VOLTage``), started once (``INITiate``) and read
-back in one ``TRACe:DATA?`` transfer. Each list point waits the dwell, then integrates for
-NPLC x 20 ms of virtual time.
+both. The compliance is the other quantity's SOURce limit (``CURRent:LIMit`` while forcing
+volts, ``VOLTage:LIMit`` while forcing amps); a reading held at it sets its bit in
+``STATus:QUEStionable:CONDition?``. A list sweep is uploaded once (``LIST:VOLTage``), started
+once (``INITiate``, which empties the buffer first) and read back in one ``TRACe:DATA?`` (or
+``FETCh:ARRay:VOLTage?`` / ``FETCh:ARRay:CURRent?``) transfer. Each list point waits the dwell,
+then integrates for NPLC x 20 ms of virtual time. The buffer holds up to 2000 readings (a limit
+of our own).
 """
 
 from __future__ import annotations
@@ -11,7 +15,7 @@ from __future__ import annotations
 import math
 
 from benchlab.sim.core import POWER_LINE_CYCLE_S
-from benchlab.sim.instrument import SimInstrument
+from benchlab.sim.instrument import QUESTIONABLE_CURRENT, QUESTIONABLE_VOLTAGE, SimInstrument
 from benchlab.sim.scpi import (
     CommandSpec, Param, ScpiError, boolean_value, choice_value, format_number, numeric_value,
 )
@@ -20,7 +24,7 @@ SMU_MAX_V = 20.0
 SMU_MAX_A = 1.0
 DEFAULT_I_COMPLIANCE = 0.1
 DEFAULT_V_COMPLIANCE = 20.0
-MAX_LIST_POINTS = 2500
+MAX_LIST_POINTS = 2000  # list and buffer length (our own figure)
 MAX_DWELL_S = 60.0
 NPLC_MIN, NPLC_MAX = 0.01, 10.0
 SETTLE_S = 0.001
@@ -41,18 +45,16 @@ class SimSmu(SimInstrument):
     ROLE = "smu"
     MODEL = "SMU-1"
     COMMANDS = (
-        CommandSpec("[SOURce:]FUNCtion[:MODE]", False, "set_function", 1, 1),
-        CommandSpec("[SOURce:]FUNCtion[:MODE]", True, "query_function"),
+        CommandSpec("[SOURce:]FUNCtion:MODE", False, "set_function", 1, 1),
+        CommandSpec("[SOURce:]FUNCtion:MODE", True, "query_function"),
         CommandSpec(_VOLT_LEVEL, False, "set_voltage", 1, 1),
         CommandSpec(_VOLT_LEVEL, True, "query_voltage"),
         CommandSpec(_CURR_LEVEL, False, "set_current", 1, 1),
         CommandSpec(_CURR_LEVEL, True, "query_current"),
-        CommandSpec("[SENSe:]CURRent[:DC]:PROTection[:LEVel]", False, "set_current_compliance", 1, 1),
-        CommandSpec("[SENSe:]CURRent[:DC]:PROTection[:LEVel]", True, "query_current_compliance"),
-        CommandSpec("[SENSe:]VOLTage[:DC]:PROTection[:LEVel]", False, "set_voltage_compliance", 1, 1),
-        CommandSpec("[SENSe:]VOLTage[:DC]:PROTection[:LEVel]", True, "query_voltage_compliance"),
-        CommandSpec("[SENSe:]CURRent[:DC]:PROTection:TRIPped", True, "query_tripped"),
-        CommandSpec("[SENSe:]VOLTage[:DC]:PROTection:TRIPped", True, "query_tripped"),
+        CommandSpec("[SOURce:]CURRent:LIMit[:AMPLitude]", False, "set_current_compliance", 1, 1),
+        CommandSpec("[SOURce:]CURRent:LIMit[:AMPLitude]", True, "query_current_compliance"),
+        CommandSpec("[SOURce:]VOLTage:LIMit[:AMPLitude]", False, "set_voltage_compliance", 1, 1),
+        CommandSpec("[SOURce:]VOLTage:LIMit[:AMPLitude]", True, "query_voltage_compliance"),
         CommandSpec("[SENSe:]CURRent[:DC]:NPLCycles", False, "set_nplc", 1, 1),
         CommandSpec("[SENSe:]CURRent[:DC]:NPLCycles", True, "query_nplc"),
         CommandSpec("[SENSe:]VOLTage[:DC]:NPLCycles", False, "set_nplc", 1, 1),
@@ -75,9 +77,9 @@ class SimSmu(SimInstrument):
         CommandSpec("[SOURce:]CURRent:MODE", False, "set_current_mode", 1, 1),
         CommandSpec("[SOURce:]CURRent:MODE", True, "query_current_mode"),
         CommandSpec("INITiate[:IMMediate]", False, "command_initiate"),
-        CommandSpec("TRACe:POINts:ACTual", True, "query_buffer_count"),
-        CommandSpec("TRACe:DATA", True, "query_buffer"),
-        CommandSpec("TRACe:CLEar", False, "command_clear_buffer"),
+        CommandSpec("TRACe[:DATA]", True, "query_buffer"),
+        CommandSpec("FETCh:ARRay:VOLTage[:DC]", True, "query_buffer_volts"),
+        CommandSpec("FETCh:ARRay:CURRent[:DC]", True, "query_buffer_amps"),
     )
 
     def reset_state(self) -> None:
@@ -138,8 +140,12 @@ class SimSmu(SimInstrument):
     def query_voltage_compliance(self, params: list[Param]) -> str:
         return format_number(self.core.fixture.sources.smu_v_compliance)
 
-    def query_tripped(self, params: list[Param]) -> str:
-        return "1" if self.tripped else "0"
+    def questionable_condition(self) -> int:
+        """Bit 1 (CURRent) when the last reading was held at the current limit (forcing volts), bit 0
+        (VOLTage) when held at the voltage limit (forcing amps)."""
+        if not self.tripped:
+            return 0
+        return QUESTIONABLE_CURRENT if self.core.fixture.sources.smu_function == "VOLTAGE" else QUESTIONABLE_VOLTAGE
 
     def set_nplc(self, params: list[Param]) -> None:
         self.nplc = numeric_value(params[0], NPLC_MIN, NPLC_MAX, default=1.0)
@@ -235,11 +241,12 @@ class SimSmu(SimInstrument):
         self.command_initiate([])
 
     def command_initiate(self, params: list[Param]) -> None:
-        """Run the list once (LIST mode) or take one reading into the buffer (FIXed mode)."""
+        """Empty the buffer, then run the list once (LIST mode) or take one reading into it (FIXed mode)."""
         sources = self.core.fixture.sources
         function = sources.smu_function
+        self.buffer = []
         if self.modes[function] != "LIST":
-            self.buffer.append(self._reading())
+            self.buffer = [self._reading()]
             return
         points = self.lists[function]
         if not sources.smu_on:
@@ -250,7 +257,6 @@ class SimSmu(SimInstrument):
             raise ScpiError(-226, "dwell list and source list differ in length")
         level_name = "smu_level_v" if function == "VOLTAGE" else "smu_level_i"
         fixed_level = getattr(sources, level_name)
-        self.buffer = []
         try:
             for index, level in enumerate(points):
                 self._change(**{level_name: level})
@@ -259,11 +265,12 @@ class SimSmu(SimInstrument):
         finally:
             self._change(**{level_name: fixed_level})
 
-    def query_buffer_count(self, params: list[Param]) -> str:
-        return str(len(self.buffer))
-
     def query_buffer(self, params: list[Param]) -> str:
+        """Every reading of the buffer as ``v1,i1,v2,i2,...`` (empty when there is none)."""
         return ",".join(f"{format_number(v)},{format_number(i)}" for v, i in self.buffer)
 
-    def command_clear_buffer(self, params: list[Param]) -> None:
-        self.buffer = []
+    def query_buffer_volts(self, params: list[Param]) -> str:
+        return ",".join(format_number(v) for v, _ in self.buffer)
+
+    def query_buffer_amps(self, params: list[Param]) -> str:
+        return ",".join(format_number(i) for _, i in self.buffer)

@@ -1,8 +1,12 @@
-"""The simulated one-channel DC supply (``PSU-1``): 0-30 V, 0-3 A, CV/CC."""
+"""The simulated one-channel DC supply (``PSU-1``): 0-30 V, 0-3 A, CV/CC.
+
+Its regulation state reads through ``STATus:QUEStionable:CONDition?`` (SCPI-1999): bit 1 (CURRent)
+is set while the output is on and held at the current limit (constant current).
+"""
 
 from __future__ import annotations
 
-from benchlab.sim.instrument import SimInstrument
+from benchlab.sim.instrument import QUESTIONABLE_CURRENT, SimInstrument
 from benchlab.sim.scpi import CommandSpec, Param, boolean_value, format_number, numeric_value
 
 SUPPLY_MAX_V = 30.0
@@ -31,7 +35,6 @@ class SimSupply(SimInstrument):
         CommandSpec(_CURRENT, True, "query_current_limit", 0, 1),
         CommandSpec("OUTPut[:STATe]", False, "set_output", 1, 1),
         CommandSpec("OUTPut[:STATe]", True, "query_output"),
-        CommandSpec("OUTPut:MODE", True, "query_mode"),
         CommandSpec("MEASure[:SCALar]:VOLTage[:DC]", True, "measure_voltage"),
         CommandSpec("MEASure[:SCALar]:CURRent[:DC]", True, "measure_current"),
     )
@@ -83,11 +86,12 @@ class SimSupply(SimInstrument):
     def query_output(self, params: list[Param]) -> str:
         return "1" if self.core.fixture.sources.supply_on else "0"
 
-    def query_mode(self, params: list[Param]) -> str:
+    def questionable_condition(self) -> int:
+        """Bit 1 (CURRent, value 2) while the output is on and regulating at its current limit."""
         self.core.catch_up()
         if not self.core.fixture.sources.supply_on:
-            return "OFF"
-        return self.core.fixture.operating_point().supply_mode
+            return 0
+        return QUESTIONABLE_CURRENT if self.core.fixture.operating_point().supply_mode == "CC" else 0
 
     def measure_voltage(self, params: list[Param]) -> str:
         point = self.core.take_reading(READBACK_S)

@@ -137,7 +137,7 @@ def test_smu_profile_needs_its_list_table(tmp_path):
     with pytest.raises(ConfigError) as caught:
         load_text(tmp_path, without_list)
     assert caught.value.key == "list"
-    bad_points = text.replace("max_points = 2500", "max_points = 0")
+    bad_points = text.replace("max_points = 2000", "max_points = 0")
     with pytest.raises(ConfigError) as caught:
         load_text(tmp_path, bad_points)
     assert caught.value.key == "list.max_points"

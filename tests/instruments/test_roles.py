@@ -35,7 +35,8 @@ def _server_for(role: str) -> FakeScpiServer:
     elif role == "meter":
         server.replies.update({"READ?": "1.234E0"})
     else:
-        server.replies.update({"READ?": "2.5,0.025", "SENS:CURR:PROT:TRIP?": "0", "SENS:VOLT:PROT:TRIP?": "1",
+        # QUEStionable condition 1: bit 0 (VOLTage) set, bit 1 (CURRent) clear (SCPI-1999 status reporting)
+        server.replies.update({"READ?": "2.5,0.025", "STAT:QUES:COND?": "1",
                                "TRAC:DATA?": lambda q: _trace_data(q, server)})
     return server
 
@@ -80,9 +81,9 @@ TABLE = [
     ("meter", [lambda m: m.configure_voltage(None, nplc=5)], lambda m: m.nplc_setting(), ["VOLT:DC:NPLC?"], 5.0),
     ("meter", [], lambda m: m.close(), [], None),
     ("smu", [], lambda u: u.configure_source("voltage", 0.1),
-     ["SENS:CURR:PROT 0.1", E, "SOUR:FUNC VOLT", E], None),
+     ["SOUR:CURR:LIM 0.1", E, "SOUR:FUNC:MODE VOLT", E], None),  # SCPI-1999 SOURce: the limit, then the function
     ("smu", [], lambda u: u.configure_source("current", 5),
-     ["SENS:VOLT:PROT 5", E, "SOUR:FUNC CURR", E], None),
+     ["SOUR:VOLT:LIM 5", E, "SOUR:FUNC:MODE CURR", E], None),
     ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.set_level(2.5),
      ["SOUR:VOLT 2.5", E], None),
     ("smu", [lambda u: u.configure_source("current", 5)], lambda u: u.set_level(0.002),
@@ -92,13 +93,13 @@ TABLE = [
     ("smu", [], lambda u: u.output_is_on(), ["OUTP?"], False),
     ("smu", [], lambda u: u.measure(), ["READ?"], (2.5, 0.025)),
     ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.in_compliance(),
-     ["SENS:CURR:PROT:TRIP?"], False),
+     ["STAT:QUES:COND?"], False),  # bit 1 (CURRent) clear
     ("smu", [lambda u: u.configure_source("current", 5)], lambda u: u.in_compliance(),
-     ["SENS:VOLT:PROT:TRIP?"], True),
+     ["STAT:QUES:COND?"], True),  # bit 0 (VOLTage) set
     ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.compliance(),
-     ["SENS:CURR:PROT?"], 0.1),
+     ["SOUR:CURR:LIM?"], 0.1),
     ("smu", [lambda u: u.configure_source("voltage", 0.1)], lambda u: u.run_list([0.5, 1.0, 1.5], 0.01),
-     ["TRAC:CLE", E, "SOUR:LIST:VOLT 0.5,1,1.5", E, "SOUR:LIST:DWEL 0.01", E, "SOUR:VOLT:MODE LIST", E,
+     ["SOUR:LIST:VOLT 0.5,1,1.5", E, "SOUR:LIST:DWEL 0.01", E, "SOUR:VOLT:MODE LIST", E,
       "INIT", E, "*OPC?", "TRAC:DATA?", "SOUR:VOLT:MODE FIX", E],
      [(0.5, 0.005), (1.0, 0.01), (1.5, 0.015)]),
     ("smu", [], lambda u: u.close(), [], None),

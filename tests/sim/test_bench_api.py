@@ -112,7 +112,7 @@ def test_thermal_history_follows_the_virtual_clock_not_the_wall(make_bench, rm):
     # first-order response T = Tamb + P Rth (1 - exp(-t / tau)) (Newton's law of cooling)
     bench = make_bench(fixture="smu")
     smu = open_client(rm, bench.resources["smu"])
-    smu.write("FUNC CURR;:SENS:VOLT:PROT 20;:CURR 0.2;:OUTP ON")
+    smu.write("FUNC:MODE CURR;:VOLT:LIM 20;:CURR 0.2;:OUTP ON")
     smu.write("LIST:CURR 0.2;:LIST:DWEL 45;:CURR:MODE LIST;:INIT")
     volts, amps = (float(x) for x in smu.query("READ?").split(","))
     temperature = float(smu.query("SIM:TEMP?"))

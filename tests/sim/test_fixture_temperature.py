@@ -43,7 +43,7 @@ def test_self_heating_settles_at_block_plus_power_times_rth(make_bench, rm):
     smu = open_client(rm, bench.resources["smu"])
     smu.write("SIM:FIXT:TEMP 320")
     smu.query("SIM:CLOC:ADV 2000;*OPC?")
-    smu.write("SOUR:FUNC CURR;:SENS:VOLT:PROT 10;:SOUR:CURR 0.2;:OUTP ON")
+    smu.write("SOUR:FUNC:MODE CURR;:SOUR:VOLT:LIM 10;:SOUR:CURR 0.2;:OUTP ON")
     smu.query("SIM:CLOC:ADV 600;*OPC?")
     volts = float(smu.query("MEAS:VOLT?"))
     smu.query("OUTP OFF;*OPC?")

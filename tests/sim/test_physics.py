@@ -174,8 +174,8 @@ def _smu(make_bench, rm, **kwargs):
 
 
 def _sweep_list(smu, function: str, levels, compliance: float, dwell: float = 0.0, nplc: float = 1.0):
-    prot = "SENS:CURR:PROT" if function == "VOLT" else "SENS:VOLT:PROT"
-    smu.write(f"FUNC {function};{prot} {compliance};:SENS:CURR:NPLC {nplc}")
+    limit = "CURR:LIM" if function == "VOLT" else "VOLT:LIM"  # the compliance: the other quantity's SOURce limit
+    smu.write(f"FUNC:MODE {function};:{limit} {compliance};:SENS:CURR:NPLC {nplc}")
     smu.write(f"LIST:{function} " + ",".join(f"{x:.6g}" for x in levels))
     smu.write(f"LIST:DWEL {dwell};:{function}:MODE LIST;:OUTP ON")
     smu.write("INIT")
@@ -191,7 +191,7 @@ def test_iv_curve_over_tcp_is_monotonic(make_bench, rm):
     truth = parse_truth_reply(smu.query("SIM:PART:TRUT?"))
     levels = np.linspace(truth["vth_ref"] - 0.3, truth["vth_ref"] + 0.5, 41)
     volts, amps = _sweep_list(smu, "VOLT", levels, 1.0, nplc=10)
-    assert int(smu.query("TRAC:POIN:ACT?")) == 41
+    assert len(smu.query("FETC:ARR:CURR?").split(",")) == 41  # SCPI-1999 FETCh:ARRay: one value per reading
     assert np.all(np.diff(amps) > 0)
     assert amps[0] < 1e-4 < 0.1 < amps[-1] < 1.0
     assert bench.log.output_history("smu") == [True, False]
@@ -283,10 +283,11 @@ def test_resistor_fixture_kirchhoff(make_bench, rm):
     part_v = float(meter.query("MEAS:VOLT?"))
     part_i = float(meter.query("MEAS:CURR?"))
     supply_v = float(supply.query("MEAS:VOLT?"))
-    assert supply.query("OUTP:MODE?") == "CV"
+    # regulation state: SCPI-1999 STATus:QUEStionable:CONDition?, bit 1 (CURRent) set only at the current limit
+    assert supply.query("STAT:QUES:COND?") == "0"
     assert supply_v == pytest.approx(part_v + part_i * bench.series_resistor_actual_ohm, abs=5e-3)
     assert supply.query("CURR 0.05;*OPC?") == "1"
-    assert supply.query("OUTP:MODE?") == "CC"
+    assert supply.query("STAT:QUES:COND?") == "2"
     assert float(meter.query("MEAS:CURR?")) == pytest.approx(0.05, rel=1e-3)
     assert supply.query("OUTP OFF;*OPC?") == "1"
     assert not bench.log.output_was_left_on()

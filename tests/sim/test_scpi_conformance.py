@@ -175,9 +175,12 @@ def test_smu_lists_compliance_and_list_errors(make_bench, rm):
 
     bench = make_bench(fixture="smu")
     smu = open_client(rm, bench.resources["smu"])
-    smu.write("FUNC VOLT;:SENS:CURR:PROT 10 MA;:LIST:VOLT 1,2,8;:VOLT:MODE LIST")
-    assert smu.query("LIST:VOLT:POIN?;:VOLT:MODE?;:FUNC?") == "3;LIST;VOLT"
-    assert float(smu.query("SENS:CURR:PROT?")) == pytest.approx(0.01)
+    # SCPI-1999 vol. 2, SOURce: FUNCtion's default node is not MODE, so :MODE is written out; a bare FUNC is -113
+    smu.write("FUNC VOLT")
+    assert drain_errors(smu) == [-113]
+    smu.write("FUNC:MODE VOLT;:CURR:LIM 10 MA;:LIST:VOLT 1,2,8;:VOLT:MODE LIST")
+    assert smu.query("LIST:VOLT:POIN?;:VOLT:MODE?;:FUNC:MODE?") == "3;LIST;VOLT"
+    assert float(smu.query("SOUR:CURR:LIM:AMPL?")) == pytest.approx(0.01)
     smu.write("INIT")
     assert drain_errors(smu) == [-221]  # output off
     smu.write("OUTP ON;:LIST:DWEL 0.1,0.2")
@@ -185,17 +188,21 @@ def test_smu_lists_compliance_and_list_errors(make_bench, rm):
     assert drain_errors(smu) == [-226]  # two dwell values for three points
     smu.write("LIST:DWEL 0;:INIT")
     data = [float(x) for x in smu.query("TRAC:DATA?").split(",")]
-    assert len(data) == 6 and smu.query("TRAC:POIN:ACT?") == "3"
+    volts = [float(x) for x in smu.query("FETC:ARR:VOLT?").split(",")]
+    amps = [float(x) for x in smu.query("FETC:ARR:CURR?").split(",")]
+    assert len(data) == 6 and data[0::2] == volts and data[1::2] == amps  # the same buffer, two SCPI-1999 reads
     # 8 V is far above threshold: the current is held at the 10 mA compliance and VGS drops to carry it
     assert data[5] == pytest.approx(0.01, rel=1e-3) and 2.0 < data[4] < 4.0
-    assert smu.query("SENS:CURR:PROT:TRIP?") == "1"
-    smu.write("TRAC:CLE")
-    assert smu.query("TRAC:POIN:ACT?") == "0"
-    smu.write("*TRG")  # in LIST mode a bus trigger runs the list again
-    assert smu.query("TRAC:POIN:ACT?") == "3"
-    smu.write("VOLT:MODE FIX;:VOLT 1.0;:INIT")
-    assert smu.query("TRAC:POIN:ACT?") == "4"
-    assert smu.query("SENS:CURR:PROT:TRIP?") == "0"
+    # held at the current limit: bit 1 (CURRent) of the QUEStionable condition (SCPI-1999 status reporting)
+    assert smu.query("STAT:QUES:COND?") == "2"
+    smu.write("*TRG")  # in LIST mode a bus trigger runs the list again, into an emptied buffer
+    assert len(smu.query("TRAC:DATA?").split(",")) == 6
+    smu.write("VOLT:MODE FIX;:VOLT 1.0;:INIT")  # INITiate empties the buffer, then takes one reading
+    assert len(smu.query("TRAC:DATA?").split(",")) == 2
+    assert smu.query("STAT:QUES:COND?") == "0"
+    for gone in ("TRAC:CLE", "TRAC:POIN:ACT?", "SENS:CURR:PROT 0.1", "SENS:CURR:PROT:TRIP?"):
+        smu.write(gone)  # spellings of no standard: undefined headers
+        assert drain_errors(smu) == [-113], gone
     assert smu.query("OUTP OFF;*OPC?") == "1"
     assert drain_errors(smu) == []
 
@@ -206,8 +213,10 @@ def test_meter_configuration_queries(meter):
     assert meter.query("FUNC?") == '"CURR"'
     meter.write("CURR:RANG:AUTO ON;:VOLT:NPLC 10")
     assert meter.query("CURR:RANG:AUTO?;:VOLT:NPLC?") == "1;+1.000000000E+01"
-    meter.write("VOLT:NPLC 1000")
+    meter.write("VOLT:NPLC 60")  # our own bounds: 0.01 to 50
     assert drain_errors(meter) == [-222]
+    meter.write("VOLT:NPLC 0.01;:CURR:RANG MAX")
+    assert meter.query("VOLT:NPLC?;:CURR:RANG?") == "+1.000000000E-02;+2.000000000E+00"  # top range 2 A
     meter.write("FUNC VOLT")  # must be a quoted string
     assert drain_errors(meter) == [-104]
     meter.write("*TRG")
@@ -257,3 +266,22 @@ def test_every_instrument_speaks_the_common_commands(bench, rm, role, model):
     inst.write("*RST;*OPC")
     assert int(inst.query("*ESR?")) & 1  # operation complete bit
     assert inst.query("*OPC?") == "1"
+
+
+def test_smu_buffer_limit_and_voltage_compliance_bit(make_bench, rm):
+    # the list/buffer limit is our own figure (2000 points): one more is -223 too much data (SCPI-1999 vol. 2,
+    # error list); forcing amps, a reading held at the voltage limit sets bit 0 (VOLTage) of the QUEStionable
+    # condition (SCPI-1999 status reporting)
+    from tests.sim.conftest import open_client
+
+    bench = make_bench(fixture="smu")
+    smu = open_client(rm, bench.resources["smu"])
+    smu.write("LIST:VOLT " + ",".join(["1"] * 2001))
+    assert drain_errors(smu) == [-223]
+    smu.write("LIST:VOLT " + ",".join(["1"] * 2000))
+    assert drain_errors(smu) == [] and smu.query("LIST:VOLT:POIN?") == "2000"
+    smu.write("FUNC:MODE CURR;:VOLT:LIM 0.5;:CURR 0.2;:OUTP ON")  # 0.2 A needs ~3 V: held at 0.5 V
+    smu.query("READ?")
+    assert smu.query("STAT:QUES:COND?") == "1"
+    assert smu.query("OUTP OFF;*OPC?") == "1"
+    assert drain_errors(smu) == []

@@ -18,7 +18,7 @@ from .simhelp import plan_for, sim_bench, source_role
 LIMITS = Limits(max_supply_v=6.0, max_drain_a=0.08, max_power_w=0.12)
 
 # The commands the generic profiles send for these settings (drivers/generic-scpi-*.toml).
-LIMIT_COMMAND = {"supply": r"CURR ([-+0-9.eE]+)$", "smu": r"SENS:CURR:PROT ([-+0-9.eE]+)$"}
+LIMIT_COMMAND = {"supply": r"CURR ([-+0-9.eE]+)$", "smu": r"SOUR:CURR:LIM ([-+0-9.eE]+)$"}
 SETPOINT_COMMAND = {"supply": r"VOLT ([-+0-9.eE]+)$", "smu": r"SOUR:VOLT ([-+0-9.eE]+)$"}
 
 
