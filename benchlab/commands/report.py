@@ -1,4 +1,4 @@
-"""``benchlab report``: an HTML report (index.html + PNG figures) of a lot and optionally one design."""
+"""``benchlab report``: a self-contained HTML report (figures embedded) of a lot and optionally one design."""
 
 from __future__ import annotations
 

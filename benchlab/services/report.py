@@ -15,6 +15,10 @@ from benchlab.services.library import open_library
 def write_report(library_path, lot: str, out_dir: str, design_id: int | None = None,
                  pdf: str | None = None) -> ReportFiles:
     """Write ``out_dir/index.html`` (self-contained) for ``lot`` (and design ``design_id``), and ``pdf`` when given."""
+    if pdf is not None:  # a PDF that cannot be written is refused before the report is
+        target = Path(pdf)
+        if target.suffix.lower() != ".pdf" or target.is_dir() or not target.parent.is_dir():
+            raise InputError("--pdf needs a .pdf file name in an existing folder", path=str(target))
     with open_library(library_path) as lib:
         data = collect(lib, lot, design_id)
     return build_report(data, out_dir, pdf=pdf)

@@ -173,3 +173,12 @@ def test_a_label_that_looks_like_math_is_drawn_as_text():
     design = {"supply": 12.0, "r_chosen": 390.0, "ref": f"{LOT}/{label}", "i_ref": 0.02, "load_voltage": 3.0,
               "outputs": [{"part": f"{LOT}/{label}x", "i_out": 0.02}]}
     _check_png(png_bytes(sink_schematic(design)))
+
+
+def test_a_pdf_that_cannot_be_written_is_refused_before_anything_is(recorded, capsys, tmp_path):
+    root, lib, _ = recorded
+    for bad in (tmp_path / "missing" / "r.pdf", tmp_path / "r.png"):
+        code, out = _run(capsys, ["report", "--library", lib, "--lot", LOT, "--out", str(tmp_path / "r"),
+                                  "--pdf", str(bad)])
+        assert code == 2 and out.err.count("\n") == 1 and "--pdf" in out.err
+        assert not (tmp_path / "r").exists() and not bad.exists()
