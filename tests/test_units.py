@@ -18,7 +18,7 @@ from benchlab.units import format_si, parse_quantity
     ("10R", "ohm", 10.0), ("250 uA", "A", 250e-6), ("250µA", "A", 250e-6), ("-1e-5", "A", -1e-5),
     ("-10u", "A", -10e-6), ("1 %", "%", 0.01), ("0.02", "%", 0.02), ("25 degC", "degC", 25.0),
     ("-5 °C", "degC", -5.0), ("-5m", "V/K", -5e-3), ("2.5", "K/W", 2.5), ("1.5M", "ohm", 1.5e6), ("3", "", 3.0),
-    ("0.544 A/V", "A/V", 0.544), ("40m", "A/V2", 0.04),
+    ("0.8 A/V", "A/V", 0.8), ("40m", "A/V2", 0.04),
 ])
 def test_parse(text, unit, expected):
     assert parse_quantity(text, unit) == pytest.approx(expected, rel=1e-12)
@@ -42,7 +42,8 @@ def test_refused(text, unit, words):
 
 
 @pytest.mark.parametrize("value, unit, digits, text", [
-    (0.008085, "A", 3, "8.09 mA"), (0.008085, "A", 4, "8.085 mA"), (0.99996, "A", 3, "1 A"),
+    (0.014021, "A", 3, "14 mA"), (0.014021, "A", 4, "14.02 mA"), (0.008085, "A", 3, "8.09 mA"),
+    (0.99996, "A", 3, "1 A"),
     (0.0009996, "A", 3, "1 mA"), (999.6, "ohm", 3, "1 kohm"), (4700.0, "ohm", 4, "4.7 kohm"),
     (120e-6, "A", 2, "120 uA"), (-0.02, "A", 3, "-20 mA"), (0.0, "V", 3, "0 V"), (None, "A", 3, "-"),
     (3e-15, "A", 3, "3e-15 A"), (12.0, "V", 6, "12 V"), (1e-12, "A", 3, "1 pA"), (2.5e9, "Hz", 3, "2.5 GHz"),

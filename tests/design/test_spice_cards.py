@@ -43,7 +43,7 @@ def test_square_and_theta_cards_reproduce_the_fitted_curve_in_ngspice(ngspice_pa
 
 @pytest.mark.ngspice
 def test_linear_card_is_exact_at_its_stated_current(ngspice_path, tmp_path):
-    # Linear rule-of-thumb part (common practice): its square-law equivalent must give the same VGS in
+    # Linear rule-of-thumb part (common practice; the textbook check values): its square-law equivalent must give the same VGS in
     # ngspice at the current it was built for, and a nearby VGS (within 3 mV) at 1.5x that current.
     params = DeviceParams("linear", 3.9, gm=0.544)
     card = model_card("Q02", params, at_current=8e-3)

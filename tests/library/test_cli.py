@@ -24,7 +24,8 @@ def run(capsys, *argv):
 
 def test_parts_commands(capsys, library_target):
     db = library_target
-    code, out, _ = run(capsys, "parts", "add", "Q07", "--lot", "demo-bag", "--vth", "3.9", "--gm", "0.544",
+    # an invented hand-entered part of the grow-rack scenario
+    code, out, _ = run(capsys, "parts", "add", "Q07", "--lot", "demo-bag", "--vth", "2.95", "--gm", "0.8",
                        "--library", db)
     assert code == 0 and "demo-bag/Q07" in out and "linear" in out
     code, out, _ = run(capsys, "parts", "add", "Q08", "--lot", "demo-bag", "--vth", "2.8", "--kp", "1.1",
@@ -36,9 +37,9 @@ def test_parts_commands(capsys, library_target):
     assert code == 2 and out == "" and err.count("\n") == 1  # one line, no traceback
     assert "ambiguous" in err and "demo-bag/Q07" in err and "other/Q07" in err
     code, out, _ = run(capsys, "parts", "show", "demo-bag/Q07", "--library", db, "--json")
-    assert json.loads(out)["part"]["params"]["gm"] == 0.544
+    assert json.loads(out)["part"]["params"]["gm"] == 0.8
     code, out, _ = run(capsys, "parts", "show", "demo-bag/Q07", "--library", db)
-    assert code == 0 and "curve (linear): vth=3.9 V, gm=0.544 A/V" in out and "hand" in out
+    assert code == 0 and "curve (linear): vth=2.95 V, gm=0.8 A/V" in out and "hand" in out
 
     code, _, err = run(capsys, "parts", "add", "Q09", "--vth", "3", "--gm", "0.5", "--kp", "1", "--library", db)
     assert code == 2 and "not both" in err
