@@ -201,7 +201,9 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
 def _plainly_good(vgs, i_d) -> bool:
     if vgs.size == 0 or vgs.size != i_d.size:
         return False
-    rising = (np.diff(vgs) > 0) & (np.diff(i_d) > 0)
+    # rising current with no joint step back (VGS alone may jitter back by noise where the part is steep)
+    dv, di = np.diff(vgs), np.diff(i_d)
+    rising = (di > 0) & ~((dv <= 0) & (di <= 0))
     return bool(rising.all() and i_d[0] > 0 and i_d[-1] <= MAX_PLAUSIBLE_CURRENT_A
                 and abs(vgs[0]) <= MAX_PLAUSIBLE_VOLTAGE_V and abs(vgs[-1]) <= MAX_PLAUSIBLE_VOLTAGE_V
                 and np.isfinite(vgs[-1]) and np.isfinite(i_d[-1]))
@@ -286,7 +288,7 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the file ({exc.__class__.__name__}: {exc})", path=name) from None
     # blank lines are skipped but still counted, so a row number is the data row a reader sees
-    numbered = [(k, row) for k, row in enumerate(table) if any(cell.strip() for cell in row)]
+    numbered = [(k, row) for k, row in enumerate(table) if row and (len(row) > 1 or row[0].strip())]
     if not numbered:
         raise InputError("the file is empty (expected a header row with 'vgs' and 'id')", path=name)
     header_at, header = numbered[0]
@@ -299,47 +301,26 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     # taken in point order, and a heating fold-back in it is data, not disorder
     point_col = index.get("point")
     ordered = point_col is not None or "v_source" in index
-    if point_col is not None:
-        def point_of(item):
-            cells = item[1]
-            try:
-                return float(cells[point_col]) if point_col < len(cells) else math.inf
-            except ValueError:
-                return math.inf
-        body = sorted(body, key=point_of)
-    vgs, i_d, direction, rows, skipped = [], [], [], [], {}
-    for row_number, row in body:
-        status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
-        if status != PointStatus.OK:
-            skipped[status] = skipped.get(status, 0) + 1
-            continue
-        values = []
-        for column in ("vgs", "id"):
-            position = index[column]
-            cell = row[position].strip() if position < len(row) else ""
-            try:
-                values.append(float(cell))
-            except ValueError:
-                raise InputError(f"{column} value '{cell}' is not a number", path=name, row=row_number) from None
-        vgs.append(values[0])
-        i_d.append(values[1])
-        rows.append(row_number)
-        if direction_col is not None:
-            direction.append(row[direction_col] if direction_col < len(row) else "")
+    columns = _columns(body, len(header), index)
+    if columns is not None:  # every row whole and numeric: one numpy pass
+        vgs, i_d, rows, direction, skipped = _from_columns(columns, status_col, point_col, direction_col)
+    else:
+        vgs, i_d, rows, direction, skipped = _row_by_row(body, index, status_col, point_col, direction_col, name)
     # the part's noise floor: readings before it conducts scatter around zero (some negative); they
     # are dropped with the session's detection current when there is one, else below a floor
     # estimated from the data (the same points either way, so a CSV fits as its session does)
+    vgs, i_d, rows = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(rows, int)
     floor = detection_floor(i_d)
     why = "noise_floor"
     if detect_current is not None and detect_current >= floor:
         floor, why = detect_current, "not_conducting"
     if floor > 0:
-        keep = [k for k, i in enumerate(i_d) if not (math.isfinite(i) and i < floor)]
-        if len(keep) < len(i_d):
-            skipped[why] = skipped.get(why, 0) + len(i_d) - len(keep)
-            vgs, i_d, rows = [vgs[k] for k in keep], [i_d[k] for k in keep], [rows[k] for k in keep]
-            direction = [direction[k] for k in keep] if direction_col is not None else direction
-    if not vgs:
+        keep = ~(np.isfinite(i_d) & (i_d < floor))
+        if not keep.all():
+            skipped[why] = skipped.get(why, 0) + int((~keep).sum())
+            vgs, i_d, rows = vgs[keep], i_d[keep], rows[keep]
+            direction = [d for d, k in zip(direction, keep) if k] if direction_col is not None else direction
+    if not vgs.size:
         raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
     return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
                            source=name, skipped=skipped, ordered=ordered)
@@ -379,6 +360,66 @@ def detection_floor(currents) -> float:
         return 0.0
     # exact zeros carry no scale: drop them (and only them) then
     return floor if floor > 0 else float(np.nextafter(0.0, 1.0))
+
+
+def _columns(body, width, index):
+    # the rows as columns of strings when every row has the header's width and the numbers parse
+    if any(len(row) != width for _, row in body):
+        return None
+    cols = list(zip(*(row for _, row in body)))
+    try:
+        numbers = {name: np.array(cols[index[name]], dtype=float) for name in ("vgs", "id")}
+        if "point" in index:
+            numbers["point"] = np.array(cols[index["point"]], dtype=float)
+    except ValueError:
+        return None  # the row-by-row reader names the bad cell
+    return np.array([k for k, _ in body]), cols, numbers
+
+
+def _from_columns(columns, status_col, point_col, direction_col):
+    row_numbers, cols, numbers = columns
+    count = row_numbers.size
+    order = np.argsort(numbers["point"], kind="stable") if point_col is not None else np.arange(count)
+    status = ([s.strip().lower() for s in cols[status_col]] if status_col is not None else ["ok"] * count)
+    status = np.asarray(status, dtype=object)[order]
+    ok = status == PointStatus.OK
+    skipped = {}
+    for value in status[~ok]:
+        skipped[value] = skipped.get(value, 0) + 1
+    take = order[ok]
+    direction = [cols[direction_col][k] for k in take] if direction_col is not None else []
+    return numbers["vgs"][take], numbers["id"][take], row_numbers[take], direction, skipped
+
+
+def _row_by_row(body, index, status_col, point_col, direction_col, name):
+    if point_col is not None:
+        def point_of(item):
+            cells = item[1]
+            try:
+                return float(cells[point_col]) if point_col < len(cells) else math.inf
+            except ValueError:
+                return math.inf
+        body = sorted(body, key=point_of)
+    vgs, i_d, direction, rows, skipped = [], [], [], [], {}
+    for row_number, row in body:
+        status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
+        if status != PointStatus.OK:
+            skipped[status] = skipped.get(status, 0) + 1
+            continue
+        values = []
+        for column in ("vgs", "id"):
+            position = index[column]
+            cell = row[position].strip() if position < len(row) else ""
+            try:
+                values.append(float(cell))
+            except ValueError:
+                raise InputError(f"{column} value '{cell}' is not a number", path=name, row=row_number) from None
+        vgs.append(values[0])
+        i_d.append(values[1])
+        rows.append(row_number)
+        if direction_col is not None:
+            direction.append(row[direction_col] if direction_col < len(row) else "")
+    return vgs, i_d, rows, direction, skipped
 
 
 def _describe(skipped: dict) -> str:

@@ -110,7 +110,7 @@ def test_csv_copied_out_of_its_session_fits_as_the_session(spice, tmp_path):
     import shutil
 
     from benchlab.services.fitting import fit_files
-    from benchlab.sweep.records import SweepPoint
+    from benchlab.sweep.records import SweepOutcome, SweepPoint
     from benchlab.sweep.session import SessionWriter
 
     v_supply, v_part, i_d = spice.resistor_sweep(LEVEL3, resistor=470.0, step=0.05)
@@ -122,6 +122,8 @@ def test_csv_copied_out_of_its_session_fits_as_the_session(spice, tmp_path):
     for k, (vs, v, i) in enumerate(zip(v_supply, noisy_v, noisy_i)):
         recorder.append(SweepPoint(point=k, time_s=0.01 * k, vgs=float(v), id=float(i), v_source=float(vs),
                                    i_source=float(i), status="ok", direction="up", spread_v=0.0))
+    recorder.finish(SweepOutcome(label="Q01", complete=True, stop_reason="done", classification="good",
+                                 reason="invented test part", points=(), powered_s=1.0, elapsed_s=1.0))
     assert np.any(noisy_i < 0)
     copy_dir = tmp_path / "copied"
     copy_dir.mkdir()

@@ -1,0 +1,144 @@
+"""Benchmark: ``benchlab fit`` end to end on many CSV files, against a loadtxt + curve_fit loop; and
+``benchlab library refit`` of many stored parts.
+
+Run: ``cd /work/main && python benchmarks/bench_fit_end_to_end.py [--files N] [--points N] [--parts N]``
+
+Writes N plain CSV files (``vgs,id``, 100 points of invented THETA-law parts from 100 uA to 100 mA with
+0.05 % noise on both axes; test data only), then, side by side in one run:
+
+- ``benchlab fit --json`` on all files, in process through the CLI's ``main`` (path resolution, reading
+  and checking every file, batched fits, thresholds, flags, standard errors, JSON Lines to a null
+  stream), with ``--model theta`` and with the automatic model choice;
+- a plain Python loop of ``np.loadtxt`` + ``scipy.optimize.curve_fit`` of the THETA model on the same
+  files (relative error model, bounds KP > 0 and THETA >= 0, a sqrt(ID) line as the start);
+
+and prints files per second, the ratios (aim: at least 5x with ``--model theta``, 3x with auto) and the
+median threshold error of each against the parts' true values (equal accuracy). Then it imports
+``--parts`` sweeps into a fresh library (without fitting) and times ``benchlab library refit``.
+The ratios, not the absolute times, are the result.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import json
+import os
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+from scipy.optimize import curve_fit
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT))  # run from a checkout without installing
+sys.path.insert(0, str(ROOT / "tests" / "library"))
+
+from benchlab.cli import main  # noqa: E402
+from benchlab.models import DeviceParams  # noqa: E402
+
+AIM = {"theta": 5.0, "auto": 3.0}
+
+
+def write_files(folder: Path, count: int, points: int, seed: int = 5):
+    rng = np.random.default_rng(seed)
+    truth = []
+    for k in range(count):
+        part = DeviceParams("theta", vth=float(rng.normal(3.0, 0.15)), kp=float(rng.normal(1.2, 0.1)),
+                            theta=float(abs(rng.normal(0.1, 0.03))))
+        currents = np.geomspace(1e-4, 0.1, points)
+        vgs = part.vgs_at(currents) * (1 + rng.normal(0, 5e-4, points))
+        ids = currents * (1 + rng.normal(0, 5e-4, points))
+        lines = ["vgs,id"] + [f"{v!r},{i!r}" for v, i in zip(vgs.tolist(), ids.tolist())]
+        (folder / f"P{k:05d}.csv").write_text("\n".join(lines) + "\n")
+        truth.append(part.vth)
+    return sorted(folder.glob("*.csv")), np.array(truth)
+
+
+def theta_law(vgs, vth, kp, theta):
+    q = np.maximum(vgs - vth, 0.0)
+    return 0.5 * kp * q * q / (1.0 + theta * q)
+
+
+def loop_fit(files):
+    vth = []
+    for path in files:
+        data = np.loadtxt(path, delimiter=",", skiprows=1)
+        vgs, ids = data[:, 0], data[:, 1]
+        upper = ids >= 0.05 * ids.max()
+        slope, intercept = np.polyfit(vgs[upper], np.sqrt(ids[upper]), 1)
+        start = (-intercept / slope, 2 * slope * slope, 0.05)
+        popt, _ = curve_fit(theta_law, vgs, ids, p0=start, sigma=ids, bounds=([-np.inf, 1e-15, 0.0], np.inf))
+        vth.append(popt[0])
+    return np.array(vth)
+
+
+def cli_fit(files, model):
+    out = io.StringIO()
+    with contextlib.redirect_stdout(out):
+        code = main(["fit", "--json", "--model", model, *map(str, files)])
+    assert code == 0, code
+    return np.array([json.loads(line)["vth"] for line in out.getvalue().splitlines()])
+
+
+def timed(func, *args):
+    start = time.perf_counter()
+    value = func(*args)
+    return time.perf_counter() - start, value
+
+
+def bench_refit(parts: int, points: int) -> None:
+    from session_builder import write_session
+
+    rng = np.random.default_rng(9)
+    with tempfile.TemporaryDirectory() as tmp:
+        root = Path(tmp)
+        per_session = 500
+        for s in range(0, parts, per_session):
+            bag = [{"label": f"Q{k:05d}", "count": points, "noise": 5e-4,
+                    "params": DeviceParams("theta", vth=float(rng.normal(3.0, 0.15)), kp=float(rng.normal(1.2, 0.1)),
+                                           theta=float(abs(rng.normal(0.1, 0.03))))}
+                   for k in range(s, min(s + per_session, parts))]
+            write_session(root / "sessions", f"s{s:05d}", "BIG", bag)
+        library = str(root / "lib.db")
+        with contextlib.redirect_stdout(io.StringIO()):
+            t_import, code = timed(main, ["library", "import", str(root / "sessions"), "--no-refit",
+                                          "--library", library, "--json"])
+        assert code == 0
+        out = io.StringIO()
+        with contextlib.redirect_stdout(out):
+            t_refit, code = timed(main, ["library", "refit", "--json", "--library", library])
+        assert code == 0
+        done = len(json.loads(out.getvalue())["refitted"])
+        print(f"library refit: {done} parts of {points} points re-fitted and stored in {t_refit:.1f} s "
+              f"({done / t_refit:.0f} parts/s; the import without fitting took {t_import:.1f} s)")
+
+
+def main_bench() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--files", type=int, default=2000)
+    parser.add_argument("--points", type=int, default=100)
+    parser.add_argument("--parts", type=int, default=10000)
+    args = parser.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        files, truth = write_files(Path(tmp), args.files, args.points)
+        t_loop, v_loop = timed(loop_fit, files)
+        print(f"{len(files)} CSV files of {args.points} points (invented theta-law parts, 0.05 % noise on both axes)")
+        print(f"loadtxt + curve_fit loop (theta): {t_loop:6.2f} s  {len(files) / t_loop:7.0f} files/s  "
+              f"median |Vth error| {1e3 * np.median(np.abs(v_loop - truth)):.3f} mV")
+        for model in ("theta", "auto"):
+            t_cli, v_cli = timed(cli_fit, files, model)
+            ratio = t_loop / t_cli
+            print(f"benchlab fit --model {model:<5}: {t_cli:6.2f} s  {len(files) / t_cli:7.0f} files/s  "
+                  f"median |Vth error| {1e3 * np.median(np.abs(v_cli - truth)):.3f} mV  "
+                  f"speed-up {ratio:.1f}x (aim {AIM[model]:g}x: {'met' if ratio >= AIM[model] else 'NOT met'})")
+    if args.parts:
+        bench_refit(args.parts, args.points)
+
+
+if __name__ == "__main__":
+    os.environ.setdefault("OMP_NUM_THREADS", "1")
+    main_bench()
