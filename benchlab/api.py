@@ -24,7 +24,7 @@ from benchlab.errors import LibraryError
 from benchlab.report.data import CC_CURRENT_A
 from benchlab.services import tables
 
-__all__ = ["library", "ReadOnlyLibrary", "parts", "sweeps", "fits", "designs", "design"]
+__all__ = ["library", "ReadOnlyLibrary", "parts", "sweeps", "fits", "designs", "design", "thermal"]
 
 _READS = frozenset({"parts", "get_part", "lots", "sweeps", "fits", "history", "design", "designs", "binning",
                     "info", "snapshot", "path", "close"})
@@ -172,3 +172,21 @@ def design(design_id: int, library=None) -> pd.DataFrame:
     frame = pd.DataFrame(rows)
     frame.attrs["design"] = stored
     return frame
+
+
+def thermal(library=None, lot: str | None = None, state: str | None = None) -> pd.DataFrame:
+    """One row per part with its measured thermal values (``benchlab thermal tempco`` / ``rth``).
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``lot, label`` and for each of ``vth_tempco`` (V/K), ``kp_exponent``, ``ztc_vgs`` (V), ``ztc_id`` (A),
+        ``rth`` (K/W): the value, ``<name>_stderr`` and ``<name>_measured_at``; empty (NaN) where never measured.
+    """
+    from benchlab.library.thermal import QUANTITIES
+
+    with _opened(library) as lib:
+        rows = tables.thermal_rows(getattr(lib, "_lib", lib), lot=lot, state=state)
+    columns = ["lot", "label"] + [c for q in QUANTITIES for c in (q, f"{q}_stderr", f"{q}_measured_at")]
+    frame = pd.DataFrame(rows, columns=columns)
+    return frame.astype({c: float for q in QUANTITIES for c in (q, f"{q}_stderr")})

@@ -139,7 +139,32 @@ def _part_figures(data: ReportData, figs: _Figures, chosen: list[str], vgs_cc: d
                             f"{part.spec} ({role}): measured points and the {model} fit on a log current axis, the "
                             f"fitted threshold (dashed) and VGS at 250 uA from the data (square); points outside the "
                             f"fitted window hollow; below, the residuals (measured / fit - 1).", f"curve and fit of {part.label}"))
+        thermal = _thermal_figure(data, part)
+        if thermal is not None:
+            out.append(figs.add(*thermal))
     return out
+
+
+def _thermal_figure(data: ReportData, part) -> tuple | None:
+    """ID at 25 and 75 degC with the ZTC point marked, from the design's thermal values of this part."""
+    entries = {t.get("part"): t for t in (data.design or {}).get("thermal") or []}
+    entry = entries.get(part.spec) or entries.get(part.label)
+    if entry is None or part.params is None or not any(str(v).startswith("measured")
+                                                        for v in (entry.get("sources") or {}).values()):
+        return None  # only parts measured with benchlab thermal get the figure
+    from benchlab.design.part_thermal import ThermalValues, id_at_two_temperatures
+    from benchlab.report.part_figures import new_figure
+    from benchlab.report.thermal_figure import plot_id_two_temperatures
+
+    values = ThermalValues(**{k: entry[k] for k in ThermalValues.__dataclass_fields__})
+    curves = id_at_two_temperatures(part.params, values, 298.15, 348.15)
+    fig = new_figure(7.0, 3.5)
+    plot_id_two_temperatures(fig.add_subplot(1, 1, 1), curves, part.spec)
+    where = (f"the curves cross at the ZTC point, {curves['ztc_vgs']:.2f} V (marked)" if curves["ztc_vgs"]
+             else "no ZTC point in this range")
+    return (fig, f"{part.spec}: ID against VGS at 25 and 75 degC with its own coefficients "
+                 f"(threshold: {values.sources.get('vth_tempco')}; mobility: {values.sources.get('kp_exponent')}); "
+                 f"{where}. Below it a hotter part conducts more.", f"ID at two temperatures of {part.label}")
 
 
 def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.PathLike | None = None) -> ReportFiles:

@@ -83,3 +83,22 @@ def design_output_rows(lib, design_id: int) -> tuple[list[dict[str, Any]], dict[
     """One recorded design's outputs (one row each, as ``design sink --json`` lists them) and the whole record."""
     stored = lib.design(int(design_id))
     return [dict(o) for o in stored.get("outputs") or []], stored
+
+
+def thermal_rows(lib, lot: str | None = None, state: str | None = None) -> list[dict[str, Any]]:
+    """One row per part with its newest measured thermal values (``benchlab thermal``), their standard errors and
+    when each was measured; parts never measured have empty values (the designer's assumptions apply to them)."""
+    from benchlab.library.thermal import QUANTITIES, measured_thermal
+
+    rows = []
+    with lib.snapshot():
+        for part in lib.parts(lot=lot, state=state):
+            measured = measured_thermal(lib, part.id)
+            row: dict[str, Any] = {"lot": part.lot, "label": part.label}
+            for q in QUANTITIES:
+                entry = measured.get(q) or {}
+                row[q] = entry.get("value")
+                row[f"{q}_stderr"] = entry.get("stderr")
+                row[f"{q}_measured_at"] = entry.get("measured_at")
+            rows.append(row)
+    return rows

@@ -57,3 +57,22 @@ def test_thermal_run_stores_its_result_on_the_library_part(tmp_path):
     other = svc.measure_rth("Q02", sim=SimOptions(), sessions_root=tmp_path / "s", library=str(path))
     assert other.stored == ""
     assert not (tmp_path / "missing.db").exists()
+
+
+def test_api_thermal_frame_matches_the_cli_json(tmp_path, capsys, monkeypatch):
+    import json
+
+    from benchlab import api
+    from benchlab.cli import main
+
+    path = tmp_path / "lab.db"
+    with Library.open(path, create=True) as lib:
+        lib.add_part("Q01", lot="rack")
+        lib.add_part("Q02", lot="rack")
+    monkeypatch.chdir(tmp_path)
+    assert main(["thermal", "rth", "--part", "Q01", "--sim", "--json", "--library", str(path)]) == 0
+    printed = json.loads(capsys.readouterr().out)
+    frame = api.thermal(str(path)).set_index("label")
+    assert frame.loc["Q01", "rth"] == pytest.approx(printed["rth"])
+    assert frame.loc["Q01", "rth_stderr"] == pytest.approx(printed["stderr"]["rth"])
+    assert frame.loc["Q02"].isna()["rth"]  # never measured: empty, not a made-up number
