@@ -173,6 +173,11 @@ def test_json_on_every_command_that_prints_a_result(path, leaf):
     (["design", "sink", "--supply", "24", "--at-current", "20m", "--ref-model", "vth=2.9,kp=1.6", "--seed", "4"],
      "--seed seeds the Monte Carlo run"),
     (["bag", "--sim", "--resume", "sessions/x", "--ambient", "21"], "--ambient is kept from the session"),
+    (["sweep", "--part", "Q01", "--sim", "--list"], "--list uploads a voltage list: it goes with mode 'voltages'"),
+    (["sweep", "--part", "Q01", "--sim", "--mode", "currents", "--sim-fixture", "smu", "--start-v", "1"],
+     "--start-v starts the adaptive search"),
+    (["sweep", "--part", "Q01", "--sim", "--sim-fixture", "smu", "--current-from", "meter"],
+     "--current-from only applies to the resistor fixture"),
 ])
 def test_an_option_given_but_without_effect_is_an_error(argv, words, capsys, tmp_path, monkeypatch):
     monkeypatch.chdir(tmp_path)

@@ -20,7 +20,7 @@ from benchlab.sweep.engine import preflight, run
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
-from benchlab.kinds import Fixture
+from benchlab.kinds import Fixture, SweepMode
 
 CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
            "voltage; switch the output off before touching or changing a part. Follow local electrical codes and "
@@ -111,9 +111,18 @@ def build_plan(config: Any, **options: Any) -> SweepPlan:
         plan = replace(base, **values)
     except TypeError as exc:
         raise InputError(f"unknown sweep option: {exc}") from None
+    _refuse_unused(plan, values)
     if "max_current_a" not in values:
         plan = replace(plan, max_current_a=min(plan.max_current_a, plan.limits.max_drain_a))
     return validate_plan(plan)
+
+
+def _refuse_unused(plan: SweepPlan, given: dict[str, Any]) -> None:
+    """An option given where the plan's mode never uses it is an error, not silence."""
+    if given.get("use_list") and plan.mode != SweepMode.VOLTAGES:
+        raise InputError(f"use_list uploads a voltage list: it goes with mode 'voltages', not '{plan.mode}'")
+    if "start_v" in given and plan.mode != SweepMode.TARGETS:
+        raise InputError(f"start_v starts the adaptive search: it goes with mode 'targets', not '{plan.mode}'")
 
 
 # --------------------------------------------------------------------------------------------- benches
