@@ -9,7 +9,7 @@ from benchlab.choices import DEFAULT_SESSIONS_DIR
 from benchlab.commands._args import (add_sim_options, json_option, library_option, quantity, quantity_list,
                                      refuse_given, sim_settings, whole_number)
 
-_SIM_NAMES = ("seed", "time_scale")
+_SIM_NAMES = ("seed", "time_scale", "log")
 
 
 def _common(p: argparse.ArgumentParser) -> None:
@@ -26,13 +26,13 @@ def _common(p: argparse.ArgumentParser) -> None:
 
 def _sim_options(args):
     if not args.sim:
-        refuse_given(args, ["--sim-seed", "--sim-time-scale"],
+        refuse_given(args, ["--sim-seed", "--sim-time-scale", "--sim-log"],
                      "sets up the simulated bench: it goes with --sim, not with --bench")
         return None
     from benchlab.services.characterize import SimOptions
 
     sim = sim_settings(args, _SIM_NAMES)
-    return SimOptions(fixture="smu", seed=sim["seed"], time_scale=sim["time_scale"])
+    return SimOptions(fixture="smu", seed=sim["seed"], time_scale=sim["time_scale"], log_path=sim["log"])
 
 
 def _print(outcome, as_json: bool) -> int:

@@ -101,3 +101,63 @@ def test_cli_json_has_every_key_and_bad_input_is_one_error(tmp_path, capsys, mon
     data = json.loads(capsys.readouterr().out)
     assert set(svc.RESULT_KEYS) <= set(data) and set(data["stderr"]) == set(svc.RESULT_KEYS)
     assert data["vth_tempco"] is None and data["rth"] > 0
+
+
+def test_heating_stays_within_the_bench_limits_and_the_cross_check_can_flag(tmp_path, monkeypatch):
+    from dataclasses import replace
+
+    from benchlab.instruments import thermal_config
+
+    real = thermal_config.simulator_thermal_config
+    monkeypatch.setattr(thermal_config, "simulator_thermal_config",
+                        lambda resource: replace(real(resource), max_junction_k=335.0, max_heating_s=400.0))
+    captured = {}
+    real_result = svc.rth_result
+
+    def keep(raw, plan):
+        captured["raw"] = raw
+        return real_result(raw, plan)
+
+    monkeypatch.setattr(svc, "rth_result", keep)
+    outcome = svc.measure_rth("Q01", sim=SimOptions(), sessions_root=tmp_path)
+    r = outcome.rth
+    # the power was lowered so that 62 K/W (the package assumption) keeps the junction under max_junction_k
+    assert any("max_junction_k" in note for note in r.notes)
+    assert r.reference_k + r.power_w * 62.0 <= 335.0 + 1.0
+    assert r.heating_s <= 400.0 + 10.0 and r.power_w <= 1.5
+    assert r.rth == pytest.approx(62.0, rel=0.10)  # still right at a smaller rise
+    # a DC reading 50 mV away from what Rth and the tempco predict is flagged
+    raw = dict(captured["raw"], v_heat_dc=captured["raw"]["v_heat_dc"] + 0.05)
+    assert svc.rth_result(raw, svc.RthPlan()).pulsed_dc["flag"]
+
+
+def test_sigterm_while_heating_leaves_the_output_off(tmp_path):
+    import os
+    import signal
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2]
+    log = tmp_path / "sim.jsonl"
+    child = subprocess.Popen([sys.executable, "-m", "benchlab", "thermal", "rth", "--part", "Q01", "--sim",
+                              "--sim-time-scale", "0.003", "--sim-log", str(log), "--sessions", str(tmp_path / "s")],
+                             cwd=tmp_path, env=dict(os.environ, PYTHONPATH=str(root)), stdout=subprocess.PIPE,
+                             stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline:
+        found = list(tmp_path.glob("s/*/thermal.jsonl"))
+        if found and '"what": "heating"' in found[0].read_text():
+            break
+        if child.poll() is not None:
+            pytest.fail(f"the run ended early: {child.communicate()}")
+        time.sleep(0.01)
+    else:
+        child.kill()
+        pytest.fail("heating never started")
+    child.send_signal(signal.SIGTERM)
+    _, err = child.communicate(timeout=30)
+    assert child.returncode != 0 and "SIGTERM" in err
+    history = BenchLog.read_file(log)
+    assert history.output_was_ever_on("smu") and not history.output_was_left_on()
