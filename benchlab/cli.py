@@ -75,6 +75,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("benchlab: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # the reader went away (`benchlab parts list --json | head`): stop quietly
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 141
 
 
 if __name__ == "__main__":  # pragma: no cover

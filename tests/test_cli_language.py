@@ -218,3 +218,17 @@ print(json.dumps(heavy))
     run = subprocess.run([sys.executable, "-c", script], cwd=REPO, capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stderr
     assert json.loads(run.stdout.strip().splitlines()[-1]) == []
+
+
+def test_every_option_the_docs_name_exists():
+    # a renamed option must be renamed in README, DEVELOPERS.md and docs/ too (options of other programs excepted)
+    import re
+
+    others = {"--owner", "--pwprompt"}  # PostgreSQL's createuser/createdb, in docs/library.md
+    known = {o for _, a in OPTIONS for o in a.option_strings} | {"--help", "--version"}
+    stale = []
+    for doc in [REPO / "README.md", REPO / "DEVELOPERS.md", *sorted((REPO / "docs").glob("*.md"))]:
+        for option in set(re.findall(r"(?<![\w-])--[a-z][a-z0-9-]*[a-z0-9](?![\w*-])", doc.read_text(encoding="utf-8"))):
+            if option not in known and option not in others:
+                stale.append(f"{doc.name}: {option}")
+    assert sorted(stale) == []
