@@ -10,6 +10,7 @@ and a controlled fixture goes back to where it started.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 from dataclasses import dataclass, field, replace
@@ -110,6 +111,20 @@ def _open(bench_path, sim, plan_options, say):
     return handle, plan, thermal, clock
 
 
+@contextlib.contextmanager
+def _recording(handle, thermal, sessions_root, part: str, measurement: str, plan, planned: int):
+    """A new session folder ``<stamp>-thermal-<part>`` and its ``thermal.jsonl`` (plan first), closed on the way out."""
+    session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=planned, **chz.session_meta(handle))
+    log = ThermalLog(session.path / "thermal.jsonl")
+    try:
+        log.add("plan", measurement=measurement, part=part, plan=plan.to_dict(),
+                settle=thermal.config.settle_criterion())
+        yield session, log
+    finally:
+        log.close()
+        session.finish()
+
+
 def _sweep_of(outcome):
     """The fittable points of a sweep outcome as a validated :class:`Sweep`."""
     keep = [p for p in outcome.points if p.status == PointStatus.OK and p.id > 2e-6]
@@ -147,17 +162,9 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
             if handle.simulator is not None:
                 chz.SimPartLoader(handle.bench).seek(part)
             chz.preflight(splan, handle.bench)
-            session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=len(temps_k),
-                                           **chz.session_meta(handle))
-            log = ThermalLog(session.path / "thermal.jsonl")
-            try:
-                log.add("plan", measurement="tempco", part=part, plan=plan.to_dict(),
-                        settle=thermal.config.settle_criterion())
+            with _recording(handle, thermal, sessions_root, part, "tempco", plan, len(temps_k)) as (session, log):
                 records = run_tempco(plan, handle.bench, thermal, clock, session, part, log, on_event=on_event,
                                      cancel=cancel, say=say)
-            finally:
-                log.close()
-                session.finish()
     finally:
         thermal.close()
         handle.close()
@@ -197,16 +204,8 @@ def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions
         with chz.sigterm_as_exception():
             if handle.simulator is not None:
                 chz.SimPartLoader(handle.bench).seek(part)
-            session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=0,
-                                           **chz.session_meta(handle))
-            log = ThermalLog(session.path / "thermal.jsonl")
-            try:
-                log.add("plan", measurement="rth", part=part, plan=plan.to_dict(),
-                        settle=thermal.config.settle_criterion())
+            with _recording(handle, thermal, sessions_root, part, "rth", plan, 0) as (session, log):
                 raw = run_rth(plan, handle.bench, thermal, clock, limits, log, cancel=cancel, say=say)
-            finally:
-                log.close()
-                session.finish()
     finally:
         thermal.close()
         handle.close()
