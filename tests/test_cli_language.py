@@ -130,6 +130,17 @@ def test_a_plan_error_names_the_options_typed(capsys, tmp_path):
     assert list(tmp_path.iterdir()) == []
 
 
+def test_a_design_error_names_the_options_typed(capsys, tmp_path):
+    db = str(tmp_path / "lib.db")
+    for label, vth in (("Q01", "2.9"), ("Q02", "2.95")):  # invented parts
+        assert cli.main(["parts", "add", label, "--vth", vth, "--kp", "1.6", "--library", db]) == 0
+    capsys.readouterr()
+    assert cli.main(["design", "match", "--library", db, "--at-current", "20m", "--at-current-max", "5m",
+                     "--outputs", "1"]) == 2
+    err = capsys.readouterr().err
+    assert "--at-current-max" in err and "(0.02 A)" in err
+
+
 def test_out_is_only_where_results_are_written():
     outs = [(path, a) for path, a in OPTIONS if "--out" in a.option_strings]
     assert outs and all(a.metavar in ("FILE", "DIR") for _, a in outs)

@@ -5,8 +5,8 @@ from __future__ import annotations
 import argparse
 
 from benchlab.choices import POLARITIES, SERIES_NAMES
-from benchlab.commands._args import (counting_number, json_option, library_option, print_json, quantity, refuse_given,
-                                     whole_number)
+from benchlab.commands._args import (counting_number, json_option, library_option, name_options, print_json, quantity,
+                                     refuse_given, whole_number)
 from benchlab.errors import InputError
 
 
@@ -137,7 +137,18 @@ def _sink(args) -> int:
     return 0
 
 
+# phrases of the matcher's errors -> the options a user typed
+_MATCH_OPTIONS = {"the operating current": "--at-current", "the top of the current range": "--at-current-max"}
+
+
 def _match(args) -> int:
+    try:
+        return _match_sets(args)
+    except InputError as exc:
+        raise name_options(exc, _MATCH_OPTIONS) from None
+
+
+def _match_sets(args) -> int:
     from benchlab.design.text import format_match
     from benchlab.services import design as service
 

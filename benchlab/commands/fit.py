@@ -6,7 +6,8 @@ import argparse
 import sys
 
 from benchlab.choices import DEFAULT_CC_CURRENT, MODEL_CHOICES
-from benchlab.commands._args import json_option, quantity, whole_number
+from benchlab.commands._args import json_option, name_options, quantity, whole_number
+from benchlab.errors import InputError
 
 
 def register(subparsers) -> None:
@@ -51,9 +52,12 @@ def _fit(args) -> int:
 
     from benchlab.services import fitting as service
 
-    run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
-                            cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
-                            bootstrap=args.bootstrap, save=args.save, temperature_c=args.ambient)
+    try:
+        run = service.fit_files(args.files, model=args.model, at_current=args.at_current,
+                                cc_current=args.cc_current, window=tuple(args.window) if args.window else None,
+                                bootstrap=args.bootstrap, save=args.save, temperature_c=args.ambient)
+    except InputError as exc:
+        raise name_options(exc, {"ambient temperature": "--ambient"}) from None
     if run.records and args.json:
         print(service.json_lines(run.records, args.curve))
     elif run.records:

@@ -223,7 +223,7 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
     """
     if temperature_c is not None and not (math.isfinite(temperature_c)
                                           and T_MIN_C <= temperature_c <= T_MAX_C):
-        raise InputError(f"temperature {temperature_c:g} degC is not a bench temperature "
+        raise InputError(f"ambient temperature {temperature_c:g} degC is not a bench temperature "
                          f"({T_MIN_C:g} to {T_MAX_C:g} degC)")
     sources = resolve_inputs(paths)
     if save:

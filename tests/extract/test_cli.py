@@ -113,7 +113,7 @@ def test_bad_option_values_rejected(tmp_path, capsys):
     # the temperature is refused in the unit the user typed, before anything is read or written
     assert main(["fit", str(folder), "--ambient", "-500", "--save"]) == 2
     err = capsys.readouterr().err
-    assert "-500 degC is not a bench temperature" in err and err.count("\n") == 1
+    assert "--ambient -500 degC is not a bench temperature" in err and err.count("\n") == 1
     assert json.loads((folder / "Q01.json").read_text())["fits"] == []
     # a window that holds no points says where the data are
     assert main(["fit", str(folder / "Q01.csv"), "--window", "10", "20"]) == 2
