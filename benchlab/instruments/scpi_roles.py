@@ -10,7 +10,7 @@ error queue until it is empty, so a refused command raises
 
 from __future__ import annotations
 
-from typing import Any, Sequence
+from typing import Any, Callable, Sequence
 
 from benchlab.errors import (BenchlabError, ConnectionLost, InputError, InstrumentError,
                              InstrumentReportedError, InstrumentTimeout)
@@ -24,6 +24,11 @@ from benchlab.kinds import SourceFunction
 MAX_ERROR_READS = 64
 # Longest wait for *OPC? after *RST (common practice: resets finish within seconds).
 _RESET_WAIT_MS = 10000
+# Error codes that say "this time", not "never": a hardware or device-specific hiccup, or a query the
+# instrument lost (SCPI-1999 vol. 2, ch. 21; IEEE 488.2 6.3.2). A setting or query that is safe to repeat
+# is sent once more before such an error is raised; a command, data or execution error is raised at once.
+TRANSIENT_ERROR_CODES = frozenset({-240, -300, -310, -410, -420})
+NO_READING_CODE = -230  # data corrupt or stale: FETCh? with no reading taken (SCPI-1999 vol. 2, ch. 21)
 # Time of one power-line cycle at 50 Hz (the slower mains), for list-sweep waits.
 _PLC_SECONDS = 0.02
 
@@ -51,6 +56,7 @@ class ScpiInstrument:
         self.profile = profile
         self.identity = identity
         self.resource = getattr(transport, "resource", "")
+        self.repeats = 0  # messages sent again after a transient error or an unreadable reply
 
     # -- connection ----------------------------------------------------------------------
     def connect(self, *, reset: bool = False) -> str:
@@ -86,6 +92,15 @@ class ScpiInstrument:
         meanwhile, an idempotent setting is sent once more on the new link and anything else raises
         :class:`~benchlab.errors.ConnectionLost` rather than be taken as applied.
         """
+        try:
+            self._send_once(command, idempotent)
+        except InstrumentReportedError as exc:
+            if not (idempotent and exc.code in TRANSIENT_ERROR_CODES):
+                raise
+            self.repeats += 1
+            self._send_once(command, idempotent)
+
+    def _send_once(self, command: str, idempotent: bool) -> None:
         reopens = getattr(self.transport, "reopen_count", 0)
         self.transport.write(command, idempotent=idempotent)
         self.check_errors(command)
@@ -124,7 +139,13 @@ class ScpiInstrument:
             try:
                 code, text = parse_error_reply(reply)
             except ValueError:
-                raise InstrumentError(f"unexpected reply {reply!r} to '{query}'", resource=self.resource) from None
+                self.repeats += 1  # a garbled line: the entry it carried is lost, the next read is asked
+                again = self.transport.query(query)
+                try:
+                    code, text = parse_error_reply(again)
+                except ValueError:
+                    raise InstrumentError(f"unexpected reply {again!r} to '{query}' (and {reply!r} before it)",
+                                          resource=self.resource) from None
             if code == 0:
                 return errors
             errors.append((code, text))
@@ -136,11 +157,24 @@ class ScpiInstrument:
         An instrument that refuses a query queues an error and sends nothing, which looks like a
         timeout; the error queue is read then, so the user sees the instrument's code and text.
         """
+        try:
+            return self._ask_once(operation, idempotent, timeout_ms)
+        except InstrumentReportedError as exc:
+            if not (idempotent and exc.code in TRANSIENT_ERROR_CODES):
+                raise
+            self.repeats += 1
+            return self._ask_once(operation, idempotent, timeout_ms)
+
+    def _ask_once(self, operation: str, idempotent: bool, timeout_ms: int | None) -> str:
         lines = self.profile.lines(operation)
         for line in lines[:-1]:
             self.send(line)
+        retries = getattr(self.transport, "retry_count", 0)
         try:
-            return self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
+            reply = self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
+            if getattr(self.transport, "retry_count", 0) != retries:
+                self._drop_transient_errors(lines[-1])  # the unanswered first try may have queued one
+            return reply
         except InstrumentTimeout as timeout:
             try:
                 errors = self.read_error_queue()
@@ -151,21 +185,36 @@ class ScpiInstrument:
             code, text = errors[0]
             raise InstrumentReportedError(code, text, command=lines[-1], resource=self.resource) from timeout
 
-    def ask_float(self, operation: str) -> float:
-        """A numeric query (SCPI special values -> inf/nan)."""
+    def _drop_transient_errors(self, command: str) -> None:
+        """Read the queue after a query that had to be asked twice: transient errors (the lost first try's)
+        are dropped, any other is raised."""
+        for code, text in self.read_error_queue():
+            if code not in TRANSIENT_ERROR_CODES:
+                raise InstrumentReportedError(code, text, command=command, resource=self.resource)
+
+    def ask_parsed(self, operation: str, parse: Callable[[str], Any]) -> Any:
+        """A query whose reply goes through ``parse``; an unreadable reply (a line garbled on the way) is
+        asked once more before it is an error."""
         reply = self.ask(operation)
         try:
-            return parse_reading(reply)
+            return parse(reply)
         except ValueError:
-            raise InstrumentError(f"unexpected reply {reply!r} to {operation}", resource=self.resource) from None
+            pass
+        self.repeats += 1
+        again = self.ask(operation)
+        try:
+            return parse(again)
+        except ValueError:
+            raise InstrumentError(f"unexpected reply {again!r} to {operation} (and {reply!r} before it)",
+                                  resource=self.resource) from None
+
+    def ask_float(self, operation: str) -> float:
+        """A numeric query (SCPI special values -> inf/nan)."""
+        return self.ask_parsed(operation, parse_reading)
 
     def ask_bool(self, operation: str) -> bool:
         """A 0/1 query."""
-        reply = self.ask(operation)
-        try:
-            return parse_bool(reply)
-        except ValueError:
-            raise InstrumentError(f"unexpected reply {reply!r} to {operation}", resource=self.resource) from None
+        return self.ask_parsed(operation, parse_bool)
 
 
 class _OutputMixin:
@@ -252,13 +301,20 @@ class ScpiMeter(ScpiInstrument):
         """Start one reading and return at once (no error-queue read: :meth:`fetch` checks for both)."""
         self._triggered_on = getattr(self.transport, "reopen_count", 0)
         for line in self.profile.lines("initiate"):
-            self.transport.write(line, idempotent=False)
+            self.transport.write(line, idempotent=True)  # another reading of the same state: safe to repeat
 
     def fetch(self) -> float:
         """Collect the reading :meth:`trigger` started, then read the error queue (an INIT the meter
         refused would leave an older reading to fetch)."""
-        value = self.ask_float("fetch")
-        self.check_errors(self.profile.lines("initiate")[-1])
+        try:
+            value = self.ask_float("fetch")
+            self.check_errors(self.profile.lines("initiate")[-1])
+        except InstrumentReportedError as exc:
+            # the trigger was refused, or there is no reading to fetch: take one the plain way
+            if exc.code not in TRANSIENT_ERROR_CODES and exc.code != NO_READING_CODE:
+                raise
+            self.repeats += 1
+            return self.read()
         if getattr(self.transport, "reopen_count", 0) != getattr(self, "_triggered_on", 0):
             return self.read()  # the link was reopened after the trigger: that reading may be an old one
         return value
@@ -308,9 +364,13 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
 
     def measure(self) -> tuple[float, float]:
         """One reading: (volts, amps)."""
-        reply = self.ask("read")
-        readings = self._parse(reply, expect_points=1)
-        return readings[0]
+        def parse(reply: str) -> tuple[float, float]:
+            try:
+                return self._parse(reply, expect_points=1)[0]
+            except InstrumentError as exc:
+                raise ValueError(str(exc)) from None
+
+        return self.ask_parsed("read", parse)
 
     def in_compliance(self) -> bool:
         """True when the last reading hit the compliance limit.

@@ -154,7 +154,7 @@ class SimBench:
         self.instruments = {}
         self._servers: dict[str, InstrumentServer] = {}
         for number, (role, cls) in enumerate(zip(ROLES, (SimSupply, SimMeter, SimSmu)), start=1):
-            faults = RoleFaults(role, cfg.fault_specs)
+            faults = RoleFaults(role, cfg.fault_specs, seed=cfg.seed)
             instrument = cls(self.core, f"SIM{cfg.seed:04d}-{number}", faults)
             self.instruments[role] = instrument
             self._servers[role] = InstrumentServer(instrument, faults, cfg.latency_s)

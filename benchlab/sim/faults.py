@@ -14,6 +14,9 @@ ROLE is ``supply``, ``meter``, ``smu`` or ``all`` (the default). Kinds:
 ``short=N``      the part fails short after N readings.
 ``pull=N``       the operator pulls the N-th part of the bag (1-based) out of the fixture in the middle of its
                  sweep (after 6 readings at which it conducted): the fixture is empty from then on.
+``flaky=P``      each message has probability P (0 to 0.5, seeded by the bench's seed) of one transport fault,
+                 drawn evenly from: its reply FLAKY_SLOW_S late, the connection dropped after it, refused
+                 with -240 instead of executed, its reply garbled, its reply withheld (a hung reply).
 ``unsettled=V[/N]`` the instrument's readings never settle (after its first N readings, default 0):
                  volts readings swing +/-V/2 about the true value from one reading to the next, and a
                  SMU forcing volts sees its current swing by the same VGS wobble (a part oscillating).
@@ -23,13 +26,16 @@ Messages are lines received, counted per instrument over all its connections sin
 
 from __future__ import annotations
 
+import random
 from dataclasses import dataclass
 
 from benchlab.errors import InputError
 
-FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short", "unsettled", "pull")
+FAULT_KINDS = ("slow", "mute", "hang", "drop", "error", "garble", "open", "short", "unsettled", "pull", "flaky")
 FAULT_ROLES = ("supply", "meter", "smu", "all")
 DEFAULT_INJECTED_ERROR = -240
+FLAKY_SLOW_S = 0.05
+FLAKY_KINDS = ("slow", "drop", "error", "garble", "mute")
 
 
 @dataclass(frozen=True)
@@ -114,6 +120,13 @@ def parse_fault(text: str) -> FaultSpec:
             what = "seconds from 0 to 3600" if kind == "slow" else "volts from 0 to 100"
             raise InputError(f"fault '{raw}': {kind} needs {what} and an optional whole count, "
                              f"e.g. {kind}=0.5 or {kind}=0.5/20")
+    elif kind == "flaky":
+        try:
+            ok = 0 <= float(value) <= 0.5
+        except ValueError:
+            ok = False
+        if not ok:
+            raise InputError(f"fault '{raw}': flaky needs a probability per message from 0 to 0.5, e.g. flaky=0.02")
     elif kind == "error":
         header, _, code = value.partition("/")
         if not header:
@@ -137,8 +150,11 @@ def coerce_faults(faults) -> tuple[FaultSpec, ...]:
 class RoleFaults:
     """Per-instrument fault bookkeeping, consulted by the server for each message."""
 
-    def __init__(self, role: str, faults: tuple[FaultSpec, ...]):
+    def __init__(self, role: str, faults: tuple[FaultSpec, ...], seed: int = 0):
         mine = [f for f in faults if f.applies_to(role)]
+        self.flaky_p = max((float(f.value) for f in mine if f.kind == "flaky"), default=0.0)
+        self._flaky_rng = random.Random(f"{seed}:{role}")
+        self.flaky_fired: dict[str, int] = {kind: 0 for kind in FLAKY_KINDS}
         self.role = role
         self._slow = [(f.slow_after, f.seconds) for f in mine if f.kind == "slow"]
         self.mute_after = min((f.count for f in mine if f.kind == "mute"), default=None)
@@ -161,6 +177,14 @@ class RoleFaults:
     def extra_delay_s(self, number: int) -> float:
         """Extra real delay for the reply to message ``number``."""
         return sum(seconds for after, seconds in self._slow if number > after)
+
+    def flaky_pick(self) -> str | None:
+        """For a ``flaky`` fault: the transport fault this message gets (one of FLAKY_KINDS), or None."""
+        if not self.flaky_p or self._flaky_rng.random() >= self.flaky_p:
+            return None
+        kind = self._flaky_rng.choice(FLAKY_KINDS)
+        self.flaky_fired[kind] += 1
+        return kind
 
     def reading_wobble_v(self) -> float:
         """Count one reading; the volts an ``unsettled`` fault adds to it (alternating +/-V/2, else 0)."""

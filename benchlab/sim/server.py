@@ -23,7 +23,7 @@ import socket
 import threading
 import time
 
-from benchlab.sim.faults import RoleFaults, garble
+from benchlab.sim.faults import DEFAULT_INJECTED_ERROR, FLAKY_SLOW_S, RoleFaults, garble
 from benchlab.sim.instrument import SimInstrument
 
 MAX_LINE_BYTES = 256 * 1024
@@ -209,8 +209,15 @@ class InstrumentServer:
         if self.faults.hung(number):
             self._log("fault", f"hang: message {number} ignored")
             return True
+        flaky = self.faults.flaky_pick()
+        if flaky:
+            self._log("fault", f"flaky {flaky}: message {number}")
+        if flaky == "error":
+            self._query_error(DEFAULT_INJECTED_ERROR, "Hardware error; injected fault (flaky)",
+                              f"message {number} refused")
+            return True
         replies = self.instrument.execute(text)
-        if self.faults.drop_now(number):
+        if self.faults.drop_now(number) or flaky == "drop":
             self._log("fault", f"drop: connection closed after message {number}")
             try:
                 conn.shutdown(socket.SHUT_RDWR)
@@ -221,14 +228,14 @@ class InstrumentServer:
             time.sleep(self.latency_s)
         if not replies:
             return True
-        if self.faults.muted(number):
+        if self.faults.muted(number) or flaky == "mute":
             self._log("fault", f"mute: reply to message {number} withheld")
             return True
         reply = ";".join(replies)
-        if self.faults.garble_next_reply():
+        if self.faults.garble_next_reply() or flaky == "garble":
             self._log("fault", f"garble: reply to message {number} garbled")
             reply = garble(reply)
-        delay = self.faults.extra_delay_s(number)
+        delay = self.faults.extra_delay_s(number) + (FLAKY_SLOW_S if flaky == "slow" else 0.0)
         if delay > 0:
             waiting = "data" if pending() else self._input_waiting(conn, delay)
             if waiting == "data":

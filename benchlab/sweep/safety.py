@@ -28,6 +28,9 @@ _SLACK = 1e-9  # relative slack on comparisons so a setpoint exactly at a limit 
 def _within(value: float, limit: float) -> bool:
     return value <= limit * (1.0 + _SLACK)
 
+# Times safe_off sends the output-off command before it reports that it failed.
+OFF_ATTEMPTS = 3
+
 
 class _PoweredClock:
     """Accumulates the time the output was on."""
@@ -99,10 +102,16 @@ class _GuardedOutput:
     def safe_off(self) -> list[str]:
         """Output off, then setpoint to 0. Never raises; returns the problems met (empty when clean)."""
         problems = []
-        try:
-            self.inner.set_output(False)
-        except BaseException as exc:  # noqa: BLE001 - must not mask the original exit
-            problems.append(f"switching the {self._what} output off failed: {exc}")
+        failures = []
+        for _ in range(OFF_ATTEMPTS):  # a refused or lost OUTP OFF is sent again: off matters more than time
+            try:
+                self.inner.set_output(False)
+                break
+            except BaseException as exc:  # noqa: BLE001 - must not mask the original exit
+                failures.append(exc)
+        else:
+            problems.append(f"switching the {self._what} output off failed: {failures[-1]} "
+                            f"({OFF_ATTEMPTS} attempts)")
         self._output_on = False
         self._powered.off()
         try:

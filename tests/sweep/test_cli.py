@@ -112,7 +112,8 @@ def test_sweep_command_prints_a_summary_line(tmp_path, capsys):
 
 def test_simulator_faults_from_the_command_line(tmp_path, capsys):
     code = main(["sweep", "--part", "Q01", "--sim", "--sessions", str(tmp_path / "s"),
-                 "--sim-fault", "garble@meter=40"])
+                 "--sim-fault", "garble@meter=40", "--sim-fault", "garble@meter=41"])
+    # one garbled reply is asked again; two in a row stop the sweep with one line
     assert code == 2 and "unexpected" in one_error_line(capsys)
     sweep = read_session(only_session(tmp_path / "s")).sweeps["Q01"]
     assert sweep.complete is False and len(sweep.vgs) == sweep.meta["points"]

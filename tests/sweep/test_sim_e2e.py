@@ -81,7 +81,6 @@ INSTRUMENT_FAULTS = [
     ("mute@supply=50", "no reply"),  # the supply still executes but stops replying: off must still happen
     ("hang@meter=150", "no reply"),  # the meter neither executes nor replies
     ("error@meter=CONF:CURR/-221", "-221"),  # a command refused with an SCPI error, once the output is on
-    ("garble@meter=40", "unexpected"),  # one reply turned to junk
     # every reply 0.6 s late against a 0.4 s timeout: the late replies must not be read as later answers
     ("slow@meter=0.6/150", "no reply to '"),
 ]
@@ -104,7 +103,6 @@ def test_instrument_faults_end_with_output_off_and_points_on_disk(tmp_path, faul
 SMU_FAULTS = [
     ("mute@smu=60", "no reply"),
     ("error@smu=READ?/-230", "-230"),
-    ("garble@smu=40", "unexpected"),
     ("slow@smu=0.6/60", "no reply to 'READ?'"),
 ]
 
@@ -114,6 +112,19 @@ def test_smu_faults_end_with_output_off_and_points_on_disk(tmp_path, fault, mess
     was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path, [fault], fixture="smu")
     assert was_on and last is False and zeroed  # from the simulator's log
     assert isinstance(error, InstrumentError) and message in str(error) and "\n" not in str(error)
+    assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
+
+
+@pytest.mark.parametrize("fixture", ["resistor", "smu"])
+def test_one_garbled_reply_is_asked_again_two_in_a_row_stop_the_sweep(tmp_path, fixture):
+    role = "meter" if fixture == "resistor" else "smu"
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path / "one", [f"garble@{role}=40"], fixture=fixture)
+    assert error is None and outcome.complete and last is False
+    (tmp_path / "two").mkdir()
+    was_on, last, error, outcome, sweep, zeroed = run_faulted(tmp_path / "two", [f"garble@{role}=40", f"garble@{role}=41"],
+                                                              fixture=fixture)
+    assert was_on and last is False and zeroed  # from the simulator's log
+    assert isinstance(error, InstrumentError) and "unexpected" in str(error) and "\n" not in str(error)
     assert sweep.meta["complete"] is False and len(sweep.vgs) == sweep.meta["points"]
 
 

@@ -1,0 +1,162 @@
+"""Kill and resume: a bag run in a forked child (same code path as ``benchlab bag --sim``, without the
+interpreter start-up) is killed with SIGKILL at seeded random moments and resumed, over and over; then the
+session is checked (no part duplicated or missing, every record whole) and imported into a library."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import multiprocessing
+import os
+import random
+import signal
+import sqlite3
+import time
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+# imported here, before the fork, so each child starts sweeping at once
+from benchlab.instruments.config import simulator_bench_config  # noqa: E402
+from benchlab.services.characterize import build_plan, connect, sweep_bag  # noqa: E402
+from benchlab.services.library import import_sessions  # noqa: E402
+from benchlab.sim.bench import SimBench, SimConfig  # noqa: E402
+
+PLAN = dict(points=8, max_current_a=0.01)
+
+
+def _bag_child(root: str, session: str | None, parts: int, seed: int) -> None:
+    with SimBench(SimConfig(bag_size=parts, seed=seed, time_scale=0.0)) as sim:
+        config = simulator_bench_config(sim.start(first_port=0), series_resistor_ohm=sim.series_resistor_actual_ohm)
+        handle = connect(config, sim)
+        try:
+            sweep_bag(handle, build_plan(config, **PLAN), sessions_root=root, lot="kill", count=parts,
+                      resume=session)
+        finally:
+            handle.close()
+
+
+@dataclass(frozen=True)
+class KillReport:
+    parts: int
+    kills: int
+    kills_mid_part: int  # kills after which an incomplete record was on disk (struck in the middle of a sweep)
+    parts_swept_again: int  # parts whose interrupted record was kept aside and swept again
+    runs: int
+    completed: int
+    duplicated: int  # labels listed twice in session.json, or a complete record swept again
+    missing: int
+    records_inconsistent: int  # complete: CSV rows differ from the sidecar's count; killed: fewer rows than it says
+    rows_torn: int  # CSV files ending in a partly written row
+    integrity_check: str
+    library_parts: int
+    library_parts_twice: int
+    wall_s: float
+
+    def to_dict(self) -> dict:
+        return asdict(self)
+
+
+def _complete_records(session: Path) -> dict[str, str]:
+    """Label -> SHA-256 of the CSV of every complete record."""
+    out = {}
+    for sidecar in session.glob("*.json"):
+        if sidecar.name == "session.json" or ".interrupted-" in sidecar.name:
+            continue
+        try:
+            meta = json.loads(sidecar.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            continue
+        if meta.get("complete"):
+            out[sidecar.stem] = hashlib.sha256(sidecar.with_suffix(".csv").read_bytes()).hexdigest()
+    return out
+
+
+def _csv_bytes(sessions: Path) -> int:
+    return sum(p.stat().st_size for p in sessions.glob("*/*.csv")) if sessions.exists() else 0
+
+
+def _has_open_record(sessions: Path) -> bool:
+    for sidecar in sessions.glob("*/*.json"):
+        if sidecar.name == "session.json" or ".interrupted-" in sidecar.name:
+            continue
+        try:
+            if not json.loads(sidecar.read_text(encoding="utf-8")).get("complete"):
+                return True
+        except (OSError, ValueError):
+            return True
+    return False
+
+
+def _wait_for_points(sessions: Path, child, limit_s: float) -> None:
+    """Wait until the child has written a new row (at most ``limit_s``)."""
+    before, deadline = _csv_bytes(sessions), time.monotonic() + limit_s
+    while child.is_alive() and time.monotonic() < deadline and _csv_bytes(sessions) == before:
+        time.sleep(0.005)
+
+
+def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_delay_s: float = 0.4) -> KillReport:
+    """Kill the bag ``kills`` times at seeded random delays, resume until it completes, and check it all."""
+    started = time.monotonic()
+    rng = random.Random(seed)
+    context = multiprocessing.get_context("fork")
+    sessions = root / "sessions"
+    session: Path | None = None
+    done_kills = runs = duplicated = mid_part = 0
+    seen: dict[str, str] = {}
+    while True:
+        runs += 1
+        child = context.Process(target=_bag_child, args=(str(sessions), str(session) if session else None,
+                                                         parts, seed))
+        child.start()
+        if done_kills < kills:
+            # once the child is writing points (or after a start-up kill now and then), a random delay more
+            _wait_for_points(sessions, child, 0.0 if rng.random() < 0.1 else 5.0)
+            child.join(rng.uniform(0.0, max_delay_s))
+            if child.is_alive():
+                os.kill(child.pid, signal.SIGKILL)
+                done_kills += 1
+                child.join(120)
+                mid_part += _has_open_record(sessions)
+        child.join(120)
+        assert not child.is_alive(), "a bag run did not finish within 120 s"
+        if session is None:
+            folders = [p for p in sessions.iterdir() if p.is_dir()] if sessions.exists() else []
+            session = folders[0] if folders else None
+        if session is None:
+            continue
+        now = _complete_records(session)
+        # a part completed before must keep its very record: never swept again, never rewritten
+        duplicated += sum(1 for label, digest in seen.items() if now.get(label) != digest)
+        seen.update(now)
+        if done_kills >= kills and child.exitcode == 0:
+            break
+        assert runs < kills * 3 + 20, "the bag does not finish"
+    meta = json.loads((session / "session.json").read_text(encoding="utf-8"))
+    listed = meta["parts"]
+    duplicated += len(listed) - len(set(listed))
+    expected = {f"Q{n:02d}" for n in range(1, parts + 1)}
+    inconsistent = torn = 0
+    for sidecar in session.glob("*.json"):
+        if sidecar.name == "session.json":
+            continue
+        record = json.loads(sidecar.read_text(encoding="utf-8"))
+        text = sidecar.with_suffix(".csv").read_text(encoding="utf-8")
+        rows = text.count("\n") - 1
+        torn += bool(text) and not text.endswith("\n")  # a row cut by the kill
+        if record.get("complete"):
+            inconsistent += rows != record["points"]
+        else:  # killed in flight: the sidecar is not rewritten per point, the CSV is (fsync per point)
+            inconsistent += rows < record["points"]
+    interrupted = {p.name.split(".")[0] for p in session.glob("*.interrupted-*.json")}
+
+    library = root / "library.sqlite"
+    import_sessions(library, [str(session)])
+    with sqlite3.connect(library) as db:
+        check = db.execute("PRAGMA integrity_check").fetchone()[0]
+        labels = [row[0] for row in db.execute("SELECT label FROM parts")]
+    return KillReport(parts=parts, kills=done_kills, kills_mid_part=mid_part, runs=runs,
+                      parts_swept_again=len(interrupted), completed=len(set(seen) & expected), duplicated=duplicated,
+                      missing=len(expected - set(seen)), records_inconsistent=inconsistent, rows_torn=torn,
+                      integrity_check=check,
+                      library_parts=len(set(labels)), library_parts_twice=len(labels) - len(set(labels)),
+                      wall_s=round(time.monotonic() - started, 1))

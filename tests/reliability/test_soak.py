@@ -1,0 +1,65 @@
+"""The soak on the simulated bench: a bag swept under faults at a few percent of messages (slow, dropped,
+refused with -240, garbled and unanswered replies), parts failing open or short and one pulled out mid-sweep,
+resumed after every stop. Nothing measured may be lost and no output may be left on (from the simulator's log).
+
+The 30-part run is in CI (about 45 s); the 200-part run is marked slow (``pytest -m slow``) and is also
+``benchmarks/bench_soak.py``. Figures: docs/reliability.md.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from benchlab.sweep.safety import OFF_ATTEMPTS, GuardedSupply
+from benchlab.sweep.plan import Limits
+from tests.reliability.soakhelp import run_soak
+
+
+def _check(report, parts: int) -> None:
+    assert report.faults_fired > 0.01 * report.messages  # the faults really struck, at about the rate asked
+    assert report.points_lost == 0 and report.points_acknowledged == report.points_on_disk > 0
+    assert report.records_inconsistent == 0
+    assert report.outputs_left_on == 0  # from the simulator's own log after every stop
+    assert report.completed + report.incomplete == parts
+    assert report.completed >= 0.9 * parts
+    assert sum(report.classes.values()) == report.completed
+    assert report.classes.get("open", 0) + report.classes.get("shorted", 0) >= 2  # the parts that failed
+
+
+def test_soak_30_parts_nothing_lost_nothing_left_on(tmp_path):
+    report = run_soak(tmp_path, 30, fault_rate=0.02, seed=1, timeout_ms=150)
+    _check(report, 30)
+
+
+@pytest.mark.slow
+@pytest.mark.timeout(1800)
+def test_soak_200_parts(tmp_path):
+    report = run_soak(tmp_path, 200, fault_rate=0.02, seed=2, timeout_ms=150)
+    _check(report, 200)
+
+
+class _SupplyRefusingOff:
+    """A supply whose first ``refusals`` output-off commands fail (a fault on the way)."""
+
+    identity, resource = "fake", "fake"
+
+    def __init__(self, refusals: int):
+        self.refusals, self.on = refusals, True
+
+    def set_output(self, on: bool) -> None:
+        if not on and self.refusals > 0:
+            self.refusals -= 1
+            raise OSError("connection reset")
+        self.on = on
+
+    def set_voltage(self, volts: float) -> None:
+        pass
+
+
+@pytest.mark.parametrize("refusals,left_on", [(OFF_ATTEMPTS - 1, False), (OFF_ATTEMPTS, True)])
+def test_safe_off_sends_output_off_again_after_a_failure(refusals, left_on):
+    supply = _SupplyRefusingOff(refusals)
+    guarded = GuardedSupply(supply, Limits(max_supply_v=10, max_drain_a=0.1, max_power_w=1), 47.0)
+    problems = guarded.safe_off()
+    assert supply.on is left_on
+    assert bool(problems) is left_on  # reported only when every attempt failed
