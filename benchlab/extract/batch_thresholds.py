@@ -7,6 +7,8 @@ mask so that :func:`benchlab.extract.fit_batch` needs no Python loop over sweeps
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 
 from benchlab.extract.second_derivative import second_derivative_batch
@@ -74,7 +76,12 @@ def _parabolas(x, y, valid):
     resid = ys - (coef[..., :1] + coef[..., 1:2] * u + coef[..., 2:3] * u2)
     rms = np.sqrt((resid * resid).sum(2) / max(width - 3, 1))
     with np.errstate(all="ignore"):
-        noise = np.nanmedian(np.where(ok, rms, np.nan), axis=1, keepdims=True) if ok.any() else rms[:, :1]
+        if ok.any():
+            with warnings.catch_warnings():  # a row with no usable window (a sweep of a few points) stays NaN
+                warnings.simplefilter("ignore", RuntimeWarning)
+                noise = np.nanmedian(np.where(ok, rms, np.nan), axis=1, keepdims=True)
+        else:
+            noise = rms[:, :1]
     s2 = scale * scale
     return {"x": centre[..., 0], "ok": ok, "value": coef[..., 0], "slope": coef[..., 1] / scale,
             "curvature": 2.0 * coef[..., 2] / s2,

@@ -215,8 +215,9 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
             masks = ([ranked[b] for b in group] if model == "auto"
                      else [_window(name, points[b].id, window, at_current) for b in group])
             start = None
-            if name in fits:
-                # reuse the comparison fit as the start (it is the answer when the window is the same)
+            if name in fits and all(b in fits[name][1] for b in group):
+                # reuse the comparison fit as the start (it is the answer when the window is the same); a sweep
+                # with too few points for the comparison has no row there (fitted from the model's own start)
                 fit_c, row_of = fits[name]
                 start = np.array([fit_c.params[row_of[b]] for b in group])
             fit, stacked, sigma = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start, ut=ut,

@@ -19,6 +19,7 @@ noise near the peak.
 
 from __future__ import annotations
 
+import warnings
 from math import comb
 
 import numpy as np
@@ -106,7 +107,8 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     rhs = np.stack(r, -1)
     coef = np.einsum("bnpq,bnq->bnp", inverse, rhs)
     rss = np.maximum(q[3] - np.einsum("bnp,bnp->bn", coef, rhs), 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # a sweep of a few points has no usable window: NaN
         window_noise = np.sqrt(rss / np.maximum(count - 3, 1))
         noise = np.nanmedian(np.where(usable, window_noise, np.nan), axis=1, keepdims=True)
     noise = np.where(np.isfinite(noise), noise, 0.0)

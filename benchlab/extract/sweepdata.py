@@ -287,6 +287,8 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
         raise InputError("no such file", path=name) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the file ({exc.__class__.__name__}: {exc})", path=name) from None
+    except csv.Error as exc:  # a field over the csv module's limit (131072 bytes), a NUL byte, ...
+        raise InputError(f"not a readable CSV ({exc})", path=name) from None
     # blank lines are skipped but still counted, so a row number is the data row a reader sees
     numbered = [(k, row) for k, row in enumerate(table) if row and (len(row) > 1 or row[0].strip())]
     if not numbered:

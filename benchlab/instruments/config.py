@@ -8,9 +8,9 @@ connected or powered.
 
 from __future__ import annotations
 
-import warnings
-
+import math
 import tomllib
+import warnings
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import IO, Any, Mapping
@@ -83,6 +83,7 @@ class BenchConfig:
 _TOP_KEYS = {"format_version", "fixture", "visa_library", "limits", "measurement", "series_resistor",
              "instruments", "notes", "thermal"}
 _LIMIT_UNITS = {"max_supply_v": "V", "max_drain_a": "A", "max_power_w": "W"}
+MAX_SETTLE_S = 3600.0  # a wait per point beyond an hour is a typing slip (1e300 overflowed the sleep with the output on)
 _MEASUREMENT_UNITS = {"settle_s": "s", "nplc": ""}
 _RESISTOR_KEYS = {"ohms", "tolerance", "power_rating_w"}
 _SPEC_KEYS = {"resource", "profile", "timeout_ms", "reset_on_connect"}
@@ -121,11 +122,17 @@ def load_bench_config(path_or_file: str | Path | IO[bytes] | IO[str]) -> BenchCo
             raw = Path(source).read_bytes()
         except OSError as exc:
             raise ConfigError(f"cannot read the bench file: {exc.strerror or exc}", path=source) from exc
-    text = raw.decode("utf-8") if isinstance(raw, bytes) else raw
+    try:
+        text = raw.decode("utf-8") if isinstance(raw, bytes) else raw
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"not a UTF-8 text file (TOML is UTF-8): {exc.reason} at byte {exc.start}",
+                          path=source) from None
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML: {exc}", path=source) from exc
+    except RecursionError:
+        raise ConfigError("not a usable bench file: its tables or arrays are nested too deeply", path=source) from None
     base_dir = Path(source).resolve().parent if source else Path.cwd()
     return parse_bench_config(data, path=source, base_dir=base_dir)
 
@@ -158,8 +165,8 @@ def parse_bench_config(data: Mapping[str, Any], *, path: str | None = None, base
     measurement = _sub(data, "measurement", fail, required=False)
     _only(measurement, set(_MEASUREMENT_UNITS), "measurement.", fail)
     settle_s = _quantity(measurement, "settle_s", "s", "measurement.", fail, default=0.05)
-    if settle_s < 0:
-        raise fail("measurement.settle_s", f"must be 0 s or more, got {settle_s} s")
+    if not 0 <= settle_s <= MAX_SETTLE_S:
+        raise fail("measurement.settle_s", f"must be 0 to {MAX_SETTLE_S:g} s (a wait per point), got {settle_s:g} s")
     nplc = _positive(measurement, "nplc", "", "measurement.", fail, required=False, default=1.0)
 
     instruments = _parse_instruments(_sub(data, "instruments", fail, required=True), fixture, fail, base_dir, environ)
@@ -327,11 +334,15 @@ def _quantity(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail,
         value = table[name]
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             raise fail(prefix + name, f"must be a plain number, got {value!r}")
-        return float(value)
-    try:
-        return parse_quantity(table[name], unit)
-    except ValueError as exc:
-        raise fail(prefix + name, str(exc)) from None
+        value = float(value)
+    else:
+        try:
+            value = parse_quantity(table[name], unit)
+        except ValueError as exc:
+            raise fail(prefix + name, str(exc)) from None
+    if not math.isfinite(value):  # TOML has inf and nan; no bench setting is either
+        raise fail(prefix + name, f"must be a finite number, got {value}")
+    return value
 
 
 def _positive(table: Mapping[str, Any], name: str, unit: str, prefix: str, fail, *, required: bool,

@@ -135,6 +135,11 @@ def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tup
             rows = list(csv.reader(handle))
     except OSError as exc:
         raise InputError(f"cannot read: {exc.strerror or exc}", path=str(csv_path)) from exc
+    except UnicodeDecodeError:
+        raise InputError("not a UTF-8 text file (a sweep CSV is UTF-8 text: binary, UTF-16 or Latin-1 files are "
+                         "refused)", path=str(csv_path)) from None
+    except csv.Error as exc:  # a field over the csv module's limit (131072 bytes), a NUL byte, ...
+        raise InputError(f"not a readable CSV ({exc})", path=str(csv_path)) from None
     if not rows:
         raise InputError("empty file (no header row)", path=str(csv_path))
     header = [h.strip() for h in rows[0]]
@@ -158,13 +163,20 @@ def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tup
             if n == len(body):  # the point in flight when the recorder stopped
                 break
             raise InputError(f"unreadable row ({exc})", path=str(csv_path), row=n) from exc
+        row_status = row[col["status"]].strip() if "status" in col else "ok"
+        if row_status == "ok":  # the rule `benchlab fit` applies: an ok point is two finite numbers
+            for name, value in (("vgs", v), ("id", i)):
+                if not math.isfinite(value):
+                    cell = row[col[name]].strip()
+                    raise InputError(f"{name} value '{cell}' is not a finite number in a point with status ok "
+                                     "(benchlab fit refuses it too)", path=str(csv_path), row=n)
         if p in seen:
             raise InputError(f"point number {p} appears twice", path=str(csv_path), row=n)
         seen.add(p)
         points.append(p)
         vgs.append(v)
         ids.append(i)
-        status.append(row[col["status"]].strip() if "status" in col else "ok")
+        status.append(row_status)
         direction.append(row[col["direction"]].strip().lower() if "direction" in col else "")
     return tuple(points), tuple(vgs), tuple(ids), tuple(status), tuple(direction)
 

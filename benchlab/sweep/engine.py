@@ -15,7 +15,7 @@ import time
 from dataclasses import replace
 from typing import Any, Callable
 
-from benchlab.errors import InputError, SafetyError
+from benchlab.errors import InputError, InstrumentError, SafetyError
 from benchlab.sweep.classify import classify
 from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
@@ -443,8 +443,14 @@ def preflight(plan: SweepPlan, instruments: Any) -> None:
     sweep = _Sweep(plan, instruments, None, None, "preflight", None, time.monotonic, time.sleep)
     try:
         sweep.setup()
-    finally:
+    except BaseException:
         sweep.source.safe_off()
+        raise
+    problems = sweep.source.safe_off()
+    if problems:
+        # a bench that cannot confirm its output off must not start a sweep (docs/sweeps.md): nothing is written
+        raise InstrumentError("the pre-sweep check could not confirm the output off (" + "; ".join(problems) +
+                              "); nothing was swept or written: check the instrument and its profile")
 
 
 def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | None = None, cancel=None, *,

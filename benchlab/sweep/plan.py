@@ -254,8 +254,9 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
     for name in ("min_current_a", "max_current_a", "search_step_v", "max_step_v", "max_search_v", "detect_current_a",
                  "settle_tolerance", "leak_current_a", "nplc"):
         _positive(name, getattr(plan, name))
-    if not (math.isfinite(plan.settle_s) and plan.settle_s >= 0):
-        raise InputError(f"settle_s must be >= 0, got {plan.settle_s!r}")
+    if not (math.isfinite(plan.settle_s) and 0 <= plan.settle_s <= 3600.0):
+        # an hour per point is a typing slip; 1e300 once overflowed the wait with the output on
+        raise InputError(f"settle_s must be 0 to 3600 s, got {plan.settle_s!r}")
     if not (math.isfinite(plan.start_v) and 0 <= plan.start_v <= lim.max_supply_v):
         raise SafetyError(f"start_v {plan.start_v!r} V must be between 0 and the bench limit max_supply_v {lim.max_supply_v:g} V")
     if not isinstance(plan.points, int) or plan.points < 2:

@@ -175,6 +175,17 @@ class SessionWriter:
         if meta.get("format") != SESSION_FORMAT:
             raise InputError(f"not a benchlab session (format {meta.get('format')!r})",
                              path=str(Path(directory) / "session.json"))
+        where = str(Path(directory) / "session.json")
+        count = meta.get("planned_count")
+        if count is not None and (isinstance(count, bool) or not isinstance(count, int) or count < 1):
+            raise InputError(f"planned_count must be a whole number of parts (1 or more) or null, got {count!r}",
+                             path=where)
+        parts = meta.get("parts")
+        if not isinstance(parts, list):
+            raise InputError(f"parts must be a list of part labels, got {type(parts).__name__}", path=where)
+        for label in parts:
+            names.check_name("part label", label, path=where)
+        names.check_name("lot name", meta.get("lot"), path=where)
         meta["ended"] = None
         writer = cls(Path(directory), meta)
         writer.save()

@@ -100,7 +100,7 @@ BAD_BENCHES = [
     (lambda t: t.replace('"12 V"', '"12 A"'), "limits.max_supply_v", "is not in V"),
     (lambda t: t.replace('"12 V"', "true"), "limits.max_supply_v", "must be a number"),
     (lambda t: t.replace('"20 ms"', '"fast"'), "measurement.settle_s", "is not a quantity"),
-    (lambda t: t.replace('"20 ms"', '"-5 ms"'), "measurement.settle_s", "must be 0 s or more"),
+    (lambda t: t.replace('"20 ms"', '"-5 ms"'), "measurement.settle_s", "must be 0 to 3600 s"),
     (lambda t: t.replace("max_power_w = 3", "max_power_w = 0"), "limits.max_power_w", "must be above 0"),
     # 12 V x 0.5 A = 6 W: a 3000 W limit could never apply (probably mW meant).
     (lambda t: t.replace("max_power_w = 3", "max_power_w = 3000"), "limits.max_power_w", "could never apply"),
