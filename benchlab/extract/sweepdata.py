@@ -206,7 +206,7 @@ def _plainly_good(vgs, i_d) -> bool:
     rising = (di > 0) & ~((dv <= 0) & (di <= 0))
     return bool(rising.all() and i_d[0] > 0 and i_d[-1] <= MAX_PLAUSIBLE_CURRENT_A
                 and abs(vgs[0]) <= MAX_PLAUSIBLE_VOLTAGE_V and abs(vgs[-1]) <= MAX_PLAUSIBLE_VOLTAGE_V
-                and np.isfinite(vgs[-1]) and np.isfinite(i_d[-1]))
+                and np.isfinite(vgs).all() and np.isfinite(i_d).all())  # a NaN anywhere takes the full checks
 
 
 def _infer_direction(vgs, i_d, rows, source, ordered=False):
