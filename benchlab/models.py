@@ -186,7 +186,8 @@ class DeviceParams:
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> "DeviceParams":
         known = {f for f in cls.__dataclass_fields__}
-        return cls(**{k: v for k, v in data.items() if k in known})
+        # null stands for "not a parameter of this model" (plain data never carries a placeholder 0)
+        return cls(**{k: v for k, v in data.items() if k in known and (v is not None or k in ("model", "vth"))})
 
 
 def solve_resistor_line(params: DeviceParams, supply_v: float, resistor_ohm: float,

@@ -178,6 +178,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     if at_current is not None:
         vgs_at, gm_at = vgs_and_gm(model, params, at_current, ut)
         v_sd, g_sd = _delta_stderr(model, params, fit.covariance, at_current, ut)
+    vgs_cc_model, gm_cc_model = vgs_and_gm(model, params, cc_current, ut)
     threshold_errors: dict = {}
     thresholds = thresholds_batch(vgs, i_d, points, cc_current, threshold_errors)
     # VGS error of an interpolated point: the readings' own scatter in VGS around that current
@@ -262,7 +263,9 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             model=model, params=device, vth=float(device.vth), kp=float(device.kp), theta=float(theta[row]),
             n=n_value, slope_mv_per_decade=n_value * ut * math.log(10.0) * 1e3 if model == "ekv" else None,
             gm=gm, at_current=at_current, vgs_at_current=v_at, vth_cc=vth_cc, cc_current=float(cc_current),
-            rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]), stderr=stderr, stderr_method=method,
+            rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]),
+            vgs_at_cc=_optional(vgs_cc_model[row]), gm_at_cc=_optional(gm_cc_model[row]), stderr=stderr,
+            stderr_method=method,
             flags=tuple(dict.fromkeys(code for code, _ in flags_found if code)), notes=tuple(n for _, n in flags_found),
             thresholds=row_thresholds, window=window, reason=reasons[row],
             criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()},

@@ -29,6 +29,10 @@ ALL_FLAGS = (FLAG_FEW_POINTS, FLAG_NARROW_RANGE, FLAG_POOR_FIT, FLAG_NON_MONOTON
              FLAG_POWER_DRIFT, FLAG_AT_BOUND, FLAG_NOT_CONVERGED, FLAG_CC_OUTSIDE, FLAG_AT_CURRENT_OUTSIDE,
              FLAG_UNCERTAIN)
 
+# DeviceParams fields that are not parameters of a model (kept 0 in the dataclass, null in plain data)
+_NOT_IN_MODEL = {"linear": ("kp", "theta", "n"), "square": ("gm", "theta", "n"), "theta": ("gm", "n"),
+                 "ekv": ("gm",)}
+
 STDERR_KEYS = ("vth", "kp", "theta", "n", "gm", "vth_cc", "vgs_at_current", "vth_sd")
 
 
@@ -67,7 +71,10 @@ class FitResult:
     rms_residual : float
         RMS of (model - measured) over the fitted points (A).
     rms_relative : float
-        RMS of the relative residuals (the quantity minimised).
+        RMS of the relative residuals.
+    vgs_at_cc, gm_at_cc : float or None
+        VGS (V) and gm (A/V) of the fitted curve at ``cc_current`` (250 uA by default), for every
+        model (stored and shown beside the data's ``vth_cc``); None only when not finite.
     stderr : dict
         Standard errors of ``vth``, ``kp``, ``theta``, ``n``, ``gm``, ``vth_cc``,
         ``vgs_at_current`` and ``vth_sd`` (the second-derivative threshold), None where not
@@ -109,6 +116,8 @@ class FitResult:
     cc_current: float
     rms_residual: float
     rms_relative: float
+    vgs_at_cc: float | None = None
+    gm_at_cc: float | None = None
     stderr: dict = field(default_factory=dict)
     stderr_method: str = "covariance"
     flags: tuple = ()
@@ -128,7 +137,10 @@ class FitResult:
         for f in fields(self):
             value = getattr(self, f.name)
             if isinstance(value, DeviceParams):
-                value = value.to_dict()
+                # a parameter the model does not have is null, never a placeholder 0 (gm of an ekv fit
+                # is not 0 A/V: it is in gm / gm_at_cc)
+                value = {k: (None if k in _NOT_IN_MODEL.get(value.model, ()) else v)
+                         for k, v in value.to_dict().items()}
             elif isinstance(value, tuple):
                 value = list(value)
             elif isinstance(value, dict):
@@ -141,7 +153,7 @@ class FitResult:
         """Inverse of :meth:`to_dict` (unknown keys are ignored)."""
         known = {f.name for f in fields(cls)}
         values = {k: v for k, v in data.items() if k in known}
-        values["params"] = DeviceParams.from_dict(values["params"])
+        values["params"] = DeviceParams.from_dict({k: v for k, v in values["params"].items() if v is not None})
         for name in ("flags", "notes"):
             values[name] = tuple(values.get(name) or ())
         return cls(**values)

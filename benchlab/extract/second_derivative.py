@@ -71,10 +71,11 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     y = np.where(ok, y, 0.0)
     # half-width: a fixed part of the span, widened on sparse sweeps so a window holds about
     # MIN_WINDOW_POINTS points (2.5 x the upper-quartile spacing)
-    gaps = np.where(ok[:, 1:] & ok[:, :-1], np.diff(t, axis=1), np.nan)
-    with np.errstate(all="ignore"):
-        wide = np.nanpercentile(np.where(np.isfinite(gaps), gaps, np.nan), 75, axis=1) if width > 1 else None
-    wide = np.where(np.isfinite(wide), wide, 0.0)
+    # (valid points are sorted to the left, so a row's gaps are its first n - 1 differences)
+    gaps = np.where(ok[:, 1:] & ok[:, :-1], np.diff(t, axis=1), -np.inf)
+    n_gaps = np.maximum((ok[:, 1:] & ok[:, :-1]).sum(axis=1), 1)
+    ranked = np.sort(gaps, axis=1)[:, ::-1]  # largest first
+    wide = np.maximum(ranked[np.arange(rows), np.minimum(n_gaps // 4, width - 2)], 0.0)
     h = np.maximum(HALF_WIDTH_FRACTION, 0.5 * (MIN_WINDOW_POINTS) * wide)[:, None]
     # window bounds by a flat searchsorted over rows kept apart by an offset of 4 per row
     offset = 4.0 * np.arange(rows)[:, None]
@@ -97,16 +98,21 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     m = [sum(comb(j, k) * p[k] * (-c) ** (j - k) for k in range(j + 1)) for j in range(5)]
     r = [sum(comb(j, k) * q[k] * (-c) ** (j - k) for k in range(j + 1)) for j in range(3)]
     count = m[0]
-    normal = np.stack([np.stack([m[0], m[1], m[2]], -1), np.stack([m[1], m[2], m[3]], -1),
-                       np.stack([m[2], m[3], m[4]], -1)], -2)
+    # the 3x3 normal equations [[a b c] [b d e] [c e f]] inverted by cofactors (a batched
+    # numpy inverse of this many small matrices is several times slower)
+    a_, b_, c_, e_, f_ = m[0], m[1], m[2], m[3], m[4]
+    d_ = c_
+    co_a, co_b, co_c = d_ * f_ - e_ * e_, c_ * e_ - b_ * f_, b_ * e_ - c_ * d_
+    co_d, co_e, co_f = a_ * f_ - c_ * c_, b_ * c_ - a_ * e_, a_ * d_ - b_ * b_
+    det = a_ * co_a + b_ * co_b + c_ * co_c
     enough = ok & (count >= MIN_WINDOW_POINTS)
-    det = np.linalg.det(normal)
-    usable = enough & (np.abs(det) > 1e-30 * np.maximum(m[0] * m[2] * m[4], 1e-300))
-    safe = np.where(usable[..., None, None], normal, np.eye(3))
-    inverse = np.linalg.inv(safe)
-    rhs = np.stack(r, -1)
-    coef = np.einsum("bnpq,bnq->bnp", inverse, rhs)
-    rss = np.maximum(q[3] - np.einsum("bnp,bnp->bn", coef, rhs), 0.0)
+    usable = enough & (np.abs(det) > 1e-30 * np.maximum(a_ * c_ * f_, 1e-300))
+    det = np.where(usable, det, 1.0)
+    t0, t1, t2 = r
+    coef = np.stack([co_a * t0 + co_b * t1 + co_c * t2, co_b * t0 + co_d * t1 + co_e * t2,
+                     co_c * t0 + co_e * t1 + co_f * t2], -1) / det[..., None]
+    inverse_22 = co_f / det
+    rss = np.maximum(q[3] - (coef[..., 0] * t0 + coef[..., 1] * t1 + coef[..., 2] * t2), 0.0)
     with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)  # a sweep of a few points has no usable window: NaN
         window_noise = np.sqrt(rss / np.maximum(count - 3, 1))
@@ -115,7 +121,7 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     s2 = span * span
     slope = np.where(usable, coef[..., 1] / span, -np.inf)
     curvature = np.where(usable, 2.0 * coef[..., 2] / s2, -np.inf)
-    curvature_se = 2.0 * noise * np.sqrt(np.abs(inverse[..., 2, 2])) / s2
+    curvature_se = 2.0 * noise * np.sqrt(np.abs(inverse_22)) / s2
     idx = np.arange(width)[None, :]
     n_use = usable.sum(axis=1)
     # order of usable windows within the row (edges counted over usable ones)

@@ -17,6 +17,8 @@ if TYPE_CHECKING:
 
 EXPORT_FORMAT = "benchlab-library/1"
 PARAM_FIELDS = ("vth", "kp", "theta", "n", "gm", "temperature_k")
+_MODEL_FIELDS = {"linear": ("vth", "gm", "temperature_k"), "square": ("vth", "kp", "temperature_k"),
+                 "theta": ("vth", "kp", "theta", "temperature_k"), "ekv": ("vth", "kp", "theta", "n", "temperature_k")}
 CSV_COLUMNS = (("lot", "label", "polarity", "state", "reason", "package", "notes", "classification", "model")
                + PARAM_FIELDS + tuple(f"stderr_{f}" for f in PARAM_FIELDS[:5])
                + ("flags", "fit_source", "fitted_at", "fitter_version") + CSV_THERMAL_COLUMNS)
@@ -202,7 +204,9 @@ def csv_rows(lib: "Library", lot: str | None = None, state: str | None = None) -
                    "classification": part.classification or "", "model": part.params.model if part.params else "",
                    "flags": ";".join(part.flags), "fit_source": "", "fitted_at": "", "fitter_version": ""}
             for name in PARAM_FIELDS:
-                row[name] = repr(float(getattr(part.params, name))) if part.params else ""
+                # a parameter the model does not have is an empty cell, never a placeholder 0
+                meaningful = part.params is not None and name in _MODEL_FIELDS.get(part.params.model, PARAM_FIELDS)
+                row[name] = repr(float(getattr(part.params, name))) if meaningful else ""
             for name in PARAM_FIELDS[:5]:
                 value = part.stderr.get(name)
                 row[f"stderr_{name}"] = "" if value is None else repr(float(value))

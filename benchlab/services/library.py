@@ -219,18 +219,28 @@ def write_output(text: str, out: str | None) -> str | None:
     return None
 
 
+REFERENCE_CURRENT_A = 250e-6  # the library-wide current of the VGS / gm columns (datasheet VGS(th) condition)
+
+
 def format_parts_table(parts: Sequence[PartRecord]) -> str:
-    """A readable fixed-width table of parts (label, lot, state, model, Vth, KP/gm, THETA, flags)."""
-    header = f"{'PART':<22} {'STATE':<9} {'MODEL':<7} {'VTH/V':>8} {'KP/(A/V2)':>10} {'GM/(A/V)':>9} {'THETA':>7}  NOTE"
+    """A readable fixed-width table of parts (label, lot, state, model, Vth, KP, THETA, VGS and gm at 250 uA, flags)."""
+    header = (f"{'PART':<22} {'STATE':<9} {'MODEL':<7} {'VTH/V':>8} {'KP/(A/V2)':>10} {'THETA':>7} "
+              f"{'VGS@250uA':>9} {'GM@250uA':>9}  NOTE")
     lines = [header]
     for p in parts:
         prm = p.params
         vth = f"{prm.vth:8.4f}" if prm else f"{'-':>8}"
         kp = f"{prm.kp:10.4g}" if prm and prm.model != "linear" else f"{'-':>10}"
-        gm = f"{prm.gm:9.4g}" if prm and prm.model == "linear" else f"{'-':>9}"
         theta = f"{prm.theta:7.3g}" if prm and prm.theta else f"{'-':>7}"
+        # VGS and gm of the stored curve at the library-wide reference current (the 250 uA datasheet
+        # threshold condition), for every model; '-' only without a curve
+        v_ref = float(prm.vgs_at(REFERENCE_CURRENT_A)) if prm else None
+        g_ref = float(prm.gm_at(REFERENCE_CURRENT_A)) if prm else None
+        vgs = f"{v_ref:9.4f}" if v_ref is not None and math.isfinite(v_ref) else f"{'-':>9}"
+        gm = f"{g_ref:9.4g}" if g_ref is not None and math.isfinite(g_ref) else f"{'-':>9}"
         note = p.reason if p.state == "rejected" else ", ".join(p.flags)
-        lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {gm} {theta}  {note or ''}")
+        lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {theta} {vgs} {gm}  "
+                     f"{note or ''}")
     lines.append(f"{len(parts)} part(s)")
     return "\n".join(lines)
 

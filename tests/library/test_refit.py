@@ -71,3 +71,24 @@ def test_refit_of_an_unknown_lot_is_one_error(capsys, tmp_path, library_target):
     assert _run(capsys, "library", "import", str(tmp_path / "sessions"), "--library", library_target)[0] == 0
     code, out, err = _run(capsys, "library", "refit", "--lot", "NOPE", "--library", library_target)
     assert code != 0 and len(err.strip().splitlines()) == 1 and "Traceback" not in err
+
+
+def test_parts_list_and_csv_show_vgs_and_gm_at_250uA_never_a_placeholder(capsys, tmp_path, library_target):
+    write_session(tmp_path / "sessions", "s1", "BAG-A", _square_bag(3))
+    assert _run(capsys, "library", "import", str(tmp_path / "sessions"), "--library", library_target)[0] == 0
+    code, out, _ = _run(capsys, "parts", "list", "--library", library_target)
+    assert code == 0 and "VGS@250uA" in out and "GM@250uA" in out
+    with Library.open(library_target) as lib:
+        part = lib.parts(lot="BAG-A")[0]
+    row = next(line for line in out.splitlines() if line.startswith(f"BAG-A/{part.label}"))
+    # the square law at 250 uA: VGS = Vth + sqrt(2 I / KP), gm = sqrt(2 KP I) (Shichman-Hodges)
+    assert f"{part.params.vth + (2 * 250e-6 / part.params.kp) ** 0.5:9.4f}" in row
+    assert f"{(2 * part.params.kp * 250e-6) ** 0.5:9.4g}" in row
+    code, out, _ = _run(capsys, "export", "csv", "--library", library_target)
+    assert code == 0
+    import csv
+    import io
+
+    rows = list(csv.DictReader(io.StringIO(out)))
+    # gm is not a square-law parameter: an empty cell, not 0.0
+    assert rows and all(r["gm"] == "" and r["kp"] != "" for r in rows)
