@@ -104,6 +104,9 @@ def test_default_path_follows_the_environment(monkeypatch, tmp_path):
     monkeypatch.delenv("BENCHLAB_LIBRARY")
     path = default_library_path()
     assert path.name == "library.db" and "benchlab" in str(path.parent)
+    # a PostgreSQL URL is kept as text (a Path would fold its '//' into one '/')
+    monkeypatch.setenv("BENCHLAB_LIBRARY", " postgresql://bench1@db.lab.example/lab_parts?sslmode=verify-full ")
+    assert default_library_path() == "postgresql://bench1@db.lab.example/lab_parts?sslmode=verify-full"
 
 
 def test_several_programs_creating_the_same_library_at_once(new_library_target, library_backend):
