@@ -64,5 +64,7 @@ def _spice(args) -> int:
     if args.design is not None:
         from benchlab.services.design import recorded_sink_netlist
 
-        texts.append(recorded_sink_netlist(args.library, args.design))
+        from benchlab.design.spice import model_names_in
+
+        texts.append(recorded_sink_netlist(args.library, args.design, model_names_in("\n".join(texts))))
     return _emit("\n".join(texts), args.out)

@@ -49,9 +49,10 @@ def sanitize_model_name(label: str) -> str:
     return name
 
 
-def unique_model_names(labels: Sequence[str]) -> list[str]:
-    """Sanitized names for ``labels``, made unique case-insensitively (SPICE ignores case)."""
-    seen: dict[str, int] = {}
+def unique_model_names(labels: Sequence[str], taken: Sequence[str] = ()) -> list[str]:
+    """Sanitized names for ``labels``, made unique case-insensitively (SPICE ignores case), also against the
+    names ``taken`` by other cards of the same file (ngspice silently uses the first card of a name)."""
+    seen: dict[str, int] = {name.lower(): 0 for name in taken}
     out = []
     for label in labels:
         base = sanitize_model_name(label)
@@ -166,14 +167,21 @@ def model_card(label: str, params: DeviceParams, *, name: str | None = None, lam
     return SpiceCard(name=model_name, level=level, text=text)
 
 
+def model_names_in(text: str) -> list[str]:
+    """The names of the ``.model`` cards in a SPICE text, in order."""
+    return re.findall(r"^\s*\.model\s+(\S+)", text, flags=re.MULTILINE | re.IGNORECASE)
+
+
 def model_cards(parts: Sequence[Part], *, lambdas: dict[str, float] | None = None,
-                at_currents: Sequence[float | None] | None = None) -> list[SpiceCard]:
+                at_currents: Sequence[float | None] | None = None, taken: Sequence[str] = (),
+                suffix: str = "") -> list[SpiceCard]:
     """Cards for several parts with unique model names (in the order given).
 
     ``lambdas`` maps a part label to its LAMBDA; ``at_currents`` gives, per part, where a
-    linear part's equivalent is exact (None for the default).
+    linear part's equivalent is exact (None for the default). ``taken``: model names already used in the
+    file (the new cards avoid them); ``suffix`` is added to each label before it becomes a name.
     """
-    names = unique_model_names([p.label for p in parts])
+    names = unique_model_names([p.label + suffix for p in parts], taken)
     lambdas = lambdas or {}
     currents = list(at_currents) if at_currents is not None else [None] * len(parts)
     return [model_card(p.label, p.params, name=n, lambda_=lambdas.get(p.label), lot=p.lot, at_current=c)
@@ -188,7 +196,8 @@ def model_library(parts: Sequence[Part], title: str = "benchlab SPICE models") -
 
 def sink_netlist(supply_v: float, resistor_ohm: float, ref: Part, outputs: Sequence[Part],
                  load_voltage: float, *, source_resistor_ohm: float = 0.0,
-                 operating_currents: Sequence[float] | None = None, title: str = "benchlab current sink") -> str:
+                 operating_currents: Sequence[float] | None = None, title: str = "benchlab current sink",
+                 taken_names: Sequence[str] = ()) -> str:
     """Netlist of a current sink: supply, resistor, diode-connected reference, outputs with loads.
 
     Parameters
@@ -209,6 +218,8 @@ def sink_netlist(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         operating point).
     title : str
         First line of the deck.
+    taken_names : sequence of str
+        Model names other cards of the same file already use; the netlist's cards get other names.
 
     Returns
     -------
@@ -221,7 +232,9 @@ def sink_netlist(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     currents = list(operating_currents) if operating_currents is not None else [None] * len(parts)
     if len(currents) != len(parts):
         raise InputError("operating_currents needs one value for the reference and one per output")
-    cards = model_cards(parts, at_currents=currents)
+    # cards in a file beside other cards of the same parts (export spice PARTS --design ID) get their own names:
+    # one name, one card per file
+    cards = model_cards(parts, at_currents=currents, taken=taken_names, suffix="_op" if taken_names else "")
     rs = float(source_resistor_ohm)
     lines = [f"* {spice_comment(title)}",
              f"* reference {spice_comment(ref.label)}, outputs {spice_comment(', '.join(p.label for p in outputs))}; "

@@ -186,7 +186,8 @@ def _with_range_caution(design: SinkDesign, lib, records) -> SinkDesign:
     return replace(design, cautions=tuple(cautions))
 
 
-def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int) -> str:
+def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int,
+                          taken_names: Sequence[str] = ()) -> str:
     """The ngspice netlist of a sink design recorded in the library (``benchlab export spice --design``).
 
     Rebuilt from the parts, resistors and voltages stored with the design, so it is the netlist
@@ -209,7 +210,8 @@ def recorded_sink_netlist(library_path: str | os.PathLike | None, design_id: int
         currents = [float(stored["i_ref"]), *(float(o["i_out"]) for o in stored["outputs"])]
         return sink_netlist(float(stored["supply"]), float(stored["r_chosen"]), parts[0], parts[1:],
                             float(stored["load_voltage"]), source_resistor_ohm=float(stored["source_resistor"]),
-                            operating_currents=currents, title=f"benchlab current sink, design {int(design_id)}")
+                            operating_currents=currents, title=f"benchlab current sink, design {int(design_id)}",
+                            taken_names=taken_names)
     except (KeyError, TypeError, ValueError) as exc:
         raise LibraryError(f"design {design_id} is stored without what a netlist needs ({exc})") from exc
 
