@@ -182,3 +182,13 @@ def test_a_pdf_that_cannot_be_written_is_refused_before_anything_is(recorded, ca
                                   "--pdf", str(bad)])
         assert code == 2 and out.err.count("\n") == 1 and "--pdf" in out.err
         assert not (tmp_path / "r").exists() and not bad.exists()
+
+
+def test_a_moved_session_folder_is_named_not_a_failure(recorded, capsys, tmp_path):
+    root, lib, _ = recorded
+    session = root / "20261202-101500-demo-bag"
+    session.rename(root / "moved")
+    code, out = _run(capsys, ["report", "--library", lib, "--lot", LOT, "--out", str(tmp_path / "r")])
+    assert code == 0, out.err
+    page = (tmp_path / "r" / "index.html").read_text(encoding="utf-8")
+    assert f"session record not found at {session}" in page
