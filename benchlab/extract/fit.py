@@ -133,7 +133,9 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
     if not weighted:
         return fit, (vgs, i_d, mask, valid), None
     # the reported fit: effective-variance weights for noise on both axes (see extract/eiv.py)
-    fit, sigma = effective_variance_fit(model, vgs, i_d, mask, fit.params, ut=ut)
+    stated = np.array([np.nan if p.sweep.sigma_v is None else p.sweep.sigma_v for p in points])
+    fit, sigma = effective_variance_fit(model, vgs, i_d, mask, fit.params, ut=ut,
+                                        sigma_v=stated if np.isfinite(stated).any() else None)
     return fit, (vgs, i_d, mask, valid), sigma
 
 

@@ -10,7 +10,7 @@ from __future__ import annotations
 import csv
 import math
 import re
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 
 import numpy as np
@@ -54,6 +54,7 @@ class Sweep:
     source: str | None = None
     skipped: dict = field(default_factory=dict)
     fold_backs: tuple = ()  # (row, vgs, id) where VGS and ID fell together far beyond the noise
+    sigma_v: float | None = None  # VGS noise (V) the record states (repeated readings), None when unknown
 
     def select(self, direction: str) -> tuple[np.ndarray, np.ndarray]:
         """VGS and ID of one direction's points, sorted by rising current (then VGS)."""
@@ -311,6 +312,8 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     # the part's noise floor: readings before it conducts scatter around zero (some negative); they
     # are dropped with the session's detection current when there is one, else below a floor
     # estimated from the data (the same points either way, so a CSV fits as its session does)
+    spread = skipped.pop("_spread_v", None)
+    sigma_v = stated_vgs_noise(spread)
     vgs, i_d, rows = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(rows, int)
     floor = detection_floor(i_d)
     why = "noise_floor"
@@ -324,8 +327,25 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
             direction = [d for d, k in zip(direction, keep) if k] if direction_col is not None else direction
     if not vgs.size:
         raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
-    return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
-                           source=name, skipped=skipped, ordered=ordered)
+    sweep = validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
+                            source=name, skipped=skipped, ordered=ordered)
+    return replace(sweep, sigma_v=sigma_v) if sigma_v is not None else sweep
+
+
+MIN_SPREAD_SAMPLES = 5
+
+
+def stated_vgs_noise(spread_v) -> float | None:
+    """VGS noise (V) from a record's repeated readings: ``spread_v`` is the difference of the last two
+    readings of VGS at a point, whose RMS over the points read twice is sqrt(2) sigma_V (None with
+    fewer than :data:`MIN_SPREAD_SAMPLES` such points)."""
+    if spread_v is None:
+        return None
+    spread = np.asarray(spread_v, float)
+    spread = spread[np.isfinite(spread) & (spread != 0)]
+    if spread.size < MIN_SPREAD_SAMPLES:
+        return None
+    return float(np.sqrt(np.mean(spread * spread) / 2.0))
 
 
 # readings below this many standard deviations of the noise floor are not conduction (our choice:
@@ -371,8 +391,9 @@ def _columns(body, width, index):
     cols = list(zip(*(row for _, row in body)))
     try:
         numbers = {name: np.array(cols[index[name]], dtype=float) for name in ("vgs", "id")}
-        if "point" in index:
-            numbers["point"] = np.array(cols[index["point"]], dtype=float)
+        for name in ("point", "spread_v"):
+            if name in index:
+                numbers[name] = np.array(cols[index[name]], dtype=float)
     except ValueError:
         return None  # the row-by-row reader names the bad cell
     return np.array([k for k, _ in body]), cols, numbers
@@ -390,6 +411,7 @@ def _from_columns(columns, status_col, point_col, direction_col):
         skipped[value] = skipped.get(value, 0) + 1
     take = order[ok]
     direction = [cols[direction_col][k] for k in take] if direction_col is not None else []
+    skipped["_spread_v"] = numbers["spread_v"][take] if "spread_v" in numbers else None
     return numbers["vgs"][take], numbers["id"][take], row_numbers[take], direction, skipped
 
 

@@ -126,3 +126,23 @@ def test_monte_carlo_spread_matches_refitting(curves):
     # drawing each parameter alone (the correlations dropped) misstates it badly
     independent = observed / predicted(False)
     assert not 0.8 <= independent <= 1.25, f"independent draws: observed / predicted = {independent:.3f}"
+
+
+def test_stated_vgs_noise_from_repeated_readings(curves, tmp_path):
+    # a record whose points were read twice states its VGS noise in spread_v (the difference of the two
+    # readings); the fit then takes sigma_V as given (effective variance) and its errors stay honest
+    from dataclasses import replace
+
+    from benchlab.extract import load_sweep_csv, validate_points
+
+    sigma = 2e-4 * 2.9  # VGS noise of _percent_copies near threshold (V)
+    rng = np.random.default_rng(16)
+    v, i = _percent_copies(curves[CARD], seed=16, copies=1)[0]
+    spread = rng.normal(0, sigma, v.size) - rng.normal(0, sigma, v.size)
+    path = tmp_path / "Q01.csv"
+    path.write_text("point,vgs,id,status,direction,spread_v\n" + "".join(
+        f"{k},{float(a)!r},{float(b)!r},ok,up,{float(s)!r}\n" for k, (a, b, s) in enumerate(zip(v, i, spread))))
+    stated = load_sweep_csv(path).sigma_v
+    assert stated == pytest.approx(sigma, rel=0.15)
+    sweeps = [replace(validate_points(a, b), sigma_v=stated) for a, b in _percent_copies(curves[CARD], seed=17)]
+    _check_coverage(fit_batch(sweeps, "theta"))
