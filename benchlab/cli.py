@@ -18,7 +18,7 @@ from benchlab.errors import BenchlabError
 
 # Order is the order shown in --help.
 COMMAND_MODULES: tuple[str, ...] = (
-    "demo", "sim", "bench", "sweep", "thermal", "fit", "library", "parts", "design", "export", "report",
+    "demo", "sim", "bench", "sweep", "thermal", "fit", "library", "parts", "design", "export", "report", "ui",
 )
 
 

@@ -226,16 +226,17 @@ def prepare(bench_path: str | None = None, sim: SimOptions | None = None, plan_o
 def sweep_one(handle: BenchHandle, plan: SweepPlan, label: str, *, lot: str = "single",
               sessions_root: str | Path = DEFAULT_SESSIONS_DIR, operator: str = "", ambient_c: float | None = None,
               on_event: Callable[[Any], None] | None = None, cancel=None,
-              on_session: Callable[[Path], None] | None = None) -> tuple[SweepOutcome, Path]:
+              on_session: Callable[[Path], None] | None = None, seat: bool = True) -> tuple[SweepOutcome, Path]:
     """Sweep the part labelled ``label`` into a new one-part session; returns ``(outcome, csv path)``.
 
-    On the simulator the part of that label is seated first. A bench that refuses its settings
+    On the simulator (with ``seat``) the part of that label is seated first; the UI sweeps whatever
+    part is in the fixture under its own label (``seat=False``). A bench that refuses its settings
     (preflight) writes no session. SIGTERM / SIGHUP stop the sweep with the output off.
     """
     check_name("part label", label)
     check_name("lot name", lot)
     with sigterm_as_exception():
-        if handle.simulator is not None:
+        if handle.simulator is not None and seat:
             SimPartLoader(handle.bench).seek(label)
         preflight(plan, handle.bench)
         session = SessionWriter.create(sessions_root, lot, operator=operator, ambient_c=ambient_c, planned_count=1,

@@ -28,6 +28,10 @@ OPERATOR_PROBE_LIMIT_A = 2e-3
 # conducted more than PULL_CONDUCTING_A (so the sweep has seen it conduct, and sees it stop).
 PULL_AFTER_SWEEP_READINGS = 6
 PULL_CONDUCTING_A = 1e-4
+# An open part looks like an empty fixture to a probe: the operator who sees a probe on and no sweep
+# start for this long (at least NOT_DETECTED_MIN_S) takes the part out as a dud and seats the next.
+NOT_DETECTED_HANDLINGS = 3.0
+NOT_DETECTED_MIN_S = 2.0
 
 
 class BenchCore:
@@ -71,6 +75,7 @@ class BenchCore:
         self._conducting_readings = 0  # of those, the ones at which the part conducted
         self._pending_index: int | None = None  # the operator's next part, while the fixture is empty
         self._seat_at: float | None = None
+        self._watched_from = 0.0  # since when a probe has watched the seated part (no sweep yet)
         fixture.load(bag[0] if bag else None, clock.now())
         if not bag:
             self.part_index = -1
@@ -155,6 +160,8 @@ class BenchCore:
 
     def output_changed(self, on: bool) -> None:
         """A source was switched: with an operator, a source going off after a sweep ends the part's turn."""
+        if on:
+            self._watched_from = self.now()
         if not on and self.handling_s > 0 and self._sweep_readings > 0 and self.part_index >= 0:
             self.take_out("taken out after its sweep")
 
@@ -162,11 +169,16 @@ class BenchCore:
         """Seat the operator's next part once the handling time has passed and no source is sweeping."""
         if self._seat_at is not None and self.now() >= self._seat_at and not self.sweeping():
             self.next_part()
+        elif (self.handling_s > 0 and self.part_index >= 0 and self._sweep_readings == 0 and self.outputs_on()
+              and not self.sweeping()
+              and self.now() - self._watched_from > max(NOT_DETECTED_MIN_S, NOT_DETECTED_HANDLINGS * self.handling_s)):
+            self.take_out("not detected by the probe (an open part?): taken out")
 
     def next_part(self) -> None:
         """Load the next part of the bag (index -1 and an empty fixture once the bag is used up)."""
         self._seat_at = None
         self._sweep_readings = self._conducting_readings = 0
+        self._watched_from = self.now()
         if self._pending_index is not None:  # the fixture is empty between two parts
             self.part_index, self._pending_index = self._pending_index, None
         elif self.part_index >= 0:

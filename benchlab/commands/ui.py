@@ -1,0 +1,95 @@
+"""``benchlab ui``: the terminal app (the technician's bench loop, hands-free, library, sets and sink)."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+
+from benchlab.commands._args import library_option, quantity
+from benchlab.kinds import Fixture
+
+IDLE_WAIT_S = 15.0  # on exit: longest wait for a running sweep's thread to switch off and end
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "ui", parents=[library_option()], help="the terminal app: sweep parts one after another, hands-free, "
+                                               "browse the library, pick sets, design a sink",
+        description="A keyboard-first terminal app. F1-F6 switch views (Bench, Characterize, Hands-free, Library, "
+                    "Sets, Sink); Ctrl+K aborts and switches every output off from any view; F10 lists every key.")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--bench", metavar="CONFIG", help="bench file (TOML, see docs/bench-config.md)")
+    where.add_argument("--sim", action="store_true", help="connect the built-in simulated bench at start")
+    p.add_argument("--lot", default="lot-1", help="lot name of the parts swept (default lot-1)")
+    p.add_argument("--sessions", metavar="DIR", default="sessions", help="where sessions go (default ./sessions)")
+    p.add_argument("--operator", default="", help="who is at the bench (stored in the sessions)")
+    p.add_argument("--points", type=int, help="target points of each sweep (default 24)")
+    p.add_argument("--max-current", type=quantity("A"), metavar="A", help="top target current (default 0.1 A)")
+    sim = p.add_argument_group("simulated bench (--sim, or s in the Bench view)")
+    sim.add_argument("--sim-fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
+                     help="resistor: supply, series resistor and meter; smu: source-measure unit (default resistor)")
+    sim.add_argument("--sim-seed", type=int, default=1, help="seed of the simulated bag (default 1)")
+    sim.add_argument("--sim-bag-size", type=int, default=40, help="parts in the simulated bag (default 40)")
+    sim.add_argument("--sim-time-scale", type=float, default=0.0,
+                     help="real seconds per instrument second (1 real time, 0 no waits; default 0)")
+    sim.add_argument("--sim-handling", type=float, default=0.0, metavar="SECONDS",
+                     help="simulated operator: the part is taken out after its sweep and the next seated SECONDS "
+                          "later (for hands-free; default 0: parts change on n)")
+    sim.add_argument("--sim-fault", action="append", default=[], metavar="SPEC", help="inject a simulator fault")
+    sim.add_argument("--sim-log", metavar="FILE", help="write the simulator's log (JSON lines) to FILE")
+    p.set_defaults(func=run)
+
+
+def options_from(args: argparse.Namespace):
+    """The app's options from the command line (checked before the app starts)."""
+    from benchlab.services.characterize import SimOptions, load_config
+    from benchlab.sim.bench import SimConfig
+    from benchlab.sim.faults import coerce_faults
+    from benchlab.sweep.session import check_name
+    from benchlab.tui.app import UiOptions
+
+    check_name("lot name", args.lot)
+    sim = None
+    if args.sim or not args.bench:
+        sim = SimOptions(fixture=args.sim_fixture, seed=args.sim_seed, bag_size=args.sim_bag_size,
+                         time_scale=args.sim_time_scale, faults=tuple(args.sim_fault), log_path=args.sim_log,
+                         handling_s=args.sim_handling)
+        coerce_faults(sim.faults)
+        SimConfig(fixture=sim.fixture, seed=sim.seed, bag_size=sim.bag_size, time_scale=sim.time_scale,
+                  handling_s=sim.handling_s)
+    if args.bench:
+        load_config(args.bench)  # a bad bench file is one clear error before the app starts
+    plan = {"points": args.points, "max_current_a": args.max_current}
+    return UiOptions(bench_path=args.bench, sim=sim, library=args.library, lot=args.lot, sessions=args.sessions,
+                     plan_options={k: v for k, v in plan.items() if v is not None},
+                     connect_at_start=bool(args.sim or args.bench), operator=args.operator)
+
+
+def run(args: argparse.Namespace) -> int:
+    from benchlab.tui.app import BenchlabApp
+
+    app = BenchlabApp(options_from(args))
+    if args.bench:
+        from benchlab.services.characterize import CAUTION
+
+        print(CAUTION, file=sys.stderr)
+
+    def stop(signum, frame):
+        # SIGTERM, or SIGHUP when the terminal closes: outputs off first, then leave the app
+        for sig in (signal.SIGTERM, signal.SIGHUP):
+            signal.signal(sig, signal.SIG_IGN)
+        app.stop_everything()
+        app.exit(return_code=1)
+
+    previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGHUP)}
+    try:
+        app.run()
+    finally:
+        app.stop_everything()
+        app.idle_event.wait(IDLE_WAIT_S)  # the sweep thread switches off and posts its end
+        if app.handle is not None:
+            app.handle.close()
+        for sig, action in previous.items():
+            signal.signal(sig, action)
+    return app.return_code or 0

@@ -1,0 +1,187 @@
+"""Library, Sets and Sink actions of the app (a mixin): read the form, call the services, show the result."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from rich.markup import escape
+from textual.widgets import DataTable, Input, Static
+
+from benchlab.errors import BenchlabError
+
+SORT_KEYS = ("label", "lot", "state", "vth", "kp", "theta", "vgs_250u", "gm")
+
+
+def _num(value, fmt: str) -> str:
+    return "-" if value is None else format(value, fmt)
+
+
+class DesignActions:
+    """Mixed into the app: everything here calls ``services.station`` / ``services.design`` / ``services.library``."""
+
+    sort_index = 0
+    sets_found: list = []
+    last_design = None
+    exports = 0
+
+    def _value(self, input_id: str) -> str:
+        return self._q(f"#{input_id}", Input).value.strip()
+
+    def _quantity(self, input_id: str, unit: str, default=None):
+        from benchlab.units import parse_quantity
+
+        text = self._value(input_id)
+        return parse_quantity(text, unit) if text else default
+
+    # ----------------------------------------------------------------------------------- library
+    def action_refresh_library(self) -> None:
+        from benchlab.services import station
+
+        table = self._q("#lib-table", DataTable)
+        try:
+            gm_at = self._quantity("lib-gm-at", "A", 0.02)
+            rows = station.library_rows(self.options.library, text=self._value("lib-filter"), gm_at_a=gm_at,
+                                        sort_key=SORT_KEYS[self.sort_index])
+        except BenchlabError as exc:
+            self.show_error(exc)
+            return
+        table.clear()
+        for row in rows:
+            table.add_row(row["lot"], row["label"], row["state"], _num(row["vth"], ".3f"), _num(row["kp"], ".4g"),
+                          _num(row["theta"], ".3g"), _num(row["vgs_250u"], ".3f"), _num(row["gm"], ".4g"),
+                          row["flags"] or row["classification"], key=row["spec"])
+        self._show_bins()
+        self.say(f"library: {len(rows)} parts, sorted by {SORT_KEYS[self.sort_index]}")
+
+    def action_sort_library(self) -> None:
+        self.sort_index = (self.sort_index + 1) % len(SORT_KEYS)
+        self.action_refresh_library()
+
+    def _show_bins(self) -> None:
+        from benchlab.design.text import format_bins
+        from benchlab.services.design import bin_parts
+        from benchlab.services.station import DEFAULT_BIN_CURRENT_A, DEFAULT_BIN_WIDTH_V
+
+        box = self._q("#lib-bins", Static)
+        lot = self._q("#lot", Input).value.strip() or None
+        try:
+            bins, _ = bin_parts(self.options.library, DEFAULT_BIN_CURRENT_A, DEFAULT_BIN_WIDTH_V, lot=lot)
+            box.update(f"VGS bins of lot {lot}: " + " ".join(
+                f"{b.low:.2f}-{b.high:.2f} V: {b.count}" for b in bins if b.count))
+        except BenchlabError as exc:
+            box.update(escape(f"VGS bins of lot {lot}: {exc}"))
+
+    def show_part(self, spec: str) -> None:
+        from benchlab.services import station
+
+        try:
+            curve = station.part_curve(self.options.library, spec)
+        except BenchlabError as exc:
+            self.show_error(exc)
+            return
+        plot = self._q("#lib-plot")
+        plot.title = spec
+        plot.set_points(curve["vgs"], curve["id"])
+        plot.set_fit(curve["fit_vgs"], curve["fit_id"])
+        part = curve["part"]
+        params = part.params
+        lines = [f"[b]{escape(spec)}[/]  state {part.state}" + (escape(f" ({part.reason})") if part.reason else ""),
+                 f"class {part.classification or '-'}   flags {', '.join(part.flags) or 'none'}"]
+        if params is not None:
+            err = part.stderr or {}
+            lines.append(f"model {params.model}  Vth {params.vth:.4f} V" +
+                         (f" +/- {err['vth'] * 1e3:.1f} mV" if err.get("vth") else ""))
+            lines.append(f"KP {params.kp:.4g} A/V^2  THETA {params.theta:.3g} 1/V")
+        if curve["rms_relative_residual"] is not None:
+            lines.append(f"fit residual (rms, relative) {curve['rms_relative_residual'] * 100:.2f} %")
+        self._q("#lib-part", Static).update("\n".join(lines))
+
+    # ----------------------------------------------------------------------------------- sets
+    def action_find_sets(self) -> None:
+        from benchlab.services.design import match_parts
+
+        table = self._q("#sets-table", DataTable)
+        try:
+            current = self._quantity("sets-current", "A")
+            size = int(self._value("sets-size") or "2")
+            result = match_parts(self.options.library, current, size, current_max=self._quantity("sets-current-max", "A"),
+                                 lot=self._value("sets-lot") or None, count=10)
+        except (BenchlabError, ValueError, TypeError) as exc:
+            self.show_error(exc)
+            return
+        table.clear()
+        self.sets_found = list(result.sets)
+        for n, found in enumerate(result.sets, start=1):
+            table.add_row(str(n), " + ".join((found.ref,) + tuple(found.outputs)),
+                          f"{found.worst_error * 100:.2f} %", f"{self._value('sets-current')} A", key=str(n - 1))
+        self._q("#sets-info", Static).update(
+            f"{len(result.sets)} set(s) of {size}; worst mismatch is the largest output current error against the "
+            f"reference over the current range. Select a row and press v to reserve it.")
+
+    def action_reserve_set(self) -> None:
+        from benchlab.services.library import set_state
+
+        table = self._q("#sets-table", DataTable)
+        if not self.sets_found or table.cursor_row is None or table.cursor_row >= len(self.sets_found):
+            self.say("find sets first (m), then pick one")
+            return
+        chosen = self.sets_found[table.cursor_row]
+        try:
+            for spec in (chosen.ref,) + tuple(chosen.outputs):
+                set_state(self.options.library, spec, "reserved")
+        except BenchlabError as exc:
+            self.show_error(exc)
+            return
+        self.say(f"reserved {' + '.join((chosen.ref,) + tuple(chosen.outputs))}")
+        self.action_find_sets()
+
+    # ----------------------------------------------------------------------------------- sink
+    def _sink_request(self, save: bool = False):
+        from benchlab.design.sink import SinkOptions
+        from benchlab.services.design import SinkRequest
+
+        current = self._quantity("sink-current", "A")
+        resistor = self._quantity("sink-resistor", "ohm")
+        if resistor is not None:
+            current = None
+        options = SinkOptions(series=(self._value("sink-series") or "E24").upper(),
+                              load_voltage=self._quantity("sink-load", "V"),
+                              source_resistor_ohm=self._quantity("sink-degeneration", "ohm", 0.0),
+                              mismatch_target=self._quantity("sink-mismatch", "%"))
+        return SinkRequest(supply=self._quantity("sink-supply", "V"), current=current, resistor=resistor,
+                           outputs=int(self._value("sink-outputs") or "1"), lot=self._value("sink-lot") or None,
+                           options=options, save=save)
+
+    def recompute_sink(self, save: bool = False) -> None:
+        from benchlab.design.text import format_sink_report
+        from benchlab.services.design import design_sink
+
+        report = self._q("#sink-report", Static)
+        try:
+            design, design_id = design_sink(self._sink_request(save), self.options.library)
+        except (BenchlabError, ValueError, TypeError) as exc:
+            self.last_design = None
+            report.update(f"[b red]Cannot design this:[/] {escape(str(exc))}")
+            return
+        self.last_design = design
+        report.update(escape(format_sink_report(design, design_id)))
+        if save:
+            self.say(f"design saved as #{design_id}; its parts are reserved")
+
+    def action_save_design(self) -> None:
+        self.recompute_sink(save=True)
+
+    def action_export_netlist(self) -> None:
+        from benchlab.services.design import sink_netlist_text, write_text
+
+        if self.last_design is None:
+            self.say("no design to export: fill in the Sink form first")
+            return
+        self.exports += 1
+        path = Path(self.options.sessions).parent / f"sink-{self.exports}.cir"
+        try:
+            write_text(str(path), sink_netlist_text(self.last_design))
+        except BenchlabError as exc:
+            self.show_error(exc)
+            return
+        self.say(f"netlist written to {path}")

@@ -1,0 +1,59 @@
+"""Messages the worker threads post to the app (``post_message`` is safe from a thread and never waits)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from textual.message import Message
+
+
+class SweepEvent(Message):
+    """An engine event (a point, done, fault) of the sweep tagged ``tag``."""
+
+    def __init__(self, tag: int, event: Any):
+        super().__init__()
+        self.tag = tag
+        self.event = event
+
+
+class SweepFinished(Message):
+    """Posted from the sweep worker's ``finally``, after the output is off: the only sign the bench is idle."""
+
+    def __init__(self, tag: int, verdict: Any = None, error: str | None = None, problems: tuple[str, ...] = ()):
+        super().__init__()
+        self.tag = tag
+        self.verdict = verdict
+        self.error = error
+        self.problems = problems
+
+
+class HandsFreeNews(Message):
+    """What the hands-free loop is doing, or a part it judged (``verdict``, ``note``)."""
+
+    def __init__(self, tag: int, text: str = "", verdict: Any = None, note: str = ""):
+        super().__init__()
+        self.tag = tag
+        self.text = text
+        self.verdict = verdict
+        self.note = note
+
+
+class Connected(Message):
+    def __init__(self, handle: Any, plan: Any):
+        super().__init__()
+        self.handle = handle
+        self.plan = plan
+
+
+class Problem(Message):
+    """An error to show in the app, in one line (never a traceback)."""
+
+    def __init__(self, text: str):
+        super().__init__()
+        self.text = text
+
+
+class OutputState(Message):
+    def __init__(self, states: dict):
+        super().__init__()
+        self.states = states
