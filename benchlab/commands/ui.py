@@ -6,9 +6,9 @@ import argparse
 import signal
 import sys
 
-from benchlab.commands._args import library_option, quantity
-from benchlab.kinds import Fixture
+from benchlab.commands._args import add_sim_options, library_option, quantity, sim_settings
 
+_SIM_NAMES = ("fixture", "seed", "bag_size", "time_scale", "handling", "fault", "log")
 IDLE_WAIT_S = 15.0  # on exit: longest wait for a running sweep's thread to switch off and end
 
 
@@ -23,21 +23,9 @@ def register(subparsers) -> None:
     where.add_argument("--sim", action="store_true", help="connect the built-in simulated bench at start")
     p.add_argument("--lot", default="lot-1", help="lot name of the parts swept (default lot-1)")
     p.add_argument("--sessions", metavar="DIR", default="sessions", help="where sessions go (default ./sessions)")
-    p.add_argument("--operator", default="", help="who is at the bench (stored in the sessions)")
     p.add_argument("--points", type=int, help="target points of each sweep (default 24)")
     p.add_argument("--max-current", type=quantity("A"), metavar="A", help="top target current (default 0.1 A)")
-    sim = p.add_argument_group("simulated bench (--sim, or s in the Bench view)")
-    sim.add_argument("--sim-fixture", choices=tuple(Fixture), default=Fixture.RESISTOR,
-                     help="resistor: supply, series resistor and meter; smu: source-measure unit (default resistor)")
-    sim.add_argument("--sim-seed", type=int, default=1, help="seed of the simulated bag (default 1)")
-    sim.add_argument("--sim-bag-size", type=int, default=40, help="parts in the simulated bag (default 40)")
-    sim.add_argument("--sim-time-scale", type=float, default=0.0,
-                     help="real seconds per instrument second (1 real time, 0 no waits; default 0)")
-    sim.add_argument("--sim-handling", type=float, default=0.0, metavar="SECONDS",
-                     help="simulated operator: the part is taken out after its sweep and the next seated SECONDS "
-                          "later (for hands-free; default 0: parts change on n)")
-    sim.add_argument("--sim-fault", action="append", default=[], metavar="SPEC", help="inject a simulator fault")
-    sim.add_argument("--sim-log", metavar="FILE", help="write the simulator's log (JSON lines) to FILE")
+    add_sim_options(p, *_SIM_NAMES, title="simulated bench (--sim, or s in the Bench view)")
     p.set_defaults(func=run)
 
 
@@ -52,9 +40,9 @@ def options_from(args: argparse.Namespace):
     check_name("lot name", args.lot)
     sim = None
     if args.sim or not args.bench:
-        sim = SimOptions(fixture=args.sim_fixture, seed=args.sim_seed, bag_size=args.sim_bag_size,
-                         time_scale=args.sim_time_scale, faults=tuple(args.sim_fault), log_path=args.sim_log,
-                         handling_s=args.sim_handling)
+        s = sim_settings(args, _SIM_NAMES)
+        sim = SimOptions(fixture=s["fixture"], seed=s["seed"], bag_size=s["bag_size"], time_scale=s["time_scale"],
+                         faults=tuple(s["fault"]), log_path=s["log"], handling_s=s["handling"])
         coerce_faults(sim.faults)
         SimConfig(fixture=sim.fixture, seed=sim.seed, bag_size=sim.bag_size, time_scale=sim.time_scale,
                   handling_s=sim.handling_s)
@@ -63,7 +51,7 @@ def options_from(args: argparse.Namespace):
     plan = {"points": args.points, "max_current_a": args.max_current}
     return UiOptions(bench_path=args.bench, sim=sim, library=args.library, lot=args.lot, sessions=args.sessions,
                      plan_options={k: v for k, v in plan.items() if v is not None},
-                     connect_at_start=bool(args.sim or args.bench), operator=args.operator)
+                     connect_at_start=bool(args.sim or args.bench), operator=args.operator or "")
 
 
 def run(args: argparse.Namespace) -> int:

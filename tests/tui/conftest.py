@@ -13,11 +13,11 @@ from benchlab.tui.app import BenchlabApp, UiOptions
 SIZE = (150, 46)
 
 
-def make_app(tmp_path, *, connect: bool = True, **sim) -> BenchlabApp:
+def make_app(tmp_path, *, connect: bool = True, points: int = 12, **sim) -> BenchlabApp:
     sim.setdefault("bag_size", 10)
     return BenchlabApp(UiOptions(sim=SimOptions(**sim), library=str(tmp_path / "lib.db"),
                                  sessions=str(tmp_path / "sessions"), lot="led-rack",
-                                 plan_options={"points": 12, "max_current_a": 0.05}, connect_at_start=connect))
+                                 plan_options={"points": points, "max_current_a": 0.05}, connect_at_start=connect))
 
 
 async def until(pilot, condition, timeout_s: float = 30.0, step: float = 0.05) -> None:

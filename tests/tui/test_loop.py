@@ -75,7 +75,7 @@ async def test_whole_loop_characterize_library_sets_sink(tmp_path):
 
 async def test_abort_mid_sweep_leaves_the_output_off(tmp_path):
     # real-time pace (1 PLC readings take 20 ms) so the sweep is still running when the abort key comes
-    app = make_app(tmp_path, time_scale=1.0)
+    app = make_app(tmp_path, time_scale=1.0, points=80, faults=("slow=0.02",))  # a slow bench: seconds per sweep
     async with app.run_test(size=SIZE) as pilot:
         await connected(pilot)
         await pilot.press("f2")
@@ -92,7 +92,7 @@ async def test_abort_mid_sweep_leaves_the_output_off(tmp_path):
 
 
 async def test_keys_are_handled_while_a_sweep_runs(tmp_path):
-    app = make_app(tmp_path, time_scale=1.0)
+    app = make_app(tmp_path, time_scale=1.0, points=80, faults=("slow=0.02",))  # a slow bench: seconds per sweep
     async with app.run_test(size=SIZE) as pilot:
         await connected(pilot)
         await pilot.press("f2")
