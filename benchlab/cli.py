@@ -80,6 +80,24 @@ def main(argv: list[str] | None = None) -> int:
 
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
         return 141
+    except OSError as exc:
+        # a folder or file the system refuses (a file in the way, no permission, a read-only or missing place):
+        # the one line a user needs, never a traceback
+        print(f"benchlab: error: {os_error_text(exc)}", file=sys.stderr)
+        return 2
+
+
+def os_error_text(exc: OSError) -> str:
+    """One line for an ``OSError``: where, and what the system said (e.g. a file standing where a folder must go)."""
+    import errno
+
+    where = exc.filename if exc.filename is not None else ""
+    why = exc.strerror or str(exc)
+    hint = {errno.ENOTDIR: "a file stands where a folder is needed", errno.ENOENT: "it does not exist and "
+            "cannot be made there", errno.EACCES: "no permission", errno.EROFS: "read-only file system",
+            errno.EEXIST: "something of that name is already there", errno.ENOSPC: "the disk is full"}.get(exc.errno)
+    text = f"{where}: {why}" if where else why
+    return f"cannot write or read there: {text}" + (f" ({hint})" if hint else "")
 
 
 if __name__ == "__main__":  # pragma: no cover
