@@ -291,7 +291,10 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     except csv.Error as exc:  # a field over the csv module's limit (131072 bytes), a NUL byte, ...
         raise InputError(f"not a readable CSV ({exc})", path=name) from None
     # blank lines are skipped but still counted, so a row number is the data row a reader sees
-    numbered = [(k, row) for k, row in enumerate(table) if row and (len(row) > 1 or row[0].strip())]
+    if all(len(row) > 1 for row in table):  # no blank line: every row is numbered by its place
+        numbered = list(enumerate(table))
+    else:
+        numbered = [(k, row) for k, row in enumerate(table) if row and (len(row) > 1 or row[0].strip())]
     if not numbered:
         raise InputError("the file is empty (expected a header row with 'vgs' and 'id')", path=name)
     header_at, header = numbered[0]
@@ -386,9 +389,10 @@ def detection_floor(currents) -> float:
 
 def _columns(body, width, index):
     # the rows as columns of strings when every row has the header's width and the numbers parse
-    if any(len(row) != width for _, row in body):
+    rows = [row for _, row in body]
+    if set(map(len, rows)) != {width}:
         return None
-    cols = list(zip(*(row for _, row in body)))
+    cols = list(zip(*rows))
     try:
         numbers = {name: np.array(cols[index[name]], dtype=float) for name in ("vgs", "id")}
         for name in ("point", "spread_v"):
