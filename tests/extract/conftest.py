@@ -54,21 +54,31 @@ wrdata sweep.txt v(d) idrain
 
     def vgs_at(self, model_line: str, current: float) -> float:
         """VGS of the part forced to ``current`` by a current source (operating point)."""
+        return self.operating_point(model_line, current)["v(d)"]
+
+    def operating_point(self, model_line: str, current: float, extra: tuple[str, ...] = (),
+                        geometry: str = "W=1 L=1") -> dict[str, float]:
+        """``v(d)`` and the ``extra`` quantities (e.g. ``@m1[gm]``, ``@m1[vth]``) of the part forced to
+        ``current`` by a current source (ngspice ``op``)."""
+        names = ("v(d)",) + tuple(extra)
         deck = f"""* diode-connected part at a fixed current
 I1 0 d DC {current!r}
-M1 d d 0 0 NMOD W=1 L=1
+M1 d d 0 0 NMOD {geometry}
 {model_line}
 {OPTIONS}
 .control
 op
-print v(d)
+print {" ".join(names)}
 .endc
 .end
 """
         out = _run(self.ngspice, deck, self.folder, "op")
-        match = re.search(r"v\(d\)\s*=\s*([-+0-9.eE]+)", out)
-        assert match, out
-        return float(match.group(1))
+        values = {}
+        for name in names:
+            match = re.search(re.escape(name) + r"\s*=\s*([-+0-9.eE]+)", out)
+            assert match, out
+            values[name] = float(match.group(1))
+        return values
 
 
 @pytest.fixture

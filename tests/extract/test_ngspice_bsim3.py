@@ -9,7 +9,6 @@ reports must match the slope of log ID against VGS in ngspice's own weak-inversi
 from __future__ import annotations
 
 import math
-import re
 
 import numpy as np
 import pytest
@@ -41,21 +40,7 @@ def test_ekv_swing_and_n_match_bsim3_weak_inversion(spice):
 
 def _ngspice_vth(spice, current):
     # ngspice's own threshold of the BSIM3 instance (@m1[vth]) at an operating point on the curve
-    from .conftest import OPTIONS, _run
-
-    deck = f"""* BSIM3 threshold at an operating point
-I1 0 d DC {current!r}
-M1 d d 0 0 NMOD W=0.05 L=2u
-{BSIM3}
-{OPTIONS}
-.control
-op
-print @m1[vth]
-.endc
-.end
-"""
-    out = _run(spice.ngspice, deck, spice.folder, "vth")
-    return float(re.search(r"@m1\[vth\]\s*=\s*([-+0-9.eE]+)", out).group(1))
+    return spice.operating_point(BSIM3, current, extra=("@m1[vth]",), geometry="W=0.05 L=2u")["@m1[vth]"]
 
 
 def test_second_derivative_threshold_on_bsim3(spice):

@@ -7,7 +7,6 @@ source (its own VGS and gm, @m1[gm]).
 from __future__ import annotations
 
 import json
-import re
 
 import numpy as np
 import pytest
@@ -15,7 +14,7 @@ import pytest
 from benchlab.cli import main
 from benchlab.extract import fit_sweep
 
-from .conftest import OPTIONS, _run, meter_readings
+from .conftest import meter_readings
 
 pytestmark = pytest.mark.ngspice
 
@@ -23,21 +22,8 @@ LEVEL3 = ".model NMOD NMOS (LEVEL=3 VTO=2.85 KP=2.4 THETA=0.3)"
 
 
 def _operating_point(spice, current):
-    deck = f"""* diode-connected part at a fixed current
-I1 0 d DC {current!r}
-M1 d d 0 0 NMOD W=1 L=1
-{LEVEL3}
-{OPTIONS}
-.control
-op
-print v(d) @m1[gm]
-.endc
-.end
-"""
-    out = _run(spice.ngspice, deck, spice.folder, "op_gm")
-    vgs = float(re.search(r"v\(d\)\s*=\s*([-+0-9.eE]+)", out).group(1))
-    gm = float(re.search(r"@m1\[gm\]\s*=\s*([-+0-9.eE]+)", out).group(1))
-    return vgs, gm
+    point = spice.operating_point(LEVEL3, current, extra=("@m1[gm]",))
+    return point["v(d)"], point["@m1[gm]"]
 
 
 def test_vgs_and_gm_at_250uA_match_ngspice_and_are_never_zero(spice, tmp_path, capsys):
