@@ -21,8 +21,15 @@ CC_CURRENT_A = 250e-6  # the constant-current threshold criterion (benchlab.extr
 def plain_text(fig: Figure) -> Figure:
     """Every text of the figure drawn literally: a part label holding ``$`` must not be read as math (matplotlib
     would fail on it, or draw something else). Call it just before saving."""
+    ours = set()  # the axes' own tick labels and offsets are matplotlib's (log ticks are drawn as math)
+    for ax in fig.axes:
+        for axis in (ax.xaxis, ax.yaxis):
+            ours.add(id(axis.offsetText))
+            for tick in axis.get_major_ticks() + axis.get_minor_ticks():
+                ours.update((id(tick.label1), id(tick.label2)))
     for text in fig.findobj(Text):
-        text.set_parse_math(False)
+        if id(text) not in ours:
+            text.set_parse_math(False)
     return fig
 
 

@@ -170,6 +170,10 @@ def test_a_label_that_looks_like_math_is_drawn_as_text():
     fig = part_fit_figure(label, [2.9, 3.0, 3.1], [1e-4, 1e-3, 1e-2], DeviceParams("square", vth=2.8, kp=1.0))
     _check_png(png_bytes(fig))
     assert any(t.get_text().startswith(label) for t in fig.axes[0].get_legend().get_texts())
+    # while the log axis keeps its powers of ten drawn as math (10^-3, not the text "$\\mathdefault{...}$")
+    ticks = fig.axes[0].yaxis.get_major_ticks()
+    assert ticks and all(t.label1.get_parse_math() for t in ticks)
+    assert any("mathdefault" in t.label1.get_text() for t in ticks)
     design = {"supply": 12.0, "r_chosen": 390.0, "ref": f"{LOT}/{label}", "i_ref": 0.02, "load_voltage": 3.0,
               "outputs": [{"part": f"{LOT}/{label}x", "i_out": 0.02}]}
     _check_png(png_bytes(sink_schematic(design)))
