@@ -80,10 +80,12 @@ def sink_schematic(design: Mapping[str, Any]) -> Figure:
             d += elm.Line().at((x_next, bus_y)).to((x_next, gate[1]))
             drain = fet.absanchors["drain"]
             d += elm.LED().at(drain).up().reverse().label("load", loc="bottom")
-            d += elm.Vdd().label(f"{format_si(design.get('load_voltage'), 'V', 4)} across")
+            d += elm.Vdd().label("load supply")
             _source_to_ground(d, fet.absanchors["source"], rs, "Rs")
             x = x_next
     d.draw(show=False)
+    fig.text(0.5, 0.01, f"each output: {format_si(design.get('load_voltage'), 'V', 4)} from drain to ground (the load "
+             "supply less the load's drop)", ha="center", fontsize=8)
     return fig
 
 
