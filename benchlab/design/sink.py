@@ -20,6 +20,7 @@ from benchlab.design.montecarlo import run_monte_carlo
 from benchlab.design.parts import Part
 from benchlab.design.part_thermal import DEFAULT_VTH_TEMPCO, loop_gain, thermal_values, ztc_position
 from benchlab.design.thermal import self_heated_point
+from benchlab.design.verdict import MIN_DESIGN_CURRENT_A, sink_verdict, supply_sensitivity
 from benchlab.errors import DesignError, InputError
 
 
@@ -150,6 +151,7 @@ class SinkDesign:
     self_heating: dict | None = None
     thermal: tuple[dict, ...] = ()  # each part's thermal values and their sources (reference first)
     runaway: dict | None = None  # the electro-thermal verdict
+    verdict: str = ""  # one line: usable, or not and what to do (benchlab.design.verdict)
 
     @property
     def worst_error(self) -> float:
@@ -171,6 +173,7 @@ class SinkDesign:
         data["self_heating"] = self.self_heating
         data["thermal"] = list(self.thermal)
         data["runaway"] = self.runaway
+        data["verdict"] = self.verdict
         return data
 
 
@@ -223,8 +226,11 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     load_v = supply_v if options.load_voltage is None else float(options.load_voltage)
     out_params = [p.params for p in outputs]
     point = solve_mirror(supply_v, resistor_ohm, ref.params, out_params, rs, drain_v=load_v)
-    if point.i_ref <= 0:
-        raise DesignError(f"the reference part {ref.name} does not conduct on {supply_v:g} V through {resistor_ohm:g} ohm")
+    if point.i_ref < MIN_DESIGN_CURRENT_A:
+        # below what a sweep can tell from zero the part is off: its curve there is an extrapolation, not data
+        raise DesignError(f"the reference part {ref.name} carries only {point.i_ref:.3g} A on {supply_v:g} V through "
+                          f"{resistor_ohm:g} ohm, below the {MIN_DESIGN_CURRENT_A * 1e6:g} uA a sweep detects: it is "
+                          f"off (its threshold is about {ref.params.vth:.2f} V); raise the supply or lower the resistor")
     d_ref, d_outs = _supply_sensitivity(ref, outputs, point.i_ref, point.i_out, resistor_ohm, rs)
     if any(region != "saturation" for region in point.regions):
         # below saturation the closed form does not hold: central difference on the exact solve
@@ -285,6 +291,12 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         monte_carlo = run_monte_carlo(supply_v, resistor_ohm, ref, outputs, samples=options.monte_carlo,
                                       seed=options.seed, resistor_tolerance=tolerance,
                                       source_resistor_ohm=rs).to_dict()
+    worst = max(results, key=lambda r: abs(r.error), default=None)
+    verdict = sink_verdict(worst_error=abs(worst.error) if worst else 0.0, worst_part=worst.part if worst else None,
+                           target=options.mismatch_target, source_resistor=rs,
+                           in_saturation=all(r.in_compliance for r in results), runaway=runaway,
+                           sensitivity_per_v=supply_sensitivity(point.i_ref, d_ref, results),
+                           at_current=point.i_ref, outputs=len(results))
     return SinkDesign(
         mode="synthesis" if i_target is not None else "analysis", supply=float(supply_v), i_target=i_target,
         r_exact=r_exact, r_chosen=float(resistor_ohm), series=options.series.upper(), resistor_tolerance=tolerance,
@@ -293,7 +305,7 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
         drift_ref_per_k=drift_ref, vth_tempco=options.vth_tempco, outputs=tuple(results), cautions=cautions,
         parts=(ref, *outputs), monte_carlo=monte_carlo,
         self_heating=self_heating.to_dict() if self_heating is not None else None,
-        thermal=tuple(tv.to_dict() for tv in tvals), runaway=runaway)
+        thermal=tuple(tv.to_dict() for tv in tvals), runaway=runaway, verdict=verdict)
 
 
 def _runaway_verdict(results: Sequence[OutputResult], self_heating) -> dict[str, Any]:

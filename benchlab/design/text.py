@@ -165,6 +165,8 @@ def format_sink_report(design: SinkDesign | Mapping[str, Any], design_id: int | 
         if rows:
             lines.append(title + ":")
             lines += [f"  {name:<10} {value}" for name, value in rows]
+    if d.get("verdict"):
+        lines.append(f"VERDICT  {d['verdict']}")
     lines.append("")
     lines.append("CAUTIONS")
     for caution in d.get("cautions") or []:
