@@ -26,12 +26,13 @@ reference (e.g. equal KP at a single current) the first set is the exact optimum
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Sequence
 
 import numpy as np
 
 from benchlab.design.parts import Part, PartArrays, parts_to_arrays
+from benchlab.design.verdict import MIN_DESIGN_CURRENT_A
 from benchlab.errors import InputError
 
 DEFAULT_RANGE_POINTS = 7
@@ -263,6 +264,15 @@ def _warmed(parts: Sequence[Part], warm_k: float) -> list[Part]:
     return out
 
 
+def _conducting_only(result: MatchResult) -> MatchResult:
+    """``result`` without the sets an output of which would not conduct (carry under what a sweep detects) at the
+    smallest operating current; their parts count as unmatched."""
+    floor = -(1.0 - MIN_DESIGN_CURRENT_A / min(result.currents))
+    keep = tuple(s for s in result.sets if min(s.errors, default=0.0) > floor)
+    dropped = len(result.sets) - len(keep)
+    return replace(result, sets=keep, unmatched=result.unmatched + dropped * result.size)
+
+
 def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: int | None = None, *,
                warm_k: float = 0.0) -> MatchResult:
     """Sets of one reference and ``size - 1`` outputs (pairs go to :func:`match_pairs` unless ``warm_k``).
@@ -293,7 +303,7 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
     if len(parts) < size:
         raise InputError(f"{len(parts)} part(s) in stock cannot make a set of {size}")
     if size == 2 and not warm_k:
-        return match_pairs(parts, currents, count)
+        return _conducting_only(match_pairs(parts, currents, count))
     arrays = parts_to_arrays(parts)
     warm_arrays = parts_to_arrays(_warmed(parts, warm_k)) if warm_k else None
     currents = np.asarray(currents, dtype=float)
@@ -317,7 +327,11 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
             errs = np.concatenate([errs, orientation_errors(warm_arrays, refs.ravel(), cand.ravel(), currents)], axis=1)
         worst = np.max(np.abs(errs), axis=1).reshape(m, offsets.size)
         signed = signed_worst(errs).reshape(m, offsets.size)
-        worst = np.where(valid, worst, np.inf)
+        # an output that would carry less than a sweep detects at an operating current does not conduct there:
+        # it makes no set (the error would read -100 %)
+        grid = np.tile(currents, errs.shape[1] // currents.size)
+        dead = np.any(grid[None, :] * (1.0 + errs) < MIN_DESIGN_CURRENT_A, axis=1).reshape(m, offsets.size)
+        worst = np.where(valid & ~dead, worst, np.inf)
         pick = np.argsort(worst, axis=1, kind="stable")[:, :n_out]
         set_cost = np.take_along_axis(worst, pick, axis=1).max(axis=1)
         for r in np.argsort(set_cost, kind="stable"):

@@ -184,7 +184,9 @@ def format_match(result: MatchResult) -> str:
         lines.append(f"  {k:>3}. ref {s.ref} (VGS {s.vgs_ref:.4f} V) -> {errs}; worst {s.worst_error * 100:.4f} %")
     if not result.sets:
         lines.append("  no set could be formed")
-    lines.append(f"  {result.unmatched} part(s) left unmatched")
+    if result.unmatched:
+        lines.append(f"  {result.unmatched} part(s) left unmatched: no set left among them whose every output "
+                     f"conducts (carries 2 uA or more) at the operating current")
     return "\n".join(lines) + "\n"
 
 

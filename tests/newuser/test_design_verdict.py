@@ -62,3 +62,17 @@ def test_thermal_runaway_is_found_without_a_thermal_resistance_option():
     assert result.returncode == 0, result.stderr
     verdict = [line for line in result.stdout.splitlines() if line.startswith("VERDICT")][0]
     assert "do not settle" in verdict and "62 K/W" in result.stdout
+
+
+def test_design_match_lists_no_set_with_an_output_that_does_not_conduct(tmp_path):
+    db = tmp_path / "lib.db"
+    # square law ID = KP/2 (VGS - VTO)^2 (SPICE level 1): at 1 mA a 3.0 V part sits at 3.045 V, where a 3.5 V part
+    # carries nothing (invented parts)
+    for label, vth in (("A", 3.0), ("B", 3.0005), ("C", 3.5)):
+        assert run("parts", "add", label, "--lot", "bag", "--vth", vth, "--kp", 1, "--library", db).returncode == 0
+    for outputs in (1, 2):
+        result = run("design", "match", "--at-current", "0.001", "--outputs", outputs, "--library", db)
+        assert result.returncode == 0, result.stderr
+        assert "-100.000 %" not in result.stdout and "-99.9" not in result.stdout
+    result = run("design", "match", "--at-current", "0.001", "--outputs", 1, "--library", db)
+    assert "1 part(s) left unmatched: no set left among them whose every output conducts" in result.stdout
