@@ -21,6 +21,7 @@ from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
 from benchlab.kinds import Fixture, SweepMode
+from benchlab.library.store import default_operator  # who is at the bench unless --operator says
 
 CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
            "voltage; switch the output off before touching or changing a part. Follow local electrical codes and "
@@ -77,16 +78,6 @@ class BenchHandle:
 
 
 # --------------------------------------------------------------------------------------------- plans
-def default_operator() -> str:
-    """Who is at the bench unless ``--operator`` says otherwise: the login name ("" when it cannot be found)."""
-    import getpass
-
-    try:
-        return getpass.getuser()
-    except (OSError, KeyError, ImportError):  # no login name in the environment nor the user database
-        return ""
-
-
 def build_plan(config: Any, **options: Any) -> SweepPlan:
     """A validated plan for ``config`` (a ``BenchConfig``) with option overrides (``None`` = default).
 
@@ -473,4 +464,4 @@ def run_demo(sessions_root: str | Path = DEFAULT_SESSIONS_DIR, *, count: int = 1
 __all__ = ["BagResult", "BenchHandle", "SimOptions", "PartLoader", "PromptPartLoader", "SimPartLoader", "build_plan",
            "connect", "prepare", "sweep_one",
            "load_config", "preflight", "run_demo", "sigterm_as_exception", "start_simulator", "sweep_bag", "sweep_part",
-           "CAUTION", "DEMO_STORY"]
+           "CAUTION", "DEMO_STORY", "default_operator"]
