@@ -9,6 +9,7 @@ points of a sweep that is no longer shown are dropped by tag; closing the app ab
 from __future__ import annotations
 
 import functools
+import sys
 import threading
 import time
 from dataclasses import dataclass, field
@@ -24,6 +25,7 @@ from textual.widgets import ContentSwitcher, DataTable, Footer, Input, Static
 
 from benchlab.errors import BenchlabError
 from benchlab.tui.help import HelpScreen
+from benchlab.tui.plot import MAX_REDRAW_HZ
 from benchlab.tui.messages import Connected, HandsFreeNews, OutputState, Problem, SweepEvent, SweepFinished
 from benchlab.tui.actions import DesignActions
 from benchlab.tui.views_bench import BenchView, CharacterizeView, HandsFreeView
@@ -52,6 +54,10 @@ VIEW_ACTIONS = {"bench": {"connect_bench", "connect_sim", "disconnect"},
                 "sets": {"find_sets", "reserve_set"},
                 "sink": {"save_design", "export_netlist"}}
 STATUS_POLL_S = 1.0
+# The sweep thread waits on many short socket round trips per point; each time it must win the GIL back from the
+# UI thread, which keeps it up to the switch interval (5 ms by default). A shorter interval while the app runs
+# more than doubled the fastest simulated sweep inside the UI (benchmarks/bench_ui.py).
+SWITCH_INTERVAL_S = 0.0005
 
 
 @dataclass
@@ -120,6 +126,9 @@ class BenchlabApp(DesignActions, App):
         self.status_text = ""
         self.points_seen = 0
         self.hf_counts = {"pass": 0, "fail": 0, "other": 0}
+        self.last_done = None
+        self.live_point = None
+        self._plots: dict = {}
 
     # ----------------------------------------------------------------------------------- layout
     def compose(self) -> ComposeResult:
@@ -135,12 +144,18 @@ class BenchlabApp(DesignActions, App):
         yield Footer()
 
     def on_mount(self) -> None:
+        self._switch_interval = sys.getswitchinterval()
+        sys.setswitchinterval(SWITCH_INTERVAL_S)
         self._q("#lot", Input).value = self.options.lot
         self._title()
         self._status()
         self.set_interval(STATUS_POLL_S, self._poll_outputs)
+        self.set_interval(1.0 / MAX_REDRAW_HZ, self._show_live)
         if self.options.connect_at_start and (self.options.sim is not None or self.options.bench_path):
             self._connect(self.options.bench_path, self.options.sim)
+
+    def on_unmount(self) -> None:
+        sys.setswitchinterval(getattr(self, "_switch_interval", 0.005))
 
     def _title(self) -> None:
         tabs = "  ".join(f"[reverse] F{i + 1} {VIEW_TITLES[v]} [/reverse]" if v == self.current_view
@@ -395,15 +410,25 @@ class BenchlabApp(DesignActions, App):
 
     @_quiet
     def on_sweep_event(self, message: SweepEvent) -> None:
-        from benchlab.sweep.records import PointMeasured
+        from benchlab.sweep.records import PointMeasured, SweepDone
 
+        if isinstance(message.event, SweepDone) and message.tag == self.shown_tag:
+            self.last_done = message.event  # the engine's own count and time of the finished sweep
         if message.tag != self.shown_tag or not isinstance(message.event, PointMeasured):
             return  # a late point of a sweep no longer shown (aborted): dropped
         event = message.event
         plot_id = "hf-plot" if self.hands_free_on else "char-plot"
-        self._q(f"#{plot_id}").add_point(event.point.vgs, event.point.id)
+        plot = self._plots.get(plot_id)
+        if plot is None:  # looked up once: a DOM query per point costs the sweep thread its GIL share
+            plot = self._plots[plot_id] = self._q(f"#{plot_id}")
+        plot.add_point(event.point.vgs, event.point.id)
         self.points_seen = event.count
-        if not self.hands_free_on:
+        self.live_point = event  # drawn by the 10 Hz timer, like the plot (rendering per point starves the sweep)
+
+    @_quiet
+    def _show_live(self) -> None:
+        event, self.live_point = self.live_point, None
+        if event is not None and not self.hands_free_on:
             self._q(CharacterizeView).live(event.count, event.elapsed_s, event.point.vgs * event.point.id)
 
     @_quiet

@@ -1,7 +1,9 @@
 """The curve plot: a plotext widget fed with buffered points and redrawn at most ``MAX_REDRAW_HZ``.
 
 Rendering holds the GIL: redrawing on every point starves the sweep thread, so points only go
-into a buffer and a timer redraws when something changed.
+into a buffer and a timer redraws when something changed. Measured (benchmarks/bench_ui.py, a
+150x46 screen): a frame with the plot costs tens of ms of the GIL, so 10 redraws a second took
+the simulator's fastest sweep to 0.3x its headless rate, 4 a second to about 0.7x.
 """
 
 from __future__ import annotations
@@ -10,7 +12,7 @@ import math
 
 from textual_plotext import PlotextPlot
 
-MAX_REDRAW_HZ = 10.0
+MAX_REDRAW_HZ = 4.0
 
 
 class CurvePlot(PlotextPlot):
