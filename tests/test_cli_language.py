@@ -20,8 +20,9 @@ import pytest
 from benchlab import cli
 
 REPO = Path(__file__).resolve().parents[1]
-# commands whose output is the data itself (written where --out says, else to standard output) or a server
-NO_JSON = {"sim", "export csv", "export json", "export spice"}
+# commands whose output is the data itself (written where --out says, else to standard output), a server or
+# the interactive terminal app
+NO_JSON = {"sim", "export csv", "export json", "export spice", "ui"}
 # one concept, one name: the spellings a user met before, each replaced by the name on the right
 RETIRED = {"--current": "--at-current", "--current-max": "--at-current-max", "--size": "--outputs",
            "--temperature": "--ambient", "--fixture": "--sim-fixture", "--time-scale": "--sim-time-scale",

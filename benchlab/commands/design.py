@@ -93,7 +93,7 @@ def register(subparsers) -> None:
     match.add_argument("--sets", type=counting_number, metavar="K",
                        help="how many sets (default: as many as possible)")
     match.add_argument("--polarity", choices=POLARITIES, default="N", help="which parts (default: %(default)s)")
-    match.add_argument("--warm", type=quantity("", "nonnegative"), default=0.0, metavar="K",
+    match.add_argument("--warm", type=quantity("K", "nonnegative"), default=0.0, metavar="K",
                        help="tempco as a criterion: also match with every part this many kelvin warmer, each with "
                             "its own measured threshold coefficient (default 0: off)")
     match.add_argument("--save", action="store_true",

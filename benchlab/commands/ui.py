@@ -6,7 +6,8 @@ import argparse
 import signal
 import sys
 
-from benchlab.commands._args import add_sim_options, library_option, quantity, sim_settings
+from benchlab.choices import DEFAULT_SESSIONS_DIR
+from benchlab.commands._args import add_sim_options, counting_number, library_option, quantity, sim_settings
 
 _SIM_NAMES = ("fixture", "seed", "bag_size", "time_scale", "handling", "fault", "log")
 IDLE_WAIT_S = 15.0  # on exit: longest wait for a running sweep's thread to switch off and end
@@ -22,8 +23,9 @@ def register(subparsers) -> None:
     where.add_argument("--bench", metavar="CONFIG", help="bench file (TOML, see docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="connect the built-in simulated bench at start")
     p.add_argument("--lot", default="lot-1", help="lot name of the parts swept (default lot-1)")
-    p.add_argument("--sessions", metavar="DIR", default="sessions", help="where sessions go (default ./sessions)")
-    p.add_argument("--points", type=int, help="target points of each sweep (default 24)")
+    p.add_argument("--sessions", metavar="DIR", default=DEFAULT_SESSIONS_DIR,
+                   help=f"where sessions go (default ./{DEFAULT_SESSIONS_DIR})")
+    p.add_argument("--points", type=counting_number, metavar="N", help="target points of each sweep (default 24)")
     p.add_argument("--max-current", type=quantity("A"), metavar="A", help="top target current (default 0.1 A)")
     add_sim_options(p, *_SIM_NAMES, title="simulated bench (--sim, or s in the Bench view)")
     p.set_defaults(func=run)
