@@ -67,3 +67,38 @@ def test_ui_sweeps_a_part_in_tmux_and_quits_with_the_output_off(tmp_path, tmux_s
     changes = [e["text"] for e in outputs if e.get("kind") == "output"]
     assert changes and changes[-1] == "OFF" and "ON" in changes  # swept, and left off (the simulator's own log)
     assert list((tmp_path / "sessions").glob("*/Q01.csv"))
+
+
+@pytest.mark.parametrize("how", ["SIGTERM", "terminal closed (SIGHUP)"])
+def test_ui_stopped_mid_sweep_by_a_signal_leaves_the_output_off(tmp_path, tmux_socket, how):
+    import signal
+
+    log = tmp_path / "sim.jsonl"
+    command = [sys.executable, "-m", "benchlab", "ui", "--sim", "--sim-log", str(log), "--library",
+               str(tmp_path / "lib.db"), "--sessions", str(tmp_path / "sessions"), "--points", "80",
+               "--sim-time-scale", "1", "--sim-fault", "slow=0.02"]
+    shell = (f"unset COLUMNS LINES; cd {shlex.quote(str(tmp_path))} && PYTHONPATH={shlex.quote(str(ROOT))} "
+             f"TERM=xterm-256color exec {shlex.join(command)}")
+    _tmux(tmux_socket, "new-session", "-d", "-s", "ui", "-x", "150", "-y", "46", shell)
+    _wait_for(tmux_socket, "connected to the simulated bench")
+    pid = int(_tmux(tmux_socket, "display", "-p", "-t", "ui", "#{pane_pid}").strip())  # exec: the pane runs benchlab
+    _tmux(tmux_socket, "send-keys", "-t", "ui", "F2")
+    _wait_for(tmux_socket, "Acceptance window")
+    _tmux(tmux_socket, "send-keys", "-t", "ui", "Escape")
+    time.sleep(0.3)
+    _tmux(tmux_socket, "send-keys", "-t", "ui", "r")
+    _wait_for(tmux_socket, "SWEEPING")
+    time.sleep(1.0)
+    if how == "SIGTERM":
+        os.kill(pid, signal.SIGTERM)
+    else:
+        _tmux(tmux_socket, "kill-session", "-t", "ui")  # the terminal goes away: the process gets SIGHUP
+    deadline = time.monotonic() + 30
+    while Path(f"/proc/{pid}").exists() and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert not Path(f"/proc/{pid}").exists()
+    changes = [json.loads(line)["text"] for line in log.read_text().splitlines()
+               if json.loads(line).get("kind") == "output"]
+    assert "ON" in changes and changes[-1] == "OFF"  # it was sweeping, and the simulator saw the output go off
+    sidecar = json.loads(next((tmp_path / "sessions").glob("*/Q01.json")).read_text())
+    assert sidecar["complete"] is False and Path(next((tmp_path / "sessions").glob("*/Q01.csv"))).read_text()
