@@ -165,6 +165,7 @@ def copy_library(src: "Library", dst: "Library", *, batch_rows: int = BATCH_ROWS
                                    f"({read.rows} rows read, {back.rows} read back, checksums differ); "
                                    "nothing was written")
         target.after_copy([t for t, columns, *_ in TABLES if columns[0] == "id"])
+    dst.connection.refresh_statistics()
     return CopyReport(src.path, dst.path, tuple(results))
 
 

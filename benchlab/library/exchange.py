@@ -172,6 +172,7 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                 counts["binnings"] += 1
     except (KeyError, TypeError, ValueError) as exc:
         raise LibraryError(f"malformed library export ({type(exc).__name__}: {exc}); nothing was imported") from exc
+    lib.connection.refresh_statistics()
     return counts
 
 

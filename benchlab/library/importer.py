@@ -202,6 +202,7 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
                 progress(item.sweep.label)
         # every sweep's points in one batch, same transaction (one round trip's worth on PostgreSQL, not one a part)
         conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)", points)
+    lib.connection.refresh_statistics()
     return ImportSummary(sessions=tuple(str(s.path) for s in sessions), sweeps=tuple(results))
 
 
