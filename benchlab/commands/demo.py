@@ -49,7 +49,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--out", metavar="DIR", default="benchlab-demo",
                    help="folder that receives a new run-<time> folder (default ./benchlab-demo)")
     p.add_argument("--count", type=counting_number, default=40, metavar="N",
-                   help="parts of the 40-part bag to sweep (9-40, default 40)")
+                   help="parts of the 40-part bag to sweep (up to 40, default 40); the design needs a matched "
+                        "set of 9 good parts, which fewer than about 20 swept parts may not hold (it then stops "
+                        "after the sweep and says so)")
     add_sim_options(p, "seed")
     json_option(p, "where everything went")
     p.set_defaults(func=run_demo)

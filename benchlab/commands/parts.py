@@ -16,7 +16,8 @@ def register(subparsers) -> None:
                                                "unique, else as LOT/LABEL.")
     sub = parser.add_subparsers(dest="parts_command", metavar="ACTION", required=True)
 
-    add = sub.add_parser("add", parents=[lib], help="add a part, optionally with a hand-entered curve")
+    add = sub.add_parser("add", parents=[lib], help="add a part, optionally with hand-entered model parameters "
+                                                    "(--vth with --gm, or with --kp [--theta])")
     add.add_argument("label", help="label of the part, e.g. Q07 (unique within its lot)")
     add.add_argument("--lot", default="default", help="lot (bag) the part belongs to (default: %(default)s)")
     add.add_argument("--polarity", choices=POLARITIES, default="N", help="N- or P-channel (default: %(default)s)")

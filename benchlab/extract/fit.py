@@ -210,16 +210,18 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
     results: list[FitResult | None] = [None] * len(points)
     for name in MODEL_NAMES:
         members = [b for b, m in enumerate(final_model) if m == name]
+        # a sweep with too few points for the comparison fit has no row there: it is fitted in a group of its own
+        # kind, from the model's own start (the others start from their comparison fit, as alone)
+        compared = fits[name][1] if name in fits else {}
+        kinds = [[b for b in members if b in compared], [b for b in members if b not in compared]]
         # cache-sized groups: the batched arrays of a few hundred kB are about twice as fast
-        for first in range(0, len(members), CHUNK_ROWS):
-            group = members[first:first + CHUNK_ROWS]
+        for group in (kind[first:first + CHUNK_ROWS] for kind in kinds for first in range(0, len(kind), CHUNK_ROWS)):
             # automatic choice: the winner is reported on the window the models were ranked on
             masks = ([ranked[b] for b in group] if model == "auto"
                      else [_window(name, points[b].id, window, at_current) for b in group])
             start = None
-            if name in fits and all(b in fits[name][1] for b in group):
-                # reuse the comparison fit as the start (it is the answer when the window is the same); a sweep
-                # with too few points for the comparison has no row there (fitted from the model's own start)
+            if name in fits and group[0] in compared:
+                # reuse the comparison fit as the start (it is the answer when the window is the same)
                 fit_c, row_of = fits[name]
                 start = np.array([fit_c.params[row_of[b]] for b in group])
             fit, stacked, sigma = _fit_model(name, [points[b] for b in group], [m for m, _ in masks], start, ut=ut,

@@ -274,7 +274,9 @@ def _parse_instruments(table: Mapping[str, Any], fixture: str, fail, base_dir: P
         try:
             profile = load_profile(profile_ref, environ=environ)
         except ConfigError as exc:
-            raise fail(prefix + "profile", str(exc)) from None
+            # the bench file's key names the place; the profile error's own 'key ...' would say it twice
+            text = str(exc).replace(f"key '{exc.key}': ", "", 1) if exc.key else str(exc)
+            raise fail(prefix + "profile", text) from None
         if profile.role != role:
             raise fail(prefix + "profile", f"profile '{profile.name}' is for role {profile.role}, not {role}")
         specs[role] = InstrumentSpec(role=role, resource=spec["resource"].strip(), profile=profile_ref,

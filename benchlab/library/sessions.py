@@ -243,6 +243,8 @@ def find_sessions(paths) -> list[Path]:
     found: list[Path] = []
     for raw in paths:
         folder = Path(raw)
+        if not folder.exists():
+            raise InputError("no such folder", path=str(folder))
         if (folder / "session.json").is_file():
             found.append(folder)
             continue

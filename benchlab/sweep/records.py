@@ -91,8 +91,11 @@ class SweepOutcome:
 
     def summary(self) -> str:
         """One line: label, classification, points, VGS at the reference current."""
-        at = (f"VGS={self.vgs_at_ref:.3f} V at {self.reference_current_a * 1e6:g} uA"
-              if self.vgs_at_ref is not None else f"VGS at {self.reference_current_a * 1e6:g} uA not reached")
+        if self.classification not in ("good", None):
+            at = "no threshold (not a working transistor)" if self.complete else "not judged"
+        else:
+            at = (f"VGS={self.vgs_at_ref:.3f} V at {self.reference_current_a * 1e6:g} uA"
+                  if self.vgs_at_ref is not None else f"VGS at {self.reference_current_a * 1e6:g} uA not reached")
         state = "" if self.complete else " [INCOMPLETE]"
         return f"{self.label}: {self.classification}, {len(self.points)} points, {at}{state} - {self.reason}"
 

@@ -100,7 +100,7 @@ def test_library_import_and_exports(capsys, tmp_path, monkeypatch, library_targe
     code, _, err = run(capsys, "library", "import-json", str(dump), "--library", str(other))
     assert code == 2 and "already exists" in err
     code, _, err = run(capsys, "library", "import", str(tmp_path / "missing"), "--no-refit")
-    assert code == 2 and "not a session folder" in err
+    assert code == 2 and "no such folder" in err
     write_session(tmp_path / "more", "s2", "bag-2", demo_bag(2, seed=2))
     write_session(tmp_path / "more", "s3", "bag-3", demo_bag(3, seed=3))
     code, out, _ = run(capsys, "library", "import", str(tmp_path / "more"), "--no-refit")
