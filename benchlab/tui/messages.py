@@ -4,7 +4,22 @@ from __future__ import annotations
 
 from typing import Any
 
+import functools
+
+from textual.css.query import NoMatches
 from textual.message import Message
+
+
+def _quiet(handler):
+    """A message handler that does nothing once the views are gone (a late message while the app closes)."""
+
+    @functools.wraps(handler)
+    def wrapper(self, *args, **kwargs):
+        try:
+            return handler(self, *args, **kwargs)
+        except NoMatches:
+            return None
+    return wrapper
 
 
 class SweepEvent(Message):
