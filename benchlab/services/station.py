@@ -16,7 +16,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Callable
 
-from benchlab.errors import BenchlabError, InputError
+from benchlab.errors import BenchlabError, InputError, LibraryError
 from benchlab.kinds import PartClass, PointStatus
 from benchlab.sweep.classify import LEAK_VGS_FRACTION
 from benchlab.sweep.records import SweepOutcome
@@ -168,21 +168,23 @@ def judge(outcome: SweepOutcome, session_path: Path | None, window: AcceptanceWi
                        failures, lost, session_path, len(outcome.points), fit, problem, leakage, vgs_bin, vgs_bin_at)
 
 
-def store(verdict: PartVerdict, library: str | Path | None, lot: str, *, accept: bool, reason: str = "") -> str:
+def store(verdict: PartVerdict, library: str | Path | None, lot: str, *, accept: bool, reason: str = "",
+          operator: str | None = None) -> str:
     """Put a judged part in the library (its one-part session is imported and fitted there); a rejected
-    part is stored with state ``rejected`` and ``reason``. Returns what happened, in words."""
+    part is stored with state ``rejected`` and ``reason``, recorded as done by ``operator`` (default the
+    login name). Returns what happened, in words."""
     from benchlab.services import library as libsvc
 
     if not verdict.storable:
         raise InputError(f"{verdict.label}: the sweep did not complete ({verdict.reason}); nothing is stored")
     if not accept and not reason.strip():
         raise InputError("say why the part is rejected (type a reason first)")
-    imported = libsvc.import_sessions(library, [str(verdict.session_path)], lot=lot)
+    imported = libsvc.import_sessions(library, [str(verdict.session_path)], lot=lot, operator=operator)
     action = imported.sweeps[0].action if imported.sweeps else "skipped"
     spec = f"{lot}/{verdict.label}"
     if not accept:
         try:
-            libsvc.set_state(library, spec, "rejected", reason.strip())
+            libsvc.set_state(library, spec, "rejected", reason.strip(), operator=operator)
         except BenchlabError as exc:
             if "already" not in str(exc):
                 raise
@@ -373,7 +375,13 @@ def hands_free(handle, plan, window: AcceptanceWindow, labels: LabelPattern, *, 
             verdict = judge(outcome, csv_path.parent, window)
             note = "not stored"
             if verdict.storable:
-                note = store(verdict, library, lot, accept=verdict.passed, reason="; ".join(verdict.failures))
+                try:
+                    note = store(verdict, library, lot, accept=verdict.passed, reason="; ".join(verdict.failures),
+                                 operator=operator or None)
+                except LibraryError as exc:
+                    # a shared library that is out of reach never stops the bag: the session is on disk
+                    note = (f"not stored in the library ({exc}); the sweep is kept in {verdict.session_path}: "
+                            f"benchlab library import {verdict.session_path}")
             state.parts += 1
             state.verdicts.append(verdict)
             if on_verdict:

@@ -204,7 +204,8 @@ class LoopActions:
         reason = self._q("#reason", Input).value.strip()
         lot = self._q("#lot", Input).value.strip()
         try:
-            note = station.store(self.verdict, self.options.library, lot, accept=accept, reason=reason)
+            note = station.store(self.verdict, self.options.library, lot, accept=accept, reason=reason,
+                                 operator=self.options.operator or None)
         except BenchlabError as exc:
             self.show_error(exc)
             return
