@@ -142,7 +142,10 @@ def test_stated_vgs_noise_from_repeated_readings(curves, tmp_path):
     path = tmp_path / "Q01.csv"
     path.write_text("point,vgs,id,status,direction,spread_v\n" + "".join(
         f"{k},{float(a)!r},{float(b)!r},ok,up,{float(s)!r}\n" for k, (a, b, s) in enumerate(zip(v, i, spread))))
-    stated = load_sweep_csv(path).sigma_v
+    from benchlab.extract.sweepdata import stated_vgs_noise
+
+    assert load_sweep_csv(path).vgs.size == v.size
+    stated = stated_vgs_noise(spread)
     assert stated == pytest.approx(sigma, rel=0.15)
     sweeps = [replace(validate_points(a, b), sigma_v=stated) for a, b in _percent_copies(curves[CARD], seed=17)]
     _check_coverage(fit_batch(sweeps, "theta"))
