@@ -12,7 +12,7 @@ from typing import Any, Callable, Sequence
 
 import numpy as np
 
-from benchlab.design.matching import MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
+from benchlab.design.matching import MatchedSet, MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
 from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, synthesize_sink
 from benchlab.errors import DesignError, InputError, LibraryError, PartUnavailableError
@@ -280,6 +280,24 @@ class ReservedMatch:
 
     def to_dict(self) -> dict[str, Any]:
         return {"design_id": self.design_id, **self.result.to_dict(), "notes": list(self.notes)}
+
+
+def reserve_set(library_path, matched: MatchedSet, *, currents: Sequence[float] = (),
+                operator: str | None = None) -> int:
+    """Record one matched set found earlier (e.g. picked from a list on screen) as a design and reserve its
+    parts, all or nothing.
+
+    Raises
+    ------
+    PartUnavailableError
+        When one of its parts was reserved or used since the search (naming the design that took it, when
+        and by whom); nothing is reserved then, and the caller searches again on what is left.
+    """
+    names = [matched.ref, *matched.outputs]
+    design = {"kind": "match", "currents": [float(c) for c in currents], "size": len(names),
+              "set": matched.to_dict(), "sets": [names]}
+    with _open(library_path, operator) as lib:
+        return lib.record_design(design, names, state="reserved")
 
 
 def reserve_match(library_path, current: float, size: int, *, current_max: float | None = None,

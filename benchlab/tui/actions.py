@@ -119,7 +119,7 @@ class DesignActions:
             f"reference over the current range. Select a row and press v to reserve it.")
 
     def action_reserve_set(self) -> None:
-        from benchlab.services.library import set_state
+        from benchlab.services.design import reserve_set
 
         table = self._q("#sets-table", DataTable)
         if not self.sets_found or table.cursor_row is None or table.cursor_row >= len(self.sets_found):
@@ -127,12 +127,13 @@ class DesignActions:
             return
         chosen = self.sets_found[table.cursor_row]
         try:
-            for spec in (chosen.ref,) + tuple(chosen.outputs):
-                set_state(self.options.library, spec, "reserved")
+            # one design, all parts or none: on a shared library another engineer may have taken one since
+            design_id = reserve_set(self.options.library, chosen, operator=self.options.operator or None)
         except BenchlabError as exc:
-            self.show_error(exc)
+            self.action_find_sets()  # the search runs again on what is left; the refusal stays on screen
+            self.show_error(f"{exc}; the sets shown are searched again on what is left")
             return
-        self.say(f"reserved {' + '.join((chosen.ref,) + tuple(chosen.outputs))}")
+        self.say(f"reserved {' + '.join((chosen.ref,) + tuple(chosen.outputs))} as design {design_id}")
         self.action_find_sets()
 
     # ----------------------------------------------------------------------------------- sink
