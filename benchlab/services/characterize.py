@@ -142,17 +142,42 @@ def start_simulator(options: SimOptions) -> tuple[Any, Any]:
     return sim, config
 
 
-def connect(config: Any, simulator: Any = None) -> BenchHandle:
-    """Open every instrument of ``config`` (identifies them; nothing is switched on)."""
+def connect(config: Any, simulator: Any = None, say: Callable[[str], None] | None = None) -> BenchHandle:
+    """Open every instrument of ``config`` (identifies them; nothing is switched on).
+
+    ``say`` hears "connecting to ..." at once (a host that does not answer can take seconds). An instrument on a
+    loopback address that does not answer gets the hint to start the simulated bench.
+    """
+    from benchlab.errors import InstrumentError
     from benchlab.instruments.bench import open_bench
 
+    resources = {role: spec.resource for role, spec in config.instruments.items()}
+    if say is not None and simulator is None:
+        say("connecting to " + ", ".join(f"{role} at {res}" for role, res in resources.items()) + " ...")
     try:
         bench = open_bench(config)
+    except InstrumentError as exc:
+        if simulator is not None:
+            simulator.stop()
+        loopback = [res for res in resources.values() if "::127." in res or "::localhost::" in res.lower()]
+        if loopback and simulator is None:
+            raise InstrumentError(f"{exc}; nothing answers on this computer at {loopback[0]}: start the simulated "
+                                  "bench first (benchlab sim, in another terminal) or sweep with --sim") from None
+        raise
     except BaseException:
         if simulator is not None:
             simulator.stop()
         raise
     return BenchHandle(bench=bench, config=config, simulator=simulator)
+
+
+def is_simulated(handle: BenchHandle) -> bool:
+    """The bench is the simulator: started here (``--sim``), or a ``benchlab sim`` a bench file points at (its
+    instruments identify with the simulator's invented maker), whose bag benchlab advances itself."""
+    if handle.simulator is not None:
+        return True
+    identities = getattr(handle.bench, "identities", {}) or {}
+    return bool(identities) and all(str(idn).upper().startswith("BENCHLAB-SIM") for idn in identities.values())
 
 
 def source_instrument(bench: Any) -> Any:
@@ -211,7 +236,7 @@ def prepare(bench_path: str | None = None, sim: SimOptions | None = None, plan_o
         simulator = None
         if say is not None:
             say(CAUTION)
-    return connect(config, simulator), plan
+    return connect(config, simulator, say), plan
 
 
 def sweep_one(handle: BenchHandle, plan: SweepPlan, label: str, *, lot: str = "single",
@@ -227,7 +252,7 @@ def sweep_one(handle: BenchHandle, plan: SweepPlan, label: str, *, lot: str = "s
     check_name("part label", label)
     check_name("lot name", lot)
     with sigterm_as_exception():
-        if handle.simulator is not None and seat:
+        if is_simulated(handle) and seat:
             SimPartLoader(handle.bench).seek(label)
         preflight(plan, handle.bench)
         session = SessionWriter.create(sessions_root, lot, operator=operator, ambient_c=ambient_c, planned_count=1,
@@ -408,7 +433,7 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
     if on_session:
         on_session(session.path)
     if loader is None:
-        loader = SimPartLoader(handle.bench) if handle.simulator is not None else PromptPartLoader()
+        loader = SimPartLoader(handle.bench) if is_simulated(handle) else PromptPartLoader()
     done = session.completed_labels()
     skipped, outcomes, stopped = [], [], None
     try:

@@ -42,6 +42,9 @@ def serve_until_signalled(config: SimConfig, host: str, first_port: int, out: Te
         resources = bench.start(host=host, first_port=first_port)
         for role, resource in resources.items():
             print(f"{role} {resource}", file=out, flush=True)
+        # a bench file pointing at this simulator needs the fixture resistor's actual (measured) value
+        print(f"series_resistor {bench.series_resistor_actual_ohm:.6g} ohm (actual value: put it in the bench file's "
+              f"[series_resistor] ohms)", file=out, flush=True)
         while not stop.wait(0.5):
             pass
     finally:

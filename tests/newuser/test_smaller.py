@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from newuser_cli import assert_one_clear_error, run
+from newuser_cli import assert_one_clear_error, run, start
 from session_builder import demo_bag, write_session
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -38,3 +38,36 @@ def test_duds_print_no_threshold_and_fit_skips_every_dud_alike(tmp_path):
     assert result.returncode == 0, result.stderr
     assert "Q01" in result.stdout and "Q02" not in result.stdout and "Q03" not in result.stdout
     assert "skipped Q02 (classified shorted)" in result.stderr and "skipped Q03 (classified open)" in result.stderr
+
+
+def test_bag_on_a_standalone_simulator_advances_the_bag(tmp_path):
+    sim = start("sim", "--port", "0")
+    try:
+        lines = dict(sim.stdout.readline().strip().split(" ", 1) for _ in range(4))
+        ohms = lines["series_resistor"].split()[0]
+        float(ohms)  # the actual value the bench file needs
+        text = (ROOT / "docs" / "examples" / "bench-resistor.toml").read_text()
+        text = (text.replace("TCPIP0::192.0.2.21::5025::SOCKET", lines["supply"])
+                .replace("TCPIP0::192.0.2.22::5025::SOCKET", lines["meter"])
+                .replace('ohms = "10.02 ohm"', f'ohms = "{ohms} ohm"').replace('power_rating_w = "5 W"',
+                                                                           'power_rating_w = "50 W"'))
+        (tmp_path / "bench.toml").write_text(text)
+        result = run("bag", "--bench", tmp_path / "bench.toml", "--count", "2", "--sessions", tmp_path / "s")
+        assert result.returncode == 0, result.stderr
+        swept = re.findall(r"^(Q\d+): ", result.stdout, flags=re.M)
+        assert swept == ["Q01", "Q02"]  # the same part twice before: nothing loaded the next one
+    finally:
+        sim.terminate()
+        sim.wait(timeout=30)
+        assert sim.returncode == 0
+        sim.stdout.close()
+        sim.stderr.close()
+
+
+def test_an_unreachable_loopback_bench_says_connecting_and_hints_at_the_simulator(tmp_path):
+    text = (ROOT / "docs" / "examples" / "bench-resistor.toml").read_text()
+    text = text.replace("192.0.2.21::5025", "127.0.0.1::9").replace("192.0.2.22::5025", "127.0.0.1::9")
+    (tmp_path / "bench.toml").write_text(text)
+    result = run("bag", "--bench", tmp_path / "bench.toml", "--count", "1", "--sessions", tmp_path / "s")
+    assert_one_clear_error(result, "connecting to supply at TCPIP0::127.0.0.1::9::SOCKET", "benchlab sim")
+    assert not (tmp_path / "s").exists()

@@ -130,6 +130,11 @@ def test_bag_on_a_real_bench_prompts_for_each_part(tmp_path, capsys, sim, monkey
         return next(answers)
 
     monkeypatch.setattr(builtins, "input", fake_input)
+    # the simulator stands in for real instruments: on it (it identifies as BENCHLAB-SIM) bag would load the parts
+    # itself, so it is taken here for what a real bench is
+    from benchlab.services import characterize
+
+    monkeypatch.setattr(characterize, "is_simulated", lambda handle: handle.simulator is not None)
     path = write_bench_file(tmp_path / "bench.toml", sim.resources, sim.series_resistor_actual_ohm)
     code = main(["bag", "--lot", "bench-bag", "--count", "5", "--bench", str(path), "--sessions", str(tmp_path / "s"),
                  "--points", "8"])
