@@ -13,9 +13,9 @@ from benchlab.tui.app import BenchlabApp, UiOptions
 SIZE = (150, 46)
 
 
-def make_app(tmp_path, *, connect: bool = True, points: int = 12, **sim) -> BenchlabApp:
+def make_app(tmp_path, *, connect: bool = True, points: int = 12, library: str | None = None, **sim) -> BenchlabApp:
     sim.setdefault("bag_size", 10)
-    return BenchlabApp(UiOptions(sim=SimOptions(**sim), library=str(tmp_path / "lib.db"),
+    return BenchlabApp(UiOptions(sim=SimOptions(**sim), library=library or str(tmp_path / "lib.db"),
                                  sessions=str(tmp_path / "sessions"), lot="led-rack",
                                  plan_options={"points": points, "max_current_a": 0.05}, connect_at_start=connect))
 
@@ -27,6 +27,24 @@ async def until(pilot, condition, timeout_s: float = 30.0, step: float = 0.05) -
         if time.monotonic() > deadline:
             pytest.fail(f"timed out after {timeout_s} s waiting for the app; status: {pilot.app.status_text}")
         await pilot.pause(step)
+
+
+async def hands_free_whole_bag(pilot) -> list[str]:
+    """Start hands-free (0.2 s settle) and let the simulated operator swap parts until the bag is used up; stop
+    with Ctrl+K and return the hands-free log lines."""
+    app = pilot.app
+    await pilot.press("f3")
+    await type_into(pilot, "hf-settle", "0.2")
+    await press_outside_fields(pilot, "h")
+    sim = app.handle.simulator
+    # no key from here on: the simulated operator swaps the parts until the bag is used up
+    await until(pilot, lambda: sim.core.part_index == -1 and sim.core._pending_index is None
+                and any(e.text == "bag used up" for e in sim.log.entries(kind="part")), 120)
+    await pilot.pause(0.5)
+    lines = list(getattr(app, "_hf_lines", []))
+    await pilot.press("ctrl+k")
+    await until(pilot, lambda: app.running_tag is None, 15)
+    return lines
 
 
 async def connected(pilot) -> None:

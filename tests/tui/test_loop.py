@@ -7,7 +7,8 @@ import json
 from benchlab.kinds import PartClass
 from benchlab.services.library import list_parts
 
-from .conftest import SIZE, connected, make_app, output_log, press_outside_fields, type_into, until
+from .conftest import (SIZE, connected, hands_free_whole_bag, make_app, output_log, press_outside_fields, type_into,
+                       until)
 
 
 async def _sweep(pilot, timeout_s: float = 30.0) -> None:
@@ -116,17 +117,8 @@ async def test_hands_free_bag_of_ten_with_a_part_pulled(tmp_path):
     app = make_app(tmp_path, handling_s=0.3, faults=("pull=3",))
     async with app.run_test(size=SIZE) as pilot:
         await connected(pilot)
-        await pilot.press("f3")
-        await type_into(pilot, "hf-settle", "0.2")
-        await press_outside_fields(pilot, "h")
         sim = app.handle.simulator
-        # no key from here on: the simulated operator swaps the parts until the bag is used up
-        await until(pilot, lambda: sim.core.part_index == -1 and sim.core._pending_index is None
-                    and any(e.text == "bag used up" for e in sim.log.entries(kind="part")), 120)
-        await pilot.pause(0.5)
-        lines = getattr(app, "_hf_lines", [])
-        await pilot.press("ctrl+k")
-        await until(pilot, lambda: app.running_tag is None, 15)
+        lines = await hands_free_whole_bag(pilot)
         assert output_log(app)[-1] == "OFF"
     removed = [e.text for e in sim.log.entries(kind="operator")]
     swept = [t for t in removed if "after its sweep" in t]
