@@ -60,6 +60,10 @@ async def test_whole_loop_characterize_library_sets_sink(tmp_path):
         assert app.query_one("#sets-table").row_count >= 1
         pair = app.sets_found[0]
         assert {pair.ref, *pair.outputs} <= {f"led-rack/{k}" for k, ok in decided.items() if ok}
+        await press_outside_fields(pilot, "v")  # reserve the highlighted (best) set
+        await pilot.pause(0.2)
+        states = {p.spec: p.state for p in list_parts(str(tmp_path / "lib.db"), state="all")}
+        assert all(states[spec] == "reserved" for spec in (pair.ref, *pair.outputs))
         # Sink: one output at 5 mA from 12 V, designed from the library as the form changes
         await pilot.press("f6")
         await type_into(pilot, "sink-supply", "12")
