@@ -341,7 +341,21 @@ def initial_guess(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndar
     strong = np.where(strong.sum(axis=1, keepdims=True) >= 4, strong, mask)
     theta_fit = solve_batch("theta", vgs, np.where(mask > 0, i_pos, 1.0), strong,
                             np.stack([vth, kp, theta], axis=1), ut=ut, max_iter=60, with_covariance=False)
-    vth, kp, theta = theta_fit.params.T
+    return ekv_start_from_theta(vgs, i_meas, mask, theta_fit.params, ut)
+
+
+def ekv_start_from_theta(vgs, i_meas, mask, theta_params, ut: float = thermal_voltage()) -> np.ndarray:
+    """ekv starting values: Vth, KP, THETA of a theta-law fit of the strong-inversion points, and n
+    from the steepest log-current slope (weak inversion: d ln ID / dVGS = 1 / (n UT)).
+
+    Returns
+    -------
+    ndarray, shape (B, 4)
+    """
+    vgs = np.asarray(vgs, dtype=float)
+    mask = np.asarray(mask, dtype=float)
+    i_pos = np.where(mask > 0, np.abs(i_meas), 0.0)
+    vth, kp, theta = np.asarray(theta_params, dtype=float).T
     log_i = np.log(np.where(mask > 0, i_pos, 1.0))
     dv = np.diff(vgs, axis=1)
     both = (mask[:, 1:] > 0) & (mask[:, :-1] > 0) & (dv > 0)

@@ -24,7 +24,7 @@ from benchlab.choices import DEFAULT_CC_CURRENT, MODEL_CHOICES
 from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
 from benchlab.extract.eiv import effective_variance_fit
-from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, fit_stacked
+from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked
 from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
 from benchlab.models import MODEL_NAMES, T_NOMINAL_K, thermal_voltage
@@ -200,7 +200,16 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
             usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
             if not usable:
                 continue
-            fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], ut=ut)
+            start = None
+            if candidate == "ekv" and "theta" in fits:
+                # the theta candidate already fitted these points: ekv starts from it (its own start
+                # would fit a theta law again), n from the steepest log-current slope
+                fit_t, row_t = fits["theta"]
+                if all(b in row_t for b in usable):
+                    stacked = _stack([points[b] for b in usable], [masks[b] for b in usable])
+                    start = ekv_start_from_theta(stacked[0], stacked[1], stacked[2],
+                                                 np.array([fit_t.params[row_t[b]] for b in usable]), ut)
+            fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut)
             for row, b in enumerate(usable):
                 criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]),
                                                len(PARAM_NAMES[candidate]))
