@@ -252,4 +252,6 @@ def find_sessions(paths) -> list[Path]:
         if not inner:
             raise InputError("not a session folder (no session.json here or in its subfolders)", path=str(folder))
         found += inner
+    for folder in found:  # an unreadable session.json is refused before any library is opened or created
+        _read_json(folder / "session.json")
     return found

@@ -18,10 +18,10 @@ from benchlab.library import (Library, PartRecord, default_library_path, export_
 from benchlab.library.backend import is_url
 from benchlab.library.copy import CopyReport
 from benchlab.library.copy import copy_library as copy_into
-from benchlab.library.exchange import CSV_COLUMNS, csv_rows
+from benchlab.library.exchange import CSV_COLUMNS, EXPORT_FORMAT, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
-from benchlab.names import csv_cell
+from benchlab.names import check_name, csv_cell
 
 
 def library_path(path: str | os.PathLike | None = None) -> Path | str:
@@ -92,6 +92,8 @@ def add_part(path, label: str, *, lot: str = "default", polarity: str = "N", vth
              gm: float | None = None, kp: float | None = None, theta: float | None = None,
              package: str = "", notes: str = "") -> PartRecord:
     """Add a part, with a hand-entered curve when ``vth`` is given. Nothing is written on bad input."""
+    check_name("part label", label)  # before the library is opened: a bad name creates no file
+    check_name("lot name", lot)
     params = None
     if vth is not None or gm is not None or kp is not None or theta is not None:
         params = hand_params(vth, gm, kp, theta)
@@ -138,6 +140,16 @@ def import_json_file(path, json_file: str) -> dict[str, int]:
         raise InputError(f"cannot read: {exc.strerror or exc}", path=json_file) from exc
     except (json.JSONDecodeError, UnicodeDecodeError) as exc:
         raise InputError(f"not valid JSON: {exc}", path=json_file) from exc
+    except RecursionError:
+        raise InputError("not a library export: nested too deeply", path=json_file) from None
+    if not isinstance(data, dict) or data.get("format") != EXPORT_FORMAT:  # refused before a library is created
+        raise InputError(f"not a benchlab library export (expected format '{EXPORT_FORMAT}')", path=json_file)
+    for key, kind, field in (("lots", "lot name", "name"), ("parts", "part label", "label"), ("parts", "lot name", "lot")):
+        entries = data.get(key, [])
+        if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
+            raise InputError(f"'{key}' must be a list of objects", path=json_file)
+        for entry in entries:
+            check_name(kind, entry.get(field), path=json_file)
     with open_library(path, create=True) as lib:
         return import_library(lib, data)
 
