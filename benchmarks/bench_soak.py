@@ -2,7 +2,7 @@
 
 Soak: a bag of 200 simulated parts with faults at 2 % of messages (slow, dropped, refused with -240, garbled
 and unanswered replies), parts failing open and short, one in forty pulled out mid-sweep, resumed after every
-stop. Kill: 100 SIGKILLs of the bag run at seeded random moments on an 80-part bag, resumed each time.
+stop. Kill: 100 SIGKILLs of the bag run at seeded random moments on a 200-part bag, resumed each time.
 Loopback only; both stop by themselves. Run: ``python benchmarks/bench_soak.py [--parts 200] [--kills 100]``.
 """
 
@@ -25,7 +25,7 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--parts", type=int, default=200)
     parser.add_argument("--fault-rate", type=float, default=0.02)
     parser.add_argument("--kills", type=int, default=100)
-    parser.add_argument("--kill-parts", type=int, default=80)
+    parser.add_argument("--kill-parts", type=int, default=200)
     parser.add_argument("--seed", type=int, default=2)
     args = parser.parse_args(argv)
     with tempfile.TemporaryDirectory() as folder:

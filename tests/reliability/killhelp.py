@@ -71,10 +71,6 @@ def _complete_records(session: Path) -> dict[str, str]:
     return out
 
 
-def _csv_bytes(sessions: Path) -> int:
-    return sum(p.stat().st_size for p in sessions.glob("*/*.csv")) if sessions.exists() else 0
-
-
 def _has_open_record(sessions: Path) -> bool:
     for sidecar in sessions.glob("*/*.json"):
         if sidecar.name == "session.json" or ".interrupted-" in sidecar.name:
@@ -87,14 +83,24 @@ def _has_open_record(sessions: Path) -> bool:
     return False
 
 
-def _wait_for_points(sessions: Path, child, limit_s: float) -> None:
-    """Wait until the child has written a new row (at most ``limit_s``)."""
-    before, deadline = _csv_bytes(sessions), time.monotonic() + limit_s
-    while child.is_alive() and time.monotonic() < deadline and _csv_bytes(sessions) == before:
-        time.sleep(0.005)
+def _csv_rows(sessions: Path) -> int:
+    rows = 0
+    for path in sessions.glob("*/*.csv") if sessions.exists() else ():
+        try:
+            rows += path.read_bytes().count(b"\n")
+        except OSError:
+            pass
+    return rows
 
 
-def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_delay_s: float = 0.4) -> KillReport:
+def _wait_for_rows(sessions: Path, child, rows: int, limit_s: float = 30.0) -> None:
+    """Wait until the child has written ``rows`` more CSV lines (or ended, or ``limit_s`` passed)."""
+    target, deadline = _csv_rows(sessions) + rows, time.monotonic() + limit_s
+    while rows and child.is_alive() and time.monotonic() < deadline and _csv_rows(sessions) < target:
+        time.sleep(0.002)
+
+
+def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_rows: int = 100) -> KillReport:
     """Kill the bag ``kills`` times at seeded random delays, resume until it completes, and check it all."""
     started = time.monotonic()
     rng = random.Random(seed)
@@ -109,9 +115,9 @@ def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_de
                                                          parts, seed))
         child.start()
         if done_kills < kills:
-            # once the child is writing points (or after a start-up kill now and then), a random delay more
-            _wait_for_points(sessions, child, 0.0 if rng.random() < 0.1 else 5.0)
-            child.join(rng.uniform(0.0, max_delay_s))
+            # after a random number of rows written in this run (so a kill lands at a random point of a sweep
+            # whatever the machine's speed), or now and then during start-up
+            _wait_for_rows(sessions, child, 0 if rng.random() < 0.1 else rng.randint(1, max_rows))
             if child.is_alive():
                 os.kill(child.pid, signal.SIGKILL)
                 done_kills += 1
@@ -128,7 +134,7 @@ def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_de
         # a part completed before must keep its very record: never swept again, never rewritten
         duplicated += sum(1 for label, digest in seen.items() if now.get(label) != digest)
         seen.update(now)
-        if done_kills >= kills and child.exitcode == 0:
+        if child.exitcode == 0:  # the bag is done (after the last kill, or before all kills were made)
             break
         assert runs < kills * 3 + 20, "the bag does not finish"
     meta = json.loads((session / "session.json").read_text(encoding="utf-8"))
