@@ -17,6 +17,7 @@ import numpy as np
 
 from benchlab.errors import InputError
 from benchlab.kinds import PointStatus
+from benchlab.names import printable
 
 # Above these magnitudes the numbers are almost surely in mA / mV, not A / V: a bench
 # fixture for discrete parts does not pass 20 A or reach 100 V (common practice).
@@ -243,12 +244,12 @@ def _column_index(header: list[str], path: str) -> dict[str, int]:
             continue
         name, unit = match.group(1), match.group(2)
         if name in _SI_UNITS and unit and unit != _SI_UNITS[name]:
-            raise InputError(f"column '{raw.strip()}' is in {unit}; benchlab reads SI units only "
+            raise InputError(f"column '{printable(raw.strip())}' is in {unit}; benchlab reads SI units only "
                              f"({name} in {_SI_UNITS[name].upper()})", path=path)
         index.setdefault(name, position)
     missing = [name for name in ("vgs", "id") if name not in index]
     if missing:
-        found = ", ".join(h.strip() for h in header) or "nothing"
+        found = printable(", ".join(h.strip() for h in header), 120) or "nothing"  # a quoted header may hold a newline
         raise InputError(f"missing column(s) {', '.join(missing)}: need a header row with 'vgs' (V) and "
                          f"'id' (A); found {found}", path=path)
     return index
