@@ -51,11 +51,17 @@ def _budget(name: str):
     return spent
 
 
-def _until_spent(run, spent) -> None:
-    """Run the hypothesis test in batches until the time budget is spent (at least one batch)."""
-    run()
-    while not spent.over():
+def _until_spent(run, spent, what: str = "") -> None:
+    """Run the hypothesis test in batches until the time budget is spent (at least one batch); with ``what``,
+    anything that escapes fails the test naming it."""
+    try:
         run()
+        while not spent.over():
+            run()
+    except Exception as exc:
+        if not what:
+            raise
+        pytest.fail(f"{what} raised {type(exc).__name__}: {exc}")
 
 
 @pytest.fixture(scope="module")
@@ -125,10 +131,7 @@ def test_fuzz_sweep_csv_reader(tmp_path):
         except BenchlabError as exc:
             assert "\n" not in str(exc)
 
-    try:
-        _until_spent(run, spent)
-    except Exception as exc:  # record what escaped, then fail with it
-        pytest.fail(f"the CSV reader raised {type(exc).__name__}: {exc}")
+    _until_spent(run, spent, "the CSV reader")
 
 
 json_values = st.recursive(st.none() | st.booleans() | st.floats() | st.integers() | st.text(max_size=8),
@@ -157,10 +160,7 @@ def test_fuzz_library_json_import(tmp_path):
         except BenchlabError as exc:
             assert "\n" not in str(exc)
 
-    try:
-        _until_spent(run, spent)
-    except Exception as exc:
-        pytest.fail(f"the JSON import raised {type(exc).__name__}: {exc}")
+    _until_spent(run, spent, "the JSON import")
 
 
 TOML_PIECES = ["format_version = 1\n", 'fixture = "resistor"\n', 'fixture = "smu"\n', "[limits]\n",
@@ -186,10 +186,7 @@ def test_fuzz_bench_config_loader(tmp_path):
         except BenchlabError as exc:
             assert "\n" not in str(exc)
 
-    try:
-        _until_spent(run, spent)
-    except Exception as exc:
-        pytest.fail(f"the bench-file loader raised {type(exc).__name__}: {exc}")
+    _until_spent(run, spent, "the bench-file loader")
 
 
 def test_zz_record_counts():

@@ -14,12 +14,8 @@ import pytest
 from benchlab.sim.instrument import MAX_UNITS_PER_MESSAGE
 from benchlab.sim.server import MAX_CONNECTIONS
 from benchlab.sweep.engine import run
+from tests.sim.test_faults_and_robustness import _ask, _raw
 from tests.sweep.simhelp import plan_for, sim_bench
-
-
-def _raw(resource: str, timeout: float = 5.0) -> socket.socket:
-    port = int(resource.split("::")[2])
-    return socket.create_connection(("127.0.0.1", port), timeout=timeout)
 
 
 def _line(sock: socket.socket) -> str:
@@ -30,11 +26,6 @@ def _line(sock: socket.socket) -> str:
             raise ConnectionError("closed")
         data += chunk
     return data.decode().strip()
-
-
-def _ask(sock: socket.socket, text: str) -> str:
-    sock.sendall(text.encode() + b"\n")
-    return _line(sock)
 
 
 def test_a_busy_meter_does_not_hold_up_the_supply(make_bench):
