@@ -48,7 +48,7 @@ class SimPartHandler:
 
     def load_next(self) -> None:
         """Put the next part of the bag in the fixture (the simulator refuses while the output is on)."""
-        self.instrument.send("SIMulation:PART:NEXT")
+        self.instrument.send("SIMulation:PART:NEXT", idempotent=False)  # sent twice it would skip a part
 
     def truth(self) -> dict[str, Any]:
         """The simulated part's true parameters (for tests and demos)."""
