@@ -18,8 +18,9 @@ def env() -> dict:
             "PYTHONUNBUFFERED": "1", "NO_COLOR": "1"}
 
 
-def run(*args, cwd=None, timeout: float = 120, input: str | None = None) -> subprocess.CompletedProcess:
-    """``benchlab ARGS`` in a subprocess; stdout and stderr as text."""
+def run(*args, cwd=None, timeout: float = 120, input: str | None = "") -> subprocess.CompletedProcess:
+    """``benchlab ARGS`` in a subprocess; stdout and stderr as text; stdin empty unless ``input`` (a prompt meets
+    the end of input at once instead of waiting for the test's terminal)."""
     return subprocess.run([sys.executable, "-m", "benchlab", *map(str, args)], capture_output=True, text=True,
                           cwd=cwd, env=env(), timeout=timeout, input=input)
 
