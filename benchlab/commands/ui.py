@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import os
 import signal
+import threading
 import sys
 
 from benchlab.choices import DEFAULT_SESSIONS_DIR
@@ -11,6 +13,7 @@ from benchlab.commands._args import add_sim_options, counting_number, library_op
 
 _SIM_NAMES = ("fixture", "seed", "bag_size", "time_scale", "handling", "fault", "log")
 IDLE_WAIT_S = 15.0  # on exit: longest wait for a running sweep's thread to switch off and end
+EXIT_GRACE_S = 10.0  # after SIGTERM / SIGHUP: longest time the app may take to leave once the outputs are off
 
 
 def register(subparsers) -> None:
@@ -71,6 +74,11 @@ def run(args: argparse.Namespace) -> int:
             signal.signal(sig, signal.SIG_IGN)
         app.stop_everything()
         app.exit(return_code=1)
+        # With its terminal gone the app can stall restoring the screen; the outputs are already off and every
+        # point is on disk, so the process may end for sure after a grace period.
+        ender = threading.Timer(EXIT_GRACE_S, os._exit, args=(1,))
+        ender.daemon = True
+        ender.start()
 
     previous = {sig: signal.signal(sig, stop) for sig in (signal.SIGTERM, signal.SIGHUP)}
     try:

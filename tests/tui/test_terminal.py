@@ -31,6 +31,15 @@ def _wait_for(socket: str, needle: str, timeout_s: float = 40.0) -> str:
     pytest.fail(f"'{needle}' never appeared on the terminal; last screen:\n{screen}")
 
 
+def _running(pid: int) -> bool:
+    """True while the process runs; a zombie (exited, not yet reaped by a parent that may never wait) is gone."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return False
+    return stat.rsplit(")", 1)[1].split()[0] not in ("Z", "X")
+
+
 @pytest.fixture
 def tmux_socket():
     if shutil.which("tmux") is None:
@@ -94,9 +103,9 @@ def test_ui_stopped_mid_sweep_by_a_signal_leaves_the_output_off(tmp_path, tmux_s
     else:
         _tmux(tmux_socket, "kill-session", "-t", "ui")  # the terminal goes away: the process gets SIGHUP
     deadline = time.monotonic() + 30
-    while Path(f"/proc/{pid}").exists() and time.monotonic() < deadline:
+    while _running(pid) and time.monotonic() < deadline:
         time.sleep(0.2)
-    assert not Path(f"/proc/{pid}").exists()
+    assert not _running(pid)
     changes = [json.loads(line)["text"] for line in log.read_text().splitlines()
                if json.loads(line).get("kind") == "output"]
     assert "ON" in changes and changes[-1] == "OFF"  # it was sweeping, and the simulator saw the output go off
