@@ -78,14 +78,23 @@ async def test_whole_loop_characterize_library_sets_sink(tmp_path):
     assert output_log(app)[-1] == "OFF"
 
 
+def slow_bench_app(tmp_path):
+    """Real-time pace (1 PLC readings take 20 ms) on a slow bench, so a sweep takes seconds and keys meet it running."""
+    return make_app(tmp_path, time_scale=1.0, points=80, faults=("slow=0.02",))
+
+
+async def start_sweep(pilot, app, points: int) -> None:
+    """Connect, open Characterize, run the part and wait until ``points`` points have arrived."""
+    await connected(pilot)
+    await pilot.press("f2")
+    await press_outside_fields(pilot, "r")
+    await until(pilot, lambda: app.points_seen >= points, 30)
+
+
 async def test_abort_mid_sweep_leaves_the_output_off(tmp_path):
-    # real-time pace (1 PLC readings take 20 ms) so the sweep is still running when the abort key comes
-    app = make_app(tmp_path, time_scale=1.0, points=80, faults=("slow=0.02",))  # a slow bench: seconds per sweep
+    app = slow_bench_app(tmp_path)
     async with app.run_test(size=SIZE) as pilot:
-        await connected(pilot)
-        await pilot.press("f2")
-        await press_outside_fields(pilot, "r")
-        await until(pilot, lambda: app.points_seen >= 3, 30)
+        await start_sweep(pilot, app, points=3)
         tag = app.running_tag
         await pilot.press("ctrl+k")
         await until(pilot, lambda: app.running_tag is None, 15)
@@ -93,16 +102,14 @@ async def test_abort_mid_sweep_leaves_the_output_off(tmp_path):
         await until(pilot, lambda: app.outputs.get("supply") is False, 5)
         sidecar = json.loads(next((tmp_path / "sessions").glob("*/Q01.json")).read_text())
         assert sidecar["complete"] is False  # stopped early, marked so, points kept
-        assert tag is not None and app.verdict is None or not app.verdict.complete
+        assert tag is not None
+        assert app.verdict is None or not app.verdict.complete
 
 
 async def test_keys_are_handled_while_a_sweep_runs(tmp_path):
-    app = make_app(tmp_path, time_scale=1.0, points=80, faults=("slow=0.02",))  # a slow bench: seconds per sweep
+    app = slow_bench_app(tmp_path)
     async with app.run_test(size=SIZE) as pilot:
-        await connected(pilot)
-        await pilot.press("f2")
-        await press_outside_fields(pilot, "r")
-        await until(pilot, lambda: app.points_seen >= 2, 30)
+        await start_sweep(pilot, app, points=2)
         seen = app.points_seen
         for view, key in (("library", "f4"), ("sink", "f6"), ("characterize", "f2")):
             await pilot.press(key)
