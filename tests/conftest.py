@@ -1,4 +1,10 @@
-"""Shared test fixtures."""
+"""Shared test fixtures, and the CI rule: tests never skip in CI.
+
+Under ``CI=true`` (``.ci/run`` sets it) any skip -- ``pytest.skip``, a skip marker, ``importorskip``, at run time
+or at collection -- is reported as a failure, so a missing tool (ngspice, tmux, PostgreSQL) or a broken import
+can never pass CI silently. Locally a test may still skip for a missing tool; use :func:`skip_or_fail` for that,
+which names what CI must install.
+"""
 
 from __future__ import annotations
 
@@ -8,14 +14,43 @@ import shutil
 import pytest
 
 
+def in_ci() -> bool:
+    """True under CI (``CI`` set to anything but empty, 0, false or no)."""
+    return os.environ.get("CI", "").strip().lower() not in ("", "0", "false", "no")
+
+
+def skip_or_fail(reason: str) -> None:
+    """Skip the test with ``reason`` on a developer's machine; fail it in CI, where everything must run."""
+    if in_ci():
+        pytest.fail(f"{reason} (required in CI: .ci/run installs it)")
+    pytest.skip(reason)
+
+
+def _fail_skips_in_ci(report) -> None:
+    if in_ci() and report.skipped and not hasattr(report, "wasxfail"):
+        reason = report.longrepr[2] if isinstance(report.longrepr, tuple) else str(report.longrepr)
+        report.outcome = "failed"
+        report.longrepr = f"skipped in CI, where every test must run: {reason}"
+
+
+@pytest.hookimpl(hookwrapper=True)
+def pytest_runtest_makereport(item, call):
+    outcome = yield
+    _fail_skips_in_ci(outcome.get_result())
+
+
+@pytest.hookimpl(hookwrapper=True)
+def pytest_make_collect_report(collector):
+    outcome = yield
+    _fail_skips_in_ci(outcome.get_result())
+
+
 @pytest.fixture
 def ngspice_path() -> str:
     """Path of the ngspice binary; skip when absent, except in CI where its checks must run."""
     path = shutil.which("ngspice")
     if path is None:
-        if os.environ.get("CI"):
-            pytest.fail("ngspice is required in CI (apt-get install -y ngspice)")
-        pytest.skip("ngspice not installed")
+        skip_or_fail("ngspice not installed (apt-get install -y ngspice)")
     return path
 
 
@@ -40,9 +75,7 @@ def postgres_url() -> str:
         except Exception as exc:  # ImportError or any connection failure: the same verdict
             problem = f"PostgreSQL at {PG_URL_ENV} is not reachable: {str(exc).strip().splitlines()[0]}"
     if problem:
-        if os.environ.get("CI"):
-            pytest.fail(problem + " (required in CI)")
-        pytest.skip(problem)
+        skip_or_fail(problem)
     return url
 
 

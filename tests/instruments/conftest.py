@@ -17,7 +17,8 @@ SHORT_TIMEOUT_MS = 250
 
 @pytest.fixture
 def resource_manager():
-    pyvisa = pytest.importorskip("pyvisa")
+    import pyvisa
+
     # A fresh one per test, never closed here: pyvisa shares the manager session between
     # instances, so a test elsewhere that closes its manager ends every older one in the process,
     # and closing ours would end theirs.

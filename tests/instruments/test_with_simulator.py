@@ -12,7 +12,7 @@ from benchlab.errors import InstrumentReportedError, InstrumentTimeout
 from benchlab.instruments.bench import open_bench
 from benchlab.instruments.config import simulator_bench_config
 
-sim = pytest.importorskip("benchlab.sim")
+from benchlab import sim
 
 
 @pytest.fixture

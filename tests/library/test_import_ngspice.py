@@ -13,7 +13,6 @@ from benchlab.library import Library, export_library, import_session
 from benchlab.services.library import fit_function
 from session_builder import write_session
 
-pytest.importorskip("benchlab.extract")
 
 CARDS = {
     "L1": ".model L1 NMOS (LEVEL=1 VTO=2.5 KP=1.0)",

@@ -7,8 +7,7 @@ import pytest
 from benchlab.library import Library
 from benchlab.services import library as library_service
 
-characterize = pytest.importorskip("benchlab.services.characterize")
-fitting = pytest.importorskip("benchlab.services.fitting")
+from benchlab.services import characterize, fitting
 
 
 @pytest.mark.slow

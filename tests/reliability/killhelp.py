@@ -166,3 +166,21 @@ def run_kills(root: Path, kills: int, *, parts: int = 40, seed: int = 13, max_ro
                       integrity_check=check,
                       library_parts=len(set(labels)), library_parts_twice=len(labels) - len(set(labels)),
                       wall_s=round(time.monotonic() - started, 1))
+
+
+def kill_problems(report: KillReport, parts: int, kills: int) -> list[str]:
+    """The claims a kill-and-resume run must meet; each one broken, in words (empty: all met)."""
+    checks = [
+        (report.kills == kills, f"{report.kills} kills made of {kills}"),
+        (report.kills_mid_part >= kills // 2, f"only {report.kills_mid_part} kills struck mid-sweep"),
+        (report.parts_swept_again >= 3, "the kills did not fall on several different parts"),
+        (report.completed == parts and report.missing == 0,
+         f"{report.completed} of {parts} parts completed, {report.missing} missing"),
+        (report.duplicated == 0, f"{report.duplicated} parts duplicated or complete records rewritten"),
+        (report.records_inconsistent == 0 and report.rows_torn == 0,
+         f"{report.records_inconsistent} records inconsistent, {report.rows_torn} rows torn"),
+        (report.integrity_check == "ok", f"library integrity_check: {report.integrity_check}"),  # SQLite's own
+        (report.library_parts == parts and report.library_parts_twice == 0,
+         f"library holds {report.library_parts} parts, {report.library_parts_twice} twice"),
+    ]
+    return [text for ok, text in checks if not ok]

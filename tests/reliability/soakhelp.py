@@ -1,8 +1,8 @@
 """The soak: a bag of parts on the simulated bench with faults at a few percent of messages, resumed after
 every stop the way an operator would (``bag --resume``), and the figures that prove nothing was lost.
 
-Used by ``tests/reliability/test_soak.py`` (a short bag in CI, the 200-part bag as a slow test) and by
-``benchmarks/bench_soak.py``. Loopback only; everything stops by itself (bounded attempts per part).
+Used by ``tests/reliability/test_soak.py`` (a short bag, in CI) and by ``benchmarks/bench_soak.py`` (the
+200-part bag); both hold the run to the same claims (:func:`soak_problems`). Loopback only; everything stops by itself (bounded attempts per part).
 """
 
 from __future__ import annotations
@@ -154,3 +154,22 @@ def run_soak(root: Path, parts: int = 30, *, fault_rate: float = 0.01, seed: int
         points_acknowledged=acknowledged, points_on_disk=on_disk, points_lost=acknowledged - on_disk,
         records_inconsistent=records_inconsistent, outputs_left_on=left_on,
         wall_s=round(time.monotonic() - started, 1), stop_reasons=tuple(reasons))
+
+
+def soak_problems(report: SoakReport, parts: int) -> list[str]:
+    """The claims a soak of ``parts`` parts must meet; each one broken, in words (empty: all met)."""
+    checks = [
+        (report.faults_fired > 0.01 * report.messages, "the faults did not strike at about the rate asked"),
+        (report.points_lost == 0, f"{report.points_lost} acknowledged points are not on disk"),
+        (report.points_acknowledged == report.points_on_disk > 0,
+         f"points acknowledged {report.points_acknowledged} != on disk {report.points_on_disk}"),
+        (report.records_inconsistent == 0, f"{report.records_inconsistent} records differ from their sidecar"),
+        # from the simulator's own log after every stop
+        (report.outputs_left_on == 0, f"an output was left on after {report.outputs_left_on} bag runs"),
+        (report.completed + report.incomplete == parts, "parts neither completed nor given up"),
+        (report.completed >= 0.9 * parts, f"only {report.completed} of {parts} parts completed"),
+        (sum(report.classes.values()) == report.completed, "classes do not add up to the completed parts"),
+        # the parts made to fail open or short were found so
+        (report.classes.get("open", 0) + report.classes.get("shorted", 0) >= 2, "the failed parts were not found"),
+    ]
+    return [text for ok, text in checks if not ok]

@@ -9,8 +9,7 @@ from benchlab.services.library import fit_function
 from benchlab.models import DeviceParams
 from benchlab.report import build_report, collect
 
-sink = pytest.importorskip("benchlab.design.sink")
-design_parts = pytest.importorskip("benchlab.design.parts")
+from benchlab.design import parts as design_parts, sink
 
 
 @pytest.mark.parametrize("source_resistor", [0.0, 22.0])
@@ -57,7 +56,6 @@ def html_to_text(page: str) -> str:
 
 
 def test_fitted_parts_from_an_import_feed_the_designer(tmp_path):
-    pytest.importorskip("benchlab.extract")
     from session_builder import demo_bag, write_session
 
     session = write_session(tmp_path, "s1", "demo-bag", demo_bag(4))
