@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import base64
 import json
+import math
 import re
 import sqlite3
 import subprocess
@@ -38,8 +39,17 @@ def test_demo_design_meets_its_target(demo_run):
     assert len(design["outputs"]) == CHANNELS
     assert max(abs(o["error"]) for o in design["outputs"]) <= MISMATCH_TARGET
     assert design["cautions"], "every design carries its cautions"
-    # the chosen resistor is an E24 value (IEC 60063 table: 39 is in it)
-    assert design["series"] == "E24"
+    # the demo buys 1 % resistors: every resistor is an E96 value (IEC 60063: E96 follows round(100 x 10^(i/96)),
+    # i = 0..95, see shared/reference/e-series.md)
+    assert design["series"] == "E96"
+    e96 = {round(100 * 10 ** (i / 96)) for i in range(96)}
+    for ohms in (design["r_chosen"], design["source_resistor"]):
+        mantissa = ohms / 10 ** (math.floor(math.log10(ohms)) - 2)
+        assert round(mantissa) in e96 and abs(mantissa - round(mantissa)) < 1e-6, ohms
+    # the degeneration holds for 95 % of the drawn builds, not only at nominal values: a 1 % resistor cannot move
+    # an output by more than about its own tolerance, so the nominal error leaves room for it (common practice)
+    assert design["degeneration"]["over_spread"]
+    assert design["monte_carlo"]["worst_error_p97_5"] <= MISMATCH_TARGET
 
 
 def test_demo_netlist_runs_in_ngspice_with_the_predicted_currents(demo_run, ngspice_path):

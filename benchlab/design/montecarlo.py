@@ -6,7 +6,8 @@ multivariate normal law with the fit's full covariance: its standard errors and 
 coefficients the fitter stores beside them (``corr_<a>_<b>`` in ``stderr``; a threshold and KP
 fitted to one sweep are strongly correlated, and drawing them independently misstates a mirror's
 spread). A part stored without correlations (an older library, a hand entry) is drawn with
-independent parameters. Parameters are clipped to their valid ranges (KP, gm > 0, THETA >= 0, n >= 1).
+independent parameters. The law is truncated to the parameters' valid ranges (KP, gm > 0, THETA >= 0,
+n >= 1) by drawing again, never by clipping one parameter of a correlated pair.
 """
 
 from __future__ import annotations
@@ -63,17 +64,48 @@ def covariance_of(part: Part) -> tuple[tuple[str, ...], np.ndarray]:
     return names, corr * np.outer(sd, sd)
 
 
+_REDRAW_ROUNDS = 50
+
+
+def _valid_draws(fields: dict, model: str) -> np.ndarray:
+    """Which draws lie inside the parameters' valid ranges (KP or gm > 0, THETA >= 0, n >= 1)."""
+    ok = np.ones(fields["vth"].shape, dtype=bool)
+    if model == "linear":
+        ok &= fields["gm"] > 0
+    else:
+        ok &= fields["kp"] > 0
+    if model in ("theta", "ekv"):
+        ok &= fields["theta"] >= 0
+    if model == "ekv":
+        ok &= fields["n"] >= 1.0
+    return ok
+
+
 def perturbed_arrays(part: Part, samples: int, rng: np.random.Generator) -> PartArrays:
-    """``samples`` copies of ``part``'s curve, its parameters drawn from N(value, covariance)."""
+    """``samples`` copies of ``part``'s curve, its parameters drawn from N(value, covariance).
+
+    The law is truncated to the parameters' valid ranges by drawing again: a draw with a negative KP
+    (possible when THETA and KP are poorly determined but strongly correlated) is replaced by a new
+    joint draw, so the pair keeps its correlation and the curve stays near the measured points.
+    Clipping a single parameter instead would break the pair apart and give currents the data rule out
+    (a mirror output of 0 A). Draws still invalid after ``_REDRAW_ROUNDS`` rounds are clipped.
+    """
     base = PartArrays.from_params([part.params]).take(np.zeros(samples, dtype=int))
     fields = {name: getattr(base, name).copy() for name in _PERTURBED}
     names, covariance = covariance_of(part)
-    if names and np.any(np.diag(covariance) > 0):
-        # eigh tolerates a covariance that rounding left a hair short of positive definite
-        draws = rng.multivariate_normal(np.zeros(len(names)), covariance, size=samples, method="eigh")
-        for k, name in enumerate(names):
-            fields[name] = fields[name] + draws[:, k]
     used = part.params.model
+    if names and np.any(np.diag(covariance) > 0):
+        centre = {name: fields[name].copy() for name in names}
+        redo = np.ones(samples, dtype=bool)
+        for _ in range(_REDRAW_ROUNDS):
+            count = int(redo.sum())
+            if count == 0:
+                break
+            # eigh tolerates a covariance that rounding left a hair short of positive definite
+            draws = rng.multivariate_normal(np.zeros(len(names)), covariance, size=count, method="eigh")
+            for k, name in enumerate(names):
+                fields[name][redo] = centre[name][redo] + draws[:, k]
+            redo = ~_valid_draws(fields, used)
     fields["kp"] = np.maximum(fields["kp"], 1e-12) if used != "linear" else fields["kp"]
     fields["gm"] = np.maximum(fields["gm"], 1e-12) if used == "linear" else fields["gm"]
     fields["theta"] = np.maximum(fields["theta"], 0.0)

@@ -39,7 +39,8 @@ def sink_parameter_rows(d: Mapping[str, Any]) -> list[tuple[str, str]]:
         rows.append(("source resistor", f"{format_si(d['source_resistor'], 'ohm', 4)} in every source"))
     degeneration = d.get("degeneration")
     if degeneration:
-        rows.append(("degeneration", f"smallest {d.get('series')} value meeting {degeneration['target'] * 100:g} %: "
+        over = " in 95 % of the Monte Carlo's builds" if degeneration.get("over_spread") else ""
+        rows.append(("degeneration", f"smallest {d.get('series')} value meeting {degeneration['target'] * 100:g} %{over}: "
                                      f"{format_si(degeneration['suggested_ohm'], 'ohm', 4)} (worst error "
                                      f"{degeneration['worst_error'] * 100:.3f} %, "
                                      f"{degeneration['worst_error_without'] * 100:.3f} % without)"))

@@ -27,7 +27,7 @@ def supply_sensitivity(i_ref: float, di_ref_dv: float, outputs: Sequence[Any]) -
 
 def sink_verdict(*, worst_error: float, worst_part: str | None, target: float | None, source_resistor: float,
                  in_saturation: bool, runaway: dict | None, sensitivity_per_v: float, at_current: float,
-                 outputs: int) -> str:
+                 outputs: int, spread_worst: float | None = None, resistor_tolerance: float | None = None) -> str:
     """One line: ``usable`` or ``NOT USABLE AS IS`` with every reason and the fix for each.
 
     Parameters
@@ -48,6 +48,11 @@ def sink_verdict(*, worst_error: float, worst_part: str | None, target: float | 
         :func:`supply_sensitivity` of the design (1/V).
     at_current, outputs : float, int
         The design's current and output count (for the suggested ``design match`` command).
+    spread_worst : float or None
+        The Monte Carlo's worst output error at its 97.5th percentile (fraction), when one was run: a design that
+        meets the target only at nominal values is told so.
+    resistor_tolerance : float or None
+        The resistors' tolerance the Monte Carlo drew from (fraction), for the note.
     """
     goal = DEFAULT_MISMATCH_TARGET if target is None else target
     problems, good, notes = [], [], []
@@ -61,6 +66,12 @@ def sink_verdict(*, worst_error: float, worst_part: str | None, target: float | 
                         f"({worst_part}); " + " or ".join(fixes))
     elif outputs:
         good.append(f"meets the {goal * 100:g} % mismatch target (worst {worst_error * 100:.2f} %)")
+    if outputs and worst_error <= goal and spread_worst is not None and spread_worst > goal:
+        tol = "" if resistor_tolerance is None else f" with +/-{resistor_tolerance * 100:g} % resistors"
+        fix = (" (the source resistors set the currents: use 1 % parts, --series E96)"
+               if source_resistor > 0 and (resistor_tolerance or 0) > 0.01 else "")
+        notes.append(f"the target holds at nominal values only: over the Monte Carlo{tol}, 95 % of builds keep each "
+                     f"output within {spread_worst * 100:.1f} %{fix}")
     if not in_saturation:
         problems.append("an output leaves saturation: raise the load voltage or lower the source resistors")
     if runaway and runaway.get("runaway"):

@@ -95,7 +95,7 @@ def run_full_demo(out_root: str | Path, *, count: int = 12, seed: int = 1,
         f"and designing the sink ...")
     request = design.SinkRequest(
         supply=REFERENCE_SUPPLY_V, current=CHANNEL_CURRENT_A, outputs=CHANNELS, lot=DEMO_LOT, save=True,
-        options=SinkOptions(series="E24", load_voltage=OUTPUT_VOLTAGE_V, monte_carlo=500, seed=seed,
+        options=SinkOptions(series="E96", load_voltage=OUTPUT_VOLTAGE_V, monte_carlo=500, seed=seed,
                             mismatch_target=MISMATCH_TARGET))
     netlist = folder / "sink.cir"
     try:
