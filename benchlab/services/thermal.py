@@ -73,8 +73,15 @@ class ThermalOutcome:
                 "rth_details": self.rth.to_dict() if self.rth else None}
 
 
-def _thermal_setup(bench_path: str | None, sim: chz.SimOptions | None):
-    """The bench's ``[thermal]`` table and limits, read before anything is started (sim: its built-in setup)."""
+def _thermal_setup(bench_path: str | None, sim: chz.SimOptions | None, handle: chz.BenchHandle | None = None):
+    """The bench's ``[thermal]`` table and limits, read before anything is started (sim: its built-in setup).
+
+    With ``handle`` (a bench already open, e.g. the terminal UI's), its own configuration is used.
+    """
+    if handle is not None:
+        if bench_path is not None or sim is not None:
+            raise InputError("give either an open bench or --bench / --sim, not both")
+        return bench_thermal(handle), Limits.from_safety_limits(handle.config.limits)
     if (bench_path is None) == (sim is None):
         raise InputError("say which bench: --bench CONFIG (a bench file) or --sim (the simulated bench)")
     from benchlab.instruments.thermal_config import simulator_thermal_config
@@ -91,31 +98,74 @@ def _thermal_setup(bench_path: str | None, sim: chz.SimOptions | None):
     return config.thermal, Limits.from_safety_limits(config.limits)
 
 
-def _open(bench_path, sim, plan_options, say):
-    """Connect the bench and its fixture sensor; returns (handle, sweep plan, FixtureThermal, clock)."""
+def bench_thermal(handle: chz.BenchHandle):
+    """The ``[thermal]`` table of an open bench; on the built-in simulator its heated block and thermistor (read
+    and set through the simulator's own commands on one of its instruments)."""
     from benchlab.instruments.thermal_config import simulator_thermal_config
-    from benchlab.instruments.thermometer import RealClock, SimClock, open_fixture_thermal
 
-    if sim is not None:
-        sim = replace(sim, fixture=Fixture.SMU)
-    handle, plan = chz.prepare(bench_path, sim, plan_options, say=say)
-    try:
-        if handle.simulator is not None:
-            resource = handle.config.instruments["smu"].resource
-            handle.config = replace(handle.config, thermal=simulator_thermal_config(resource))
-        thermal = open_fixture_thermal(handle.config.thermal, say=say)
-    except BaseException:
-        handle.close()
-        raise
-    clock = SimClock(next(iter(thermal.transports.values()))) if handle.simulator is not None else RealClock()
-    return handle, plan, thermal, clock
+    if handle.simulator is not None:
+        role = "smu" if handle.config.fixture == Fixture.SMU else "meter"
+        return simulator_thermal_config(handle.config.instruments[role].resource)
+    if handle.config.thermal is None:
+        raise InputError("the bench file has no [thermal] table (fixture temperature sensor and limits): see "
+                         "docs/bench-config.md")
+    return handle.config.thermal
+
+
+def _no_typing(prompt: str) -> str:
+    raise InputError("this bench's fixture temperature is typed in by the operator ([thermal.sensor] kind = "
+                     "\"manual\"): run the measurement from the command line (benchlab thermal), which asks for it")
 
 
 @contextlib.contextmanager
-def _recording(handle, thermal, sessions_root, part: str, measurement: str, plan, planned: int):
-    """A new session folder ``<stamp>-thermal-<part>`` and its ``thermal.jsonl`` (plan first), closed on the way out."""
+def _opened(bench_path, sim, handle, plan_options, say, ask=None):
+    """The bench (connected here, or the caller's ``handle``), its sweep plan, fixture sensor and clock.
+
+    Yields (handle, sweep plan, FixtureThermal, clock). A bench connected here is closed on the way out; a
+    borrowed one is only switched off (its owner closes it).
+    """
+    from benchlab.instruments.thermometer import RealClock, SimClock, open_fixture_thermal
+
+    owned = handle is None
+    if owned:
+        if sim is not None:
+            sim = replace(sim, fixture=Fixture.SMU)
+        handle, plan = chz.prepare(bench_path, sim, plan_options, say=say)
+    else:
+        plan = chz.build_plan(handle.config, **plan_options)
+    try:
+        thermal = open_fixture_thermal(bench_thermal(handle), say=say, ask=ask)
+        try:
+            clock = SimClock(next(iter(thermal.transports.values()))) if handle.simulator is not None \
+                else RealClock()
+            yield handle, plan, thermal, clock
+        finally:
+            thermal.close()
+    finally:
+        if owned:
+            handle.close()
+        else:
+            handle.bench.safe_off()
+
+
+def _seat(handle, part: str, seat: bool) -> None:
+    """On the simulator: seat the part of that label (``seat``), or check that it is the one in the fixture."""
+    if handle.simulator is None:
+        return
+    loader = chz.SimPartLoader(handle.bench)
+    if seat:
+        loader.seek(part)
+    elif loader.label() != part:
+        raise InputError(f"the simulator's fixture holds {loader.label() or 'no part'}, not {part}: measure that "
+                         "label (or seat the next part)")
+
+
+@contextlib.contextmanager
+def _recording(handle, thermal, sessions_root, part: str, measurement: str, plan, planned: int, on_record=None):
+    """A new session folder ``<stamp>-thermal-<part>`` and its ``thermal.jsonl`` (plan first), closed on the way out.
+    ``on_record(kind, values)`` hears every line once it is on disk (the UI shows the fixture and readings)."""
     session = SessionWriter.create(sessions_root, f"thermal-{part}", planned_count=planned, **chz.session_meta(handle))
-    log = ThermalLog(session.path / "thermal.jsonl")
+    log = ThermalLog(session.path / "thermal.jsonl", listener=on_record)
     try:
         log.add("plan", measurement=measurement, part=part, plan=plan.to_dict(),
                 settle=thermal.config.settle_criterion())
@@ -135,11 +185,17 @@ def _sweep_of(outcome):
 
 
 def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
+                   handle: chz.BenchHandle | None = None, seat: bool = True,
                    sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
                    model: str = "auto", bootstrap: int = 100, on_event: Callable[[Any], None] | None = None,
                    say: Callable[[str], None] | None = None, cancel=None,
+                   on_record: Callable[[str, dict], None] | None = None,
                    sweep_options: dict[str, Any] | None = None) -> ThermalOutcome:
     """Sweep ``part`` at each fixture temperature (degC) and extract dVth/dT, m and the ZTC point.
+
+    The bench is ``bench_path`` or ``sim`` (connected here and closed at the end), or ``handle``, a bench the
+    caller keeps open (the terminal UI); on a borrowed simulator ``seat=False`` measures the part already in the
+    fixture (its label must be ``part``). ``on_record(kind, values)`` hears every line of ``thermal.jsonl``.
 
     Raises
     ------
@@ -150,24 +206,20 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
     """
     check_name("part label", part)
     temps_k = tuple(float(t) + KELVIN for t in temperatures_c)
-    thermal_cfg, _ = _thermal_setup(bench_path, sim)
+    thermal_cfg, _ = _thermal_setup(bench_path, sim, handle)
     validate_tempco_plan(TempcoPlan(temps_k, None, model, bootstrap), thermal_cfg)  # type: ignore[arg-type]
     options = {**TEMPCO_SWEEP, **(sweep_options or {})}
-    if bench_path is not None and say is not None:
-        say(CAUTION)
-    handle, splan, thermal, clock = _open(bench_path, sim, options, say)
-    plan = validate_tempco_plan(TempcoPlan(temps_k, splan, model, bootstrap), thermal.config)
-    try:
+    _caution(bench_path, handle, say)
+    with _opened(bench_path, sim, handle, options, say, ask=None if handle is None else _no_typing) as \
+            (bench, splan, thermal, clock):
+        plan = validate_tempco_plan(TempcoPlan(temps_k, splan, model, bootstrap), thermal.config)
         with chz.sigterm_as_exception():
-            if handle.simulator is not None:
-                chz.SimPartLoader(handle.bench).seek(part)
-            chz.preflight(splan, handle.bench)
-            with _recording(handle, thermal, sessions_root, part, "tempco", plan, len(temps_k)) as (session, log):
-                records = run_tempco(plan, handle.bench, thermal, clock, session, part, log, on_event=on_event,
+            _seat(bench, part, seat)
+            chz.preflight(splan, bench.bench)
+            with _recording(bench, thermal, sessions_root, part, "tempco", plan, len(temps_k), on_record) as \
+                    (session, log):
+                records = run_tempco(plan, bench.bench, thermal, clock, session, part, log, on_event=on_event,
                                      cancel=cancel, say=say)
-    finally:
-        thermal.close()
-        handle.close()
     result = tempco_from_sweeps([_sweep_of(outcome) for _, outcome, _, _ in records], [t for *_, t, _ in records],
                                 temperature_sigma_k=[s for *_, s in records], model=model, bootstrap=bootstrap)
     outcome = ThermalOutcome(part=part, measurement="tempco", tempco=result, session_path=str(session.path),
@@ -176,10 +228,13 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
 
 
 def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
+                handle: chz.BenchHandle | None = None, seat: bool = True,
                 sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
                 plan: RthPlan | None = None, say: Callable[[str], None] | None = None,
-                cancel=None) -> ThermalOutcome:
+                cancel=None, on_record: Callable[[str, dict], None] | None = None) -> ThermalOutcome:
     """Thermal resistance of ``part`` in the fixture by the electrical method, with the pulsed/DC cross-check.
+
+    The bench, ``seat`` and ``on_record`` as for :func:`measure_tempco`.
 
     Raises
     ------
@@ -191,28 +246,30 @@ def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions
     """
     check_name("part label", part)
     plan = plan or RthPlan()
-    thermal_cfg, limits = _thermal_setup(bench_path, sim)
+    thermal_cfg, limits = _thermal_setup(bench_path, sim, handle)
     validate_rth_plan(plan, thermal_cfg, limits)
-    if bench_path is not None and say is not None:
-        say(CAUTION)
-    handle, _, thermal, clock = _open(bench_path, sim, {}, say)
-    limits = Limits.from_safety_limits(handle.config.limits)
-    try:
+    _caution(bench_path, handle, say)
+    with _opened(bench_path, sim, handle, {}, say, ask=None if handle is None else _no_typing) as \
+            (bench, _, thermal, clock):
+        limits = Limits.from_safety_limits(bench.config.limits)
         validate_rth_plan(plan, thermal.config, limits)
-        if handle.config.fixture != Fixture.SMU:
+        if bench.config.fixture != Fixture.SMU:
             raise InputError("the thermal-resistance measurement needs a source-measure unit (fixture 'smu')")
         with chz.sigterm_as_exception():
-            if handle.simulator is not None:
-                chz.SimPartLoader(handle.bench).seek(part)
-            with _recording(handle, thermal, sessions_root, part, "rth", plan, 0) as (session, log):
-                raw = run_rth(plan, handle.bench, thermal, clock, limits, log, cancel=cancel, say=say)
-    finally:
-        thermal.close()
-        handle.close()
+            _seat(bench, part, seat)
+            with _recording(bench, thermal, sessions_root, part, "rth", plan, 0, on_record) as (session, log):
+                raw = run_rth(plan, bench.bench, thermal, clock, limits, log, cancel=cancel, say=say)
     result = rth_result(raw, plan)
     outcome = ThermalOutcome(part=part, measurement="rth", rth=result, session_path=str(session.path),
                              settle_criterion=thermal.config.settle_criterion(), notes=result.notes)
     return _finish(outcome, session.path, library)
+
+
+def _caution(bench_path, handle, say) -> None:
+    """The hot-fixture caution, before a real bench is powered."""
+    real = bench_path is not None or (handle is not None and handle.simulator is None)
+    if real and say is not None:
+        say(CAUTION)
 
 
 def rth_result(raw: dict[str, Any], plan: RthPlan) -> RthResult:
@@ -285,19 +342,61 @@ def store_in_library(outcome: ThermalOutcome, library: str | None) -> str:
         return f"not stored: {exc}"
 
 
+def library_thermal(library: str | None, part: str) -> list[dict[str, Any]]:
+    """What the designer will use for ``part``: per quantity its value, standard error and source.
+
+    The source is ``measured <when>`` (the newest stored run) or the default assumption the designer falls back
+    on (:mod:`benchlab.design.part_thermal`); an empty list when the library or the part is not there.
+    """
+    from benchlab.design.part_thermal import DEFAULT_KP_EXPONENT, DEFAULT_VTH_TEMPCO, PACKAGE_RTH_K_PER_W
+    from benchlab.errors import LibraryError
+    from benchlab.library.thermal import measured_thermal
+    from benchlab.services.library import library_path, open_library
+
+    where = library_path(library)
+    if isinstance(where, Path) and not where.exists():
+        return []
+    assumed = {"vth_tempco": (DEFAULT_VTH_TEMPCO, f"default assumption {DEFAULT_VTH_TEMPCO * 1e3:g} mV/K"),
+               "kp_exponent": (DEFAULT_KP_EXPONENT, f"default assumption KP ~ T^-{DEFAULT_KP_EXPONENT:g}"),
+               "ztc_vgs": (None, "derived by the designer from the fitted curve and the coefficients"),
+               "ztc_id": (None, "derived by the designer from the fitted curve and the coefficients"),
+               "rth": (PACKAGE_RTH_K_PER_W, f"default assumption {PACKAGE_RTH_K_PER_W:g} K/W (TO-220-like package)")}
+    try:
+        with open_library(library) as lib:
+            measured = measured_thermal(lib, lib.get_part(part).id)
+    except LibraryError:
+        return []
+    rows = []
+    for key in RESULT_KEYS:
+        entry = measured.get(key)
+        if entry is not None and entry.get("value") is not None:
+            rows.append({"quantity": key, "value": entry["value"], "stderr": entry.get("stderr"),
+                         "source": f"measured {(entry.get('measured_at') or '')[:16].replace('T', ' ')}".strip()})
+        else:
+            rows.append({"quantity": key, "value": assumed[key][0], "stderr": None, "source": assumed[key][1]})
+    return rows
+
+
+UNITS = {"vth_tempco": (1e3, "mV/K"), "kp_exponent": (1.0, ""), "ztc_vgs": (1.0, "V"), "ztc_id": (1e3, "mA"),
+         "rth": (1.0, "K/W")}
+
+
+def format_value(key: str, value: float | None, err: float | None = None) -> str:
+    """One quantity in its display unit, with its standard error when known (``-`` for no value)."""
+    if value is None:
+        return "-"
+    scale, unit = UNITS[key]
+    plus = f" +/- {err * scale:.3g}" if err is not None and math.isfinite(err) else ""
+    return f"{value * scale:.4g}{plus} {unit}".rstrip()
+
+
 def format_outcome(outcome: ThermalOutcome) -> list[str]:
     """Lines for people: each value with its standard error and where it came from."""
     values, errs = outcome.values(), outcome.stderrs()
-    units = {"vth_tempco": (1e3, "mV/K"), "kp_exponent": (1.0, ""), "ztc_vgs": (1.0, "V"), "ztc_id": (1e3, "mA"),
-             "rth": (1.0, "K/W")}
     lines = [f"{outcome.part}: {outcome.measurement} (session {outcome.session_path})"]
     for key, value in values.items():
-        if value is None:
-            continue
-        scale, unit = units[key]
-        err = errs.get(key)
-        plus = f" +/- {err * scale:.3g}" if err is not None and math.isfinite(err) else ""
-        lines.append(f"  {key:<12} {value * scale:.4g}{plus} {unit}")
+        if value is not None:
+            lines.append(f"  {key:<12} {format_value(key, value, errs.get(key))}")
     if outcome.tempco is not None and outcome.tempco.ztc_extrapolated:
         lines.append("  (ZTC point extrapolated beyond the swept range)")
     if outcome.rth is not None:
@@ -320,5 +419,5 @@ def dumps(outcome: ThermalOutcome) -> str:
     return json.dumps(outcome.to_dict(), default=lambda v: v.item() if isinstance(v, np.generic) else str(v))
 
 
-__all__ = ["ThermalOutcome", "measure_rth", "measure_tempco", "rth_result", "format_outcome", "dumps",
-           "store_in_library", "CAUTION"]
+__all__ = ["ThermalOutcome", "measure_rth", "measure_tempco", "rth_result", "format_outcome", "format_value", "dumps",
+           "store_in_library", "library_thermal", "bench_thermal", "CAUTION"]

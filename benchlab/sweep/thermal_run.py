@@ -27,16 +27,22 @@ from benchlab.sweep.thermal_plan import PACKAGE_RTH_K_PER_W, RthPlan, TempcoPlan
 
 
 class ThermalLog:
-    """Append-only JSON-lines record of a thermal run; each line is on disk before the next reading."""
+    """Append-only JSON-lines record of a thermal run; each line is on disk before the next reading.
 
-    def __init__(self, path: Path):
+    ``listener(kind, values)``, when given, hears each line once it is on disk (progress for a UI).
+    """
+
+    def __init__(self, path: Path, listener: Callable[[str, dict], None] | None = None):
         self.path = Path(path)
         self._fh = open(self.path, "a", encoding="utf-8")
+        self.listener = listener
 
     def add(self, kind: str, **values: Any) -> None:
         self._fh.write(json.dumps({"kind": kind, **values}, allow_nan=False, default=float) + "\n")
         self._fh.flush()
         os.fsync(self._fh.fileno())
+        if self.listener is not None:
+            self.listener(kind, values)
 
     def close(self) -> None:
         self._fh.close()
@@ -182,6 +188,7 @@ class _RthBench:
 
     def sense(self, count: int, what: str) -> tuple[float, float]:
         """Mean and standard error of ``count`` VGS readings at the sense current (output on only meanwhile)."""
+        _check_cancel(self.cancel)  # an abort that switched the output off from outside is never undone
         self.smu.set_level(self.plan.sense_current_a)
         self.smu.set_output(True)
         try:
@@ -193,6 +200,7 @@ class _RthBench:
 
     def pulse(self, amps: float, expect_vgs: float, what: str) -> float:
         """VGS at ``amps`` from one short pulse (output on for one reading), then a pause with the output off."""
+        _check_cancel(self.cancel)
         self.smu.set_level(amps, expect_vgs)
         self.smu.set_output(True)
         try:
@@ -255,6 +263,7 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
         v_cold2, _ = rb.sense(plan.calibration_readings, "sense, before heating")
         dvdt_heat = (v_heat_hot - v_heat_cold) / (hot.temperature_k - reference.temperature_k)
         # heat
+        _check_cancel(cancel)
         rb.smu.set_level(i_heat, v_heat_cold)
         rb.smu.set_output(True)
         began = clock.now()

@@ -1,4 +1,4 @@
-"""The benchlab terminal app: six views, one status line, sweeps in thread workers.
+"""The benchlab terminal app: seven views, one status line, sweeps in thread workers.
 
 Safety rules kept here: the abort key works from every view (a priority binding) and switches the
 outputs off at once; the status line shows the output state the instruments report; only a sweep's
@@ -29,19 +29,21 @@ from benchlab.tui.plot import MAX_REDRAW_HZ
 from benchlab.tui.messages import _quiet, Connected, HandsFreeNews, OutputState, Problem, SweepEvent, SweepFinished
 from benchlab.tui.actions import DesignActions
 from benchlab.tui.loop import LoopActions
+from benchlab.tui.thermal import ThermalActions, ThermalView
 from benchlab.tui.views_bench import BenchView, CharacterizeView, HandsFreeView
 from benchlab.tui.views_library import LibraryView, SetsView, SinkView
 
-VIEWS = ("bench", "characterize", "handsfree", "library", "sets", "sink")
+VIEWS = ("bench", "characterize", "handsfree", "library", "sets", "sink", "thermal")
 VIEW_TITLES = {"bench": "Bench", "characterize": "Characterize", "handsfree": "Hands-free", "library": "Library",
-               "sets": "Sets", "sink": "Sink"}
+               "sets": "Sets", "sink": "Sink", "thermal": "Thermal"}
 # the keys of each view (the footer shows only the current view's, plus the global ones)
 VIEW_ACTIONS = {"bench": {"connect_bench", "connect_sim", "disconnect"},
                 "characterize": {"run_sweep", "accept", "retest", "reject", "toggle_scale", "next_part"},
                 "handsfree": {"hands_free"},
                 "library": {"refresh_library", "sort_library"},
                 "sets": {"find_sets", "reserve_set"},
-                "sink": {"save_design", "export_netlist"}}
+                "sink": {"save_design", "export_netlist"},
+                "thermal": {"thermal_tempco", "thermal_rth"}}
 STATUS_POLL_S = 1.0
 # The sweep thread waits on many short socket round trips per point; each time it must win the GIL back from the
 # UI thread, which keeps it up to the switch interval (5 ms by default). A shorter interval while the app runs
@@ -63,7 +65,7 @@ class UiOptions:
     operator: str = ""
 
 
-class BenchlabApp(LoopActions, DesignActions, App):
+class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
     """``benchlab ui``."""
 
     CSS_PATH = "app.tcss"
@@ -76,6 +78,7 @@ class BenchlabApp(LoopActions, DesignActions, App):
         Binding("f4", "view('library')", "Library"),
         Binding("f5", "view('sets')", "Sets"),
         Binding("f6", "view('sink')", "Sink"),
+        Binding("f7", "view('thermal')", "Thermal"),
         Binding("f10,question_mark", "help", "Help"),
         Binding("ctrl+q,ctrl+c", "quit_safely", "Quit", priority=True),
         Binding("s", "connect_sim", "Simulator"),
@@ -94,6 +97,8 @@ class BenchlabApp(LoopActions, DesignActions, App):
         Binding("v", "reserve_set", "Reserve set"),
         Binding("w", "save_design", "Save design"),
         Binding("e", "export_netlist", "Export netlist"),
+        Binding("p", "thermal_tempco", "Tempco"),
+        Binding("f", "thermal_rth", "Rth"),
     ]
 
     def __init__(self, options: UiOptions | None = None):
@@ -129,8 +134,9 @@ class BenchlabApp(LoopActions, DesignActions, App):
             yield LibraryView(id="library")
             yield SetsView(id="sets")
             yield SinkView(id="sink")
+            yield ThermalView(id="thermal")
         yield Static("", id="status")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self._switch_interval = sys.getswitchinterval()
@@ -201,6 +207,8 @@ class BenchlabApp(LoopActions, DesignActions, App):
             self.action_refresh_library()
         elif name == "bench":
             self._show_bench()
+        elif name == "thermal":
+            self.thermal_shown()
 
     def action_help(self) -> None:
         self.push_screen(HelpScreen(self.BINDINGS))

@@ -133,6 +133,9 @@ class LoopActions:
         self._poll_outputs_now()
         if message.problems:
             self.show_error("WARNING: could not confirm the output is off: " + "; ".join(message.problems))
+        if message.tag == self.thermal_tag:  # a thermal run (tui/thermal.py) shows its own result
+            self.thermal_finished(message)
+            return
         if self.hands_free_on or message.verdict is None and message.error is None:
             self.hands_free_on = False
             text = f"Hands-free stopped: {message.error}" if message.error else "Hands-free stopped; output off."
