@@ -109,9 +109,10 @@ def _current_and_jacobian(model, vgs, params, ut, want_jacobian=True):
         n = params[:, 3:4]
         scale = 2.0 * n * ut
         x = (vgs - vth) / scale
-        softplus = np.logaddexp(0.0, x)
+        # softplus(x) = ln(1 + e^x) and logistic(x) = dsoftplus/dx from one overflow-free exponential
+        e = np.exp(-np.abs(x))
+        softplus = np.maximum(x, 0.0) + np.log1p(e)
         q = scale * softplus
-        dq_dvov = 0.5 * (1.0 + np.tanh(0.5 * x))  # logistic(x), overflow-free
     else:
         q = np.maximum(vgs - vth, 0.0)
     if model == "square":
@@ -131,6 +132,7 @@ def _current_and_jacobian(model, vgs, params, ut, want_jacobian=True):
     d_theta = -kq_d * half_q2_d
     if model == "theta":
         return current, [-di_dq, half_q2_d, d_theta]
+    dq_dvov = np.where(x >= 0.0, 1.0, e) / (1.0 + e)  # logistic(x)
     dq_dn = 2.0 * ut * (softplus - x * dq_dvov)
     return current, [-di_dq * dq_dvov, half_q2_d, d_theta, di_dq * dq_dn]
 
@@ -162,11 +164,6 @@ def _normal_equations(r, columns):
         for q in range(p, n_par):
             normal[:, p, q] = normal[:, q, p] = np.einsum("bn,bn->b", columns[p], columns[q])
     return normal, gradient
-
-
-def _cost(model, vgs, inv, target, params, ut):
-    r = model_current(model, vgs, params, ut) * inv - target
-    return np.einsum("bn,bn->b", r, r)
 
 
 def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray, *,
@@ -208,18 +205,22 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
     target = mask if sigma is None else i_meas * inv
     params = _project(model, np.array(start, dtype=float))
     n_batch, n_par = params.shape
-    cost = _cost(model, vgs, inv, target, params, ut)
+    # the residuals and Jacobian of the active rows at their current parameters: each trial step
+    # evaluates both at once (the costly functions are shared), so an accepted step's are reused
+    # as the next iteration's instead of being computed a second time
+    r, columns = _residuals(model, vgs, inv, target, params, ut)
+    cost = np.einsum("bn,bn->b", r, r)
     damping = np.full(n_batch, 1e-6)
     iterations = np.zeros(n_batch, dtype=int)
     converged = np.zeros(n_batch, dtype=bool)
     active = np.arange(n_batch)
+    v, w, m = vgs, inv, target
     eye = np.eye(n_par)
     lower = lower_bounds(model)
     for _ in range(max_iter):
         if active.size == 0:
             break
-        v, w, m, p = vgs[active], inv[active], target[active], params[active]
-        r, columns = _residuals(model, v, w, m, p, ut)
+        p = params[active]
         normal, gradient = _normal_equations(r, columns)
         # active set: a parameter on its bound whose descent direction points out of the
         # allowed range is held there (its row and column decouple), so the others can move
@@ -236,14 +237,22 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         system = normal + (lam * scaled)[:, :, None] * eye + (floor[:, :, None] * eye)
         step = -np.linalg.solve(system, gradient[..., None])[..., 0]
         trial = _project(model, p + step)
-        trial_cost = _cost(model, v, w, m, trial, ut)
-        better = trial_cost <= cost[active]
+        r_trial, columns_trial = _residuals(model, v, w, m, trial, ut)
+        trial_cost = np.einsum("bn,bn->b", r_trial, r_trial)
+        old_cost = cost[active]
+        better = trial_cost <= old_cost
         moved = np.abs(trial - p) <= tol * (np.abs(p) + 1e-6)
         # at the optimum, rounding makes steps fail by a hair: that counts as converged too
-        flat = np.abs(cost[active] - trial_cost) <= 1e-12 * cost[active]
+        flat = np.abs(old_cost - trial_cost) <= 1e-12 * old_cost
         small = np.all(moved, axis=1) | flat
         params[active[better]] = trial[better]
         cost[active[better]] = trial_cost[better]
+        if better.all():
+            r, columns = r_trial, columns_trial
+        elif better.any():
+            keep_new = better[:, None]
+            r = np.where(keep_new, r_trial, r)
+            columns = [np.where(keep_new, new, old) for new, old in zip(columns_trial, columns)]
         damping[active] = np.where(better, damping[active] * 0.1, damping[active] * 10.0)
         iterations[active] += 1
         stalled = damping[active] > 1e12
@@ -251,7 +260,11 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         converged[active[small]] = True
         # a sweep that stalls with a tiny gradient is at its optimum too
         converged[active[stalled]] = True
-        active = active[~done]
+        if done.any():
+            going = ~done
+            active = active[going]
+            v, w, m, r = v[going], w[going], m[going], r[going]
+            columns = [c[going] for c in columns]
     n_points = mask.sum(axis=1)
     if with_covariance:
         covariance = sandwich_covariance(model, vgs, inv, target, params, ut)

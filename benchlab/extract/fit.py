@@ -99,6 +99,29 @@ def _stack(points: list[_Points], masks: list[np.ndarray]):
     return vgs, i_d, mask, valid
 
 
+def _window_only(vgs, i_d, mask):
+    """The fit window's points moved to the left of each row, the rows cut to the widest window: the
+    solver's arrays shrink by the points outside every window (a third of a sweep by default).
+
+    Returns the compacted (vgs, id, mask) and the column each entry came from (for :func:`_spread`).
+    """
+    width = max(int(mask.sum(axis=1).max()), 1)
+    if width == mask.shape[1]:
+        return vgs, i_d, mask, None
+    # window points first, each row's order kept (a window is a run of currents, so neighbours stay neighbours)
+    columns = np.argsort(mask <= 0, axis=1, kind="stable")[:, :width]
+    return (*(np.take_along_axis(a, columns, axis=1) for a in (vgs, i_d, mask)), columns)
+
+
+def _spread(values, columns, width):
+    # inverse of _window_only for per-point values (entries outside the window are 1)
+    if columns is None:
+        return values
+    full = np.ones((values.shape[0], width))
+    np.put_along_axis(full, columns, values, axis=1)
+    return full
+
+
 def _aicc(rss: float, n: float, k: int) -> float:
     if n - k - 1 <= 0:
         return math.inf
@@ -129,14 +152,15 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
             where = f"{p.sweep.source}: " if p.sweep.source else ""
             raise FitError(f"{where}only {int(m.sum())} of the {p.id.size} points (measured {p.id.min():.3g} to "
                            f"{p.id.max():.3g} A) lie in the fit window; the {model} model needs at least {need}")
-    fit = fit_stacked(model, vgs, i_d, mask, start, ut=ut)
+    window = _window_only(vgs, i_d, mask)
+    fit = fit_stacked(model, *window[:3], start, ut=ut)
     if not weighted:
         return fit, (vgs, i_d, mask, valid), None
     # the reported fit: effective-variance weights for noise on both axes (see extract/eiv.py)
     stated = np.array([np.nan if p.sweep.sigma_v is None else p.sweep.sigma_v for p in points])
-    fit, sigma = effective_variance_fit(model, vgs, i_d, mask, fit.params, ut=ut,
+    fit, sigma = effective_variance_fit(model, *window[:3], fit.params, ut=ut,
                                         sigma_v=stated if np.isfinite(stated).any() else None)
-    return fit, (vgs, i_d, mask, valid), sigma
+    return fit, (vgs, i_d, mask, valid), _spread(sigma, window[3], vgs.shape[1])
 
 
 def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
@@ -206,7 +230,7 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
                 # would fit a theta law again), n from the steepest log-current slope
                 fit_t, row_t = fits["theta"]
                 if all(b in row_t for b in usable):
-                    stacked = _stack([points[b] for b in usable], [masks[b] for b in usable])
+                    stacked = _window_only(*_stack([points[b] for b in usable], [masks[b] for b in usable])[:3])
                     start = ekv_start_from_theta(stacked[0], stacked[1], stacked[2],
                                                  np.array([fit_t.params[row_t[b]] for b in usable]), ut)
             fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut)

@@ -84,19 +84,25 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
     right = np.searchsorted(flat, (t + h + offset).ravel(), "right").reshape(rows, width)
     base = (np.arange(rows) * width)[:, None]
     left, right = left - base, right - base  # indices within the row: [left, right)
-    powers = [np.ones_like(t) * ok, t * ok, t ** 2 * ok, t ** 3 * ok, t ** 4 * ok]
-    weighted = [y, t * y, t * t * y, y * y]
-
-    def window_sum(a):
-        c = np.concatenate([np.zeros((rows, 1)), np.cumsum(a, axis=1)], axis=1)
-        return np.take_along_axis(c, right, axis=1) - np.take_along_axis(c, left, axis=1)
-
-    p = [window_sum(a) for a in powers]  # sum t^k, k = 0..4
-    q = [window_sum(a) for a in weighted]  # sum t^k y, k = 0..2, and sum y^2
+    # every window sum at once: one cumulative sum over a stack of the nine summands
+    t2 = t * t
+    okf = ok.astype(float)
+    summands = np.stack([okf, t * okf, t2 * okf, t2 * t * okf, t2 * t2 * okf,  # sum t^k, k = 0..4
+                         y, t * y, t2 * y, y * y])  # sum t^k y, k = 0..2, and sum y^2
+    cumulative = np.zeros((summands.shape[0], rows, width + 1))
+    np.cumsum(summands, axis=2, out=cumulative[:, :, 1:])
+    cumulative = cumulative.reshape(summands.shape[0], -1)
+    start = (np.arange(rows) * (width + 1))[:, None]
+    sums = (np.take(cumulative, (right + start).ravel(), axis=1)
+            - np.take(cumulative, (left + start).ravel(), axis=1)).reshape(summands.shape)
+    p, q = sums[:5], sums[5:]
     c = t
     # moments about the centre: sum (t - c)^j = sum_k C(j, k) t^k (-c)^(j - k)
-    m = [sum(comb(j, k) * p[k] * (-c) ** (j - k) for k in range(j + 1)) for j in range(5)]
-    r = [sum(comb(j, k) * q[k] * (-c) ** (j - k) for k in range(j + 1)) for j in range(3)]
+    minus_c = [np.ones_like(c), -c]
+    for _ in range(3):
+        minus_c.append(minus_c[-1] * minus_c[1])
+    m = [sum(comb(j, k) * p[k] * minus_c[j - k] for k in range(j + 1)) for j in range(5)]
+    r = [sum(comb(j, k) * q[k] * minus_c[j - k] for k in range(j + 1)) for j in range(3)]
     count = m[0]
     # the 3x3 normal equations [[a b c] [b d e] [c e f]] inverted by cofactors (a batched
     # numpy inverse of this many small matrices is several times slower)
