@@ -101,19 +101,27 @@ def poorly_determined(names, values, errors) -> list[str]:
     return loose
 
 
-def correlations(names, covariance) -> dict[str, float]:
-    """Correlation coefficients ``corr_<a>_<b>`` of the fitted parameters, from their covariance.
+def correlations_batch(names, covariance) -> list[dict[str, float]]:
+    """Correlation coefficients ``corr_<a>_<b>`` of the fitted parameters of each row, from their
+    covariance (shape (B, P, P)).
 
     They travel with the standard errors (and into the library) so a Monte Carlo can draw the
-    parameters together: a threshold and KP fitted to one sweep are strongly correlated.
+    parameters together: a threshold and KP fitted to one sweep are strongly correlated. A pair is
+    left out where either standard error is zero or the covariance is not finite.
     """
-    sd = np.sqrt(np.clip(np.diagonal(covariance), 0.0, None))
-    out = {}
-    for a in range(len(names)):
-        for b in range(a + 1, len(names)):
-            if sd[a] > 0 and sd[b] > 0 and np.isfinite(covariance[a, b]):
-                out[f"corr_{names[a]}_{names[b]}"] = float(np.clip(covariance[a, b] / (sd[a] * sd[b]), -1.0, 1.0))
-    return out
+    covariance = np.asarray(covariance, float)
+    sd = np.sqrt(np.clip(np.diagonal(covariance, axis1=1, axis2=2), 0.0, None))
+    pairs = [(a, b) for a in range(len(names)) for b in range(a + 1, len(names))]
+    if not pairs:
+        return [{} for _ in range(covariance.shape[0])]
+    first, second = (np.array(side) for side in zip(*pairs))
+    values = covariance[:, first, second]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        coefficient = np.clip(values / (sd[:, first] * sd[:, second]), -1.0, 1.0)
+    present = (sd[:, first] > 0) & (sd[:, second] > 0) & np.isfinite(values)
+    keys = [f"corr_{names[a]}_{names[b]}" for a, b in pairs]
+    return [{k: c for k, c, ok in zip(keys, row, kept) if ok}
+            for row, kept in zip(coefficient.tolist(), present.tolist())]
 
 
 def _sensitivities(model, vgs, i_d, params, ut):
@@ -128,13 +136,14 @@ def _sensitivities(model, vgs, i_d, params, ut):
     return gm_over_id, [c / i_d * free[:, j:j + 1] for j, c in enumerate(columns)]
 
 
-def _optional(value) -> float | None:
-    return float(value) if value is not None and np.isfinite(value) else None
+def _optional_list(values) -> list[float | None]:
+    # a row of numbers as plain floats, None where not finite
+    return [v if math.isfinite(v) else None for v in np.asarray(values, float).tolist()]
 
 
 def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *, at_current, cc_current,
              reasons: list[str], criteria: list[dict], bootstrap: int, seed: int,
-             temperature_k: float = T_NOMINAL_K, sigma=None) -> list[FitResult]:
+             temperature_k: float = T_NOMINAL_K, sigma=None, directions=None) -> list[FitResult]:
     """Results of one model's batched fit.
 
     Parameters
@@ -154,6 +163,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         The model-choice explanation and AICc table per sweep.
     sigma : ndarray, shape (B, N), optional
         The point standard deviations (A) the fit was weighted with (default: relative residuals).
+    directions : list of (ndarray, ndarray), optional
+        Per sweep, which of its points were taken going up and going down (default: from the sweeps).
     """
     vgs, i_d, mask, points = stacked
     used = mask > 0
@@ -193,38 +204,60 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     i_hi = np.where(points, i_d, -np.inf).max(axis=1)
     found = [[] for _ in sweeps]
     gm_over_id, jacobian = _sensitivities(model, vgs, i_d, params, ut)
-    order_v, order_i, order_valid = _rising_pass_in_order(sweeps)
+    if directions is None:
+        directions = [(sweep.direction == "up", sweep.direction == "down") for sweep in sweeps]
+    order_v, order_i, order_valid = _rising_pass_in_order(sweeps, directions)
     for checks in (diagnostics.window_checks(model, vgs, i_d, used, vth), diagnostics.fit_quality(rms_rel),
                    diagnostics.monotonic_check(order_v, order_i, order_valid),
                    diagnostics.bound_checks(model, theta, slope_n),
                    diagnostics.power_drift_check(vgs, i_d, used, rel, gm_over_id, temperature_k, jacobian)):
         for row, items in enumerate(checks):
             found[row] += items
+    # everything a result holds, as plain Python numbers for all rows at once (NaN/inf become None)
+    params_rows, sd_rows = params.tolist(), param_sd.tolist()
+    corr_rows = correlations_batch(names, fit.covariance)
+    cc_rows = _optional_list(vth_cc_sd)
+    sd_threshold_rows = _optional_list(threshold_errors["second_derivative_sqrt"])
+    threshold_rows = {k: _optional_list(v) for k, v in thresholds.items()}
+    vgs_cc_rows, gm_cc_rows = _optional_list(vgs_cc_model), _optional_list(gm_cc_model)
+    theta_rows, n_rows = theta.tolist(), slope_n.tolist()
+    rms_abs_rows, rms_rel_rows, used_rows = rms_abs.tolist(), rms_rel.tolist(), n_used.tolist()
+    i_lo_rows, i_hi_rows = i_lo.tolist(), i_hi.tolist()
+    window_rows = np.stack([np.where(used, i_d, np.inf).min(axis=1), np.where(used, i_d, -np.inf).max(axis=1),
+                            np.where(used, vgs, np.inf).min(axis=1), np.where(used, vgs, -np.inf).max(axis=1)],
+                           axis=1).tolist()
+    if at_current is not None:
+        gm_rows, v_at_rows = gm_at.tolist(), vgs_at.tolist()
+        gm_sd_rows, vgs_sd_rows = _optional_list(g_sd), _optional_list(v_sd)
+    converged_rows, iteration_rows = fit.converged.tolist(), fit.iterations.tolist()
+    temperature = float(temperature_k)
+    swing = ut * math.log(10.0) * 1e3
     results = []
     for row, sweep in enumerate(sweeps):
-        p = params[row]
-        device = DeviceParams(model=model, temperature_k=float(temperature_k),
-                              **dict(zip(names, (float(x) for x in p))))
-        sd = dict(zip(names, (float(x) for x in param_sd[row])))
+        p = params_rows[row]
+        device = DeviceParams(model, *p, temperature_k=temperature) if model != "linear" else \
+            DeviceParams(model, p[0], gm=p[1], temperature_k=temperature)
+        sd = dict(zip(names, sd_rows[row]))
+        correlation = corr_rows[row]
         gm = v_at = gm_sd = vgs_sd = None
         if at_current is not None:
-            gm, v_at = float(gm_at[row]), float(vgs_at[row])
-            gm_sd, vgs_sd = _optional(g_sd[row]), _optional(v_sd[row])
+            gm, v_at, gm_sd, vgs_sd = gm_rows[row], v_at_rows[row], gm_sd_rows[row], vgs_sd_rows[row]
         method = "covariance"
-        covariance = fit.covariance[row]
         if bootstrap:
-            spread, gm_sd, vgs_sd, covariance = _bootstrap(model, vgs[row], i_d[row], mask[row], p, int(bootstrap), seed,
-                                               at_current, ut, None if sigma is None else sigma[row])
-            sd = dict(zip(names, (float(x) for x in spread)))
+            spread, gm_sd, vgs_sd, covariance = _bootstrap(model, vgs[row], i_d[row], mask[row], params[row],
+                                                           int(bootstrap), seed, at_current, ut,
+                                                           None if sigma is None else sigma[row])
+            sd = dict(zip(names, spread.tolist()))
+            correlation = correlations_batch(names, covariance[None])[0]
             method = f"bootstrap/{int(bootstrap)}"
-        row_thresholds = {"model": float(device.vth)}
-        row_thresholds.update({k: _optional(v[row]) for k, v in thresholds.items()})
+        row_thresholds = {"model": device.vth}
+        row_thresholds.update({k: v[row] for k, v in threshold_rows.items()})
         vth_cc = row_thresholds["constant_current"]
-        flags_found = list(found[row])
+        flags_found = found[row]
         if vth_cc is None:
             flags_found.append((FLAG_CC_OUTSIDE, f"{cc_current * 1e6:g} uA lies outside the measured currents "
-                                                 f"({i_lo[row]:.3g} to {i_hi[row]:.3g} A); not extrapolated"))
-        if at_current is not None and not (i_lo[row] <= at_current <= i_hi[row]):
+                                                 f"({i_lo_rows[row]:.3g} to {i_hi_rows[row]:.3g} A); not extrapolated"))
+        if at_current is not None and not (i_lo_rows[row] <= at_current <= i_hi_rows[row]):
             flags_found.append((FLAG_AT_CURRENT_OUTSIDE, f"gm at {at_current:g} A comes from the model outside "
                                                          "the measured currents"))
         if sweep.skipped.get("noise_floor"):  # a note, not a flag: nothing is wrong with the fit
@@ -237,52 +270,48 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
                                                     f"VGS={v_fold:.4f} V, ID={i_fold:.4g} A): likely a heating "
                                                     "fold-back"))
         shift = None
-        if sweep.has_both_directions:
+        if directions[row][0].any() and directions[row][1].any():  # both passes measured
             up_v, up_i = sweep.select("up")
             down_v, down_i = sweep.select("down")
             shift = diagnostics.hysteresis(up_v, up_i, down_v, down_i)
             flags_found += diagnostics.hysteresis_check(shift)
-        if not fit.converged[row]:
-            flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {int(fit.iterations[row])} "
-                                                    "iterations"))
+        if not converged_rows[row]:
+            flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {iteration_rows[row]} iterations"))
         loose = poorly_determined(names, p, [sd[name] for name in names])
         if loose:
             flags_found.append((FLAG_UNCERTAIN, "standard error above half the parameter: " + ", ".join(loose)))
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
-                  "theta": sd.get("theta"), "n": sd.get("n"),
-                  "gm": gm_sd,
-                  "vth_cc": _optional(vth_cc_sd[row]) if vth_cc is not None else None, "vgs_at_current": vgs_sd,
-                  "vth_sd": _optional(threshold_errors["second_derivative_sqrt"][row])}
-        stderr.update(correlations(names, covariance))
-        u = used[row]
-        window = {"i_min": float(i_d[row][u].min()), "i_max": float(i_d[row][u].max()),
-                  "vgs_min": float(vgs[row][u].min()), "vgs_max": float(vgs[row][u].max()),
-                  "points": int(n_used[row]), "chosen_by": chosen_by[row]}
-        n_value = float(slope_n[row])
+                  "theta": sd.get("theta"), "n": sd.get("n"), "gm": gm_sd,
+                  "vth_cc": cc_rows[row] if vth_cc is not None else None, "vgs_at_current": vgs_sd,
+                  "vth_sd": sd_threshold_rows[row]}
+        stderr.update(correlation)
+        i_min, i_max, v_min, v_max = window_rows[row]
+        window = {"i_min": i_min, "i_max": i_max, "vgs_min": v_min, "vgs_max": v_max,
+                  "points": used_rows[row], "chosen_by": chosen_by[row]}
+        n_value = n_rows[row]
         results.append(FitResult(
-            model=model, params=device, vth=float(device.vth), kp=float(device.kp), theta=float(theta[row]),
-            n=n_value, slope_mv_per_decade=n_value * ut * math.log(10.0) * 1e3 if model == "ekv" else None,
+            model=model, params=device, vth=device.vth, kp=device.kp, theta=theta_rows[row],
+            n=n_value, slope_mv_per_decade=n_value * swing if model == "ekv" else None,
             gm=gm, at_current=at_current, vgs_at_current=v_at, vth_cc=vth_cc, cc_current=float(cc_current),
-            rms_residual=float(rms_abs[row]), rms_relative=float(rms_rel[row]),
-            vgs_at_cc=_optional(vgs_cc_model[row]), gm_at_cc=_optional(gm_cc_model[row]), stderr=stderr,
+            rms_residual=rms_abs_rows[row], rms_relative=rms_rel_rows[row],
+            vgs_at_cc=vgs_cc_rows[row], gm_at_cc=gm_cc_rows[row], stderr=stderr,
             stderr_method=method,
             flags=tuple(dict.fromkeys(code for code, _ in flags_found if code)), notes=tuple(n for _, n in flags_found),
             thresholds=row_thresholds, window=window, reason=reasons[row],
             criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()},
-            points_used=int(n_used[row]), points_skipped=int(sum(sweep.skipped.values())), hysteresis_v=shift,
+            points_used=used_rows[row], points_skipped=int(sum(sweep.skipped.values())), hysteresis_v=shift,
             fitter_version=FITTER_VERSION))
     return results
 
 
-def _rising_pass_in_order(sweeps):
+def _rising_pass_in_order(sweeps, directions):
     # the fitted pass in measurement order, a falling pass read backwards
     passes = []
-    for sweep in sweeps:
-        if np.any(sweep.direction == "up"):
-            passes.append(sweep.in_order("up"))
+    for sweep, (up, down) in zip(sweeps, directions):
+        if up.any():
+            passes.append((sweep.vgs[up], sweep.id[up]))
         else:
-            v, i = sweep.in_order("down")
-            passes.append((v[::-1], i[::-1]))
+            passes.append((sweep.vgs[down][::-1], sweep.id[down][::-1]))
     width = max(v.size for v, _ in passes)
     vgs = np.zeros((len(passes), width))
     i_d = np.ones((len(passes), width))

@@ -7,12 +7,10 @@ mask so that :func:`benchlab.extract.fit_batch` needs no Python loop over sweeps
 
 from __future__ import annotations
 
-import warnings
 
 import numpy as np
 
 from benchlab.extract.second_derivative import second_derivative_batch
-from benchlab.extract.thresholds import PEAK_SIGNIFICANCE
 
 BINS = 60
 HALF_WIDTH = 2
@@ -50,77 +48,56 @@ def _binned_rows(x, y, valid):
     return np.where(out_valid, out_x, 0.0), np.where(out_valid, out_y, 0.0), out_valid
 
 
+def _window_sum(a, width):
+    # sum over each run of `width` neighbours along axis 1 (shifted slices: faster than a strided view's sum)
+    out = a[:, :a.shape[1] - width + 1].copy()
+    for k in range(1, width):
+        out += a[:, k:a.shape[1] - width + 1 + k]
+    return out
+
+
 def _parabolas(x, y, valid):
+    """Least-squares parabola through each run of 2 HALF_WIDTH + 1 neighbours: its centre, whether all its
+    points are valid, its value and slope at the centre."""
     width = 2 * HALF_WIDTH + 1
-    xs = np.lib.stride_tricks.sliding_window_view(x, width, axis=1)
-    ys = np.lib.stride_tricks.sliding_window_view(y, width, axis=1)
-    ok = np.lib.stride_tricks.sliding_window_view(valid, width, axis=1).all(axis=2)
-    centre = xs[:, :, HALF_WIDTH:HALF_WIDTH + 1]
-    dx = xs - centre
-    scale = np.maximum(np.abs(dx).max(axis=2), 1e-12)
-    u = dx / scale[..., None]
-    u2 = u * u
+    count = x.shape[1] - width + 1
+    ok = _window_sum(valid.astype(np.int8), width) == width
+    centre = x[:, HALF_WIDTH:HALF_WIDTH + count]
+    dx = [x[:, k:k + count] - centre for k in range(width)]
+    scale = np.maximum(np.maximum.reduce([np.abs(d) for d in dx]), 1e-12)
+    u = [d / scale for d in dx]
+    ys = [y[:, k:k + count] for k in range(width)]
+    u2 = [v * v for v in u]
     # normal equations [[a b c] [b d e] [c e f]] of the parabola, inverted by cofactors (numpy's
     # batched inverse of many 3x3 matrices is several times slower)
-    a = np.full(u.shape[:2], float(width)) + 1e-12
-    b, c, e, f = u.sum(2), u2.sum(2), (u2 * u).sum(2), (u2 * u2).sum(2) + 1e-12
+    a = np.full(centre.shape, float(width)) + 1e-12
+    b, c, e = sum(u), sum(u2), sum(v2 * v for v, v2 in zip(u, u2))
+    f = sum(v2 * v2 for v2 in u2) + 1e-12
     d = c + 1e-12
     co_a, co_b, co_c = d * f - e * e, c * e - b * f, b * e - c * d
-    co_d, co_e, co_f = a * f - c * c, b * c - a * e, a * d - b * b
+    co_d, co_e = a * f - c * c, b * c - a * e
     det = a * co_a + b * co_b + c * co_c
     det = np.where(ok & (det != 0), det, 1.0)
-    t0, t1, t2 = ys.sum(2), (u * ys).sum(2), (u2 * ys).sum(2)
-    coef = np.stack([co_a * t0 + co_b * t1 + co_c * t2, co_b * t0 + co_d * t1 + co_e * t2,
-                     co_c * t0 + co_e * t1 + co_f * t2], -1) / det[..., None]
-    inverse_22 = co_f / det
-    resid = ys - (coef[..., :1] + coef[..., 1:2] * u + coef[..., 2:3] * u2)
-    rms = np.sqrt((resid * resid).sum(2) / max(width - 3, 1))
-    with np.errstate(all="ignore"):
-        if ok.any():
-            with warnings.catch_warnings():  # a row with no usable window (a sweep of a few points) stays NaN
-                warnings.simplefilter("ignore", RuntimeWarning)
-                noise = np.nanmedian(np.where(ok, rms, np.nan), axis=1, keepdims=True)
-        else:
-            noise = rms[:, :1]
-    s2 = scale * scale
-    return {"x": centre[..., 0], "ok": ok, "value": coef[..., 0], "slope": coef[..., 1] / scale,
-            "curvature": 2.0 * coef[..., 2] / s2,
-            "curvature_se": 2.0 * noise * np.sqrt(np.abs(inverse_22)) / s2}
+    t0, t1, t2 = sum(ys), sum(v * w for v, w in zip(u, ys)), sum(v2 * w for v2, w in zip(u2, ys))
+    value = (co_a * t0 + co_b * t1 + co_c * t2) / det
+    slope = (co_b * t0 + co_d * t1 + co_e * t2) / det / scale
+    return {"x": centre, "ok": ok, "value": value, "slope": slope}
 
 
-def _derivative_thresholds(vgs, i_d, valid):
+def _esr_thresholds(vgs, i_d, valid):
+    # the tangent of sqrt(ID) at its steepest point, extrapolated to zero
     valid, vgs, root = _sorted_rows(vgs, valid, vgs, np.sqrt(np.where(valid, i_d, 0.0)))
     x, y, ok_points = _binned_rows(vgs, root, valid)
     rows = np.arange(x.shape[0])
     esr = np.full(x.shape[0], np.nan)
-    sd = np.full(x.shape[0], np.nan)
     if x.shape[1] < 2 * HALF_WIDTH + 1:
-        return esr, sd
+        return esr
     fit = _parabolas(x, y, ok_points)
-    ok = fit["ok"]
-    slope = np.where(ok, fit["slope"], -np.inf)
+    slope = np.where(fit["ok"], fit["slope"], -np.inf)
     best = np.argmax(slope, axis=1)
     steep = slope[rows, best]
     with np.errstate(all="ignore"):
-        esr = np.where(steep > 0, fit["x"][rows, best] - fit["value"][rows, best] / steep, np.nan)
-    curvature = np.where(ok, fit["curvature"], -np.inf)
-    n_windows = ok.sum(axis=1)
-    peak = np.argmax(curvature, axis=1)
-    inner = (n_windows >= 3) & (peak > 0) & (peak < n_windows - 1)
-    lo, hi = np.clip(peak - 1, 0, None), np.minimum(peak + 1, curvature.shape[1] - 1)
-    c1 = curvature[rows, peak]
-    significant = inner & (c1 > PEAK_SIGNIFICANCE * fit["curvature_se"][rows, peak])
-    x0, x1, x2 = fit["x"][rows, lo], fit["x"][rows, peak], fit["x"][rows, hi]
-    c0, c2 = curvature[rows, lo], curvature[rows, hi]
-    with np.errstate(all="ignore"):
-        h0, h2, d0, d2 = x0 - x1, x2 - x1, c0 - c1, c2 - c1
-        det = h0 * h2 * (h0 - h2)
-        a = (d0 * h2 - d2 * h0) / det
-        b = (h0 * h0 * d2 - h2 * h2 * d0) / det
-        vertex = x1 + np.clip(-b / (2.0 * a), h0, h2)
-    refined = np.where((det != 0) & (a < 0) & np.isfinite(vertex), vertex, x1)
-    sd = np.where(significant, refined, np.nan)
-    return esr, sd
+        return np.where(steep > 0, fit["x"][rows, best] - fit["value"][rows, best] / steep, np.nan)
 
 
 def _pchip_end_slope(h0, h1, m0, m1):
@@ -230,7 +207,7 @@ def thresholds_batch(vgs, i_d, valid, cc_current: float, errors: dict | None = N
         Filled with the standard errors (V) of the methods that give one (the second-derivative one).
     """
     valid = np.asarray(valid, dtype=bool)
-    esr, _ = _derivative_thresholds(vgs, i_d, valid)
+    esr = _esr_thresholds(vgs, i_d, valid)
     sd, sd_error = second_derivative_batch(vgs, i_d, valid)
     if errors is not None:  # standard errors of the methods that give one
         errors["second_derivative_sqrt"] = sd_error

@@ -204,13 +204,14 @@ def power_drift_check(vgs, i_d, mask, relative_residuals, gm_over_id=None,
     n_par = design.shape[-1]
     normal = np.einsum("bnp,bnq->bpq", design, design) + 1e-12 * np.eye(n_par)
     inverse = np.linalg.pinv(normal)
-    coef = np.einsum("bpq,bnq,bn->bp", inverse, design, r)
-    rss = np.maximum((r * r).sum(axis=1) - np.einsum("bp,bnp,bn->b", coef, design, r), 0.0)
+    projected = np.einsum("bnp,bn->bp", design, r)  # design^T r
+    coef = np.einsum("bpq,bq->bp", inverse, projected)
+    total = np.einsum("bn,bn->b", r, r)
+    rss = np.maximum(total - np.einsum("bp,bp->b", coef, projected), 0.0)
     # the residual sum without x: r projected on the other columns alone
-    d0 = design[..., :-1]
-    inv0 = np.linalg.pinv(np.einsum("bnp,bnq->bpq", d0, d0) + 1e-12 * np.eye(n_par - 1))
-    c0 = np.einsum("bpq,bnq,bn->bp", inv0, d0, r)
-    rss0 = np.maximum((r * r).sum(axis=1) - np.einsum("bp,bnp,bn->b", c0, d0, r), 0.0)
+    inv0 = np.linalg.pinv(normal[:, :-1, :-1])
+    c0 = np.einsum("bpq,bq->bp", inv0, projected[:, :-1])
+    rss0 = np.maximum(total - np.einsum("bp,bp->b", c0, projected[:, :-1]), 0.0)
     with np.errstate(all="ignore"):
         slope = coef[:, -1] / scale[:, -1]
         se = np.sqrt(rss / np.maximum(count - n_par, 1) * np.abs(inverse[:, -1, -1])) / scale[:, -1]

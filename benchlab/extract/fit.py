@@ -41,6 +41,24 @@ class _Points:
     sweep: Sweep
     vgs: np.ndarray  # fit points (one direction, in order of rising current)
     id: np.ndarray
+    up: np.ndarray  # each point of the sweep: taken going up, going down
+    down: np.ndarray
+
+
+def _fit_points(sweeps: list[Sweep]) -> list[_Points]:
+    """Every sweep's fit points (as :meth:`Sweep.fit_points`: the up pass when there is one, sorted by current
+    then VGS), the directions of all sweeps compared in one pass."""
+    if not sweeps:
+        return []
+    directions = np.concatenate([s.direction for s in sweeps])
+    cuts = np.cumsum([s.direction.size for s in sweeps])[:-1]
+    out = []
+    for sweep, up, down in zip(sweeps, np.split(directions == "up", cuts), np.split(directions == "down", cuts)):
+        keep = up if up.any() else down
+        vgs, i_d = sweep.vgs[keep], sweep.id[keep]
+        order = np.lexsort((vgs, i_d))
+        out.append(_Points(sweep, vgs[order], i_d[order], up, down))
+    return out
 
 
 def _as_sweep(item) -> Sweep:
@@ -206,11 +224,7 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
     if not (math.isfinite(temperature_k) and 150.0 <= temperature_k <= 600.0):
         raise InputError(f"temperature {temperature_k} K is not a bench temperature (150-600 K)")
     ut = thermal_voltage(temperature_k)
-    points = []
-    for item in sweeps:
-        sweep = _as_sweep(item)
-        vgs, i_d = sweep.fit_points()
-        points.append(_Points(sweep, vgs, i_d))
+    points = _fit_points([_as_sweep(item) for item in sweeps])
     if not points:
         return []
     final_model = [model] * len(points)
@@ -263,7 +277,7 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
                             sigma=sigma,
                             at_current=at_current, cc_current=cc_current, reasons=[reasons[b] for b in group],
                             criteria=[criteria[b] for b in group], bootstrap=bootstrap, seed=seed,
-                            temperature_k=temperature_k)
+                            temperature_k=temperature_k, directions=[(points[b].up, points[b].down) for b in group])
             for b, result in zip(group, done):
                 results[b] = result
     return results

@@ -134,18 +134,22 @@ class FitResult:
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready dict (NaN/inf become None, tuples become lists)."""
         data = {}
-        for f in fields(self):
-            value = getattr(self, f.name)
-            if isinstance(value, DeviceParams):
+        for name in _FIELD_NAMES:
+            value = getattr(self, name)
+            kind = type(value)
+            if kind is float:
+                data[name] = value if math.isfinite(value) else None
+            elif kind is dict:
+                data[name] = {k: _clean(v) for k, v in value.items()}
+            elif kind is tuple:
+                data[name] = list(value)
+            elif kind is DeviceParams:
                 # a parameter the model does not have is null, never a placeholder 0 (gm of an ekv fit
                 # is not 0 A/V: it is in gm / gm_at_cc)
-                value = {k: (None if k in _NOT_IN_MODEL.get(value.model, ()) else v)
-                         for k, v in value.to_dict().items()}
-            elif isinstance(value, tuple):
-                value = list(value)
-            elif isinstance(value, dict):
-                value = {k: _clean(v) for k, v in value.items()}
-            data[f.name] = _clean(value)
+                absent = _NOT_IN_MODEL.get(value.model, ())
+                data[name] = {k: (None if k in absent else v) for k, v in value.to_dict().items()}
+            else:
+                data[name] = _clean(value)
         return data
 
     @classmethod
@@ -174,3 +178,6 @@ class FitResult:
         if self.flags:
             parts.append("flags: " + ", ".join(self.flags))
         return "  ".join(parts)
+
+
+_FIELD_NAMES = tuple(f.name for f in fields(FitResult))
