@@ -64,6 +64,30 @@ def inside(folder: Path, name: str, suffix: str = "") -> Path:
     return target
 
 
+def check_session_names(meta: dict, path: str) -> list[str]:
+    """The part labels a ``session.json`` lists (``parts``) and its lot name, each checked; returns the labels.
+
+    Every reader of a session folder (resume, library import) calls this before it writes anything, so a crafted
+    entry such as ``../../x`` gets one error naming the file and the entry instead of being passed over.
+
+    Raises
+    ------
+    InputError
+        ``parts`` is not a list, or an entry (or the lot) is not a usable name; the message names ``path`` and
+        the entry.
+    """
+    parts = meta.get("parts")
+    if not isinstance(parts, list):
+        raise InputError(f"'parts' must be a list of part labels, got {type(parts).__name__}", path=path)
+    for n, label in enumerate(parts, start=1):
+        if not is_valid_name(label):
+            shown = printable(label) if isinstance(label, str) else repr(label)
+            raise InputError(f"bad part label '{shown}' (entry {n} of 'parts'): {NAME_RULE}", path=path)
+    if meta.get("lot") is not None:
+        check_name("lot name", meta["lot"], path=path)
+    return parts
+
+
 def csv_cell(value: Any) -> Any:
     """A CSV cell a spreadsheet shows as text: a string starting with ``= + - @`` (or tab/CR) gets a leading
     apostrophe (common practice against formula injection); numbers are left as they are."""

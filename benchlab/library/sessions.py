@@ -16,7 +16,7 @@ from typing import Any
 
 from benchlab.errors import InputError
 from benchlab.kinds import PointStatus
-from benchlab.names import check_name
+from benchlab.names import check_name, check_session_names
 
 REQUIRED_COLUMNS = ("vgs", "id")
 
@@ -196,6 +196,7 @@ def read_session(path: str | Path) -> Session:
     if not meta_path.exists():
         raise InputError("no session.json here: not a session folder", path=str(folder))
     meta = _read_json(meta_path)
+    check_session_names(meta, str(meta_path))
     sidecars: dict[str, tuple[Path, dict]] = {}
     for json_path in sorted(folder.glob("*.json")):
         if json_path.name == "session.json":
@@ -252,6 +253,7 @@ def find_sessions(paths) -> list[Path]:
         if not inner:
             raise InputError("not a session folder (no session.json here or in its subfolders)", path=str(folder))
         found += inner
-    for folder in found:  # an unreadable session.json is refused before any library is opened or created
-        _read_json(folder / "session.json")
+    for folder in found:  # an unreadable session.json, or a bad name in it, is refused before any library is
+        meta_path = folder / "session.json"  # opened or created
+        check_session_names(_read_json(meta_path), str(meta_path))
     return found

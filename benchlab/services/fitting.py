@@ -20,7 +20,7 @@ from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operat
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
 from benchlab.kinds import PartClass
-from benchlab.names import check_name, inside
+from benchlab.names import check_name, check_session_names, inside
 
 # the temperatures fit_batch accepts (150-600 K), in degC
 T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
@@ -76,6 +76,7 @@ def _session_sources(folder: Path, allow_empty: bool = False) -> list[SweepSourc
     meta = _read_json(folder / "session.json")
     if meta.get("format") != SESSION_FORMAT:
         raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(folder / "session.json"))
+    check_session_names(meta, str(folder / "session.json"))
     sources = []
     ambient = _ambient(meta)
     for label in meta.get("parts", []):

@@ -180,12 +180,8 @@ class SessionWriter:
         if count is not None and (isinstance(count, bool) or not isinstance(count, int) or count < 1):
             raise InputError(f"planned_count must be a whole number of parts (1 or more) or null, got {count!r}",
                              path=where)
-        parts = meta.get("parts")
-        if not isinstance(parts, list):
-            raise InputError(f"parts must be a list of part labels, got {type(parts).__name__}", path=where)
-        for label in parts:
-            names.check_name("part label", label, path=where)
-        names.check_name("lot name", meta.get("lot"), path=where)
+        names.check_session_names(meta, where)
+        names.check_name("lot name", meta.get("lot"), path=where)  # a resumed session needs its lot
         meta["ended"] = None
         writer = cls(Path(directory), meta)
         writer.save()
@@ -369,6 +365,7 @@ def read_session(directory: str | os.PathLike) -> SessionData:
     meta = _load_json(directory / "session.json")
     if meta.get("format") != SESSION_FORMAT:
         raise InputError(f"not a benchlab session (format {meta.get('format')!r})", path=str(directory))
+    names.check_session_names(meta, str(directory / "session.json"))
     sweeps = {}
     for label in meta.get("parts", []):
         csv_path = names.inside(directory, label, ".csv")

@@ -84,7 +84,7 @@ def test_library_import_refuses_lots_outside_the_rule_from_the_file_and_the_opti
         sidecar.pop("lot")
         (session / name).write_text(json.dumps(sidecar))
     result = run("library", "import", session, "--library", db)
-    assert_one_clear_error(result, "bad lot name", "Q01.json")
+    assert_one_clear_error(result, "bad lot name", "session.json")  # the file the lot is written in
     if db.exists():
         assert sqlite3.connect(db).execute("SELECT count(*) FROM parts").fetchone()[0] == 0
 

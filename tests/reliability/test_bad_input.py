@@ -131,6 +131,16 @@ CASES += [
     ("session import", "parts entry '../../x'", ["library", "import", "{tmp}/s", "--library",
                                                  "{tmp}/out/lib.sqlite"],
      _session(lambda m: m.update(parts=["../../x"]))),
+    ("session import", "parts entry 'a/b' after a good one", ["library", "import", "{tmp}/s", "--library",
+                                                              "{tmp}/out/lib.sqlite"],
+     _session(lambda m: m.update(parts=["Q01", "a/b"]))),
+    ("session import", "parts entry with a NUL", ["library", "import", "{tmp}/s", "--library", "{tmp}/out/lib.sqlite"],
+     _session(lambda m: m.update(parts=["Q\x001"]))),
+    ("session import", "parts entry a number", ["library", "import", "{tmp}/s", "--library", "{tmp}/out/lib.sqlite"],
+     _session(lambda m: m.update(parts=[7]))),
+    ("session resume", "parts entry '../../x'", ["bag", "--sim", "--resume", "{tmp}/s", "--sim-log", "{tmp}/sim.log"],
+     _session(lambda m: m.update(parts=["../../x"]))),
+    ("session fit", "parts entry '../../x'", ["fit", "{tmp}/s"], _session(lambda m: m.update(parts=["../../x"]))),
     ("session resume", "planned_count 'x'", ["bag", "--sim", "--resume", "{tmp}/s", "--sim-log", "{tmp}/sim.log"],
      _session(lambda m: m.update(planned_count="x"))),
 ]
@@ -138,8 +148,8 @@ CASES += [
 
 # Inputs that are fine as they are: an empty lot name takes the default lot ("bag").
 ACCEPTED = {("lot name", "empty")}
-# Still open when this table was made (the input-validation issue works on them): recorded, not asserted.
-OPEN = {("session import", "parts entry '../../x'")}
+# Still open when this table was made: recorded, not asserted (none today).
+OPEN: set[tuple[str, str]] = set()
 
 
 def _snapshot(folder: Path) -> dict[str, int]:
@@ -224,3 +234,29 @@ def _table(tmp_path: Path, sim: SimBench) -> None:
         _, tail = rest.split(END, 1)
         DOCS.write_text(f"{head}{BEGIN}\n{table}\n{END}{tail}", encoding="utf-8")
     assert not problems, "\n".join(f"{a} / {w}: {v} {r}" for a, w, v, r in problems)
+
+
+@pytest.mark.parametrize("entry", ["../../x", "..", "a/b", "", "Q1\nOUTP ON", 7, None])
+@pytest.mark.parametrize("command", ["library import", "bag --resume", "fit"])
+def test_a_bad_parts_entry_gets_one_error_naming_the_file_and_the_entry(tmp_path, entry, command):
+    # was: 'library import' passed over such an entry without a word and created the library file
+    session = tmp_path / "s"
+    session.mkdir()
+    meta = {"format": "benchlab-session/1", "lot": "x", "parts": ["Q01", entry], "planned_count": 2}
+    (session / "session.json").write_text(json.dumps(meta), encoding="utf-8")
+    before = (session / "session.json").read_bytes()
+    argv = {"library import": ["library", "import", str(session), "--library", str(tmp_path / "lib.sqlite")],
+            "bag --resume": ["bag", "--sim", "--resume", str(session), "--sim-log", str(tmp_path / "sim.log")],
+            "fit": ["fit", str(session)]}[command]
+    err = io.StringIO()
+    with redirect_stderr(err), redirect_stdout(io.StringIO()):
+        code = main(argv)
+    lines = [ln for ln in err.getvalue().splitlines() if ln.strip()]
+    assert code != 0 and len(lines) == 1, lines
+    shown = repr(entry) if not isinstance(entry, str) else entry.replace("\n", "\\n")
+    assert f"{session / 'session.json'}: bad part label '{shown}' (entry 2 of 'parts')" in lines[0], lines
+    # no library, no record (the simulator a `bag --sim` starts keeps its log: it shows no output switched on)
+    assert sorted(p.name for p in tmp_path.rglob("*") if p.name != "sim.log") == ["s", "session.json"]
+    assert (session / "session.json").read_bytes() == before
+    log = tmp_path / "sim.log"
+    assert not (log.exists() and BenchLog.read_file(log).output_was_ever_on())
