@@ -171,7 +171,7 @@ def add_sim_options(parser: argparse.ArgumentParser, *names: str, title: str = "
                            help="real seconds slept per second of instrument time: 0 no waiting (default), "
                                 "1 real time"),
         "latency": dict(type=quantity("s", "nonnegative"), metavar="S",
-                        help="extra real delay per message, like a LAN (default 0)"),
+                        help="extra real delay before each reply, like a LAN round trip (default 0)"),
         "resistor": dict(type=quantity("ohm"), metavar="OHMS",
                          help=f"nominal series resistor of the resistor fixture (default {SIM_SERIES_RESISTOR_OHM:g})"),
         "handling": dict(type=quantity("s", "nonnegative"), metavar="S",

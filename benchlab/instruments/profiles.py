@@ -139,6 +139,9 @@ class Profile:
     compliance_bits: Mapping[str, int] = field(default_factory=dict)
     list_commands: Mapping[str, tuple[str, ...]] = field(default_factory=dict)
     list_settings: Mapping[str, Any] = field(default_factory=dict)
+    # the instrument takes a setting and a later query (with the error-queue query chained to it) without a
+    # round trip of its own per setting (docs/profiles.md); off unless the profile says so
+    pipeline_error_check: bool = False
     format_version: int = PROFILE_FORMAT_VERSION
     source_path: str | None = None
 
@@ -169,7 +172,7 @@ class Profile:
             "commands": {key: list(value) for key, value in self.commands.items()},
             "reading_fields": list(self.reading_fields), "compliance_bits": dict(self.compliance_bits),
             "list_commands": {key: list(value) for key, value in self.list_commands.items()},
-            "list_settings": dict(self.list_settings),
+            "list_settings": dict(self.list_settings), "pipeline_error_check": self.pipeline_error_check,
         }
 
 
@@ -279,13 +282,17 @@ def parse_profile(data: Mapping[str, Any], *, name: str, path: str | None = None
         role = LEGACY_ROLES[role]
     if role not in ROLES:
         raise fail("role", f"must be one of {', '.join(ROLES)}, got {role!r}")
-    allowed_top = {"format_version", "role", "description", "connection", "limits", "commands"}
+    allowed_top = {"format_version", "role", "description", "connection", "limits", "commands",
+                   "pipeline_error_check"}
     if role == "smu":
         allowed_top |= {"reading", "list"}
     _reject_unknown(data, allowed_top, "", fail)
     description = data.get("description", "")
     if not isinstance(description, str):
         raise fail("description", "must be a string")
+    pipeline = data.get("pipeline_error_check", False)
+    if not isinstance(pipeline, bool):
+        raise fail("pipeline_error_check", f"must be true or false, got {pipeline!r}")
 
     command_schema = {**_COMMON_COMMANDS, **_ROLE_COMMANDS[role]}
     commands = {key: (value,) for key, value in COMMON_DEFAULTS.items()}
@@ -307,7 +314,8 @@ def parse_profile(data: Mapping[str, Any], *, name: str, path: str | None = None
     return Profile(name=name, role=role, description=description, commands=commands, limits=limits,
                    connection=connection, reading_fields=reading_fields, compliance_bits=compliance_bits,
                    list_commands=list_commands,
-                   list_settings=list_settings, format_version=version, source_path=path)
+                   list_settings=list_settings, pipeline_error_check=pipeline, format_version=version,
+                   source_path=path)
 
 
 def _reject_unknown(table: Mapping[str, Any], allowed: set[str] | Mapping[str, Any], prefix: str, fail) -> None:

@@ -230,3 +230,36 @@ def render(template: str, **values: object) -> str:
 def render_all(templates: Iterable[str], **values: object) -> list[str]:
     """Fill each template of a multi-line operation with the same values."""
     return [render(template, **values) for template in templates]
+
+
+def chain(lines: Iterable[str]) -> str:
+    """Join program message units into one message (IEEE 488.2 compound message): ``;`` between them, and a
+    leading ``:`` on each header that has none (SCPI-1999 vol. 1: after ``;`` a header is otherwise read relative
+    to the previous one's path). Common (``*``) commands need no ``:``.
+
+    ``chain(["SOUR:VOLT 1", "READ?"]) -> "SOUR:VOLT 1;:READ?"``
+    """
+    units = []
+    for k, line in enumerate(lines):
+        line = line.strip()
+        units.append(line if k == 0 or line.startswith((":", "*")) else ":" + line)
+    return ";".join(units)
+
+
+def split_replies(reply: str) -> list[str]:
+    """Split the reply to a compound query into the replies of its queries (IEEE 488.2 joins them with ``;``).
+
+    A ``;`` inside a quoted string (an error text) does not split. ``'1.5,2E-3;0,"No error"'`` ->
+    ``['1.5,2E-3', '0,"No error"']``; an empty reply gives ``['']``.
+    """
+    parts, current, quoted = [], [], False
+    for char in reply.strip():
+        if char == '"':
+            quoted = not quoted  # a doubled quote inside a string toggles twice: still quoted
+        if char == ";" and not quoted:
+            parts.append("".join(current))
+            current = []
+        else:
+            current.append(char)
+    parts.append("".join(current))
+    return parts

@@ -10,14 +10,13 @@ error queue until it is empty, so a refused command raises
 
 from __future__ import annotations
 
-from typing import Any, Callable, Sequence
+from typing import Any, Callable
 
 from benchlab.errors import (BenchlabError, ConnectionLost, InputError, InstrumentError,
                              InstrumentReportedError, InstrumentTimeout)
 from benchlab.instruments.profiles import Profile
-from benchlab.instruments.scpi import parse_bool, parse_error_reply, parse_reading, parse_readings
+from benchlab.instruments.scpi import chain, parse_bool, parse_error_reply, parse_reading, split_replies
 from benchlab.instruments.transport import Transport
-from benchlab.kinds import SourceFunction
 
 # A queue holds 16 entries in the simulator (more on some instruments); stop reading after this
 # many so an instrument that never reports "0" cannot hang us.
@@ -29,8 +28,6 @@ _RESET_WAIT_MS = 10000
 # is sent once more before such an error is raised; a command, data or execution error is raised at once.
 TRANSIENT_ERROR_CODES = frozenset({-240, -300, -310, -410, -420})
 NO_READING_CODE = -230  # data corrupt or stale: FETCh? with no reading taken (SCPI-1999 vol. 2, ch. 21)
-# Time of one power-line cycle at 50 Hz (the slower mains), for list-sweep waits.
-_PLC_SECONDS = 0.02
 
 
 class ScpiInstrument:
@@ -57,6 +54,14 @@ class ScpiInstrument:
         self.identity = identity
         self.resource = getattr(transport, "resource", "")
         self.repeats = 0  # messages sent again after a transient error or an unreadable reply
+        # a setting written without its error-queue read yet (profile pipeline_error_check): (text, reopen count);
+        # its check rides on the next query, or is read before anything else is sent
+        self._pending: tuple[str, int] | None = None
+
+    @property
+    def pipelined(self) -> bool:
+        """True when the profile lets a setting's error check ride on the next query (``pipeline_error_check``)."""
+        return bool(getattr(self.profile, "pipeline_error_check", False))
 
     # -- connection ----------------------------------------------------------------------
     def connect(self, *, reset: bool = False) -> str:
@@ -79,19 +84,30 @@ class ScpiInstrument:
         self.transport.close()
 
     # -- messages ------------------------------------------------------------------------
-    def configure(self, operation: str, *, idempotent: bool = True, **values: Any) -> None:
-        """Send the lines of a setting, checking the error queue after each one."""
-        for line in self.profile.lines(operation, **values):
-            self.send(line, idempotent=idempotent)
+    def configure(self, operation: str, *, idempotent: bool = True, defer: bool = False, **values: Any) -> None:
+        """Send the lines of a setting, checking the error queue after each one (the last one's check may be
+        deferred, see :meth:`send`)."""
+        lines = self.profile.lines(operation, **values)
+        for k, line in enumerate(lines):
+            self.send(line, idempotent=idempotent, defer=defer and k == len(lines) - 1)
 
-    def send(self, command: str, *, idempotent: bool = True) -> None:
+    def send(self, command: str, *, idempotent: bool = True, defer: bool = False) -> None:
         """Write one message, then raise the first error the instrument queued for it.
 
         A connection reset right after a write only shows at the next I/O (here the error-queue
         read), and the instrument may never have seen the message; so when the link was reopened
         meanwhile, an idempotent setting is sent once more on the new link and anything else raises
         :class:`~benchlab.errors.ConnectionLost` rather than be taken as applied.
+
+        With ``defer`` and a profile that pipelines (``pipeline_error_check``) an idempotent setting is only
+        written: its error-queue query is chained to the next query (one round trip for both), or read by
+        :meth:`confirm` before anything else is sent. A setting still unchecked is always checked first.
         """
+        self.confirm()
+        if defer and idempotent and self.pipelined:
+            self.transport.write(command, idempotent=True)
+            self._pending = (command, getattr(self.transport, "reopen_count", 0))
+            return
         try:
             self._send_once(command, idempotent)
         except InstrumentReportedError as exc:
@@ -114,6 +130,33 @@ class ScpiInstrument:
         self.check_errors(command)
         if getattr(self.transport, "reopen_count", 0) != reopens:
             raise ConnectionLost(f"the connection dropped again while sending '{command}'", resource=self.resource)
+
+    def confirm(self) -> None:
+        """Read the error queue for a setting whose check was deferred (nothing when none is pending).
+
+        Raises
+        ------
+        InstrumentReportedError
+            The setting was refused (a transient error, or a link reopened since, sends it once more, checked).
+        """
+        if self._pending is None:
+            return
+        command, reopens = self._pending
+        self._pending = None
+        try:
+            self.check_errors(command)
+        except InstrumentReportedError as exc:
+            if exc.code not in TRANSIENT_ERROR_CODES:
+                raise
+            self._send_again(command)
+            return
+        if getattr(self.transport, "reopen_count", 0) != reopens:
+            self._send_again(command)
+
+    def _send_again(self, command: str) -> None:
+        """A deferred setting whose check failed for a passing reason, or was lost: once more, checked."""
+        self.repeats += 1
+        self.send(command)
 
     def check_errors(self, command: str | None = None) -> None:
         """Read the error queue until empty; raise the first entry found.
@@ -151,24 +194,29 @@ class ScpiInstrument:
             errors.append((code, text))
         return errors
 
-    def ask(self, operation: str, *, idempotent: bool = True, timeout_ms: int | None = None) -> str:
+    def ask(self, operation: str, *, idempotent: bool = True, timeout_ms: int | None = None,
+            lines: list[str] | None = None) -> str:
         """Send a query operation and return the reply.
 
         An instrument that refuses a query queues an error and sends nothing, which looks like a
         timeout; the error queue is read then, so the user sees the instrument's code and text.
+        ``lines`` replaces the profile's lines of ``operation`` (a compound query built from them).
         """
         try:
-            return self._ask_once(operation, idempotent, timeout_ms)
+            return self._ask_once(operation, idempotent, timeout_ms, lines)
         except InstrumentReportedError as exc:
             if not (idempotent and exc.code in TRANSIENT_ERROR_CODES):
                 raise
             self.repeats += 1
-            return self._ask_once(operation, idempotent, timeout_ms)
+            return self._ask_once(operation, idempotent, timeout_ms, lines)
 
-    def _ask_once(self, operation: str, idempotent: bool, timeout_ms: int | None) -> str:
-        lines = self.profile.lines(operation)
+    def _ask_once(self, operation: str, idempotent: bool, timeout_ms: int | None,
+                  lines: list[str] | None = None) -> str:
+        lines = list(lines or self.profile.lines(operation))
         for line in lines[:-1]:
             self.send(line)
+        if self._pending is not None:
+            return self._ask_with_check(operation, lines[-1], idempotent, timeout_ms)
         retries = getattr(self.transport, "retry_count", 0)
         try:
             reply = self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
@@ -185,6 +233,42 @@ class ScpiInstrument:
             code, text = errors[0]
             raise InstrumentReportedError(code, text, command=lines[-1], resource=self.resource) from timeout
 
+    def _ask_with_check(self, operation: str, query: str, idempotent: bool, timeout_ms: int | None) -> str:
+        """The query with the deferred setting's error-queue query chained to it: one round trip for both."""
+        command, reopens = self._pending
+        self._pending = None
+        (error_query,) = self.profile.lines("error_query")
+        retries = getattr(self.transport, "retry_count", 0)
+        try:
+            reply = self.transport.query(chain([query, error_query]), idempotent=idempotent, timeout_ms=timeout_ms)
+        except InstrumentTimeout as timeout:
+            try:
+                errors = self.read_error_queue()
+            except BenchlabError:
+                raise timeout from None
+            if not errors:
+                raise
+            code, text = errors[0]
+            raise InstrumentReportedError(code, text, command=f"{command}; {query}", resource=self.resource) from timeout
+        *answer, check = split_replies(reply)
+        lost = (getattr(self.transport, "retry_count", 0) != retries
+                or getattr(self.transport, "reopen_count", 0) != reopens or not answer)
+        try:
+            code, text = parse_error_reply(check)
+        except ValueError:
+            lost = True
+        if not lost and code != 0:
+            more = self.read_error_queue()
+            if not (code in TRANSIENT_ERROR_CODES and idempotent):
+                if more:
+                    text += f" (and {len(more)} more queued error(s))"
+                raise InstrumentReportedError(code, text, command=command, resource=self.resource)
+            lost = True
+        if lost:  # the check's answer was lost, unreadable or passing, or the link reopened: again, one by one
+            self._send_again(command)
+            return self._ask_once(operation, idempotent, timeout_ms, [query])
+        return ";".join(answer)
+
     def _drop_transient_errors(self, command: str) -> None:
         """Read the queue after a query that had to be asked twice: transient errors (the lost first try's)
         are dropped, any other is raised."""
@@ -192,16 +276,16 @@ class ScpiInstrument:
             if code not in TRANSIENT_ERROR_CODES:
                 raise InstrumentReportedError(code, text, command=command, resource=self.resource)
 
-    def ask_parsed(self, operation: str, parse: Callable[[str], Any]) -> Any:
+    def ask_parsed(self, operation: str, parse: Callable[[str], Any], lines: list[str] | None = None) -> Any:
         """A query whose reply goes through ``parse``; an unreadable reply (a line garbled on the way) is
         asked once more before it is an error."""
-        reply = self.ask(operation)
+        reply = self.ask(operation, lines=lines)
         try:
             return parse(reply)
         except ValueError:
             pass
         self.repeats += 1
-        again = self.ask(operation)
+        again = self.ask(operation, lines=lines)
         try:
             return parse(again)
         except ValueError:
@@ -221,7 +305,13 @@ class _OutputMixin:
     """Output on/off for the roles that have one."""
 
     def set_output(self, on: bool) -> None:
-        """Switch the output on or off (exactly one operation, nothing else)."""
+        """Switch the output on or off (exactly one operation, nothing else).
+
+        Off goes out before the check of a deferred setting: an error that setting queued is then read by
+        off's own check (and raised; the output is off by then).
+        """
+        if not on:
+            self._pending = None  # type: ignore[attr-defined]
         self.configure("output_on" if on else "output_off")  # type: ignore[attr-defined]
 
     def output_is_on(self) -> bool:
@@ -243,8 +333,8 @@ class ScpiSupply(_OutputMixin, ScpiInstrument):
         self.configure("set_current_limit", amps=float(amps))
 
     def set_voltage(self, volts: float) -> None:
-        """Set the voltage setpoint (V)."""
-        self.configure("set_voltage", volts=float(volts))
+        """Set the voltage setpoint (V); on a pipelining profile its check rides on the next query."""
+        self.configure("set_voltage", defer=True, volts=float(volts))
 
     def measure_voltage(self) -> float:
         """Output voltage readback (V)."""
@@ -324,126 +414,4 @@ class ScpiMeter(ScpiInstrument):
         return self.ask_float(f"get_{function or self.function or 'voltage'}_nplc")
 
 
-class ScpiSmu(_OutputMixin, ScpiInstrument):
-    """A source-measure unit driven by a ``smu`` profile (implements ``roles.SourceMeasureUnit``)."""
-
-    role = "smu"
-
-    def __init__(self, transport: Transport, profile: Profile, *, identity: str = ""):
-        super().__init__(transport, profile, identity=identity)
-        self.mode: str | None = None  # "voltage" or "current" once configured
-        self.nplc = 1.0
-
-    def configure_source(self, mode: str, compliance: float) -> None:
-        """Force ``mode`` (``"voltage"``: compliance in A; ``"current"``: compliance in V)."""
-        if mode not in ("voltage", "current"):
-            raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
-        limit_of = "current" if mode == SourceFunction.VOLTAGE else "voltage"
-        unit = "amps" if limit_of == "current" else "volts"
-        # The limit first: whatever happens next, the protection for the new mode is already in place.
-        self.configure(f"set_{limit_of}_compliance", **{unit: float(compliance)})
-        self.configure(f"source_{mode}")
-        self.mode = mode
-
-    def _require_mode(self) -> str:
-        if self.mode is None:
-            raise InstrumentError("configure_source() must be called before setting a level",
-                                  resource=self.resource)
-        return self.mode
-
-    def set_level(self, value: float) -> None:
-        """Set the forced level (V or A, by the configured mode)."""
-        mode = self._require_mode()
-        unit = "volts" if mode == SourceFunction.VOLTAGE else "amps"
-        self.configure(f"set_{mode}_level", **{unit: float(value)})
-
-    def set_nplc(self, nplc: float) -> None:
-        """Set the integration time in power-line cycles."""
-        self.configure("set_nplc", nplc=float(nplc))
-        self.nplc = float(nplc)
-
-    def measure(self) -> tuple[float, float]:
-        """One reading: (volts, amps)."""
-        def parse(reply: str) -> tuple[float, float]:
-            try:
-                return self._parse(reply, expect_points=1)[0]
-            except InstrumentError as exc:
-                raise ValueError(str(exc)) from None
-
-        return self.ask_parsed("read", parse)
-
-    def in_compliance(self) -> bool:
-        """True when the last reading hit the compliance limit.
-
-        With a ``reading.<limit>_compliance_bit`` in the profile the query answers a status register
-        (e.g. SCPI-1999 ``STATus:QUEStionable:CONDition?``) and that bit is tested; else it answers 0/1.
-        """
-        limit_of = "current" if self._require_mode() == "voltage" else "voltage"
-        bit = self.profile.compliance_bits.get(limit_of)
-        if bit is None:
-            return self.ask_bool(f"{limit_of}_compliance_tripped")
-        reply = self.ask(f"{limit_of}_compliance_tripped")
-        try:
-            register = int(float(reply))
-        except ValueError:
-            raise InstrumentError(f"unexpected reply {reply!r} to {limit_of}_compliance_tripped",
-                                  resource=self.resource) from None
-        return bool(register >> bit & 1)
-
-    def compliance(self) -> float:
-        """The compliance the instrument holds for the configured mode (needs the ``get_`` query)."""
-        limit_of = "current" if self._require_mode() == "voltage" else "voltage"
-        return self.ask_float(f"get_{limit_of}_compliance")
-
-    def run_list(self, levels: Sequence[float], dwell_s: float) -> list[tuple[float, float]]:
-        """Upload ``levels``, run them once, read the buffer back in one transfer.
-
-        The output must already be on (the caller switches it); this method never does. The
-        source is put back in fixed mode at the end, where it holds the last level given to
-        :meth:`set_level`.
-
-        Returns
-        -------
-        list of (float, float)
-            (volts, amps) per level, in order.
-        """
-        mode = self._require_mode()
-        settings = self.profile.list_settings
-        if not levels:
-            raise InputError("a list sweep needs at least one level")
-        if len(levels) > settings["max_points"]:
-            raise InputError(f"a list of {len(levels)} points is longer than the instrument takes "
-                             f"({settings['max_points']}, profile '{self.profile.name}')")
-        values = settings["separator"].join(format(float(level), settings["value_format"]) for level in levels)
-        for operation, extra in (("clear_buffer", {}), (f"upload_{mode}", {"values": values}),
-                                 ("dwell", {"seconds": float(dwell_s)}), (f"list_mode_{mode}", {})):
-            if operation not in self.profile.list_commands:  # optional (clear_buffer)
-                continue
-            for line in self.profile.list_lines(operation, **extra):
-                self.send(line)
-        for line in self.profile.list_lines("start"):
-            self.send(line, idempotent=False)
-        # Wait for the list to finish: its own duration, doubled for margin, on top of the usual timeout.
-        expected_s = len(levels) * (float(dwell_s) + self.nplc * _PLC_SECONDS * 2)
-        timeout_ms = int(getattr(self.transport, "timeout_ms", 2000) + 2000 * expected_s)
-        self.ask("wait", timeout_ms=timeout_ms)
-        (*setup, fetch) = self.profile.list_lines("fetch")
-        for line in setup:
-            self.send(line)
-        reply = self.transport.query(fetch, timeout_ms=timeout_ms)
-        for line in self.profile.list_lines(f"fixed_mode_{mode}"):
-            self.send(line)
-        return self._parse(reply, expect_points=len(levels))
-
-    def _parse(self, reply: str, *, expect_points: int) -> list[tuple[float, float]]:
-        fields = self.profile.reading_fields
-        try:
-            values = parse_readings(reply, self.profile.list_settings.get("separator", ","))
-        except ValueError:
-            raise InstrumentError(f"unexpected reading reply {reply[:80]!r}", resource=self.resource) from None
-        if len(values) != expect_points * len(fields):
-            raise InstrumentError(f"expected {expect_points} reading(s) of {len(fields)} values, got "
-                                  f"{len(values)} values", resource=self.resource)
-        at_volts, at_amps = fields.index("volts"), fields.index("amps")
-        width = len(fields)
-        return [(values[k * width + at_volts], values[k * width + at_amps]) for k in range(expect_points)]
+from benchlab.instruments.scpi_smu import ScpiSmu  # noqa: E402  (its own module; imported here for callers)

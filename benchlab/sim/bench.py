@@ -47,7 +47,7 @@ class SimConfig:
     time_scale : float
         Real seconds slept per nominal second of instrument time (1 real time, 0.001 fast, 0 none).
     latency_s : float
-        Real delay per message, standing in for a LAN round trip.
+        Real delay before each reply, standing in for a LAN round trip (settings without a query cost none).
     faults : tuple
         :class:`benchlab.sim.faults.FaultSpec` objects or spec strings such as ``"mute@meter=12"``.
     series_resistor_nominal_ohm : float

@@ -44,7 +44,8 @@ class InstrumentServer:
     faults : RoleFaults
         Transport-level faults of this instrument (slow, mute, hang, drop, garble).
     latency_s : float
-        Real delay added to every message, standing in for a LAN round trip.
+        Real delay before every reply, standing in for a LAN round trip: a query costs one round trip, a
+        message without a query (a setting) costs none, as on a LAN where the host writes and goes on.
     """
 
     def __init__(self, instrument: SimInstrument, faults: RoleFaults, latency_s: float = 0.0):
@@ -224,10 +225,10 @@ class InstrumentServer:
             except OSError:
                 pass
             return False
+        if not replies:
+            return True  # a setting alone: the host wrote it and went on, no round trip to wait for
         if self.latency_s > 0:
             time.sleep(self.latency_s)
-        if not replies:
-            return True
         if self.faults.muted(number) or flaky == "mute":
             self._log("fault", f"mute: reply to message {number} withheld")
             return True

@@ -120,6 +120,8 @@ class _Sweep:
             self.meter.trigger()
             if with_supply:
                 self.v_readback = float(self.source.measure_voltage())
+            else:
+                self.source.confirm()  # a deferred setpoint check, while the meter integrates
             return float(self.meter.fetch())
         vgs = float(self.meter.read())
         if with_supply:
@@ -215,6 +217,7 @@ class _Sweep:
             at_limit = bool(self.source.in_compliance())
         if status == PointStatus.OK and at_limit:
             status = PointStatus.COMPLIANCE
+        self.source.confirm()  # no point is kept before its setpoint is known to be accepted
         return SweepPoint(point=len(self.points), time_s=self.clock() - self.t0, vgs=vgs, id=i_d, v_source=v_src,
                           i_source=i_src, status=status, direction=direction, spread_v=spread)
 

@@ -99,6 +99,13 @@ class _GuardedOutput:
     def output_is_on(self) -> bool:
         return self.inner.output_is_on()
 
+    def confirm(self) -> None:
+        """Read the instrument's error queue for a setpoint whose check it deferred (pipelining profiles); a
+        refused setpoint raises here, before the point that followed it is stored or another setpoint sent."""
+        confirm = getattr(self.inner, "confirm", None)
+        if confirm is not None:
+            confirm()
+
     def safe_off(self) -> list[str]:
         """Output off, then setpoint to 0. Never raises; returns the problems met (empty when clean)."""
         problems = []
@@ -151,6 +158,7 @@ class GuardedSupply(_GuardedOutput):
 
     def _zero_setpoint(self) -> None:
         self.inner.set_voltage(0.0)
+        self.confirm()
         self.setpoint_v = 0.0
 
     def set_current_limit(self, amps: float) -> None:
@@ -214,6 +222,7 @@ class GuardedSmu(_GuardedOutput):
 
     def _zero_setpoint(self) -> None:
         self.inner.set_level(0.0)
+        self.confirm()
         self.level = 0.0
 
     def configure_source(self, mode: str, compliance: float) -> None:

@@ -167,6 +167,10 @@ class FakeScpiServer:
         return True
 
     def _reply_to(self, line: str) -> str | None:
+        if ";" in line and '"' not in line:  # a compound message: each unit in turn, query replies joined by ';'
+            replies = [self._reply_to(unit.strip().lstrip(":")) for unit in line.split(";")]
+            answered = [r for r in replies if r is not None]
+            return ";".join(answered) if answered else None
         upper = line.upper()
         for prefix, error in self.rejects.items():
             if upper.startswith(prefix):

@@ -99,6 +99,17 @@ def test_latency_delays_every_reply(make_bench, rm):
     assert float(patient.query("VOLT?")) == pytest.approx(4.0)
 
 
+def test_latency_is_a_round_trip_per_reply_not_per_setting(make_bench, rm):
+    # on a LAN a setting is written and the host goes on; only a query waits a round trip (common practice):
+    # five settings at 0.6 s each would take 3 s, the one query's reply comes within a 2 s timeout
+    bench = make_bench(latency_s=0.6)
+    inst = open_client(rm, bench.resources["supply"], timeout_ms=2000)
+    for volts in (1, 2, 3, 4, 5):
+        inst.write(f"VOLT {volts}")
+    assert float(inst.query("VOLT?")) == pytest.approx(5.0)
+    inst.close()
+
+
 def test_query_with_an_error_gets_no_reply_and_queues_the_error(supply):
     # IEEE 488.2 message exchange: a query that fails produces no response data (the client times out);
     # the error is queued (SCPI-1999 vol. 2, ch. 21: -114 header suffix out of range)
