@@ -1,4 +1,8 @@
-"""Sweep data for fitting: validation of arrays and reading of CSV files.
+"""Sweep data for fitting: validation of arrays, and the CSV adapter on the one sweep reader.
+
+Files are parsed by :func:`benchlab.sweepfile.read_table` and their fittable points chosen by
+:func:`benchlab.sweepfile.fit_points` (the rule the library import and refit apply too);
+:func:`load_sweep_csv` validates what they give.
 
 A :class:`Sweep` holds the points a fit may use (status ``ok`` only), each tagged with
 its sweep direction and the row it came from, so every complaint can name the file and
@@ -7,17 +11,18 @@ row. Bad input raises :class:`benchlab.errors.InputError` with one clear sentenc
 
 from __future__ import annotations
 
-import csv
-import math
-import re
 from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
 
 from benchlab.errors import InputError
-from benchlab.kinds import PointStatus
-from benchlab.names import printable
+from benchlab.sweepfile import (FLOOR_SIGMAS, MAX_FLOOR_FRACTION, MIN_SPREAD_SAMPLES, FitPoints, detection_floor,
+                                read_table, stated_vgs_noise)
+
+# re-exported: the floor and the stated VGS noise are part of the one fitting rule in benchlab.sweepfile
+__all__ = ["FLOOR_SIGMAS", "MAX_FLOOR_FRACTION", "MIN_SPREAD_SAMPLES", "Sweep", "detection_floor", "load_sweep_csv",
+           "stated_vgs_noise", "step_noise", "sweep_from_points", "validate_points"]
 
 # Above these magnitudes the numbers are almost surely in mA / mV, not A / V: a bench
 # fixture for discrete parts does not pass 20 A or reach 100 V (common practice).
@@ -25,8 +30,6 @@ MAX_PLAUSIBLE_CURRENT_A = 20.0
 MAX_PLAUSIBLE_VOLTAGE_V = 100.0
 
 DIRECTIONS = ("up", "down")
-_UNIT_SUFFIX = re.compile(r"^\s*([a-z_]+?)\s*(?:[\[(]\s*([a-zµ]+)\s*[\])])?\s*$")
-_SI_UNITS = {"vgs": "v", "id": "a"}
 
 
 @dataclass(frozen=True, eq=False)
@@ -236,30 +239,18 @@ def _infer_direction(vgs, i_d, rows, source, ordered=False):
     return direction.astype(str)
 
 
-def _column_index(header: list[str], path: str) -> dict[str, int]:
-    index = {}
-    for position, raw in enumerate(header):
-        match = _UNIT_SUFFIX.match(raw.strip().lower())
-        if not match:
-            continue
-        name, unit = match.group(1), match.group(2)
-        if name in _SI_UNITS and unit and unit != _SI_UNITS[name]:
-            raise InputError(f"column '{printable(raw.strip())}' is in {unit}; benchlab reads SI units only "
-                             f"({name} in {_SI_UNITS[name].upper()})", path=path)
-        index.setdefault(name, position)
-    missing = [name for name in ("vgs", "id") if name not in index]
-    if missing:
-        found = printable(", ".join(h.strip() for h in header), 120) or "nothing"  # a quoted header may hold a newline
-        raise InputError(f"missing column(s) {', '.join(missing)}: need a header row with 'vgs' (V) and "
-                         f"'id' (A); found {found}", path=path)
-    return index
+def sweep_from_points(points: FitPoints) -> Sweep:
+    """Validate a record's fittable points (see :func:`benchlab.sweepfile.fit_points`) as a :class:`Sweep`."""
+    return validate_points(points.vgs, points.id, points.direction, rows=points.rows, source=points.source,
+                           skipped=points.skipped, ordered=points.ordered)
 
 
 def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     """Read a sweep from a CSV file with a header row holding at least ``vgs`` and ``id``.
 
-    Other columns are ignored, except ``status`` (only ``ok`` points are fitted; over-range,
-    compliance and unsettled points never are) and ``direction`` (``up``/``down``).
+    A thin adapter on the one sweep reader (:func:`benchlab.sweepfile.read_table`, which also finds
+    columns in anyone else's CSV) and its one rule for fittable points
+    (:func:`benchlab.sweepfile.fit_points`): status ``ok`` only, in point order, above the noise floor.
 
     Parameters
     ----------
@@ -281,178 +272,7 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
         Missing or unreadable file, empty file, wrong columns, or bad points (see
         :func:`validate_points`), naming the file and row.
     """
-    name = str(path)
-    try:
-        with open(path, newline="", encoding="utf-8-sig") as handle:
-            table = list(csv.reader(handle))
-    except FileNotFoundError:
-        raise InputError("no such file", path=name) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc.__class__.__name__}: {exc})", path=name) from None
-    except csv.Error as exc:  # a field over the csv module's limit (131072 bytes), a NUL byte, ...
-        raise InputError(f"not a readable CSV ({exc})", path=name) from None
-    # blank lines are skipped but still counted, so a row number is the data row a reader sees
-    if all(len(row) > 1 for row in table):  # no blank line: every row is numbered by its place
-        numbered = list(enumerate(table))
-    else:
-        numbered = [(k, row) for k, row in enumerate(table) if row and (len(row) > 1 or row[0].strip())]
-    if not numbered:
-        raise InputError("the file is empty (expected a header row with 'vgs' and 'id')", path=name)
-    header_at, header = numbered[0]
-    body = [(k - header_at, row) for k, row in numbered[1:]]
-    index = _column_index(header, name)
-    if not body:
-        raise InputError("no data rows after the header", path=name)
-    status_col, direction_col = index.get("status"), index.get("direction")
-    # a record with a point index (or the source setpoint) carries its measurement order: rows are
-    # taken in point order, and a heating fold-back in it is data, not disorder
-    point_col = index.get("point")
-    ordered = point_col is not None or "v_source" in index
-    columns = _columns(body, len(header), index)
-    if columns is not None:  # every row whole and numeric: one numpy pass
-        vgs, i_d, rows, direction, skipped = _from_columns(columns, status_col, point_col, direction_col)
-    else:
-        vgs, i_d, rows, direction, skipped = _row_by_row(body, index, status_col, point_col, direction_col, name)
-    # the part's noise floor: readings before it conducts scatter around zero (some negative); they
-    # are dropped with the session's detection current when there is one, else below a floor
-    # estimated from the data (the same points either way, so a CSV fits as its session does)
-    spread = skipped.pop("_spread_v", None)
-    sigma_v = stated_vgs_noise(spread)
-    vgs, i_d, rows = np.asarray(vgs, float), np.asarray(i_d, float), np.asarray(rows, int)
-    floor = detection_floor(i_d)
-    why = "noise_floor"
-    if detect_current is not None and detect_current >= floor:
-        floor, why = detect_current, "not_conducting"
-    if floor > 0:
-        keep = ~(np.isfinite(i_d) & (i_d < floor))
-        if not keep.all():
-            skipped[why] = skipped.get(why, 0) + int((~keep).sum())
-            vgs, i_d, rows = vgs[keep], i_d[keep], rows[keep]
-            direction = [d for d, k in zip(direction, keep) if k] if direction_col is not None else direction
-    if not vgs.size:
-        raise InputError(f"no fittable points (rows left out: {_describe(skipped)})", path=name)
-    # the stated VGS noise is not applied here yet: the library's import reads the same records without
-    # it, and a record must fit the same by both ways in (see stated_vgs_noise)
-    del sigma_v
-    return validate_points(vgs, i_d, direction if direction_col is not None else None, rows=rows,
-                           source=name, skipped=skipped, ordered=ordered)
-
-
-MIN_SPREAD_SAMPLES = 5
-
-
-def stated_vgs_noise(spread_v) -> float | None:
-    """VGS noise (V) from a record's repeated readings: ``spread_v`` is the difference of the last two
-    readings of VGS at a point, whose RMS over the points read twice is sqrt(2) sigma_V (None with
-    fewer than :data:`MIN_SPREAD_SAMPLES` such points)."""
-    if spread_v is None:
-        return None
-    spread = np.asarray(spread_v, float)
-    spread = spread[np.isfinite(spread) & (spread != 0)]
-    if spread.size < MIN_SPREAD_SAMPLES:
-        return None
-    return float(np.sqrt(np.mean(spread * spread) / 2.0))
-
-
-# readings below this many standard deviations of the noise floor are not conduction (our choice:
-# a normal reading passes 5 sigma about once in 3.5 million)
-FLOOR_SIGMAS = 5.0
-# a "noise floor" above this fraction of the largest current is not one (a sign error in a row is)
-MAX_FLOOR_FRACTION = 1e-2
-
-
-def detection_floor(currents) -> float:
-    """The current (A) below which a sweep's readings are its noise floor, estimated from the data.
-
-    Before the part conducts the meter reads noise around zero, so some readings are negative;
-    their RMS estimates the noise (a half-normal's E[x^2] is sigma^2) and the floor is
-    :data:`FLOOR_SIGMAS` times it. 0 when no reading is negative or zero (nothing to drop), or when
-    the "floor" would pass :data:`MAX_FLOOR_FRACTION` of the largest current (then the negative
-    reading is an error in the data, left for :func:`validate_points` to report), or when a
-    non-positive reading has no small neighbour in measurement order (the same).
-    """
-    i = np.asarray(currents, float)
-    i = i[np.isfinite(i)]
-    low = i[i <= 0]
-    if low.size == 0 or low.size == i.size:
-        return 0.0
-    floor = FLOOR_SIGMAS * float(np.sqrt(np.mean(low * low)))
-    top = float(i.max())
-    if floor >= MAX_FLOOR_FRACTION * top:
-        return 0.0
-    # a noise-floor reading sits among other small readings (in measurement order); a negative
-    # reading between conducting points is an error in the data, not noise
-    padded = np.concatenate(([np.inf], np.abs(i), [np.inf]))
-    at = np.flatnonzero(i <= 0) + 1
-    if np.any(np.minimum(padded[at - 1], padded[at + 1]) > 10.0 * max(floor, 1e-300)):
-        return 0.0
-    # exact zeros carry no scale: drop them (and only them) then
-    return floor if floor > 0 else float(np.nextafter(0.0, 1.0))
-
-
-def _columns(body, width, index):
-    # the rows as columns of strings when every row has the header's width and the numbers parse
-    rows = [row for _, row in body]
-    if set(map(len, rows)) != {width}:
-        return None
-    cols = list(zip(*rows))
-    try:
-        numbers = {name: np.array(cols[index[name]], dtype=float) for name in ("vgs", "id")}
-        for name in ("point", "spread_v"):
-            if name in index:
-                numbers[name] = np.array(cols[index[name]], dtype=float)
-    except ValueError:
-        return None  # the row-by-row reader names the bad cell
-    return np.array([k for k, _ in body]), cols, numbers
-
-
-def _from_columns(columns, status_col, point_col, direction_col):
-    row_numbers, cols, numbers = columns
-    count = row_numbers.size
-    order = np.argsort(numbers["point"], kind="stable") if point_col is not None else np.arange(count)
-    status = ([s.strip().lower() for s in cols[status_col]] if status_col is not None else ["ok"] * count)
-    status = np.asarray(status, dtype=object)[order]
-    ok = status == PointStatus.OK
-    skipped = {}
-    for value in status[~ok]:
-        skipped[value] = skipped.get(value, 0) + 1
-    take = order[ok]
-    direction = [cols[direction_col][k] for k in take] if direction_col is not None else []
-    skipped["_spread_v"] = numbers["spread_v"][take] if "spread_v" in numbers else None
-    return numbers["vgs"][take], numbers["id"][take], row_numbers[take], direction, skipped
-
-
-def _row_by_row(body, index, status_col, point_col, direction_col, name):
-    if point_col is not None:
-        def point_of(item):
-            cells = item[1]
-            try:
-                return float(cells[point_col]) if point_col < len(cells) else math.inf
-            except ValueError:
-                return math.inf
-        body = sorted(body, key=point_of)
-    vgs, i_d, direction, rows, skipped = [], [], [], [], {}
-    for row_number, row in body:
-        status = row[status_col].strip().lower() if status_col is not None and status_col < len(row) else "ok"
-        if status != PointStatus.OK:
-            skipped[status] = skipped.get(status, 0) + 1
-            continue
-        values = []
-        for column in ("vgs", "id"):
-            position = index[column]
-            cell = row[position].strip() if position < len(row) else ""
-            try:
-                values.append(float(cell))
-            except ValueError:
-                raise InputError(f"{column} value '{cell}' is not a number", path=name, row=row_number) from None
-        vgs.append(values[0])
-        i_d.append(values[1])
-        rows.append(row_number)
-        if direction_col is not None:
-            direction.append(row[direction_col] if direction_col < len(row) else "")
-    return vgs, i_d, rows, direction, skipped
-
-
-def _describe(skipped: dict) -> str:
-    return ", ".join(f"{count} {reason}" for reason, count in sorted(skipped.items())) or "none"
-
+    table = read_table(path)
+    if not len(table):
+        raise InputError("no data rows after the header", path=str(path))
+    return sweep_from_points(table.fit_points(detect_current))

@@ -75,10 +75,10 @@ def prepare_sweep(session: Session, sweep: SessionSweep, lot: str, refit: bool,
         return PreparedSweep(session, sweep, lot, None, "")
     try:
         if refit:
-            vgs, ids, direction = sweep.fit_points()
-            if len(vgs) < MIN_FIT_POINTS:
-                return PreparedSweep(session, sweep, lot, None, f"only {len(vgs)} usable points, no fit")
-            outcome = fit_outcome(fit_function(vgs, ids, direction=direction, temperature_k=session.temperature_k))
+            points = sweep.fit_points()
+            if len(points) < MIN_FIT_POINTS:
+                return PreparedSweep(session, sweep, lot, None, f"only {len(points)} usable points, no fit")
+            outcome = fit_outcome(fit_function(points, temperature_k=session.temperature_k))
         else:
             stored = sweep.sidecar.get("fits") or []
             if not stored:
@@ -170,9 +170,9 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
     lot : str, optional
         Store the parts in this lot instead of the session's own.
     fit_function : callable
-        Required with ``refit``: ``f(vgs, id, direction=None, temperature_k=None) -> FitResult``
-        (``direction``: ``up``/``down`` per point, or None when the record has none; ``temperature_k``: the
-        session's ambient temperature, or None). The services pass ``benchlab.services.library.fit_function()``;
+        Required with ``refit``: ``f(points, temperature_k=None) -> FitResult``, ``points`` the sweep's
+        :class:`benchlab.sweepfile.FitPoints` (the points ``benchlab fit`` would fit, with their directions, row
+        numbers, order and stated VGS noise); ``temperature_k``: the session's ambient temperature, or None. The services pass ``benchlab.services.library.fit_function()``;
         the library itself never imports the fitter.
     progress : callable, optional
         Called with each part's label as it is written (inside the transaction).

@@ -1,13 +1,13 @@
 """Read session records (docs/session-format.md) into plain data for the library import.
 
-Tolerates what a crash leaves behind: a truncated last CSV line is dropped, a sweep whose sidecar is
-missing is read as incomplete with no classification. Anything else malformed is an ``InputError`` that
-names the file and row.
+The points go through the one sweep reader, :mod:`benchlab.sweepfile` (shared with ``benchlab fit`` and the
+session writer's own reader), so a record imports exactly as it fits. Tolerates what a crash leaves behind: a cut
+last CSV line is skipped, a sweep whose sidecar is missing is read as incomplete with no classification.
+Anything else malformed is an ``InputError`` that names the file and row.
 """
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 from dataclasses import dataclass, field
@@ -15,26 +15,42 @@ from pathlib import Path
 from typing import Any
 
 from benchlab.errors import InputError
-from benchlab.kinds import PointStatus
 from benchlab.names import check_name, check_session_names
-
-REQUIRED_COLUMNS = ("vgs", "id")
+from benchlab.sweepfile import FitPoints, SweepTable, read_table
 
 
 @dataclass(frozen=True)
 class SessionSweep:
-    """One part's sweep as recorded: raw points, sidecar data and the files it came from."""
+    """One part's sweep as recorded: the points (read by :func:`benchlab.sweepfile.read_table`), sidecar data and
+    the files it came from."""
 
     label: str
     lot: str | None
     csv_path: Path
     json_path: Path | None
+    table: SweepTable
     sidecar: dict = field(default_factory=dict)
-    point: tuple[int, ...] = ()
-    vgs: tuple[float, ...] = ()
-    id: tuple[float, ...] = ()
-    status: tuple[str, ...] = ()
-    direction: tuple[str, ...] = ()
+
+    @property
+    def point(self) -> list[int]:
+        """Each recorded point's index (as written; the row's place when the file has no index)."""
+        return self.table.point_numbers().tolist()
+
+    @property
+    def vgs(self) -> list[float]:
+        return self.table.number("vgs").tolist()
+
+    @property
+    def id(self) -> list[float]:  # noqa: A003 (trade name)
+        return self.table.number("id").tolist()
+
+    @property
+    def status(self) -> list[str]:
+        return self.table.text("status", "ok").tolist()
+
+    @property
+    def direction(self) -> list[str]:
+        return self.table.text("direction").tolist()
 
     @property
     def complete(self) -> bool:
@@ -61,25 +77,11 @@ class SessionSweep:
         value = (self.sidecar.get("plan") or {}).get("detect_current_a")
         return float(value) if isinstance(value, (int, float)) and value > 0 else None
 
-    def fit_points(self) -> tuple[list[float], list[float], list[str] | None]:
-        """VGS, ID and direction of the points a fit may use (the same rules as ``benchlab fit``).
-
-        Status ``ok`` and finite only; points below the plan's detection current (or, without a plan,
-        at zero or negative current) are the search before the part conducted, not data. The direction
-        is None when the CSV has no direction column (the fitter then infers it).
-        """
-        floor = self.detect_current
-        vgs, ids, dirs = [], [], []
-        directions = self.direction or ("",) * len(self.vgs)
-        for v, i, s, d in zip(self.vgs, self.id, self.status, directions):
-            if s != PointStatus.OK or v is None or i is None or not (math.isfinite(v) and math.isfinite(i)):
-                continue
-            if (floor is not None and i < floor) or i <= 0:
-                continue
-            vgs.append(v)
-            ids.append(i)
-            dirs.append(d)
-        return vgs, ids, (dirs if any(dirs) else None)
+    def fit_points(self) -> FitPoints:
+        """The points a fit may use: the one rule of :func:`benchlab.sweepfile.fit_points`, as ``benchlab fit``
+        applies it (status ``ok``, in point order, at or above the plan's detection current or the noise floor
+        the data show; the stated VGS noise carried along)."""
+        return self.table.fit_points(self.detect_current)
 
 
 @dataclass(frozen=True)
@@ -117,68 +119,6 @@ def _read_json(path: Path) -> dict[str, Any]:
     if not isinstance(data, dict):
         raise InputError("expected a JSON object", path=str(path))
     return data
-
-
-def _number(text: str) -> float:
-    # over-range readings are recorded as inf/nan; float() parses both spellings
-    return float(text) if text.strip() else math.nan
-
-
-def read_points(csv_path: Path) -> tuple[tuple[int, ...], tuple[float, ...], tuple[float, ...], tuple[str, ...],
-                                         tuple[str, ...]]:
-    """The ``point, vgs, id, status, direction`` columns of a sweep CSV (other columns ignored).
-
-    A last line cut short by a crash is dropped; any other bad row raises ``InputError`` naming the row.
-    """
-    try:
-        with csv_path.open(newline="", encoding="utf-8") as handle:
-            rows = list(csv.reader(handle))
-    except OSError as exc:
-        raise InputError(f"cannot read: {exc.strerror or exc}", path=str(csv_path)) from exc
-    except UnicodeDecodeError:
-        raise InputError("not a UTF-8 text file (a sweep CSV is UTF-8 text: binary, UTF-16 or Latin-1 files are "
-                         "refused)", path=str(csv_path)) from None
-    except csv.Error as exc:  # a field over the csv module's limit (131072 bytes), a NUL byte, ...
-        raise InputError(f"not a readable CSV ({exc})", path=str(csv_path)) from None
-    if not rows:
-        raise InputError("empty file (no header row)", path=str(csv_path))
-    header = [h.strip() for h in rows[0]]
-    missing = [c for c in REQUIRED_COLUMNS if c not in header]
-    if missing:
-        raise InputError(f"missing column(s) {', '.join(missing)} in the header", path=str(csv_path))
-    col = {name: header.index(name) for name in header}
-    points, vgs, ids, status, direction = [], [], [], [], []
-    seen: set[int] = set()
-    body = rows[1:]
-    for n, row in enumerate(body, start=1):
-        if not row:
-            continue
-        try:
-            if len(row) < len(header):
-                raise ValueError("too few fields")
-            v = _number(row[col["vgs"]])
-            i = _number(row[col["id"]])
-            p = int(row[col["point"]]) if "point" in col else n - 1
-        except ValueError as exc:
-            if n == len(body):  # the point in flight when the recorder stopped
-                break
-            raise InputError(f"unreadable row ({exc})", path=str(csv_path), row=n) from exc
-        row_status = row[col["status"]].strip() if "status" in col else "ok"
-        if row_status == "ok":  # the rule `benchlab fit` applies: an ok point is two finite numbers
-            for name, value in (("vgs", v), ("id", i)):
-                if not math.isfinite(value):
-                    cell = row[col[name]].strip()
-                    raise InputError(f"{name} value '{cell}' is not a finite number in a point with status ok "
-                                     "(benchlab fit refuses it too)", path=str(csv_path), row=n)
-        if p in seen:
-            raise InputError(f"point number {p} appears twice", path=str(csv_path), row=n)
-        seen.add(p)
-        points.append(p)
-        vgs.append(v)
-        ids.append(i)
-        status.append(row_status)
-        direction.append(row[col["direction"]].strip().lower() if "direction" in col else "")
-    return tuple(points), tuple(vgs), tuple(ids), tuple(status), tuple(direction)
 
 
 def read_session(path: str | Path) -> Session:
@@ -219,7 +159,7 @@ def read_session(path: str | Path) -> Session:
         json_path, sidecar = sidecars.get(stem, (None, {}))
         if not csv_path.exists():
             raise InputError(f"sweep '{stem}' has a sidecar but no CSV", path=str(json_path))
-        point, vgs, ids, status, direction = read_points(csv_path)
+        table = read_table(csv_path)
         where = str(json_path or csv_path)
         # labels and lots read from files obey the command line's rule (they become names in the library,
         # SPICE, CSV and HTML); a crafted one is refused and nothing is imported
@@ -227,9 +167,8 @@ def read_session(path: str | Path) -> Session:
         lot = sidecar.get("lot") or meta.get("lot")
         if lot is not None:
             check_name("lot name", lot, path=where)
-        sweeps.append(SessionSweep(label=label, lot=lot, csv_path=csv_path,
-                                   json_path=json_path, sidecar=sidecar, point=point, vgs=vgs, id=ids,
-                                   status=status, direction=direction))
+        sweeps.append(SessionSweep(label=label, lot=lot, csv_path=csv_path, json_path=json_path, table=table,
+                                   sidecar=sidecar))
     return Session(path=folder, meta=meta, sweeps=tuple(sweeps))
 
 

@@ -21,11 +21,10 @@ from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
 from benchlab.kinds import PartClass
 from benchlab.names import check_name, check_session_names, inside
+from benchlab.sweepfile import SESSION_FORMAT, SWEEP_FORMAT
 
 # the temperatures fit_batch accepts (150-600 K), in degC
 T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
-SESSION_FORMAT = "benchlab-session/1"
-SWEEP_FORMAT = "benchlab-sweep/1"
 # the JSON Lines keys every output line carries first (the full result follows)
 SUMMARY_KEYS = ("file", "label", "model", "vth", "kp", "theta", "vth_cc", "gm", "rms_residual", "stderr", "flags")
 

@@ -73,17 +73,18 @@ def hand_params(vth: float | None, gm: float | None = None, kp: float | None = N
 
 
 def fit_function(model: str = "auto") -> Callable:
-    """The fitter as the library's import calls it: ``f(vgs, id, direction=None, temperature_k=None)``."""
+    """The fitter as the library's import calls it: ``f(points, temperature_k=None)``, ``points`` a record's
+    :class:`benchlab.sweepfile.FitPoints`, validated and fitted exactly as ``benchlab fit`` does."""
     try:
-        from benchlab.extract import fit_sweep
+        from benchlab.extract import fit_batch
+        from benchlab.extract.sweepdata import sweep_from_points
     except ImportError as exc:
         raise LibraryError(f"the fitter is not available ({exc}); use --no-refit") from exc
 
-    def fit(vgs: Sequence[float], i_d: Sequence[float], direction: Sequence[str] | None = None,
-            temperature_k: float | None = None):
+    def fit(points, temperature_k: float | None = None):
         # the session's ambient temperature, as `benchlab fit` uses it; else the fitter's nominal one
         extra = {} if temperature_k is None else {"temperature_k": temperature_k}
-        return fit_sweep(vgs, i_d, model=model, direction=direction, **extra)
+        return fit_batch([sweep_from_points(points)], model, **extra)[0]
 
     return fit
 
@@ -311,23 +312,28 @@ class RefitSummary:
 
 
 def _fittable_sweep(part: PartRecord, sweeps: list[dict[str, Any]], sweep_ids: list[int]):
-    # the part's newest good sweep with points the fitter may use: status ok, finite, at or above the
-    # plan's detection current (else above the noise floor the data show), in point order
-    from benchlab.extract import validate_points
-    from benchlab.extract.sweepdata import detection_floor
+    # the part's newest good sweep with points the fitter may use, chosen by the one rule every reader applies
+    # (benchlab.sweepfile.fit_points: status ok, in point order, at or above the plan's detection current or the
+    # noise floor the data show)
+    import numpy as np
+
+    from benchlab.extract.sweepdata import sweep_from_points
+    from benchlab.sweepfile import fit_points
 
     # (a sweep read with its points carries the currents under "id": the ids come from a listing without)
     for sweep, sweep_id in reversed(list(zip(sweeps, sweep_ids))):
         if sweep.get("classification") not in (None, "good"):
             continue
-        rows = [(p, v, i) for p, v, i, s in zip(sweep["point"], sweep["vgs"], sweep["id"], sweep["status"])
-                if s == "ok" and v is not None and i is not None and math.isfinite(v) and math.isfinite(i)]
-        floor = max(detection_floor([i for _, _, i in rows]), sweep.get("detect_current_a") or 0.0)
-        rows = [r for r in rows if r[2] >= floor and r[2] > 0]
-        if len(rows) < 5:
-            continue
-        points, vgs, ids = zip(*rows)
-        return sweep_id, validate_points(vgs, ids, rows=points, source=f"{part.lot}/{part.label}", ordered=True)
+        vgs = np.array([math.nan if v is None else v for v in sweep["vgs"]], dtype=float)
+        ids = np.array([math.nan if i is None else i for i in sweep["id"]], dtype=float)
+        try:
+            points = fit_points(vgs, ids, status=sweep["status"], point=sweep["point"], rows=sweep["point"],
+                                detect_current=sweep.get("detect_current_a"), ordered=True,
+                                source=f"{part.lot}/{part.label}")
+            if len(points) >= 5:
+                return sweep_id, sweep_from_points(points)
+        except InputError:
+            continue  # nothing this fitter may use in this sweep (as `benchlab fit` would refuse it)
     return None, None
 
 

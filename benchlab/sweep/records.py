@@ -12,9 +12,9 @@ from typing import Any
 
 import numpy as np
 from benchlab.kinds import PointStatus
+from benchlab.sweepfile import CSV_COLUMNS  # noqa: F401 (the format is defined once, beside its reader)
 
 STATUSES = tuple(PointStatus)
-CSV_COLUMNS = ("point", "time_s", "vgs", "id", "v_source", "i_source", "status", "direction", "spread_v")
 
 
 @dataclass(frozen=True)

@@ -1,5 +1,8 @@
 """Session records on disk (see docs/session-format.md): writers that never lose a measured point, and readers.
 
+The CSV format and its one reader live in :mod:`benchlab.sweepfile` (below ``sweep/``, ``extract/`` and
+``library/``, which all read records); this module writes the format with that module's columns.
+
 Each point is appended to the part's CSV, flushed and fsync'd before the engine takes the next one,
 so a crash, ``kill -9`` or a pulled cable loses at most the point in flight. JSON files are replaced
 atomically (write a temporary file, fsync, rename), so they are always whole. A sweep's sidecar is
@@ -8,8 +11,6 @@ written with ``complete: false`` when the sweep starts and only marked complete 
 
 from __future__ import annotations
 
-import csv
-import io
 import json
 import math
 import os
@@ -22,11 +23,8 @@ import numpy as np
 
 from benchlab import names
 from benchlab.errors import InputError
-from benchlab.sweep.records import CSV_COLUMNS, STATUSES, SweepOutcome, SweepPoint
-from benchlab.kinds import PointStatus
-
-SESSION_FORMAT = "benchlab-session/1"
-SWEEP_FORMAT = "benchlab-sweep/1"
+from benchlab.sweep.records import STATUSES, SweepOutcome, SweepPoint
+from benchlab.sweepfile import CSV_COLUMNS, SESSION_FORMAT, SWEEP_FORMAT, FitPoints, SweepTable, read_table
 
 
 def now_iso() -> str:
@@ -241,23 +239,32 @@ class SweepData:
     i_source: np.ndarray
     status: tuple[str, ...]
     direction: tuple[str, ...]
+    spread_v: np.ndarray | None = None
     meta: dict[str, Any] = field(default_factory=dict)
     truncated: bool = False  # the CSV's last line was cut short (crash mid-write) and was skipped
+    table: SweepTable | None = field(default=None, repr=False, compare=False)
 
     @property
     def complete(self) -> bool:
         return bool(self.meta.get("complete", False))
 
-    def usable_mask(self) -> np.ndarray:
-        """Points fit for fitting: finite and not over range."""
-        ok = np.array([s != PointStatus.OVER_RANGE for s in self.status], dtype=bool)
-        return ok & np.isfinite(self.vgs) & np.isfinite(self.id)
+    @property
+    def detect_current(self) -> float | None:
+        """The plan's detection current (A): below it the part was not conducting yet (None without a plan)."""
+        value = (self.meta.get("plan") or {}).get("detect_current_a")
+        return float(value) if isinstance(value, (int, float)) and value > 0 else None
+
+    def fit_points(self) -> FitPoints:
+        """The points a fit may use: the one rule of :func:`benchlab.sweepfile.fit_points` (status ok, in point
+        order, at or above the plan's detection current or the noise floor the data show)."""
+        return self.table.fit_points(self.detect_current)
 
     def to_dict(self) -> dict[str, Any]:
         return {"label": self.label, "point": self.point.tolist(), "time_s": self.time_s.tolist(),
                 "vgs": self.vgs.tolist(), "id": self.id.tolist(), "v_source": self.v_source.tolist(),
                 "i_source": self.i_source.tolist(), "status": list(self.status), "direction": list(self.direction),
-                "meta": self.meta, "truncated": self.truncated}
+                "spread_v": None if self.spread_v is None else self.spread_v.tolist(), "meta": self.meta,
+                "truncated": self.truncated}
 
 
 @dataclass(frozen=True)
@@ -299,46 +306,11 @@ def _load_json(path: Path) -> dict[str, Any]:
         raise InputError(f"not valid JSON ({exc})", path=str(path)) from None
 
 
-def _parse_csv(path: Path) -> tuple[dict[str, list], bool]:
-    text = path.read_text(encoding="utf-8")
-    lines = text.split("\n")
-    truncated = False
-    if lines and lines[-1] == "":
-        lines.pop()
-    elif lines:
-        truncated = True  # no newline after the last row: the writer died mid-line
-        lines.pop()
-    if not lines:
-        raise InputError("empty sweep file (no header)", path=str(path))
-    rows = list(csv.reader(io.StringIO("\n".join(lines))))
-    header = [h.strip() for h in rows[0]]
-    missing = [c for c in ("point", "vgs", "id") if c not in header]
-    if missing:
-        raise InputError(f"missing column(s) {', '.join(missing)}", path=str(path))
-    cols: dict[str, list] = {name: [] for name in header}
-    for n, row in enumerate(rows[1:], start=1):
-        if len(row) != len(header):
-            if n == len(rows) - 1:  # a cut last line
-                truncated = True
-                break
-            raise InputError(f"expected {len(header)} fields, found {len(row)}", path=str(path), row=n)
-        for name, value in zip(header, row):
-            cols[name].append(value)
-    return cols, truncated
-
-
-def _floats(values: list, path: Path, name: str) -> np.ndarray:
-    try:
-        return np.array([float(v) for v in values], dtype=float)
-    except ValueError as exc:
-        raise InputError(f"column '{name}': {exc}", path=str(path)) from None
-
-
 def read_sweep(path: str | os.PathLike) -> SweepData:
     """Read one part's sweep from its ``.csv`` or ``.json`` (the other one is found beside it).
 
-    A cut last line (a crash mid-write) is skipped and flagged with ``truncated=True``; unknown extra
-    columns are ignored.
+    The CSV goes through the one sweep reader (:func:`benchlab.sweepfile.read_table`): a cut last line
+    (a crash mid-write) is skipped and flagged with ``truncated=True``; unknown extra columns are ignored.
     """
     path = Path(path)
     csv_path = path.with_suffix(".csv")
@@ -346,17 +318,12 @@ def read_sweep(path: str | os.PathLike) -> SweepData:
     if not csv_path.exists():
         raise InputError("sweep file not found", path=str(csv_path))
     meta = _load_json(json_path) if json_path.exists() else {}
-    cols, truncated = _parse_csv(csv_path)
-    n = len(cols["point"])
-
-    def col(name: str, default: float = math.nan) -> np.ndarray:
-        return _floats(cols[name], csv_path, name) if name in cols else np.full(n, default)
-
-    status = tuple(cols.get("status", ["ok"] * n))
-    direction = tuple(cols.get("direction", ["up"] * n))
-    return SweepData(label=meta.get("label", csv_path.stem), point=col("point").astype(int), time_s=col("time_s"),
-                     vgs=col("vgs"), id=col("id"), v_source=col("v_source"), i_source=col("i_source"),
-                     status=status, direction=direction, meta=meta, truncated=truncated)
+    table = read_table(csv_path)
+    return SweepData(label=meta.get("label", csv_path.stem), point=table.point_numbers().astype(int),
+                     time_s=table.number("time_s"), vgs=table.number("vgs"), id=table.number("id"),
+                     v_source=table.number("v_source"), i_source=table.number("i_source"),
+                     status=tuple(table.text("status", "ok")), direction=tuple(table.text("direction", "up")),
+                     spread_v=table.number("spread_v"), meta=meta, truncated=table.truncated, table=table)
 
 
 def read_session(directory: str | os.PathLike) -> SessionData:

@@ -77,6 +77,11 @@ def demo_bag(count: int, *, seed: int = 7, duds: Sequence[int] = ()) -> list[dic
     return parts
 
 
+def fit_points_square(points, temperature_k=None):
+    """:func:`curve_fit_square` as the library's import calls a fit function (``f(points, temperature_k)``)."""
+    return curve_fit_square(points.vgs, points.id, points.direction, temperature_k)
+
+
 def curve_fit_square(vgs, i_d, direction=None, temperature_k=None):
     """An independent fitter for tests: scipy's curve_fit on sqrt(ID) = sqrt(KP/2) (VGS - Vth), up-sweep only.
 

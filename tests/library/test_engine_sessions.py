@@ -8,7 +8,7 @@ import pytest
 from benchlab.library import import_session, import_sessions
 from benchlab.services.library import fit_function
 from benchlab.models import DeviceParams
-from session_builder import curve_fit_square
+from session_builder import curve_fit_square, fit_points_square
 
 from benchlab.sweep import records, session as session_mod
 
@@ -41,9 +41,10 @@ def test_engine_written_session_imports_with_up_sweep_fitted(lib, tmp_path):
     writer.finish()
     seen = []
 
-    def fit(vgs, i_d, direction=None, temperature_k=None):
-        seen.append((len(vgs), direction.count("up"), direction.count("down")))
-        return curve_fit_square(vgs, i_d, direction)
+    def fit(points, temperature_k=None):
+        direction = list(points.direction)
+        seen.append((len(points), direction.count("up"), direction.count("down")))
+        return fit_points_square(points)
 
     summary = import_session(lib, writer.path, fit_function=fit)
     assert sorted((s.label, s.action) for s in summary.sweeps) == [

@@ -8,7 +8,7 @@ import pytest
 from benchlab.errors import InputError, LibraryError
 from benchlab.library import import_session, import_sessions
 from benchlab.models import DeviceParams
-from session_builder import curve_fit_square, demo_bag, write_session
+from session_builder import curve_fit_square, demo_bag, fit_points_square, write_session
 
 
 def test_import_refits_each_good_sweep_and_rejects_duds(lib, tmp_path):
@@ -19,7 +19,7 @@ def test_import_refits_each_good_sweep_and_rejects_duds(lib, tmp_path):
         {"label": "Q03", "params": truth["Q01"], "classification": "shorted",
          "reason": "current at the compliance limit from the first point"},
     ])
-    summary = import_session(lib, session, fit_function=curve_fit_square)
+    summary = import_session(lib, session, fit_function=fit_points_square)
     assert (summary.fitted, summary.rejected, summary.skipped) == (2, 1, 0)
     for label, params in truth.items():
         part = lib.get_part(f"bag-A/{label}")
@@ -36,7 +36,7 @@ def test_import_refits_each_good_sweep_and_rejects_duds(lib, tmp_path):
     assert dud.state == "rejected" and dud.params is None
     assert dud.reason == "shorted: current at the compliance limit from the first point"
 
-    again = import_session(lib, session, fit_function=curve_fit_square)
+    again = import_session(lib, session, fit_function=fit_points_square)
     assert again.skipped == 3 and lib.info()["sweeps"] == 3  # re-importing the same session adds nothing
 
 
@@ -56,10 +56,10 @@ def test_points_not_ok_are_not_fitted_and_stored_as_null(lib, tmp_path):
     status = ["ok"] * 12 + ["over_range"]
     seen = {}
 
-    def fit(v, i, direction=None, temperature_k=None):
-        seen["n"] = len(v)
+    def fit(points, temperature_k=None):
+        seen["n"] = len(points)
         seen["temperature_k"] = temperature_k
-        return curve_fit_square(v, i, direction)
+        return fit_points_square(points)
 
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "vgs": vgs, "id": ids, "status": status}])
     import_session(lib, session, fit_function=fit)
@@ -77,7 +77,7 @@ def test_truncated_last_line_is_dropped_and_an_incomplete_sweep_is_never_a_part(
     csv_path = session / "Q1.csv"
     with csv_path.open("a") as handle:
         handle.write("40,2.000,3.1")  # the point in flight when the recorder was killed
-    summary = import_session(lib, session, fit_function=curve_fit_square)
+    summary = import_session(lib, session, fit_function=fit_points_square)
     q1 = [s for s in summary.sweeps if s.label == "Q1"][0]
     assert (q1.action, q1.classification) == ("skipped", "interrupted") and "--resume" in q1.detail
     assert [p.label for p in lib.parts(state=None)] == ["Q2"]  # not imported, not rejected
@@ -91,24 +91,24 @@ def test_bad_session_input_gets_one_error_and_writes_nothing(lib, tmp_path):
     lines[5] = "5,0.25,abc,0.001,1,0.001,ok"
     (bad / "Q2.csv").write_text("\n".join(lines) + "\n")
     with pytest.raises(InputError, match=r"Q2.csv, row 5"):
-        import_sessions(lib, [good, bad], fit_function=curve_fit_square)
+        import_sessions(lib, [good, bad], fit_function=fit_points_square)
     assert lib.info()["parts"] == 0
     lines[5] = "4,0.25,3.1,0.001,1,0.001,ok"
     lines[6] = "4,0.30,3.2,0.002,1,0.002,ok"  # the point number of the row before, again
     (bad / "Q2.csv").write_text("\n".join(lines) + "\n")
     with pytest.raises(InputError, match=r"Q2.csv, row 6: point number 4 appears twice"):
-        import_sessions(lib, [good, bad], fit_function=curve_fit_square)
+        import_sessions(lib, [good, bad], fit_function=fit_points_square)
     assert lib.info()["parts"] == 0
     with pytest.raises(InputError, match="no session.json"):
-        import_session(lib, tmp_path, fit_function=curve_fit_square)
+        import_session(lib, tmp_path, fit_function=fit_points_square)
     with pytest.raises(LibraryError, match="no session folders"):
-        import_sessions(lib, [], fit_function=curve_fit_square)
+        import_sessions(lib, [], fit_function=fit_points_square)
 
 
 def test_a_fit_that_fails_keeps_the_sweep_without_a_fit(lib, tmp_path):
     session = write_session(tmp_path, "s", "bag", [{"label": "Q1", "params": DeviceParams("square", vth=3, kp=1)}])
 
-    def failing(v, i, direction=None, temperature_k=None):
+    def failing(points, temperature_k=None):
         raise ValueError("curve too flat")
 
     summary = import_session(lib, session, fit_function=failing)

@@ -93,7 +93,7 @@ def test_special_values_survive_the_round_trip(tmp_path):
     rec.append(SweepPoint(1, 0.1, 2.5, 1e-3, 2.6, 1e-3, "ok"))
     data = read_sweep(session.path / "Q01.csv")
     assert math.isinf(data.vgs[0]) and math.isnan(data.id[0])
-    assert list(data.usable_mask()) == [False, True]
+    assert data.fit_points().vgs.tolist() == [2.5]  # the over-range point is never fitted
     assert data.status == ("over_range", "ok") and data.complete is False
 
 
@@ -131,8 +131,8 @@ def test_the_committed_example_session_reads_back():
     assert [s.meta["classification"] for s in data.sweeps.values()] == ["good", "good", "leaky"]
     for sweep in data.sweeps.values():
         assert sweep.complete and not sweep.truncated and len(sweep.vgs) == sweep.meta["points"]
-        up = sweep.usable_mask()
-        assert (sweep.id[up][sweep.id[up] > 1e-4] > 0).all()
+        points = sweep.fit_points()
+        assert (points.id > 0).all() and len(points) >= 10
 
 
 def test_old_role_keys_in_a_sidecar_are_renamed_on_read(tmp_path):

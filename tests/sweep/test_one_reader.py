@@ -1,0 +1,107 @@
+"""One sweep reader (benchlab.sweepfile): the fit command, the library import, the library refit and the session
+reader choose the same points from the same record, whatever a crash left at its end."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from benchlab.errors import InputError
+from benchlab.extract import load_sweep_csv
+from benchlab.library.sessions import read_session as library_read_session
+from benchlab.models import DeviceParams
+from benchlab.sweep.session import read_sweep
+from benchlab.sweepfile import CSV_COLUMNS, read_table
+
+PARAMS = DeviceParams("square", vth=2.1, kp=0.8)  # an invented part (test data)
+
+
+def _record(folder, *, cut: bool = True, detect: float = 2e-6):
+    """A session record as the recorder writes it: 8 noise-floor readings (some negative), an over-range
+    reading, 40 conducting points with a stated VGS spread, and (``cut``) a last line cut mid-write."""
+    rng = np.random.default_rng(3)
+    folder.mkdir()
+    rows = []
+    floor = rng.normal(0.0, 2e-8, 8)
+    for k, i in enumerate(floor):
+        rows.append((k, 1.0 + 0.1 * k, float(i), "ok", "up", 0.0))
+    rows.append((8, float("inf"), float("nan"), "over_range", "up", 0.0))
+    currents = np.geomspace(1e-5, 0.2, 40)
+    vgs = PARAMS.vgs_at(currents)
+    for k, (v, i) in enumerate(zip(vgs, currents), start=9):
+        rows.append((k, float(v) + rng.normal(0, 2e-4), float(i), "ok", "up", float(rng.normal(0, 3e-4))))
+    lines = [",".join(CSV_COLUMNS)]
+    for p, v, i, s, d, sv in rows:
+        lines.append(f"{p},{0.01 * p:.6f},{v!r},{i!r},{v + 1.0!r},{i!r},{s},{d},{sv!r}")
+    text = "\n".join(lines) + "\n"
+    if cut:
+        text += "49,0.490000,2.9"  # the point in flight when the process died
+    (folder / "Q01.csv").write_text(text)
+    sidecar = {"format": "benchlab-sweep/1", "label": "Q01", "lot": "bag", "complete": False, "ended": None,
+               "classification": None, "plan": {"detect_current_a": detect}, "fits": []}
+    (folder / "Q01.json").write_text(json.dumps(sidecar))
+    (folder / "session.json").write_text(json.dumps({"format": "benchlab-session/1", "id": folder.name, "lot": "bag",
+                                                     "parts": ["Q01"], "ambient_c": 27.0}))
+    return folder / "Q01.csv"
+
+
+def test_every_way_in_chooses_the_same_points(tmp_path):
+    path = _record(tmp_path / "s")
+    table = read_table(path)
+    assert table.truncated and len(table) == 49  # the cut line skipped, every whole line kept
+    by_fit = load_sweep_csv(path, detect_current=2e-6)
+    by_session = read_sweep(path).fit_points()
+    (library_sweep,) = library_read_session(tmp_path / "s").sweeps
+    by_library = library_sweep.fit_points()
+    for points in (by_session, by_library):
+        assert np.array_equal(points.vgs, by_fit.vgs) and np.array_equal(points.id, by_fit.id)
+        assert points.skipped == by_fit.skipped == {"not_conducting": 8, "over_range": 1}
+        assert points.sigma_v == by_session.sigma_v
+    assert by_fit.vgs.size == 40
+    # the stated VGS noise: RMS(spread_v) / sqrt 2 of the points read twice (docs/session-format.md)
+    assert by_session.sigma_v == pytest.approx(3e-4 / np.sqrt(2), rel=0.3)
+
+
+def test_a_copied_out_csv_drops_its_noise_floor_like_the_session(tmp_path):
+    path = _record(tmp_path / "s", cut=False)
+    plain = tmp_path / "copy.csv"
+    plain.write_text(path.read_text())  # no sidecar: the floor comes from the negative readings
+    copied, session = load_sweep_csv(plain), load_sweep_csv(path, detect_current=2e-6)
+    assert np.array_equal(copied.vgs, session.vgs) and copied.skipped["noise_floor"] == 8
+
+
+def test_only_a_record_loses_a_last_line_without_newline(tmp_path):
+    path = tmp_path / "plain.csv"
+    currents = np.geomspace(1e-4, 0.1, 12)
+    path.write_text("vgs,id\n" + "\n".join(f"{v!r},{i!r}" for v, i in zip(PARAMS.vgs_at(currents).tolist(),
+                                                                          currents.tolist())))
+    assert len(read_table(path)) == 12 and not read_table(path).truncated  # anyone's CSV: an ordinary row
+
+
+def test_a_cut_record_fits_through_the_command(tmp_path):
+    # a crash mid-line used to end `benchlab fit` with "direction '' is not 'up' or 'down'"
+    _record(tmp_path / "s")
+    sidecar = tmp_path / "s" / "Q01.json"
+    data = json.loads(sidecar.read_text())
+    data.update(complete=True, classification="good")
+    sidecar.write_text(json.dumps(data))
+    done = subprocess.run([sys.executable, "-m", "benchlab", "fit", str(tmp_path / "s"), "--model", "square",
+                           "--json"], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    fit = json.loads(done.stdout)
+    # the square law the points were computed from (an invented part), within the 0.2 mV reading noise
+    assert fit["vth"] == pytest.approx(PARAMS.vth, abs=2e-3) and fit["kp"] == pytest.approx(PARAMS.kp, rel=0.02)
+
+
+def test_a_bad_row_is_one_error_naming_it(tmp_path):
+    path = _record(tmp_path / "s", cut=False)
+    lines = path.read_text().splitlines()
+    lines[12] = lines[12].replace(",ok,", ",ok,,")  # a row with a field too many is fine; a short one is not
+    lines[20] = "19,0.19,abc"
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match=r"Q01.csv, row 20: expected 9 fields, found 3"):
+        read_table(path)
