@@ -7,10 +7,10 @@ our own engineering choices (stated so a user can judge them), not published val
 
 from __future__ import annotations
 
-import warnings
 
 import numpy as np
 
+from benchlab.extract.engine import row_median
 from benchlab.extract.result import (FLAG_AT_BOUND, FLAG_FEW_POINTS, FLAG_HYSTERESIS, FLAG_NARROW_RANGE,
                                      FLAG_NON_MONOTONIC, FLAG_POOR_FIT, FLAG_POWER_DRIFT)
 from benchlab.extract.thresholds import constant_current_threshold
@@ -88,9 +88,7 @@ def current_noise_floor(i_d, valid) -> np.ndarray:
     enough = negative.sum(axis=1) >= MIN_NOISE_SAMPLES
     if not enough.any():
         return np.zeros(rows)
-    with warnings.catch_warnings():  # rows without samples give NaN, replaced below
-        warnings.simplefilter("ignore", RuntimeWarning)
-        median = np.nanmedian(np.where(negative, -d2, np.nan), axis=1)
+    median = row_median(-d2, negative)  # NaN for rows without samples, replaced below
     return np.where(enough & np.isfinite(median), median / (0.6745 * np.sqrt(6.0)), 0.0)
 
 

@@ -24,7 +24,7 @@ from itertools import combinations
 
 import numpy as np
 
-from benchlab.extract.engine import BatchFit, _current_and_jacobian, solve_batch
+from benchlab.extract.engine import BatchFit, _current_and_jacobian, row_median, solve_batch
 from benchlab.models import thermal_voltage
 
 PASSES = 2
@@ -99,8 +99,7 @@ def point_variance(model: str, vgs, i_meas, mask, params, *, ut: float = thermal
     design = design / scale[:, None, :]
     coef = _nonnegative_least_squares(design, y, mask)
     variance = norm * np.einsum("bnp,bp->bn", design, coef) + known_v2 * g2
-    with np.errstate(invalid="ignore"):
-        median = np.nanmedian(np.where(mask > 0, variance, np.nan), axis=1, keepdims=True)
+    median = row_median(variance, mask > 0)[:, None]
     floor = np.where(np.isfinite(median) & (median > 0), median / MAX_WEIGHT_RATIO, 1e-300)
     return np.where(mask > 0, np.maximum(variance, floor), 1.0)
 

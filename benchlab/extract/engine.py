@@ -137,6 +137,31 @@ def _current_and_jacobian(model, vgs, params, ut, want_jacobian=True):
     return current, [-di_dq * dq_dvov, half_q2_d, d_theta, di_dq * dq_dn]
 
 
+def row_median(values: np.ndarray, keep: np.ndarray) -> np.ndarray:
+    """Median of each row's kept entries (NaN for a row with none), as ``np.nanmedian`` gives with the others
+    set to NaN, without its masked-array path (slow on many short rows, and an import of its own).
+
+    Parameters
+    ----------
+    values : ndarray, shape (B, N)
+    keep : ndarray of bool, shape (B, N)
+
+    Returns
+    -------
+    ndarray, shape (B,)
+    """
+    keep = np.asarray(keep, bool) & ~np.isnan(values)
+    ordered = np.sort(np.where(keep, values, np.inf), axis=1)
+    count = keep.sum(axis=1)
+    rows = np.arange(ordered.shape[0])
+    if ordered.shape[1] == 0:
+        return np.full(ordered.shape[0], np.nan)
+    low = ordered[rows, np.clip((count - 1) // 2, 0, None)]
+    high = ordered[rows, np.clip(count // 2, 0, ordered.shape[1] - 1)]
+    with np.errstate(invalid="ignore"):
+        return np.where(count > 0, 0.5 * (low + high), np.nan)
+
+
 def lower_bounds(model: str) -> np.ndarray:
     """Lower bound of each parameter of ``model`` (``-inf`` when unbounded)."""
     return np.array([_LOWER[name] for name in PARAM_NAMES[model]])

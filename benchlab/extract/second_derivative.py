@@ -19,11 +19,11 @@ noise near the peak.
 
 from __future__ import annotations
 
-import warnings
 from math import comb
 
 import numpy as np
 
+from benchlab.extract.engine import row_median
 from benchlab.extract.thresholds import PEAK_SIGNIFICANCE
 
 # kernel half-width as a fraction of each sweep's VGS span (our choice: 1/40 keeps the kink sharp
@@ -119,10 +119,8 @@ def curvature_peak_batch(vgs, y, valid) -> tuple[np.ndarray, np.ndarray]:
                      co_c * t0 + co_e * t1 + co_f * t2], -1) / det[..., None]
     inverse_22 = co_f / det
     rss = np.maximum(q[3] - (coef[..., 0] * t0 + coef[..., 1] * t1 + coef[..., 2] * t2), 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"), warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # a sweep of a few points has no usable window: NaN
-        window_noise = np.sqrt(rss / np.maximum(count - 3, 1))
-        noise = np.nanmedian(np.where(usable, window_noise, np.nan), axis=1, keepdims=True)
+    window_noise = np.sqrt(rss / np.maximum(count - 3, 1))
+    noise = row_median(window_noise, usable)[:, None]  # NaN for a sweep of a few points: no usable window
     noise = np.where(np.isfinite(noise), noise, 0.0)
     s2 = span * span
     slope = np.where(usable, coef[..., 1] / span, -np.inf)

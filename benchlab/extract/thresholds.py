@@ -25,7 +25,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 PEAK_SIGNIFICANCE = 6.0  # standard errors; our choice
 
@@ -210,6 +209,10 @@ def constant_current_threshold(vgs, i_d, current: float) -> float | None:
     log_i = np.log(i_d)
     target = np.log(current)
     if vgs.size >= 3 and np.all(np.diff(log_i) > 0):
+        # imported here: scipy.interpolate takes longer to import than a batch of fits takes to run,
+        # and the batched fit (benchlab fit) never needs it
+        from scipy.interpolate import PchipInterpolator
+
         return float(PchipInterpolator(log_i, vgs)(target))
     above = np.flatnonzero(i_d >= current)
     k = int(above[0])
