@@ -37,17 +37,23 @@ _SUBSETS = [s for k in (3, 2, 1) for s in combinations(range(3), k)]
 def _nonnegative_least_squares(design, y, weight):
     """Per row, min sum w (y - X c)^2 with c >= 0, for 3 columns (every subset tried: exact, batched)."""
     rows = design.shape[0]
+    columns = [design[..., k] for k in range(3)]
+    weighted = [weight * c for c in columns]
+    # the full normal equations once; each subset's are a block of them
+    normal = np.empty((rows, 3, 3))
+    for p in range(3):
+        for q in range(p, 3):
+            normal[:, p, q] = normal[:, q, p] = np.einsum("bn,bn->b", weighted[p], columns[q])
+    rhs = np.stack([np.einsum("bn,bn->b", w, y) for w in weighted], axis=1)
     best = np.zeros((rows, 3))
     best_cost = np.full(rows, np.inf)
     for subset in _SUBSETS:
         cols = list(subset)
-        x = design[..., cols]
-        normal = np.einsum("bn,bnp,bnq->bpq", weight, x, x) + 1e-12 * np.eye(len(cols))
-        rhs = np.einsum("bn,bnp,bn->bp", weight, x, y)
-        coef = np.linalg.solve(normal, rhs[..., None])[..., 0]
+        block = normal[:, cols][:, :, cols] + 1e-12 * np.eye(len(cols))
+        coef = np.linalg.solve(block, rhs[:, cols, None])[..., 0]
         full = np.zeros((rows, 3))
         full[:, cols] = coef
-        resid = y - np.einsum("bnp,bp->bn", design, full)
+        resid = y - sum(columns[k] * full[:, k:k + 1] for k in cols)
         cost = np.einsum("bn,bn->b", weight, resid * resid)
         ok = np.all(coef >= 0, axis=1) & (cost < best_cost)
         best[ok], best_cost[ok] = full[ok], cost[ok]
@@ -98,7 +104,7 @@ def point_variance(model: str, vgs, i_meas, mask, params, *, ut: float = thermal
     scale = np.where(scale > 0, scale, 1.0)
     design = design / scale[:, None, :]
     coef = _nonnegative_least_squares(design, y, mask)
-    variance = norm * np.einsum("bnp,bp->bn", design, coef) + known_v2 * g2
+    variance = norm * sum(design[..., k] * coef[:, k:k + 1] for k in range(3)) + known_v2 * g2
     median = row_median(variance, mask > 0)[:, None]
     floor = np.where(np.isfinite(median) & (median > 0), median / MAX_WEIGHT_RATIO, 1e-300)
     return np.where(mask > 0, np.maximum(variance, floor), 1.0)

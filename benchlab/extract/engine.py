@@ -317,9 +317,9 @@ def sandwich_covariance(model: str, vgs: np.ndarray, inv: np.ndarray, target: np
     normal, _ = _normal_equations(r, columns)
     bread = np.linalg.pinv(normal)
     jac = np.stack(columns, axis=-1)  # (B, N, P)
-    leverage = np.einsum("bnp,bpq,bnq->bn", jac, bread, jac)
+    leverage = np.einsum("bnq,bnq->bn", jac @ bread, jac)
     weight = r * r / np.clip(1.0 - leverage, 0.05, None) ** 2
-    meat = np.einsum("bn,bnp,bnq->bpq", weight, jac, jac)
+    meat = np.swapaxes(jac * weight[..., None], 1, 2) @ jac
     return bread @ meat @ bread
 
 
@@ -425,7 +425,8 @@ CHUNK_ROWS = 1024  # sweeps per solve: arrays of a few hundred kB stay in cache 
 
 
 def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray | None = None,
-                *, ut: float = thermal_voltage(), chunk_rows: int = CHUNK_ROWS) -> BatchFit:
+                *, ut: float = thermal_voltage(), chunk_rows: int = CHUNK_ROWS,
+                with_covariance: bool = True) -> BatchFit:
     """Starting values (unless given) and :func:`solve_batch` over stacked sweeps, a chunk of rows at a time.
 
     Parameters
@@ -439,6 +440,8 @@ def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         Thermal voltage (V) for the ekv model.
     chunk_rows : int
         Sweeps solved together.
+    with_covariance : bool
+        As :func:`solve_batch` (False for fits whose covariance nobody reads).
 
     Returns
     -------
@@ -449,7 +452,8 @@ def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
     for lo in range(0, vgs.shape[0], chunk_rows):
         rows = slice(lo, lo + chunk_rows)
         begin = initial_guess(model, vgs[rows], i_meas[rows], mask[rows], ut=ut) if start is None else start[rows]
-        parts.append(solve_batch(model, vgs[rows], i_meas[rows], mask[rows], begin, ut=ut))
+        parts.append(solve_batch(model, vgs[rows], i_meas[rows], mask[rows], begin, ut=ut,
+                                 with_covariance=with_covariance))
     if len(parts) == 1:
         return parts[0]
     return BatchFit(model=model, **{name: np.concatenate([getattr(p, name) for p in parts])

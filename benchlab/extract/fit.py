@@ -171,7 +171,9 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
             raise FitError(f"{where}only {int(m.sum())} of the {p.id.size} points (measured {p.id.min():.3g} to "
                            f"{p.id.max():.3g} A) lie in the fit window; the {model} model needs at least {need}")
     window = _window_only(vgs, i_d, mask)
-    fit = fit_stacked(model, *window[:3], start, ut=ut)
+    # the covariance of this fit is never read: the comparison ranks by the residuals, and the reported
+    # fit is the weighted one below
+    fit = fit_stacked(model, *window[:3], start, ut=ut, with_covariance=False)
     if not weighted:
         return fit, (vgs, i_d, mask, valid), None
     # the reported fit: effective-variance weights for noise on both axes (see extract/eiv.py)
