@@ -26,7 +26,8 @@ from textual.widgets import ContentSwitcher, DataTable, Footer, Input, Static
 from benchlab.errors import BenchlabError
 from benchlab.tui.help import HelpScreen
 from benchlab.tui.plot import MAX_REDRAW_HZ
-from benchlab.tui.messages import _quiet, Connected, HandsFreeNews, OutputState, Problem, SweepEvent, SweepFinished
+from benchlab.tui.feed import EventFeed
+from benchlab.tui.messages import _quiet, Connected, OutputState, Problem
 from benchlab.tui.actions import DesignActions
 from benchlab.tui.loop import LoopActions
 from benchlab.tui.thermal import ThermalActions, ThermalView
@@ -45,6 +46,9 @@ VIEW_ACTIONS = {"bench": {"connect_bench", "connect_sim", "disconnect"},
                 "sink": {"save_design", "export_netlist"},
                 "thermal": {"thermal_tempco", "thermal_rth"}}
 STATUS_POLL_S = 1.0
+# While a sweep owns the bench the status line asks the instruments less often (each question waits for the
+# instrument between the sweep's own commands); it asks once more as soon as the first point shows the output on.
+STATUS_POLL_SWEEPING_S = 5.0
 # The sweep thread waits on many short socket round trips per point; each time it must win the GIL back from the
 # UI thread, which keeps it up to the switch interval (5 ms by default). A shorter interval while the app runs
 # more than doubled the fastest simulated sweep inside the UI (benchmarks/bench_ui.py).
@@ -121,8 +125,9 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
         self.points_seen = 0
         self.hf_counts = {"pass": 0, "fail": 0, "other": 0}
         self.last_done = None
-        self.live_point = None
+        self.feed = EventFeed()  # the engine's events, pushed by the sweep thread, taken by the redraw tick
         self._plots: dict = {}
+        self._polled_at = 0.0
 
     # ----------------------------------------------------------------------------------- layout
     def compose(self) -> ComposeResult:
@@ -145,7 +150,7 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
         self._title()
         self._status()
         self.set_interval(STATUS_POLL_S, self._poll_outputs)
-        self.set_interval(1.0 / MAX_REDRAW_HZ, self._show_live)
+        self.set_interval(1.0 / MAX_REDRAW_HZ, self._take_events)
         if self.options.connect_at_start and (self.options.sim is not None or self.options.bench_path):
             self._connect(self.options.bench_path, self.options.sim)
 
@@ -179,7 +184,10 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
         busy = "SWEEPING" if self.running_tag is not None else "idle"
         if self.hands_free_on:
             busy = "HANDS-FREE"
-        self._q("#status", Static).update(f"{bench} | {out} | {busy} | {self.status_text}")
+        text = f"{bench} | {out} | {busy} | {self.status_text}"
+        if text != getattr(self, "_status_shown", None):  # one line of fixed height: no layout pass needed
+            self._status_shown = text
+            self._q("#status", Static).update(text, layout=False)
 
     def say(self, text: str) -> None:
         """Show ``text`` (plain, never markup) in the status line."""
@@ -308,13 +316,17 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
 
     # ----------------------------------------------------------------------------------- status line
     def _poll_outputs(self) -> None:
-        if self.handle is not None:
-            self._poll_worker()
+        if self.handle is None:
+            return
+        if self.running_tag is not None and time.monotonic() - self._polled_at < STATUS_POLL_SWEEPING_S:
+            return
+        self._poll_worker()
 
     def _poll_outputs_now(self) -> None:
         if self.handle is not None:
             from benchlab.services import station
 
+            self._polled_at = time.monotonic()
             try:
                 self.post_message(OutputState(station.output_states(self.handle)))
             except BaseException:  # noqa: BLE001 - a status read must never break the app

@@ -7,18 +7,25 @@ tag, and only its own ``SweepFinished``, posted from the worker's ``finally`` af
 from __future__ import annotations
 
 import threading
+import time
 
 from rich.markup import escape
 from textual import work
 from textual.widgets import Input, Static
 
 from benchlab.errors import BenchlabError
-from benchlab.tui.messages import HandsFreeNews, SweepEvent, SweepFinished, _quiet
+from benchlab.tui.feed import NewCurve
+from benchlab.tui.messages import HandsFreeNews, SweepFinished, _quiet
 from benchlab.tui.views_bench import CharacterizeView, HandsFreeView
+
+
+LIVE_TEXT_HZ = 4.0  # the point count and elapsed time under the plot, at most this often
 
 
 class LoopActions:
     """Mixed into :class:`benchlab.tui.app.BenchlabApp`."""
+
+    _live_next_at = 0.0
 
     # ----------------------------------------------------------------------------------- characterize
     def _sweep_running(self) -> bool:
@@ -60,7 +67,7 @@ class LoopActions:
             return
         self.verdict = None
         tag = self._start_tag("char-plot")
-        self._q("#char-result", Static).update(f"Sweeping {label}... (Ctrl+K aborts)")
+        self._q("#char-result", Static).update(f"Sweeping {label}... (Ctrl+K aborts)", layout=False)  # a panel of fixed size
         self._sweep_worker(tag, label, lot, window)
 
     def _start_tag(self, plot_id: str) -> int:
@@ -80,7 +87,7 @@ class LoopActions:
         def sweep():
             outcome, csv_path = characterize.sweep_one(
                 self.handle, self.plan, label, lot=lot, sessions_root=self.options.sessions,
-                operator=self.options.operator, on_event=lambda event: self.post_message(SweepEvent(tag, event)),
+                operator=self.options.operator, on_event=self.feed.sink(tag),
                 cancel=self.cancel_event, seat=False)
             return station.judge(outcome, csv_path.parent, window)
 
@@ -103,32 +110,46 @@ class LoopActions:
                 self.idle_event.set()
 
     @_quiet
-    def on_sweep_event(self, message: SweepEvent) -> None:
+    def _take_events(self) -> None:
+        """The redraw tick (and a sweep's end): take the engine's events the sweep thread collected, draw them."""
         from benchlab.sweep.records import PointMeasured, SweepDone
 
-        if isinstance(message.event, SweepDone) and message.tag == self.shown_tag:
-            self.last_done = message.event  # the engine's own count and time of the finished sweep
-        if message.tag != self.shown_tag or not isinstance(message.event, PointMeasured):
-            return  # a late point of a sweep no longer shown (aborted): dropped
-        event = message.event
+        vgs, ids, last, new_curve = [], [], None, False
+        for tag, event in self.feed.take():
+            if tag != self.shown_tag:
+                continue  # a late event of a sweep no longer shown (aborted): dropped
+            if isinstance(event, NewCurve):
+                vgs, ids, new_curve = [], [], True
+            elif isinstance(event, SweepDone):
+                self.last_done = event  # the engine's own count and time of the finished sweep
+            elif isinstance(event, PointMeasured):
+                vgs.append(event.point.vgs)
+                ids.append(event.point.id)
+                last = event
+        if last is None and not new_curve:
+            return
         plot_id = "hf-plot" if self.hands_free_on else "char-plot"
         plot = self._plots.get(plot_id)
-        if plot is None:  # looked up once: a DOM query per point costs the sweep thread its GIL share
+        if plot is None:  # looked up once, not on every tick
             plot = self._plots[plot_id] = self._q(f"#{plot_id}")
-        plot.add_point(event.point.vgs, event.point.id)
-        self.points_seen = event.count
-        self.live_point = event  # drawn by the 10 Hz timer, like the plot (rendering per point starves the sweep)
-
-    @_quiet
-    def _show_live(self) -> None:
-        event, self.live_point = self.live_point, None
-        if event is not None and not self.hands_free_on:
-            self._q(CharacterizeView).live(event.count, event.elapsed_s, event.point.vgs * event.point.id)
+        if new_curve:
+            plot.clear_points()
+        if last is None:
+            return
+        plot.add_points(vgs, ids)
+        if self.points_seen == 0:
+            self._poll_worker()  # the output is on now: let the status line show what the instrument says
+        self.points_seen = last.count
+        now = time.monotonic()
+        if not self.hands_free_on and now >= self._live_next_at:
+            self._live_next_at = now + 1.0 / LIVE_TEXT_HZ  # each change redraws part of the screen
+            self._q(CharacterizeView).live(last.count, last.elapsed_s, last.point.vgs * last.point.id)
 
     @_quiet
     def on_sweep_finished(self, message: SweepFinished) -> None:
         if message.tag != self.running_tag:
             return
+        self._take_events()  # the sweep's last points and its end, pushed before this message was posted
         self.running_tag = None
         self._poll_outputs_now()
         if message.problems:
@@ -266,12 +287,14 @@ class LoopActions:
         from benchlab.services import station
 
         def news(text="", verdict=None, note=""):
+            if text.startswith("sweeping"):
+                self.feed.push(tag, NewCurve())  # in line with the points: the next ones are the new part's
             self.post_message(HandsFreeNews(tag, text, verdict, note))
 
         self._on_bench(tag, lambda: station.hands_free(
             self.handle, self.plan, window, labels, lot=self.options.lot or "lot-1",
             sessions_root=self.options.sessions, library=self.options.library, settings=settings,
-            cancel=self.cancel_event, on_event=lambda e: self.post_message(SweepEvent(tag, e)),
+            cancel=self.cancel_event, on_event=self.feed.sink(tag),
             on_status=lambda text: news(text), on_verdict=lambda v, n: news("", v, n),
             operator=self.options.operator) and None)
 
@@ -282,8 +305,6 @@ class LoopActions:
         view = self._q(HandsFreeView)
         if message.text:
             view.query_one("#hf-status").update(escape(message.text))
-            if message.text.startswith("sweeping"):
-                self._q("#hf-plot").clear_points()
             return
         v = message.verdict
         head = v.headline()

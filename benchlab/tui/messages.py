@@ -22,15 +22,6 @@ def _quiet(handler):
     return wrapper
 
 
-class SweepEvent(Message):
-    """An engine event (a point, done, fault) of the sweep tagged ``tag``."""
-
-    def __init__(self, tag: int, event: Any):
-        super().__init__()
-        self.tag = tag
-        self.event = event
-
-
 class SweepFinished(Message):
     """Posted from the sweep worker's ``finally``, after the output is off: the only sign the bench is idle."""
 

@@ -1,18 +1,24 @@
-"""The curve plot: a plotext widget fed with buffered points and redrawn at most ``MAX_REDRAW_HZ``.
+"""The curve plot: a plotext widget fed with buffered points, redrawn when something changed, at most
+``MAX_REDRAW_HZ`` and at most ``RENDER_SHARE`` of the time.
 
-Rendering holds the GIL: redrawing on every point starves the sweep thread, so points only go
-into a buffer and a timer redraws when something changed. Measured (benchmarks/bench_ui.py, a
-150x46 screen): a frame with the plot costs tens of ms of the GIL, so 10 redraws a second took
-the simulator's fastest sweep to 0.3x its headless rate, 4 a second to about 0.7x.
+Rendering holds the GIL: redrawing on every point starves the sweep thread, so points only go into a buffer and a
+redraw is scheduled once. After each render the next waits for ``1 / MAX_REDRAW_HZ`` or for the render's own
+cost (thread CPU time) divided by ``RENDER_SHARE``, whichever is longer: on a fast machine the plot moves at
+10 frames a second, on a loaded one it slows down instead of taking the sweep's time (benchmarks/bench_ui.py).
+A change after a quiet spell (a part picked in the Library) is drawn at once.
 """
 
 from __future__ import annotations
 
 import math
+import time
 
 from textual_plotext import PlotextPlot
 
-MAX_REDRAW_HZ = 4.0
+MAX_REDRAW_HZ = 10.0
+# Rendering the plot costs about 10-20 ms of CPU on a 150x46 screen (plotext builds the figure, rich parses its
+# ANSI text, textual cuts it into strips): at most 8 % of the time keeps the sweep thread's share of the GIL.
+RENDER_SHARE = 0.08
 
 
 class CurvePlot(PlotextPlot):
@@ -28,38 +34,66 @@ class CurvePlot(PlotextPlot):
         self.fit_ids: list[float] = []
         self.redraws = 0
         self._dirty = True
+        self._pending = None  # the scheduled redraw's timer
+        self._next_at = 0.0  # time.monotonic() before which no render should start
 
     def on_mount(self) -> None:
-        self.set_interval(1.0 / MAX_REDRAW_HZ, self._redraw_if_dirty)
+        self._schedule()
 
     # -- data ------------------------------------------------------------------------------
     def clear_points(self) -> None:
         self.vgs, self.ids, self.fit_vgs, self.fit_ids = [], [], [], []
-        self._dirty = True
+        self._changed()
+
+    def add_points(self, vgs, ids) -> None:
+        """Buffer points (drawn at the next allowed redraw)."""
+        self.vgs.extend(vgs)
+        self.ids.extend(ids)
+        self._changed()
 
     def add_point(self, vgs: float, i_d: float) -> None:
-        """Buffer one point (drawn at the next tick)."""
-        self.vgs.append(vgs)
-        self.ids.append(i_d)
-        self._dirty = True
+        """Buffer one point (drawn at the next allowed redraw)."""
+        self.add_points((vgs,), (i_d,))
 
     def set_points(self, vgs, ids) -> None:
         self.vgs, self.ids = list(vgs), list(ids)
-        self._dirty = True
+        self._changed()
 
     def set_fit(self, vgs, ids) -> None:
         self.fit_vgs, self.fit_ids = list(vgs), list(ids)
-        self._dirty = True
+        self._changed()
 
     def toggle_scale(self) -> None:
         self.log_scale = not self.log_scale
-        self._dirty = True
+        self._changed()
 
     # -- drawing ---------------------------------------------------------------------------
+    def _changed(self) -> None:
+        """Mark the figure out of date and schedule one redraw (none is scheduled twice)."""
+        self._dirty = True
+        if self._pending is None and self.is_mounted:
+            self._schedule()
+
+    def _schedule(self) -> None:
+        wait = self._next_at - time.monotonic()
+        if wait > 0.001:
+            self._pending = self.set_timer(wait, self._redraw_if_dirty)
+        else:  # (a textual timer of no delay is not allowed)
+            self._pending = True
+            self.call_later(self._redraw_if_dirty)
+
     def _redraw_if_dirty(self) -> None:
+        self._pending = None
         if self._dirty:
             self._dirty = False
             self.draw()
+
+    def render_lines(self, crop):
+        started = time.thread_time()
+        lines = super().render_lines(crop)
+        cost = time.thread_time() - started  # CPU time of this thread: the GIL held, not the time waited for it
+        self._next_at = max(self._next_at, time.monotonic() + max(1.0 / MAX_REDRAW_HZ, cost / RENDER_SHARE))
+        return lines
 
     def draw(self) -> None:
         plt = self.plt

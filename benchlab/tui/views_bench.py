@@ -69,7 +69,7 @@ class CharacterizeView(Horizontal):
     def live(self, count: int, elapsed_s: float, power_w: float | None) -> None:
         power = f"   part power {format_si(power_w, 'W')}" if power_w is not None else ""
         self.query_one("#char-live", Static).update(f"points {count}   elapsed {elapsed_s:.1f} s{power}"
-                                                    "   temperature rise: not known on this bench")
+                                                    "   temperature rise: not known on this bench", layout=False)
 
 
 class HandsFreeView(Vertical):
