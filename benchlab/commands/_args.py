@@ -49,6 +49,15 @@ def library_option() -> argparse.ArgumentParser:
     return parent
 
 
+def operator_name(args: argparse.Namespace) -> str:
+    """Who is at the bench: ``--operator`` as typed, else the login name (the one rule of sweep, bag and ui)."""
+    if args.operator is not None:
+        return args.operator
+    from benchlab.services.characterize import default_operator
+
+    return default_operator()
+
+
 def json_option(parser: argparse.ArgumentParser, what: str = "the result") -> None:
     """Add ``--json``: print ``what`` as JSON, one object per line."""
     parser.add_argument("--json", action="store_true", help=f"print {what} as JSON (one object per line)")

@@ -7,8 +7,8 @@ import sys
 from typing import Any, TextIO
 
 from benchlab.choices import CURRENT_FROM, DEFAULT_SESSIONS_DIR
-from benchlab.commands._args import (add_sim_options, counting_number, json_option, name_options, print_json,
-                                     quantity, quantity_list, refuse_given, sim_settings)
+from benchlab.commands._args import (add_sim_options, counting_number, json_option, name_options, operator_name,
+                                     print_json, quantity, quantity_list, refuse_given, sim_settings)
 from benchlab.errors import BenchlabError, InputError
 from benchlab.kinds import SweepMode
 
@@ -59,10 +59,6 @@ _PLAN_OPTIONS = {"points must": "--points must", "max_current_a": "--max-current
                  "start_v": "--start-v", "use_list": "--list", "pulsed duty cycle": "--pulsed duty cycle",
                  "current_from": "--current-from", "settle_s": "--settle", "nplc": "--nplc"}
 _SIM_NAMES = ("fixture", "seed", "time_scale", "fault", "log")
-
-
-def _operator(args, svc) -> str:
-    return svc.default_operator() if args.operator is None else args.operator
 
 
 def _add_bench_options(p: argparse.ArgumentParser) -> None:
@@ -142,7 +138,7 @@ def run_sweep(args: argparse.Namespace) -> int:
     try:
         outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot,
                                           sessions_root=args.sessions or DEFAULT_SESSIONS_DIR,
-                                          operator=_operator(args, svc), ambient_c=args.ambient,
+                                          operator=operator_name(args), ambient_c=args.ambient,
                                           on_event=ProgressBar(out=sys.stderr if args.json else None),
                                           on_session=lambda p: print(f"session: {p}", file=sys.stderr))
     finally:
@@ -179,7 +175,7 @@ def run_bag(args: argparse.Namespace) -> int:
     try:
         with svc.sigterm_as_exception():
             result = svc.sweep_bag(handle, plan, sessions_root=args.sessions or DEFAULT_SESSIONS_DIR,
-                                   lot=args.lot or "bag", count=args.count, operator=_operator(args, svc),
+                                   lot=args.lot or "bag", count=args.count, operator=operator_name(args),
                                    ambient_c=args.ambient, resume=args.resume, on_event=progress,
                                    on_session=on_session)
     except BaseException:

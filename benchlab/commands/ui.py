@@ -9,7 +9,8 @@ import threading
 import sys
 
 from benchlab.choices import DEFAULT_SESSIONS_DIR
-from benchlab.commands._args import add_sim_options, counting_number, library_option, quantity, sim_settings
+from benchlab.commands._args import (add_sim_options, counting_number, library_option, operator_name, quantity,
+                                     sim_settings)
 
 _SIM_NAMES = ("fixture", "seed", "bag_size", "time_scale", "handling", "fault", "log")
 IDLE_WAIT_S = 15.0  # on exit: longest wait for a running sweep's thread to switch off and end
@@ -56,7 +57,7 @@ def options_from(args: argparse.Namespace):
     plan = {"points": args.points, "max_current_a": args.max_current}
     return UiOptions(bench_path=args.bench, sim=sim, library=args.library, lot=args.lot, sessions=args.sessions,
                      plan_options={k: v for k, v in plan.items() if v is not None},
-                     connect_at_start=bool(args.sim or args.bench), operator=args.operator or "")
+                     connect_at_start=bool(args.sim or args.bench), operator=operator_name(args))
 
 
 def run(args: argparse.Namespace) -> int:
