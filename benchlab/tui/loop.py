@@ -26,6 +26,7 @@ class LoopActions:
     """Mixed into :class:`benchlab.tui.app.BenchlabApp`."""
 
     _live_next_at = 0.0
+    _live_event = None  # the newest point not yet shown in the live line
 
     # ----------------------------------------------------------------------------------- characterize
     def _sweep_running(self) -> bool:
@@ -110,8 +111,8 @@ class LoopActions:
                 self.idle_event.set()
 
     @_quiet
-    def _take_events(self) -> None:
-        """The redraw tick (and a sweep's end): take the engine's events the sweep thread collected, draw them."""
+    def _take_events(self, final: bool = False) -> None:
+        """The redraw tick (and, ``final``, a sweep's end): take the engine's events the sweep thread collected."""
         from benchlab.sweep.records import PointMeasured, SweepDone
 
         vgs, ids, last, new_curve = [], [], None, False
@@ -126,30 +127,31 @@ class LoopActions:
                 vgs.append(event.point.vgs)
                 ids.append(event.point.id)
                 last = event
-        if last is None and not new_curve:
-            return
         plot_id = "hf-plot" if self.hands_free_on else "char-plot"
         plot = self._plots.get(plot_id)
         if plot is None:  # looked up once, not on every tick
             plot = self._plots[plot_id] = self._q(f"#{plot_id}")
         if new_curve:
             plot.clear_points()
-        if last is None:
-            return
-        plot.add_points(vgs, ids)
-        if self.points_seen == 0:
-            self._poll_worker()  # the output is on now: let the status line show what the instrument says
-        self.points_seen = last.count
+        if last is not None:
+            plot.add_points(vgs, ids)
+            if self.points_seen == 0:
+                self._poll_worker()  # the output is on now: let the status line show what the instrument says
+            self.points_seen = last.count
+            self._live_event = last
+        if final:
+            plot.draw_now()  # the sweep is over: no thread left to share the GIL with
         now = time.monotonic()
-        if not self.hands_free_on and now >= self._live_next_at:
+        if self._live_event is not None and not self.hands_free_on and (final or now >= self._live_next_at):
+            event, self._live_event = self._live_event, None
             self._live_next_at = now + 1.0 / LIVE_TEXT_HZ  # each change redraws part of the screen
-            self._q(CharacterizeView).live(last.count, last.elapsed_s, last.point.vgs * last.point.id)
+            self._q(CharacterizeView).live(event.count, event.elapsed_s, event.point.vgs * event.point.id)
 
     @_quiet
     def on_sweep_finished(self, message: SweepFinished) -> None:
         if message.tag != self.running_tag:
             return
-        self._take_events()  # the sweep's last points and its end, pushed before this message was posted
+        self._take_events(final=True)  # the sweep's last points and its end, pushed before this was posted
         self.running_tag = None
         self._poll_outputs_now()
         if message.problems:
@@ -173,6 +175,7 @@ class LoopActions:
         fit = message.verdict.fit if message.verdict else None
         if fit is not None and message.tag == self.shown_tag:
             self._draw_fit(self._q("#char-plot"), fit)
+            self._q("#char-plot").draw_now()
         self.say(f"{message.verdict.label}: {message.verdict.headline()}: a accept, t retest, x reject")
 
     def _draw_fit(self, plot, fit) -> None:

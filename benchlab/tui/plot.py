@@ -68,6 +68,15 @@ class CurvePlot(PlotextPlot):
         self._changed()
 
     # -- drawing ---------------------------------------------------------------------------
+    def draw_now(self) -> None:
+        """Draw what changed without waiting for the next allowed redraw (a sweep just ended)."""
+        if self._pending is not None and self._pending is not True:
+            self._pending.stop()
+        self._pending = None
+        self._next_at = 0.0
+        if self._dirty:
+            self._schedule()
+
     def _changed(self) -> None:
         """Mark the figure out of date and schedule one redraw (none is scheduled twice)."""
         self._dirty = True

@@ -46,7 +46,9 @@ def tmux_socket():
         if os.environ.get("CI"):
             pytest.fail("tmux is required in CI (.ci/run installs it)")
         pytest.skip("tmux not installed")
-    socket = f"benchlab-test-{os.getpid()}"
+    # one server per test: a name reused right after the last test's kill-server can meet that server exiting
+    # ("server exited unexpectedly")
+    socket = f"benchlab-test-{os.getpid()}-{time.monotonic_ns()}"
     yield socket
     subprocess.run(["tmux", "-L", socket, "kill-server"], capture_output=True)
 
