@@ -18,11 +18,10 @@ from typing import Any, Callable
 
 import numpy as np
 
-from benchlab.errors import InputError, InstrumentError, SafetyError, SweepCancelled
-from benchlab.kinds import Fixture
+from benchlab.errors import InstrumentError, SafetyError, SweepCancelled
 from benchlab.sweep.engine import run
 from benchlab.sweep.plan import Limits
-from benchlab.sweep.safety import GuardedSmu
+from benchlab.sweep.thermal_bench import check_cancel as _check_cancel, forced_currents
 from benchlab.sweep.thermal_plan import PACKAGE_RTH_K_PER_W, RthPlan, TempcoPlan
 
 
@@ -55,11 +54,6 @@ class Settled:
     temperature_k: float
     sigma_k: float
     waited_s: float
-
-
-def _check_cancel(cancel) -> None:
-    if cancel is not None and cancel.is_set():
-        raise SweepCancelled("cancelled; the output is off")
 
 
 def refuse_hot_fixture(thermal, log: ThermalLog | None = None) -> float:
@@ -164,67 +158,18 @@ def run_tempco(plan: TempcoPlan, bench: Any, thermal, clock, session, label: str
 
 
 # ------------------------------------------------------------------------------------------- thermal resistance
-class _RthBench:
-    """The SMU behind the guard, forcing current; every reading logged."""
-
-    def __init__(self, bench: Any, limits: Limits, plan: RthPlan, clock, log: ThermalLog, cancel):
-        if bench.config.fixture != Fixture.SMU:
-            raise InputError("the thermal-resistance measurement needs a source-measure unit (fixture 'smu'): it "
-                             "switches between a heating and a sense current")
-        self.smu = GuardedSmu(bench.smu, limits, clock.now)
-        self.plan, self.clock, self.log, self.cancel = plan, clock, log, cancel
-        self.smu.safe_off()
-        self.smu.configure_source("current", limits.max_supply_v)
-        self.smu.set_nplc(plan.nplc)
-
-    def read(self, what: str, **extra) -> tuple[float, float]:
-        _check_cancel(self.cancel)
-        volts, amps = self.smu.measure()
-        if not (math.isfinite(volts) and abs(volts) < 1e30) or self.smu.in_compliance():
-            raise InstrumentError(f"{what}: the source-measure unit reached its voltage compliance (is the part "
-                                  "open or not seated?)")
-        self.log.add("reading", what=what, t_s=self.clock.now(), vgs=volts, id=amps, **extra)
-        return volts, amps
-
-    def sense(self, count: int, what: str) -> tuple[float, float]:
-        """Mean and standard error of ``count`` VGS readings at the sense current (output on only meanwhile)."""
-        _check_cancel(self.cancel)  # an abort that switched the output off from outside is never undone
-        self.smu.set_level(self.plan.sense_current_a)
-        self.smu.set_output(True)
-        try:
-            self.clock.wait(0.05)
-            values = [self.read(what)[0] for _ in range(count)]
-        finally:
-            self.smu.set_output(False)
-        return float(np.mean(values)), float(np.std(values, ddof=1) / math.sqrt(count))
-
-    def pulse(self, amps: float, expect_vgs: float, what: str) -> float:
-        """VGS at ``amps`` from one short pulse (output on for one reading), then a pause with the output off."""
-        _check_cancel(self.cancel)
-        self.smu.set_level(amps, expect_vgs)
-        self.smu.set_output(True)
-        try:
-            volts = self.read(what, pulsed=True)[0]
-        finally:
-            self.smu.set_output(False)
-            self.smu.set_level(0.0)
-        self.clock.wait(self.plan.off_s)
-        return volts
-
-
-def _heating_current(rb: _RthBench, power_w: float, v_sense: float, max_drain_a: float,
-                     notes: list[str]) -> tuple[float, float]:
+def _heating_current(rb, power_w: float, v_sense: float, notes: list[str]) -> tuple[float, float]:
     """Forced current that dissipates about ``power_w``, found with short pulses; returns (current, VGS there)."""
     # start at a quarter of the power for a VGS 1 V above the sense voltage (VGS rises with current, so the first
     # pulse stays well under the target whatever the part), then aim at the power with the VGS just measured
     volts = v_sense + 1.0
-    amps = min(0.25 * power_w / volts, max_drain_a)
+    amps = min(0.25 * power_w / volts, rb.max_current(volts * 1.1))
     for _ in range(4):
         volts = rb.pulse(amps, volts * 1.1, "heating-current search")
-        amps = min(power_w / (volts * 1.02), max_drain_a)
-    if amps >= max_drain_a * (1 - 1e-9):
-        notes.append(f"heating current held at limits.max_drain_a {max_drain_a:g} A: {amps * volts:.3g} W instead "
-                     f"of {power_w:g} W")
+        amps = min(power_w / (volts * 1.02), rb.max_current(volts * 1.1))
+    if amps >= rb.max_current(volts * 1.1) * (1 - 1e-9):
+        notes.append(f"heating current held at {amps:.3g} A by limits.max_drain_a / max_supply_v: "
+                     f"{amps * volts:.3g} W instead of {power_w:g} W")
     return amps, rb.pulse(amps, volts * 1.1, "heating current, cold (pulsed)")
 
 
@@ -237,7 +182,7 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
     cfg = thermal.config
     notes: list[str] = []
     start_k = refuse_hot_fixture(thermal, log)
-    rb = _RthBench(bench, limits, plan, clock, log, cancel)
+    rb = forced_currents(bench, limits, plan, clock, log, cancel)
     try:
         reference = settle(thermal, clock, start_k if cfg.control.kind == "scpi" else None, log, cancel=cancel,
                            say=say)
@@ -254,7 +199,7 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
                          f"thermal.max_junction_k at {rth_guess_k_per_w:g} K/W")
             power = ceiling
         v_cold, v_cold_err = rb.sense(plan.calibration_readings, "sense, reference temperature")
-        i_heat, v_heat_cold = _heating_current(rb, power, v_cold, limits.max_drain_a, notes)
+        i_heat, v_heat_cold = _heating_current(rb, power, v_cold, notes)
         # K-factor: the sense voltage (and the heating-current voltage, for the pulsed/DC check) at a second temperature
         hot = settle(thermal, clock, t1, log, cancel=cancel, say=say)
         v_hot, v_hot_err = rb.sense(plan.calibration_readings, "sense, calibration temperature")
@@ -263,9 +208,8 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
         v_cold2, _ = rb.sense(plan.calibration_readings, "sense, before heating")
         dvdt_heat = (v_heat_hot - v_heat_cold) / (hot.temperature_k - reference.temperature_k)
         # heat
-        _check_cancel(cancel)
-        rb.smu.set_level(i_heat, v_heat_cold)
-        rb.smu.set_output(True)
+        rb.force(i_heat, v_heat_cold)
+        rb.on()
         began = clock.now()
         trace: list[float] = []
         steady = False
@@ -289,7 +233,7 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
         heated_s = clock.now() - began
         power_w = volts * amps
         # switch to the sense current and read the cooling junction
-        rb.smu.set_level(plan.sense_current_a)
+        rb.force(plan.sense_current_a)
         switched = clock.now()
         times, cooling, previous = [], [], 0.0
         for _ in range(plan.cooling_readings):
@@ -298,9 +242,9 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
             times.append((previous + t) / 2.0)  # the middle of the reading's integration
             previous = t
             cooling.append(v)
-        rb.smu.set_output(False)
+        rb.set_output(False)
     finally:
-        rb.smu.safe_off()
+        rb.safe_off()
         bench.safe_off()
         restore_fixture(thermal, start_k, log)
     sigma_v = max(v_cold_err, v_hot_err) * math.sqrt(plan.calibration_readings)

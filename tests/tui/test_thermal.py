@@ -35,7 +35,7 @@ async def _run(pilot, key: str, timeout_s: float = 60.0) -> None:
     await until(pilot, lambda: app.running_tag is None, timeout_s)
 
 
-@pytest.mark.parametrize("fixture", ["smu"])
+@pytest.mark.parametrize("fixture", ["smu", "resistor"])
 async def test_tempco_and_rth_from_the_ui_are_stored_and_the_output_ends_off(tmp_path, fixture):
     db = str(tmp_path / "lib.db")
     add_part(db, "Q01", lot="led-rack", vth=2.5, kp=3.0)  # characterized earlier; its part is in the fixture
