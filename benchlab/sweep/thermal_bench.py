@@ -147,7 +147,7 @@ class SupplyCurrents(_Currents):
     def max_current(self, expect_vgs: float) -> float:
         """Within ``max_drain_a`` and what ``max_supply_v`` can drive through the resistor at this VGS."""
         room = self.limits.max_supply_v - expect_vgs * (1.0 + SUPPLY_VGS_MARGIN) - SUPPLY_MARGIN_V
-        return max(0.0, min(self.limits.max_drain_a, room / self.r_high))
+        return max(0.0, min(self.limits.max_drain_a, room / self.r_high * (1.0 - 1e-6)))  # a hair under: rounding
 
     def force(self, amps: float, expect_vgs: float | None = None) -> None:
         if amps <= 0:
