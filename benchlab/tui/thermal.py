@@ -164,7 +164,9 @@ class ThermalActions:
             lines["fixture"] = f"fixture {values['temperature_k'] - KELVIN:.2f} degC{aim}{when}"
         elif kind == "fixture_setpoint":
             self._thermal_setpoint = values["temperature_k"]
-            lines["step"] = f"fixture set to {values['temperature_k'] - KELVIN:.2f} degC: waiting for it to settle"
+            lines["step"] = (f"fixture set back to {values['temperature_k'] - KELVIN:.2f} degC" if values.get("restored")
+                             else f"fixture set to {values['temperature_k'] - KELVIN:.2f} degC: waiting for it to "
+                                  "settle")
         elif kind == "reading":
             power = values["vgs"] * values["id"]
             lines["reading"] = (f"{values['what']}: VGS {values['vgs']:.4f} V at {values['id'] * 1e3:.4g} mA"

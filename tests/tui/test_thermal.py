@@ -10,6 +10,7 @@ The simulator's mobility law KP ~ T^-1.5 is the SPICE level-1 law (ngspice manua
 
 from __future__ import annotations
 
+import difflib
 import os
 import threading
 
@@ -94,7 +95,10 @@ def _check_screenshot(app, svg: str) -> None:
         saved.write_text(svg, encoding="utf-8")
         return
     assert saved.exists(), f"no saved screenshot {saved}; run with BENCHLAB_UPDATE_SNAPSHOTS=1"
-    assert normalize(svg) == normalize(saved.read_text(encoding="utf-8")), "the thermal view changed"
+    now, before = normalize(svg), normalize(saved.read_text(encoding="utf-8"))
+    assert now[1] == before[1], "the thermal view's colours changed"
+    changed = [line for line in difflib.unified_diff(before[0].split(" "), now[0].split(" "), lineterm="", n=1)]
+    assert now[0] == before[0], "the thermal view changed: " + " ".join(changed[2:40])
 
 
 async def test_abort_while_heating_switches_off_at_once_and_the_run_stops(tmp_path, monkeypatch):
