@@ -110,7 +110,7 @@ def _significant_back(vgs, i_d, sign):
 
 
 def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None = None,
-                    skipped: dict | None = None, ordered: bool = False) -> Sweep:
+                    skipped: dict | None = None, ordered: bool = False, sigma_v: float | None = None) -> Sweep:
     """Check measured points and wrap them as a :class:`Sweep`.
 
     Parameters
@@ -131,6 +131,9 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
         source setpoint): VGS and ID falling together far beyond the sweep's own noise is then a
         heating fold-back, kept and reported in ``fold_backs``, not a row out of order. Joint
         steps back within the noise (meter noise where the part is steep) are always accepted.
+    sigma_v : float, optional
+        The VGS noise (V) the record states (repeated readings); the fit's effective-variance weights
+        then take it as given (``benchlab.extract.eiv``). None: estimated from the residuals.
 
     Returns
     -------
@@ -148,7 +151,7 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
     if direction is None and _plainly_good(vgs, i_d):
         # the common case (a clean rising sweep) in one pass; anything else gets the full checks
         return Sweep(vgs=vgs, id=i_d, direction=np.full(vgs.size, "up"), rows=rows, source=source,
-                     skipped=dict(skipped or {}))
+                     skipped=dict(skipped or {}), sigma_v=sigma_v)
     if vgs.size != i_d.size:
         raise InputError(f"vgs has {vgs.size} values but id has {i_d.size}", path=source)
     if vgs.size == 0:
@@ -200,7 +203,7 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
                              f"{name} sweep's order", path=source, row=int(rows[k]))
         folds += [(int(rows[k]), float(vgs[k]), float(i_d[k])) for k in idx[1:][back]]
     return Sweep(vgs=vgs, id=i_d, direction=direction, rows=rows, source=source, skipped=dict(skipped or {}),
-                 fold_backs=tuple(folds))
+                 fold_backs=tuple(folds), sigma_v=sigma_v)
 
 
 def _plainly_good(vgs, i_d) -> bool:
@@ -240,9 +243,10 @@ def _infer_direction(vgs, i_d, rows, source, ordered=False):
 
 
 def sweep_from_points(points: FitPoints) -> Sweep:
-    """Validate a record's fittable points (see :func:`benchlab.sweepfile.fit_points`) as a :class:`Sweep`."""
+    """Validate a record's fittable points (see :func:`benchlab.sweepfile.fit_points`) as a :class:`Sweep`,
+    carrying the VGS noise the record states (``sigma_v``), which the fit's errors-in-variables weights use."""
     return validate_points(points.vgs, points.id, points.direction, rows=points.rows, source=points.source,
-                           skipped=points.skipped, ordered=points.ordered)
+                           skipped=points.skipped, ordered=points.ordered, sigma_v=points.sigma_v)
 
 
 def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:

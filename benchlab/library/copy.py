@@ -34,9 +34,9 @@ TABLES: tuple[tuple[str, tuple[str, ...], str, str], ...] = (
      "sidecar_json, imported FROM sweeps ORDER BY id",
      "INSERT INTO sweeps (id, part_id, session_path, csv_path, session_id, started, complete, classification, "
      "reason, sidecar_json, imported) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
-    ("sweep_points", ("sweep_id", "point", "vgs", "id", "status"),
-     "SELECT sweep_id, point, vgs, id, status FROM sweep_points ORDER BY sweep_id, point",
-     "INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)"),
+    ("sweep_points", ("sweep_id", "point", "vgs", "id", "status", "direction", "spread_v"),
+     "SELECT sweep_id, point, vgs, id, status, direction, spread_v FROM sweep_points ORDER BY sweep_id, point",
+     "INSERT INTO sweep_points (sweep_id, point, vgs, id, status, direction, spread_v) VALUES (?, ?, ?, ?, ?, ?, ?)"),
     ("fits", ("id", "part_id", "sweep_id", "source", "model", "params_json", "stderr_json", "flags_json",
               "result_json", "fitted_at", "fitter_version"),
      "SELECT id, part_id, sweep_id, source, model, params_json, stderr_json, flags_json, result_json, fitted_at, "

@@ -54,13 +54,14 @@ def export_library(lib: "Library", lot: str | None = None, state: str | None = N
             sweeps = []
             for s in conn.execute("SELECT id, session_path, csv_path, session_id, started, complete, classification, "
                                   "reason, sidecar_json, imported FROM sweeps WHERE part_id = ? ORDER BY id", (pid,)):
-                pts = conn.execute("SELECT point, vgs, id, status FROM sweep_points WHERE sweep_id = ? ORDER BY point",
-                                   (s[0],)).fetchall()
+                pts = conn.execute("SELECT point, vgs, id, status, direction, spread_v FROM sweep_points "
+                                   "WHERE sweep_id = ? ORDER BY point", (s[0],)).fetchall()
                 sweeps.append({"key": s[0], "session_path": s[1], "csv_path": s[2], "session_id": s[3],
                                "started": s[4], "complete": bool(s[5]), "classification": s[6], "reason": s[7],
                                "sidecar": json.loads(s[8]), "imported": s[9],
                                "points": {"point": [p[0] for p in pts], "vgs": [p[1] for p in pts],
-                                          "id": [p[2] for p in pts], "status": [p[3] for p in pts]}})
+                                          "id": [p[2] for p in pts], "status": [p[3] for p in pts],
+                                          "direction": [p[4] for p in pts], "spread_v": [p[5] for p in pts]}})
             fits = [{"sweep": f[0], "source": f[1], "model": f[2], "params": json.loads(f[3]),
                      "stderr": json.loads(f[4]), "flags": json.loads(f[5]), "result": json.loads(f[6]),
                      "fitted_at": f[7], "fitter_version": f[8]}
@@ -138,10 +139,17 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                          to_json(s.get("sidecar", {})), s.get("imported") or utc_now()))
                     sweep_ids[s.get("key")] = new_id
                     pts = s.get("points", {})
+                    count = len(pts.get("point", []))
+                    # direction and spread_v: absent from exports written before version 6 of the schema
+                    directions = pts.get("direction") or [None] * count
+                    spreads = pts.get("spread_v") or [None] * count
                     conn.executemany(
-                        "INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)",
-                        [(new_id, int(p), finite_or_none(v), finite_or_none(i), str(st)) for p, v, i, st in
-                         zip(pts.get("point", []), pts.get("vgs", []), pts.get("id", []), pts.get("status", []))])
+                        "INSERT INTO sweep_points (sweep_id, point, vgs, id, status, direction, spread_v) "
+                        "VALUES (?, ?, ?, ?, ?, ?, ?)",
+                        [(new_id, int(p), finite_or_none(v), finite_or_none(i), str(st),
+                          None if d is None else str(d), finite_or_none(sv)) for p, v, i, st, d, sv in
+                         zip(pts.get("point", []), pts.get("vgs", []), pts.get("id", []), pts.get("status", []),
+                             directions, spreads)])
                     counts["sweeps"] += 1
                 for f in part.get("fits", []):
                     lib.insert_fit(pid, source=f.get("source", "imported"),

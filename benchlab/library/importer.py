@@ -125,8 +125,10 @@ def _write_sweep(lib: "Library", item: PreparedSweep, points: list) -> ImportedS
          sweep.sidecar.get("started"), int(sweep.complete), sweep.classification, sweep.reason or None,
          to_json(sidecar), utc_now()))
     sweep_id = new_id
-    points.extend((sweep_id, p, finite_or_none(v), finite_or_none(i), s)
-                  for p, v, i, s in zip(sweep.point, sweep.vgs, sweep.id, sweep.status))
+    directions = sweep.direction if sweep.table.has("direction") else [None] * len(sweep.table)
+    spreads = sweep.table.number("spread_v").tolist()  # NaN (stored NULL) when the record has none
+    points.extend((sweep_id, p, finite_or_none(v), finite_or_none(i), s, d or None, finite_or_none(sv))
+                  for p, v, i, s, d, sv in zip(sweep.point, sweep.vgs, sweep.id, sweep.status, directions, spreads))
     if item.is_dud:
         reason = f"{sweep.classification}: {sweep.reason}" if sweep.reason else str(sweep.classification)
         if state != "rejected" or replaces:
@@ -201,7 +203,8 @@ def import_sessions(lib: "Library", paths: Sequence[str | os.PathLike], *, refit
             if progress is not None:
                 progress(item.sweep.label)
         # every sweep's points in one batch, same transaction (one round trip's worth on PostgreSQL, not one a part)
-        conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status) VALUES (?, ?, ?, ?, ?)", points)
+        conn.executemany("INSERT INTO sweep_points (sweep_id, point, vgs, id, status, direction, spread_v) "
+                         "VALUES (?, ?, ?, ?, ?, ?, ?)", points)
     lib.connection.refresh_statistics()
     return ImportSummary(sessions=tuple(str(s.path) for s in sessions), sweeps=tuple(results))
 

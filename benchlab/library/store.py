@@ -389,10 +389,11 @@ class Library:
                 sweep = {"id": r[0], "session_path": r[1], "csv_path": r[2], "session_id": r[3], "started": r[4],
                          "complete": bool(r[5]), "classification": r[6], "reason": r[7], "detect_current_a": detect}
                 if with_points:
-                    pts = conn.execute("SELECT point, vgs, id, status FROM sweep_points WHERE sweep_id = ? "
-                                       "ORDER BY point", (r[0],)).fetchall()
+                    pts = conn.execute("SELECT point, vgs, id, status, direction, spread_v FROM sweep_points "
+                                       "WHERE sweep_id = ? ORDER BY point", (r[0],)).fetchall()
                     sweep.update(point=[p[0] for p in pts], vgs=[p[1] for p in pts], id=[p[2] for p in pts],
-                                 status=[p[3] for p in pts])
+                                 status=[p[3] for p in pts], direction=[p[4] for p in pts],
+                                 spread_v=[p[5] for p in pts])
                 result.append(sweep)
         return result
 

@@ -326,8 +326,14 @@ def _fittable_sweep(part: PartRecord, sweeps: list[dict[str, Any]], sweep_ids: l
             continue
         vgs = np.array([math.nan if v is None else v for v in sweep["vgs"]], dtype=float)
         ids = np.array([math.nan if i is None else i for i in sweep["id"]], dtype=float)
+        # direction and spread_v as recorded (NULL in libraries imported before schema version 6: the
+        # direction is then inferred, and the VGS noise estimated from the residuals)
+        directions = sweep.get("direction") or []
+        direction = directions if directions and all(d in ("up", "down") for d in directions) else None
+        spread = np.array([math.nan if s is None else s for s in sweep.get("spread_v") or []], dtype=float)
         try:
             points = fit_points(vgs, ids, status=sweep["status"], point=sweep["point"], rows=sweep["point"],
+                                direction=direction, spread_v=spread if spread.size == vgs.size else None,
                                 detect_current=sweep.get("detect_current_a"), ordered=True,
                                 source=f"{part.lot}/{part.label}")
             if len(points) >= 5:

@@ -105,3 +105,29 @@ def test_a_bad_row_is_one_error_naming_it(tmp_path):
     path.write_text("\n".join(lines) + "\n")
     with pytest.raises(InputError, match=r"Q01.csv, row 20: expected 9 fields, found 3"):
         read_table(path)
+
+
+def test_fit_import_and_refit_weight_by_the_same_stated_vgs_noise(tmp_path):
+    # the record states its VGS noise (spread_v); `benchlab fit`, the library import and the library refit all
+    # read it through the one reader and fit with it, so the three quote the same errors (docs/extraction.md)
+    from benchlab.services import library as library_service
+    from benchlab.services.fitting import fit_files
+
+    _record(tmp_path / "s", cut=False)
+    sidecar = tmp_path / "s" / "Q01.json"
+    data = json.loads(sidecar.read_text())
+    data.update(complete=True, classification="good")
+    sidecar.write_text(json.dumps(data))
+    (fitted,) = fit_files([tmp_path / "s"], model="theta").records
+    db = tmp_path / "lib.db"
+    library_service.import_sessions(db, [str(tmp_path / "s")], model="theta")
+    imported = library_service.list_parts(db)[0]
+    library_service.refit(db, model="theta")
+    refitted = library_service.list_parts(db)[0]
+    for part in (imported, refitted):
+        assert part.params.vth == pytest.approx(fitted.result.vth, abs=1e-12)
+        assert part.stderr["vth"] == pytest.approx(fitted.result.stderr["vth"], rel=1e-9)
+    stored = library_service.open_library(db)
+    with stored as lib:
+        (sweep,) = lib.sweeps(lib.parts(state=None)[0])
+    assert sweep["direction"][-1] == "up" and sweep["spread_v"][-1] is not None
