@@ -126,6 +126,49 @@ class PartVerdict:
         return "PASS" if self.passed else "FAIL"
 
 
+# --------------------------------------------------------------------------------------------- heating
+# a rise above this (over 55 degC in a 25 degC room) makes a part's metal tab hurt to touch (common practice)
+HOT_RISE_K = 30.0
+
+
+@dataclass(frozen=True)
+class PartHeating:
+    """The thermal resistance behind a part's estimated temperature rise, and where it came from."""
+
+    rth_k_per_w: float
+    measured: bool
+    source: str
+
+    def rise_k(self, power_w: float) -> float:
+        """Temperature rise at ``power_w`` once settled, P x Rth (K): an upper bound for a short sweep."""
+        return power_w * self.rth_k_per_w
+
+    def hot(self, power_w: float) -> bool:
+        """True when ``power_w`` could make the part too hot to touch (rise at least ``HOT_RISE_K``)."""
+        return self.rise_k(power_w) >= HOT_RISE_K
+
+    def describe(self) -> str:
+        if self.measured:
+            return f"Rth {self.rth_k_per_w:.3g} K/W {self.source}"
+        return f"Rth {self.rth_k_per_w:.3g} K/W assumed, not measured ({self.source})"
+
+
+def part_heating(library: str | Path | None, lot: str, label: str) -> PartHeating:
+    """The Rth for the part ``lot/label``: its newest measured value in the library (``benchlab thermal rth``,
+    table part_thermal), else the designer's default assumption, marked as assumed."""
+    from benchlab.design.part_thermal import PACKAGE_RTH_K_PER_W
+    from benchlab.services.thermal import library_thermal
+
+    try:
+        rows = library_thermal(library, f"{lot}/{label}")
+    except BenchlabError:  # a library out of reach: the sweep goes on with the assumption
+        rows = []
+    for row in rows:
+        if row["quantity"] == "rth" and row["value"] is not None and row["source"].startswith("measured"):
+            return PartHeating(float(row["value"]), True, row["source"])
+    return PartHeating(PACKAGE_RTH_K_PER_W, False, "a free-standing TO-220-like package")
+
+
 def leakage_of(outcome: SweepOutcome) -> float | None:
     """The largest current measured far below threshold (at or under LEAK_VGS_FRACTION of VGS at the
     reference current), the quantity the classifier calls leakage; None without a reference point."""
@@ -399,6 +442,6 @@ def hands_free(handle, plan, window: AcceptanceWindow, labels: LabelPattern, *, 
     return state
 
 
-__all__ = ["AcceptanceWindow", "HandsFreeSettings", "LabelPattern", "PartVerdict", "abort", "bench_summary",
-           "hands_free", "judge", "leakage_of", "library_rows", "load_next_sim_part", "output_states", "part_curve",
-           "store"]
+__all__ = ["AcceptanceWindow", "HOT_RISE_K", "HandsFreeSettings", "LabelPattern", "PartHeating", "PartVerdict", "abort",
+           "bench_summary", "hands_free", "judge", "leakage_of", "library_rows", "load_next_sim_part", "output_states",
+           "part_curve", "part_heating", "store"]

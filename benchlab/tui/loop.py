@@ -6,6 +6,7 @@ tag, and only its own ``SweepFinished``, posted from the worker's ``finally`` af
 
 from __future__ import annotations
 
+import math
 import threading
 import time
 
@@ -26,6 +27,8 @@ class LoopActions:
     """Mixed into :class:`benchlab.tui.app.BenchlabApp`."""
 
     _live_next_at = 0.0
+    _peak_power = 0.0  # W, the most the part in the fixture dissipated in this sweep
+    _heating = None  # services.station.PartHeating of the part being swept
     _live_event = None  # the newest point not yet shown in the live line
 
     # ----------------------------------------------------------------------------------- characterize
@@ -68,7 +71,7 @@ class LoopActions:
             return
         self.verdict = None
         tag = self._start_tag("char-plot")
-        self._q("#char-result", Static).update(f"Sweeping {label}... (Ctrl+K aborts)", layout=False)  # a panel of fixed size
+        self._q("#char-result", Static).update(f"Sweeping {label}... (Ctrl+K aborts)", layout=False)  # fixed size
         self._sweep_worker(tag, label, lot, window)
 
     def _start_tag(self, plot_id: str) -> int:
@@ -77,6 +80,7 @@ class LoopActions:
         self.cancel_event = threading.Event()
         self.idle_event.clear()
         self.points_seen = 0
+        self._peak_power, self._heating = 0.0, None
         self._q(f"#{plot_id}").clear_points()
         self._status()
         return tag
@@ -86,6 +90,7 @@ class LoopActions:
         from benchlab.services import characterize, station
 
         def sweep():
+            self.feed.push(tag, station.part_heating(self.options.library, lot, label))
             outcome, csv_path = characterize.sweep_one(
                 self.handle, self.plan, label, lot=lot, sessions_root=self.options.sessions,
                 operator=self.options.operator, on_event=self.feed.sink(tag),
@@ -113,6 +118,7 @@ class LoopActions:
     @_quiet
     def _take_events(self, final: bool = False) -> None:
         """The redraw tick (and, ``final``, a sweep's end): take the engine's events the sweep thread collected."""
+        from benchlab.services.station import PartHeating
         from benchlab.sweep.records import PointMeasured, SweepDone
 
         vgs, ids, last, new_curve = [], [], None, False
@@ -127,6 +133,11 @@ class LoopActions:
                 vgs.append(event.point.vgs)
                 ids.append(event.point.id)
                 last = event
+                power = event.point.vgs * event.point.id  # diode-connected: VDS = VGS
+                if math.isfinite(power):
+                    self._peak_power = max(self._peak_power, power)
+            elif isinstance(event, PartHeating):
+                self._heating = event  # the part's Rth, measured or assumed, looked up as its sweep began
         plot_id = "hf-plot" if self.hands_free_on else "char-plot"
         plot = self._plots.get(plot_id)
         if plot is None:  # looked up once, not on every tick
@@ -145,7 +156,9 @@ class LoopActions:
         if self._live_event is not None and not self.hands_free_on and (final or now >= self._live_next_at):
             event, self._live_event = self._live_event, None
             self._live_next_at = now + 1.0 / LIVE_TEXT_HZ  # each change redraws part of the screen
-            self._q(CharacterizeView).live(event.count, event.elapsed_s, event.point.vgs * event.point.id)
+            power = event.point.vgs * event.point.id
+            self._q(CharacterizeView).live(event.count, event.elapsed_s, power if math.isfinite(power) else None,
+                                           self._peak_power, self._heating)
 
     @_quiet
     def on_sweep_finished(self, message: SweepFinished) -> None:

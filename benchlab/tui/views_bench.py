@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from rich.markup import escape
 from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Input, Label, Static
@@ -66,10 +67,23 @@ class CharacterizeView(Horizontal):
             yield Static("", id="char-live", classes="live")
         yield Static("Put a part in the fixture and press r.", id="char-result", classes="panel result")
 
-    def live(self, count: int, elapsed_s: float, power_w: float | None) -> None:
-        power = f"   part power {format_si(power_w, 'W')}" if power_w is not None else ""
-        self.query_one("#char-live", Static).update(f"points {count}   elapsed {elapsed_s:.1f} s{power}"
-                                                    "   temperature rise: not known on this bench", layout=False)
+    def live(self, count: int, elapsed_s: float, power_w: float | None, peak_w: float | None, heating=None) -> None:
+        """Point count, time, the part's power and its estimated temperature rise (``heating``: its Rth)."""
+        lines = [f"points {count}   elapsed {elapsed_s:.1f} s"]
+        if power_w is not None and peak_w is not None:
+            lines[0] += f"   part power {format_si(power_w, 'W')}, peak {format_si(peak_w, 'W')}"
+        if heating is None or power_w is None or peak_w is None:
+            lines.append("temperature rise: not known (no Rth)")
+        else:
+            caution = "  [b reverse] CAUTION: may be hot to touch [/]" if heating.hot(peak_w) else ""
+            lines.append(f"temperature rise (P x Rth) {_kelvin(heating.rise_k(power_w))} now, "
+                         f"{_kelvin(heating.rise_k(peak_w))} at the peak{caution}")
+            lines.append(escape(heating.describe()))
+        self.query_one("#char-live", Static).update("\n".join(lines), layout=False)  # fixed height: no layout
+
+
+def _kelvin(rise: float) -> str:
+    return f"{rise:.2f} K" if rise < 10 else f"{rise:.0f} K"
 
 
 class HandsFreeView(Vertical):
