@@ -136,7 +136,7 @@ async def test_hands_free_bag_of_ten_with_a_part_pulled(tmp_path):
     pulled = [t for t in removed if "pulled out" in t]
     undetected = [t for t in removed if "not detected" in t]
     # every part of the bag went through the fixture: swept, pulled mid-sweep, or an open part the probe cannot see
-    assert len(swept) + len(pulled) + len(undetected) == 10 and len(pulled) == 1
+    assert len(swept) + len(pulled) + len(undetected) == 10 and len(pulled) == 1, (removed, lines)
     assert len(lines) == len(swept) + len(pulled)
     assert sum("LOST CONTACT" in line and "not stored" in line for line in lines) == 1
     stored = list_parts(str(tmp_path / "lib.db"), state="all")
