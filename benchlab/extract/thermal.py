@@ -12,9 +12,12 @@ correlation between a fit's Vth and KP is carried into the ZTC point.
 
 Thermal resistance by the electrical method (JEDEC JESD51-1, "Integrated Circuit Thermal Measurement
 Method - Electrical Test Method (Single Semiconductor Device)"): a K-factor (dVGS/dT at a small sense
-current), a junction rise dTj = dV / K and Rth = dTj / P; the voltage at the switching instant is
-extrapolated from the early cooling readings against the square root of the time since the switch
-(:func:`extrapolate_to_switch`; the usual approximation, from memory).
+current), a junction rise dTj = dV / K and Rth = (dTj - dTx) / P, where dTx is how much the reference point
+warmed during heating (JEDEC's dictionary entry "thermal impedance, junction-to-reference point":
+Z = (TJf - TJi - dTX) / PH, PH = IH VH; jedec.org/standards-documents/dictionary, citing JESD24-3 and JESD24-4).
+The voltage at the switching instant is extrapolated from the early cooling readings against the square root
+of the time since the switch (:func:`extrapolate_to_switch`). That correction is from memory: the text of
+JESD51-1 was not found to check it (see docs/thermal.md).
 """
 
 from __future__ import annotations
@@ -227,6 +230,9 @@ def extrapolate_to_switch(times_s: Sequence[float], volts: Sequence[float]) -> L
 
     The junction cools from the moment heating stops, so the first reading already sees part of the fall;
     extrapolating against sqrt(t) (one-dimensional heat flow near the die) recovers the voltage at t = 0.
+    From memory: early on, the die cools as the surface of a semi-infinite body whose heat flux is switched off,
+    a fall proportional to sqrt(t) (the textbook constant-flux result, by superposition); JESD51-1's own
+    wording of the correction could not be checked (docs/thermal.md).
     """
     t = np.asarray(times_s, dtype=float)
     if np.any(t <= 0):
@@ -252,6 +258,7 @@ class RthResult:
     reference_k: float
     heatsink_k_per_w: float = 0.0
     pulsed_dc: dict = field(default_factory=dict)
+    reference_rise_k: float = 0.0  # the fixture's warming during heating, subtracted (JEDEC's dTX)
     notes: tuple[str, ...] = ()
 
     def to_dict(self) -> dict[str, Any]:
@@ -263,7 +270,7 @@ class RthResult:
 
 def rth_electrical(*, cal_temps_k: Sequence[float], cal_volts: Sequence[float], cal_sigma_v: float,
                    cal_sigma_k: float, cold_v: float, cooling_t_s: Sequence[float], cooling_v: Sequence[float],
-                   power_w: float, heatsink_k_per_w: float = 0.0) -> dict[str, float]:
+                   power_w: float, heatsink_k_per_w: float = 0.0, reference_rise_k: float = 0.0) -> dict[str, float]:
     """Rth from a K-factor calibration and the cooling readings after heating (JESD51-1 electrical method).
 
     Parameters
@@ -280,6 +287,9 @@ def rth_electrical(*, cal_temps_k: Sequence[float], cal_volts: Sequence[float], 
         Heating power at steady state (W).
     heatsink_k_per_w : float
         Heat sink between the part and the reference point during the measurement; subtracted.
+    reference_rise_k : float
+        How much the reference point (the fixture's sensed temperature) warmed from before heating to the end
+        of it; subtracted from the junction rise (dTX of JEDEC's junction-to-reference definition).
 
     Returns
     -------
@@ -301,11 +311,12 @@ def rth_electrical(*, cal_temps_k: Sequence[float], cal_volts: Sequence[float], 
     cooling = extrapolate_to_switch(cooling_t_s, cooling_v)
     rise = (cooling.intercept - cold_v) / k
     rise_first = (float(cooling_v[0]) - cold_v) / k
-    rth = rise / power_w - heatsink_k_per_w
+    rth = (rise - reference_rise_k) / power_w - heatsink_k_per_w
     rise_err = math.hypot(cooling.intercept_stderr, cal_sigma_v) / abs(k)
     rth_err = abs(rise / power_w) * math.hypot(k_err / abs(k), rise_err / abs(rise) if rise else 0.0)
     # the cooling correction rests on an approximation (sqrt(t) heat flow): half of it counts as its uncertainty
     correction = (rise - rise_first) / power_w
     rth_err = math.hypot(rth_err, correction / 2.0)
-    return {"rth": rth, "rth_stderr": rth_err, "rth_uncorrected": rise_first / power_w - heatsink_k_per_w,
+    return {"rth": rth, "rth_stderr": rth_err,
+            "rth_uncorrected": (rise_first - reference_rise_k) / power_w - heatsink_k_per_w,
             "k_factor": k, "k_factor_stderr": k_err, "junction_rise_k": rise, "delay_s": float(cooling_t_s[0])}

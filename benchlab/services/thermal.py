@@ -281,7 +281,8 @@ def rth_result(raw: dict[str, Any], plan: RthPlan) -> RthResult:
     numbers = rth_electrical(cal_temps_k=raw["cal_temps_k"], cal_volts=raw["cal_volts"],
                              cal_sigma_v=raw["cal_sigma_v"], cal_sigma_k=raw["cal_sigma_k"], cold_v=raw["cold_v"],
                              cooling_t_s=raw["cooling_t_s"], cooling_v=raw["cooling_v"], power_w=raw["power_w"],
-                             heatsink_k_per_w=plan.heatsink_k_per_w)
+                             heatsink_k_per_w=plan.heatsink_k_per_w,
+                             reference_rise_k=raw.get("reference_rise_k", 0.0))
     measured = raw["v_heat_dc"] - raw["v_heat_cold"]
     predicted = raw["dvdt_heat"] * numbers["junction_rise_k"]
     sigma = abs(predicted) * numbers["k_factor_stderr"] / abs(numbers["k_factor"]) + raw["cal_sigma_v"] * 2
@@ -300,7 +301,8 @@ def rth_result(raw: dict[str, Any], plan: RthPlan) -> RthResult:
                      power_w=raw["power_w"], junction_rise_k=numbers["junction_rise_k"], delay_s=numbers["delay_s"],
                      sense_current_a=plan.sense_current_a, heating_current_a=raw["heating_current_a"],
                      heating_s=raw["heating_s"], reference_k=raw["reference_k"],
-                     heatsink_k_per_w=plan.heatsink_k_per_w, pulsed_dc=check, notes=tuple(notes))
+                     heatsink_k_per_w=plan.heatsink_k_per_w, pulsed_dc=check, notes=tuple(notes),
+                     reference_rise_k=raw.get("reference_rise_k", 0.0))
 
 
 def _finish(outcome: ThermalOutcome, session_path: Path, library: str | None) -> ThermalOutcome:

@@ -243,6 +243,13 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
             previous = t
             cooling.append(v)
         rb.set_output(False)
+        # how much the reference point warmed while the part heated (JEDEC's dTX, subtracted from the rise); a
+        # sensor typed in by hand is not asked again (the block is held by the operator's controller)
+        reference_rise = 0.0
+        if not thermal.manual_sensor:
+            after_k = thermal.read_k()
+            log.add("sensor", temperature_k=after_k, after_heating=True)
+            reference_rise = after_k - back.temperature_k
     finally:
         rb.safe_off()
         bench.safe_off()
@@ -253,4 +260,4 @@ def run_rth(plan: RthPlan, bench: Any, thermal, clock, limits: Limits, log: Ther
             "cal_sigma_k": max(reference.sigma_k, hot.sigma_k), "cold_v": v_cold2, "cooling_t_s": times,
             "cooling_v": cooling, "power_w": power_w, "heating_current_a": i_heat, "heating_s": heated_s,
             "reference_k": back.temperature_k, "v_heat_cold": v_heat_cold, "v_heat_dc": trace[-1],
-            "dvdt_heat": dvdt_heat, "notes": notes}
+            "dvdt_heat": dvdt_heat, "notes": notes, "reference_rise_k": reference_rise}

@@ -161,6 +161,7 @@ class ThermalActions:
             setpoint = getattr(self, "_thermal_setpoint", None)
             aim = f", setpoint {setpoint - KELVIN:.2f} degC" if setpoint else ""
             when = f" at {values['t_s']:.0f} s of settling" if "t_s" in values else ""
+            when = " at the end of heating" if values.get("after_heating") else when
             lines["fixture"] = f"fixture {values['temperature_k'] - KELVIN:.2f} degC{aim}{when}"
         elif kind == "fixture_setpoint":
             self._thermal_setpoint = values["temperature_k"]

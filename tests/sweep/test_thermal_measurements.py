@@ -215,3 +215,15 @@ def test_rth_on_the_resistor_fixture_lowers_the_heating_current_to_the_supply_li
         assert outcome.rth.rth == pytest.approx(62.0, rel=0.10)  # still right at a smaller rise
     finally:
         handle.close()
+
+
+def test_reference_point_warming_is_subtracted_as_jedec_defines_it():
+    """JEDEC dictionary, "thermal impedance, junction-to-reference point": Z = (TJf - TJi - dTX) / PH, dTX being
+    how much the reference point warmed during heating (jedec.org/standards-documents/dictionary, citing
+    JESD24-3 and JESD24-4). Numbers made up for the arithmetic: K = -2 mV/K, a 0.2 V fall = 100 K at 2 W."""
+    from benchlab.extract.thermal import rth_electrical
+
+    common = dict(cal_temps_k=[300.0, 340.0], cal_volts=[2.0, 1.92], cal_sigma_v=1e-5, cal_sigma_k=0.01,
+                  cold_v=2.0, cooling_t_s=[0.01, 0.02, 0.03, 0.04], cooling_v=[1.8] * 4, power_w=2.0)
+    assert rth_electrical(**common)["rth"] == pytest.approx(50.0)
+    assert rth_electrical(**common, reference_rise_k=4.0)["rth"] == pytest.approx(48.0)
