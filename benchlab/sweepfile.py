@@ -162,7 +162,8 @@ class SweepTable:
 
     def fit_points(self, detect_current: float | None = None) -> "FitPoints":
         """The points a fit may use (see :func:`fit_points`)."""
-        return fit_points(self.number("vgs"), self.number("id"), status=self.text("status", "ok"),
+        return fit_points(self.number("vgs"), self.number("id"),
+                          status=self.text("status") if self.has("status") else None,  # none: every point ok
                           point=self.number("point") if self.has("point") else None,
                           direction=self.text("direction") if self.has("direction") else None,
                           spread_v=self.number("spread_v") if self.has("spread_v") else None,
@@ -232,16 +233,22 @@ def read_table(path) -> SweepTable:
     header = [h.strip() for h in header]
     index = _column_index(header, name)
     body = lines[head_at + 1:]
-    rows = [k + 1 for k, line in enumerate(body) if line.strip()]
+    commas = None if quoted else set(map(str.count, body, repeat(",")))
+    if commas is not None and 0 not in commas:  # every line holds a comma: none is blank
+        rows = range(1, len(body) + 1)
+    else:
+        rows = [k + 1 for k, line in enumerate(body) if line.strip()]
+        commas = None
     if len(rows) != len(body):
         body = [body[k - 1] for k in rows]
     truncated = False
     if cut and body and all(c in index for c in RECORD_COLUMNS):
         body, rows, truncated = body[:-1], rows[:-1], True  # the point in flight when the recorder stopped
+        commas = None
     width = len(header)
     if not body:
         cells = []  # a record stopped before its first point
-    elif not quoted and set(map(str.count, body, repeat(","))) == {width - 1}:
+    elif not quoted and (commas if commas is not None else set(map(str.count, body, repeat(",")))) == {width - 1}:
         cells = ",".join(body).split(",")  # the whole table in one split
     else:
         split = _split_rows(body, name) if quoted else [line.split(",") for line in body]
@@ -250,8 +257,8 @@ def read_table(path) -> SweepTable:
             if len(cellrow) < need:
                 raise InputError(f"expected {width} fields, found {len(cellrow)}", path=name, row=row)
         cells = [c for cellrow in split for c in (cellrow + [""] * width)[:width]]
-    table = SweepTable(path=name, header=tuple(header), index=index, rows=np.asarray(rows, dtype=np.int64),
-                       truncated=truncated, _cells=cells)
+    numbers = np.arange(1, len(rows) + 1) if isinstance(rows, range) else np.asarray(rows, dtype=np.int64)
+    table = SweepTable(path=name, header=tuple(header), index=index, rows=numbers, truncated=truncated, _cells=cells)
     _check_ok_points(table)  # every number the fit needs is checked as the file is read
     if table.has("point"):
         _check_point_numbers(table)
