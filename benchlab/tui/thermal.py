@@ -93,7 +93,7 @@ class ThermalActions:
             return parse_quantity(text, unit) if text else default
 
         part = check_name("part label", self._q("#th-part", Input).value.strip())
-        temps = [parse_quantity(t, "") for t in self._q("#th-temps", Input).value.replace(";", ",").split(",")
+        temps = [parse_quantity(t, "degC") for t in self._q("#th-temps", Input).value.replace(";", ",").split(",")
                  if t.strip()]
         return {"part": part, "temps": temps, "heatsink": number("th-heatsink", "K/W", 0.0),
                 "power": number("th-power", "W", None)}
@@ -187,7 +187,7 @@ class ThermalActions:
         result = self._q("#th-result", Static)
         if message.error or outcome is None:
             why = message.error or "stopped"
-            result.update(f"[b red]Stopped[/]: {escape(why)}\nThe output was switched off and the fixture set "
+            result.update(f"[b red]Stopped[/]: {escape(why)}\nThe output is off; a fixture the run had set was set "
                           "back to where it started.")
             self.show_error(why)
             return
