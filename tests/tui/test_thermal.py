@@ -129,3 +129,20 @@ async def test_abort_while_heating_switches_off_at_once_and_the_run_stops(tmp_pa
         assert "Stopped" in str(app.query_one("#th-result").render())
         assert not history.output_was_left_on()
     assert output_log(app)[-1] == "OFF"
+
+
+async def test_bad_input_is_one_error_with_nothing_powered_or_written(tmp_path):
+    app = make_app(tmp_path, fixture="smu")
+    async with app.run_test(size=SIZE) as pilot:
+        await connected(pilot)
+        await pilot.press("f7")
+        await type_into(pilot, "th-temps", "25,abc")
+        await press_outside_fields(pilot, "p")
+        await pilot.pause(0.2)
+        assert app.thermal_tag is None and "error" in app.status_text and "abc" in app.status_text
+        # the simulator's block may go up to 100 degC (its thermal.max_fixture_k): 200 is refused before anything
+        await type_into(pilot, "th-temps", "25,200")
+        await _run(pilot, "p")
+        assert "max_fixture_k" in str(app.query_one("#th-result").render())
+        assert not app.handle.simulator.log.output_was_ever_on()
+        assert not (tmp_path / "sessions").exists()
