@@ -1,11 +1,18 @@
 """Points per part needed to reach a Vth standard error of 2 mV: the adaptive step against a sweep evenly spaced
 in supply volts, side by side on the same simulated parts (resistor fixture, time scale 0).
 
-For each part and each budget N, the adaptive sweep aims at N log-spaced currents up to 50 mA (its search for
-conduction counts too: every point taken is counted), and the even sweep takes N supply voltages from 0 V to the
-supply voltage the adaptive sweep needed for 50 mA. Each sweep's conducting points are fitted (model auto) and
-the smallest point count whose Vth standard error is 2 mV or less is kept. Prints the median over the parts and
-the ratio even/adaptive. Run: ``python benchmarks/bench_adaptive_points.py [--parts 6]``.
+Three ways, every point taken counted (the search for conduction too):
+
+- ``fit``: the adaptive sweep aimed at the fit (``vth_stderr_v = 2 mV``, top target 50 mA): a coarse search for
+  conduction along the resistor's load line, then points spread over the two decades below the top, stopping
+  once the running fit (the fitter's own, model auto) reports a Vth standard error of 2 mV or less;
+- ``targets``: the adaptive sweep of evenly spread log(current) targets up to 50 mA, at the smallest budget N
+  that reaches 2 mV;
+- ``even``: N supply voltages evenly from the start to the supply voltage the ``targets`` sweep needed for 50 mA,
+  at the smallest N that reaches 2 mV.
+
+Each sweep's conducting points are fitted (model auto). Prints the median over the parts and the ratios to
+``even``. Run: ``python benchmarks/bench_adaptive_points.py [--parts 6] [--start-v 2.0]``.
 """
 
 from __future__ import annotations
@@ -23,6 +30,7 @@ from benchlab.errors import BenchlabError  # noqa: E402
 from benchlab.extract.fit import fit_sweep  # noqa: E402
 from benchlab.instruments.config import simulator_bench_config  # noqa: E402
 from benchlab.services.characterize import build_plan, connect  # noqa: E402
+from benchlab.services.fitting import running_vth_stderr  # noqa: E402
 from benchlab.sim.bench import SimBench, SimConfig  # noqa: E402
 from benchlab.sweep.engine import run  # noqa: E402
 
@@ -43,28 +51,40 @@ def vth_stderr(points, temperature_k: float) -> float:
     return float(err) if err is not None and np.isfinite(err) else float("inf")
 
 
+def _sweep(part_index: int, start_v: float, mode: str, budget: int):
+    """(points, top supply voltage, part is good) of one sweep of the given kind on a fresh simulated bench."""
+    with SimBench(SimConfig(time_scale=0.0, bag_size=part_index + 1, seed=5)) as sim:
+        config = simulator_bench_config(sim.start(first_port=0), series_resistor_ohm=sim.series_resistor_actual_ohm)
+        handle = connect(config, sim)
+        try:
+            for _ in range(part_index):
+                sim.core.next_part()
+            if sim.current_part is None or sim.current_part.to_dict().get("kind", "good") != "good":
+                return None, None, sim.config.ambient_k
+            common = dict(max_current_a=0.05, down_sweep=False, settle_s=0.0)
+            if mode == "fit":
+                plan = build_plan(config, start_v=start_v, vth_stderr_v=TARGET_V, **common)
+                fit = lambda pts: running_vth_stderr(pts, sim.config.ambient_k)  # noqa: E731
+                return run(plan, handle.bench, vth_stderr=fit).points, None, sim.config.ambient_k
+            adaptive = run(build_plan(config, points=budget, start_v=start_v, **common), handle.bench)
+            top = max(p.v_source for p in adaptive.points)
+            if mode == "targets":
+                return adaptive.points, top, sim.config.ambient_k
+            even = run(build_plan(config, voltages=tuple(np.linspace(start_v, top, budget)), **common), handle.bench)
+            return even.points, top, sim.config.ambient_k
+        finally:
+            handle.close()
+
+
 def needed(part_index: int, mode: str, start_v: float) -> int | None:
-    for budget in BUDGETS:
-        with SimBench(SimConfig(time_scale=0.0, bag_size=part_index + 1, seed=5)) as sim:
-            config = simulator_bench_config(sim.start(first_port=0), series_resistor_ohm=sim.series_resistor_actual_ohm)
-            handle = connect(config, sim)
-            try:
-                for _ in range(part_index):
-                    sim.core.next_part()
-                if sim.current_part is None or sim.current_part.to_dict().get("kind", "good") != "good":
-                    return None
-                common = dict(max_current_a=0.05, down_sweep=False, settle_s=0.0)
-                adaptive = run(build_plan(config, points=budget, start_v=start_v, **common), handle.bench)
-                if mode == "adaptive":
-                    points = adaptive.points
-                else:
-                    top = max(p.v_source for p in adaptive.points)
-                    points = run(build_plan(config, voltages=tuple(np.linspace(start_v, top, budget)), **common),
-                                 handle.bench).points
-                if vth_stderr(points, sim.config.ambient_k) <= TARGET_V:
-                    return len(points)
-            finally:
-                handle.close()
+    """Points the sweep of this kind needed for a Vth standard error within TARGET_V (None: not a good part, or
+    not reached)."""
+    for budget in (0,) if mode == "fit" else BUDGETS:
+        points, _, ambient_k = _sweep(part_index, start_v, mode, budget)
+        if points is None:
+            return None
+        if vth_stderr(points, ambient_k) <= TARGET_V:
+            return len(points)
     return None
 
 
@@ -73,21 +93,21 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--parts", type=int, default=6)
     parser.add_argument("--start-v", type=float, default=0.0, help="where both sweeps start (V)")
     args = parser.parse_args(argv)
-    counts = {"adaptive": [], "even": []}
+    modes = ("fit", "targets", "even")
+    counts: dict[str, list[int]] = {m: [] for m in modes}
     print(f"both sweeps start at {args.start_v:g} V")
     for index in range(args.parts):
-        adaptive, even = needed(index, "adaptive", args.start_v), needed(index, "even", args.start_v)
-        if adaptive is None or even is None:
-            print(f"part {index + 1}: skipped (not a good part, or {TARGET_V * 1e3:g} mV not reached within "
-                  f"{BUDGETS[-1]} points: adaptive {adaptive}, even {even})")
+        got = {m: needed(index, m, args.start_v) for m in modes}
+        if any(v is None for v in got.values()):
+            print(f"part {index + 1}: skipped (not a good part, or {TARGET_V * 1e3:g} mV not reached: {got})")
             continue
-        counts["adaptive"].append(adaptive)
-        counts["even"].append(even)
-        print(f"part {index + 1}: adaptive {adaptive} points, even {even} points")
-    if counts["adaptive"]:
-        a, e = statistics.median(counts["adaptive"]), statistics.median(counts["even"])
-        print(f"median points to Vth stderr <= {TARGET_V * 1e3:g} mV: adaptive {a:g}, even {e:g}; "
-              f"ratio adaptive/even {a / e:.2f}")
+        for m in modes:
+            counts[m].append(got[m])
+        print(f"part {index + 1}: " + ", ".join(f"{m} {got[m]} points" for m in modes), flush=True)
+    if counts["even"]:
+        med = {m: statistics.median(counts[m]) for m in modes}
+        print(f"median points to Vth stderr <= {TARGET_V * 1e3:g} mV: " + ", ".join(f"{m} {med[m]:g}" for m in modes)
+              + f"; ratio fit/even {med['fit'] / med['even']:.2f}, targets/even {med['targets'] / med['even']:.2f}")
     return 0
 
 

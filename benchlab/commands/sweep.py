@@ -57,7 +57,8 @@ class ProgressBar:
 # internal field (or phrase) of a plan error -> the option a user typed
 _PLAN_OPTIONS = {"points must": "--points must", "max_current_a": "--max-current", "min_current_a": "--min-current",
                  "start_v": "--start-v", "use_list": "--list", "pulsed duty cycle": "--pulsed duty cycle",
-                 "current_from": "--current-from", "settle_s": "--settle", "nplc": "--nplc"}
+                 "current_from": "--current-from", "settle_s": "--settle", "nplc": "--nplc",
+                 "vth_stderr_v": "--vth-stderr"}
 _SIM_NAMES = ("fixture", "seed", "time_scale", "fault", "log")
 
 
@@ -91,6 +92,10 @@ def _add_bench_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--settle", type=quantity("s", "nonnegative"), metavar="S",
                    help="wait after each setpoint (e.g. 50ms)")
     p.add_argument("--nplc", type=quantity(""), metavar="N", help="integration time in power-line cycles")
+    p.add_argument("--vth-stderr", type=quantity("V"), metavar="V",
+                   help="adaptive sweep aimed at the fit: points where they inform Vth and KP, stopping once the "
+                        "running fit's Vth standard error is this small (e.g. 2mV) or --points conducting points "
+                        "are taken (docs/sweeps.md)")
     add_sim_options(p, *_SIM_NAMES, title="simulated bench (with --sim)")
     json_option(p, "each swept part")
 
@@ -99,7 +104,7 @@ def _plan_options(args: argparse.Namespace) -> dict[str, Any]:
     return {"points": args.points, "max_current_a": args.max_current, "min_current_a": args.min_current,
             "start_v": args.start_v, "mode": args.mode, "voltages": args.voltages, "use_list": args.list,
             "pulsed_duty": args.pulsed, "down_sweep": args.down_sweep, "current_from": args.current_from,
-            "settle_s": args.settle, "nplc": args.nplc}
+            "settle_s": args.settle, "nplc": args.nplc, "vth_stderr_v": args.vth_stderr}
 
 
 def _outcome_json(outcome: Any, session_path: Any) -> dict[str, Any]:

@@ -112,6 +112,9 @@ def _refuse_unused(plan: SweepPlan, given: dict[str, Any]) -> None:
     """An option given where the plan's mode never uses it is an error, not silence."""
     if given.get("use_list") and plan.mode != SweepMode.VOLTAGES:
         raise InputError(f"use_list uploads a voltage list: it goes with mode 'voltages', not '{plan.mode}'")
+    if "vth_stderr_v" in given and plan.mode != SweepMode.TARGETS:
+        raise InputError(f"vth_stderr_v aims the adaptive sweep at the fit: it goes with mode 'targets', "
+                         f"not '{plan.mode}'")
     if "start_v" in given and plan.mode != SweepMode.TARGETS:
         raise InputError(f"start_v starts the adaptive search: it goes with mode 'targets', not '{plan.mode}'")
 
@@ -390,7 +393,10 @@ def sweep_part(handle: BenchHandle, plan: SweepPlan, session: SessionWriter, lab
                on_event: Callable[[Any], None] | None = None, cancel=None) -> SweepOutcome:
     """Sweep the part in the fixture into ``session`` under ``label``."""
     recorder = session.start_part(label, plan.to_dict())
-    return run(plan, handle.bench, on_event, cancel, label=label, recorder=recorder)
+    running_fit = None
+    if plan.vth_stderr_v is not None:
+        from benchlab.services.fitting import running_vth_stderr as running_fit
+    return run(plan, handle.bench, on_event, cancel, label=label, recorder=recorder, vth_stderr=running_fit)
 
 
 def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path = DEFAULT_SESSIONS_DIR,

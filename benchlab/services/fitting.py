@@ -19,12 +19,14 @@ from benchlab.errors import BenchlabError, FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
-from benchlab.kinds import PartClass
+from benchlab.kinds import PartClass, PointStatus
 from benchlab.names import check_name, check_session_names, inside
 from benchlab.sweepfile import SESSION_FORMAT, SWEEP_FORMAT
 
 # the temperatures fit_batch accepts (150-600 K), in degC
 T_MIN_C, T_MAX_C = 150.0 - 273.15, 600.0 - 273.15
+# the running fit's points: above the sweep's default detection current (SweepPlan.detect_current_a)
+DETECT_FLOOR_A = 2e-6
 # the JSON Lines keys every output line carries first (the full result follows)
 SUMMARY_KEYS = ("file", "label", "model", "vth", "kp", "theta", "vth_cc", "gm", "rms_residual", "stderr", "flags")
 
@@ -378,3 +380,33 @@ def format_table(records: list[FitRecord]) -> str:
                          "does not describe a working transistor")
         lines += [f"  warning: {note}" for note in r.notes]
     return "\n".join(lines)
+
+
+def running_vth_stderr(points, temperature_k: float = T_NOMINAL_K) -> float:
+    """The Vth standard error (V) of a sweep's points so far, as ``benchlab fit`` would report it (model auto).
+
+    The sweep engine's stop rule for ``vth_stderr_v`` (docs/sweeps.md); only ``ok`` points above the detection
+    floor are fitted, as everywhere. ``inf`` when the points are too few or the fit fails.
+
+    Parameters
+    ----------
+    points : sequence of SweepPoint
+        The sweep's points (any order).
+    temperature_k : float
+        Temperature of the part (sets UT in the ekv model).
+    """
+    import numpy as np
+
+    from benchlab.extract.fit import fit_sweep
+
+    ok = sorted((p.vgs, p.id) for p in points if p.status == PointStatus.OK and p.id > DETECT_FLOOR_A)
+    if len(ok) < 4:
+        return math.inf
+    vgs, i_d = (np.array(column) for column in zip(*ok))
+    try:
+        result = fit_sweep(vgs, i_d, temperature_k=temperature_k)
+    except BenchlabError:
+        return math.inf
+    err = result.stderr.get("vth")
+    return float(err) if err is not None and math.isfinite(err) else math.inf
+

@@ -19,6 +19,7 @@ from benchlab.errors import InputError, InstrumentError, SafetyError
 from benchlab.sweep.classify import classify
 from benchlab.sweep.plan import REFERENCE_CURRENT_A, SweepPlan, validate_plan
 from benchlab.sweep.records import PointMeasured, SweepDone, SweepFault, SweepOutcome, SweepPoint, vgs_at_current
+from benchlab.sweep.fit_targeting import first_level, fit_reached, in_setpoint_order, leak_check_level, next_fit_step
 from benchlab.sweep.safety import GuardedSmu, GuardedSupply
 from benchlab.sweep.stepping import StopStepping as _Stop
 from benchlab.sweep.stepping import REFINE_FACTOR, check_reading, next_adaptive_step, overshoots, predict_vgs
@@ -45,8 +46,9 @@ class _Sweep:
     """State of one running sweep (one part)."""
 
     def __init__(self, plan: SweepPlan, instruments: Any, on_event, cancel, label: str, recorder,
-                 clock: Callable[[], float], sleep: Callable[[float], None]):
+                 clock: Callable[[], float], sleep: Callable[[float], None], vth_stderr=None):
         self.plan = plan
+        self.vth_stderr = vth_stderr
         self.label = label
         self.on_event = on_event or (lambda event: None)
         self.cancel = cancel
@@ -276,17 +278,32 @@ class _Sweep:
         check_reading(self.plan, point, previous)
 
     # ------------------------------------------------------------------ the sweep modes
-    def sweep_targets(self) -> None:
-        """Adaptive: aim at log-spaced currents, predicting each next setpoint from the points so far."""
+    def sweep_targets(self) -> str:
+        """Adaptive: aim at log-spaced currents, predicting each next setpoint from the points so far (or, with
+        ``plan.vth_stderr_v``, at the fit: :mod:`benchlab.sweep.fit_targeting`). Returns why it ended."""
         plan = self.plan
         level = plan.start_v
         search_step, refinements = plan.search_step_v, 0
+        aim_at_fit = plan.vth_stderr_v is not None
+        if aim_at_fit:
+            try:  # the load line's first jump, when the limits allow it; else start_v as usual
+                level = first_level(plan)
+                self.source.check_voltage(level) if plan.fixture == Fixture.RESISTOR else self.source.check_level(level)
+            except SafetyError:
+                level = plan.start_v
         self.source_on_if_continuous()
         ups = [self.measure(level, "up")]
         while True:
-            step = next_adaptive_step(plan, ups, level, search_step)
+            if aim_at_fit:
+                reached = fit_reached(plan, ups, self.vth_stderr)
+                if reached:
+                    self.check_leakage(ups)
+                    return reached
+                step = next_fit_step(plan, ups, level)
+            else:
+                step = next_adaptive_step(plan, ups, level, search_step)
             if step is None:
-                return
+                return "reached the top target current"
             try:
                 if plan.fixture == Fixture.RESISTOR:
                     self.source.check_voltage(step.level, step.expect_id, step.expect_vgs)
@@ -300,16 +317,30 @@ class _Sweep:
                 conducted = any(p.status == PointStatus.OK and p.id >= plan.detect_floor_a() for p in ups)
                 raise _Stop(f"next setpoint refused by the safety limits ({exc})",
                             interrupted=not conducted) from None
-            point = self.measure(step.level, "up", step.expect_id, step.expect_vgs,
-                                 judge=lambda p: overshoots(plan, ups, p, refinements))
+            # a fit-targeted sweep keeps its first conducting reading, however high: strong inversion informs the fit
+            judge = None if aim_at_fit else (lambda p: overshoots(plan, ups, p, refinements))
+            point = self.measure(step.level, "up", step.expect_id, step.expect_vgs, judge=judge)
             self.check_reading(point, ups)
             if point.status == PointStatus.PROBE:  # back to the last setpoint below conduction, finer steps
                 search_step, refinements = search_step / REFINE_FACTOR, refinements + 1
                 continue
             level = step.level
             ups.append(point)
-            if point.usable and point.id >= plan.max_current_a * 0.98:
+            if not aim_at_fit and point.usable and point.id >= plan.max_current_a * 0.98:
+                return "reached the top target current"
+
+    def check_leakage(self, ups: list[SweepPoint]) -> None:
+        """Fit-targeted sweeps: readings low enough to judge leakage by (at most three, each lower), when the
+        points so far hold none (see :func:`benchlab.sweep.fit_targeting.leak_check_level`)."""
+        for _ in range(3):
+            level = leak_check_level(self.plan, ups)
+            if level is None:
                 return
+            if self.plan.fixture == Fixture.RESISTOR:
+                self.source.check_voltage(level)
+            else:
+                self.source.check_level(level)
+            ups.append(self.measure(level, "up"))
 
     def sweep_levels(self, levels, direction: str, expects=None) -> None:
         """Step through explicit levels (voltages, or currents on a SMU forcing current)."""
@@ -395,8 +426,7 @@ class _Sweep:
     def body(self) -> str:
         plan = self.plan
         if plan.mode == SweepMode.TARGETS:
-            self.sweep_targets()
-            reason = "reached the top target current"
+            reason = self.sweep_targets()
         elif plan.mode == SweepMode.CURRENTS:
             self.sweep_levels(plan.forced_currents(), "up")
             reason = "swept every target current"
@@ -411,7 +441,8 @@ class _Sweep:
     def outcome(self, complete: bool, stop_reason: str, failure: str | None, error: str | None,
                 problems: list[str]) -> SweepOutcome:
         plan = self.plan
-        verdict = classify(self.points, detect_current_a=plan.detect_floor_a(), leak_current_a=plan.leak_current_a,
+        judged = in_setpoint_order(self.points) if plan.vth_stderr_v is not None else self.points
+        verdict = classify(judged, detect_current_a=plan.detect_floor_a(), leak_current_a=plan.leak_current_a,
                            reference_current_a=REFERENCE_CURRENT_A, failure=failure, fixture=plan.fixture)
         kind, reason = verdict.kind, verdict.reason
         if not complete:
@@ -423,7 +454,7 @@ class _Sweep:
         return SweepOutcome(label=self.label, complete=complete, stop_reason=stop_reason,
                             classification=kind, reason=reason, points=tuple(self.points),
                             powered_s=self.source.powered_s, elapsed_s=self.clock() - self.t0,
-                            vgs_at_ref=vgs_at_current(self.points, REFERENCE_CURRENT_A, plan.detect_floor_a()),
+                            vgs_at_ref=vgs_at_current(judged, REFERENCE_CURRENT_A, plan.detect_floor_a()),
                             reference_current_a=REFERENCE_CURRENT_A, error=error,
                             shutdown_problems=tuple(problems))
 
@@ -458,7 +489,8 @@ def preflight(plan: SweepPlan, instruments: Any) -> None:
 
 def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | None = None, cancel=None, *,
         label: str = "part", recorder=None, clock: Callable[[], float] = time.monotonic,
-        sleep: Callable[[float], None] = time.sleep) -> SweepOutcome:
+        sleep: Callable[[float], None] = time.sleep, vth_stderr: Callable[[list], float] | None = None
+        ) -> SweepOutcome:
     """Sweep one diode-connected part and return how it went.
 
     Parameters
@@ -480,6 +512,9 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
         :class:`benchlab.sweep.session.SweepRecorder`.
     clock, sleep : callable
         Injected time source and wait (tests run without real waits).
+    vth_stderr : callable, optional
+        ``vth_stderr(points) -> float``: the running fit's Vth standard error (V) of the points so far;
+        needed by a plan with ``vth_stderr_v`` (the services pass the fitter's).
 
     Returns
     -------
@@ -493,7 +528,9 @@ def run(plan: SweepPlan, instruments: Any, on_event: Callable[[Any], None] | Non
         ``KeyboardInterrupt``.
     """
     validate_plan(plan)
-    sweep = _Sweep(plan, instruments, on_event, cancel, label, recorder, clock, sleep)
+    if plan.vth_stderr_v is not None and vth_stderr is None:
+        raise InputError("a sweep aimed at a Vth standard error (vth_stderr_v) needs the running fit (vth_stderr)")
+    sweep = _Sweep(plan, instruments, on_event, cancel, label, recorder, clock, sleep, vth_stderr)
     complete, failure, error, stop_reason = False, None, None, "not started"
     try:
         sweep.setup()

@@ -118,6 +118,10 @@ class SweepPlan:
     max_duration_s : float or None
         Time limit of one sweep (s); past it the sweep stops (output off, record incomplete), so slow
         instruments cannot keep a part powered indefinitely. None: no limit.
+    vth_stderr_v : float or None
+        ``targets`` mode: aim the points at the fit instead of at evenly spread currents, and stop once the
+        running fit's Vth standard error is at or below this (V), or after ``points`` conducting points
+        (:mod:`benchlab.sweep.fit_targeting`). None: the evenly spread targets.
     """
 
     fixture: str
@@ -148,6 +152,7 @@ class SweepPlan:
     leak_current_a: float = 20e-6
     max_measured_points: int = 200
     max_duration_s: float | None = 900.0
+    vth_stderr_v: float | None = None
 
     def target_currents(self) -> np.ndarray:
         """The target currents (A), evenly spread in log(current), ascending."""
@@ -272,6 +277,13 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
         raise InputError("a pulsed sweep cannot run as an uploaded list (the output must switch per point)")
     if plan.max_duration_s is not None and not (math.isfinite(plan.max_duration_s) and plan.max_duration_s > 0):
         raise InputError(f"max_duration_s must be a positive number of seconds, got {plan.max_duration_s!r}")
+    if plan.vth_stderr_v is not None:
+        if not (isinstance(plan.vth_stderr_v, (int, float)) and math.isfinite(plan.vth_stderr_v)
+                and 0 < plan.vth_stderr_v <= 1.0):
+            raise InputError(f"vth_stderr_v must be a standard error above 0 and at most 1 V, got {plan.vth_stderr_v!r}")
+        if plan.mode != SweepMode.TARGETS:
+            raise InputError(f"vth_stderr_v aims an adaptive sweep at the fit: it goes with mode 'targets', "
+                             f"not '{plan.mode}'")
     if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
     if plan.fixture == Fixture.RESISTOR:
