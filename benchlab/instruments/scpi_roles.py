@@ -218,11 +218,16 @@ class ScpiInstrument:
         if self._pending is not None:
             return self._ask_with_check(operation, lines[-1], idempotent, timeout_ms)
         retries = getattr(self.transport, "retry_count", 0)
+        reply = self._query_or_its_error(lines[-1], lines[-1], idempotent, timeout_ms)
+        if getattr(self.transport, "retry_count", 0) != retries:
+            self._drop_transient_errors(lines[-1])  # the unanswered first try may have queued one
+        return reply
+
+    def _query_or_its_error(self, text: str, command: str, idempotent: bool, timeout_ms: int | None) -> str:
+        """Send a query message; on a timeout raise the error the instrument queued instead (a refused query
+        sends nothing), naming ``command``, or the timeout when the queue is empty."""
         try:
-            reply = self.transport.query(lines[-1], idempotent=idempotent, timeout_ms=timeout_ms)
-            if getattr(self.transport, "retry_count", 0) != retries:
-                self._drop_transient_errors(lines[-1])  # the unanswered first try may have queued one
-            return reply
+            return self.transport.query(text, idempotent=idempotent, timeout_ms=timeout_ms)
         except InstrumentTimeout as timeout:
             try:
                 errors = self.read_error_queue()
@@ -230,8 +235,8 @@ class ScpiInstrument:
                 raise timeout from None
             if not errors:
                 raise
-            code, text = errors[0]
-            raise InstrumentReportedError(code, text, command=lines[-1], resource=self.resource) from timeout
+            code, message = errors[0]
+            raise InstrumentReportedError(code, message, command=command, resource=self.resource) from timeout
 
     def _ask_with_check(self, operation: str, query: str, idempotent: bool, timeout_ms: int | None) -> str:
         """The query with the deferred setting's error-queue query chained to it: one round trip for both."""
@@ -239,17 +244,7 @@ class ScpiInstrument:
         self._pending = None
         (error_query,) = self.profile.lines("error_query")
         retries = getattr(self.transport, "retry_count", 0)
-        try:
-            reply = self.transport.query(chain([query, error_query]), idempotent=idempotent, timeout_ms=timeout_ms)
-        except InstrumentTimeout as timeout:
-            try:
-                errors = self.read_error_queue()
-            except BenchlabError:
-                raise timeout from None
-            if not errors:
-                raise
-            code, text = errors[0]
-            raise InstrumentReportedError(code, text, command=f"{command}; {query}", resource=self.resource) from timeout
+        reply = self._query_or_its_error(chain([query, error_query]), f"{command}; {query}", idempotent, timeout_ms)
         *answer, check = split_replies(reply)
         lost = (getattr(self.transport, "retry_count", 0) != retries
                 or getattr(self.transport, "reopen_count", 0) != reopens or not answer)

@@ -85,13 +85,19 @@ def test_exact_scpi_with_and_without_pipelining(role_setup, profiles, pipelined,
         assert got == result
 
 
-def test_a_refused_setpoint_is_raised_with_the_reading_that_carried_its_check(role_setup, profiles):  # noqa: F811
+def _refused_setpoint_sent(role_setup, profiles):  # noqa: F811
+    """A pipelining SMU that has just written a setpoint the fake refuses (-222, its check still pending)."""
     # SCPI-1999 vol. 2 ch. 21: -222 data out of range, read from the error queue
     server, smu = role_setup("smu", _on(profiles["smu"]))
     server.rejects["SOUR:VOLT 9"] = (-222, "Data out of range")
     smu.configure_source("voltage", 0.1)
     server.clear_log()
     smu.set_level(9)
+    return server, smu
+
+
+def test_a_refused_setpoint_is_raised_with_the_reading_that_carried_its_check(role_setup, profiles):  # noqa: F811
+    server, smu = _refused_setpoint_sent(role_setup, profiles)
     with pytest.raises(InstrumentReportedError) as caught:
         smu.measure()
     assert (caught.value.code, caught.value.command) == (-222, "SOUR:VOLT 9")
@@ -99,11 +105,7 @@ def test_a_refused_setpoint_is_raised_with_the_reading_that_carried_its_check(ro
 
 
 def test_a_refused_setpoint_stops_the_next_one_from_going_out(role_setup, profiles):  # noqa: F811
-    server, smu = role_setup("smu", _on(profiles["smu"]))
-    server.rejects["SOUR:VOLT 9"] = (-222, "Data out of range")
-    smu.configure_source("voltage", 0.1)
-    server.clear_log()
-    smu.set_level(9)
+    server, smu = _refused_setpoint_sent(role_setup, profiles)
     with pytest.raises(InstrumentReportedError):
         smu.set_level(1)
     time.sleep(0.05)  # room for a line that must not come
