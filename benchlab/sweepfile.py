@@ -175,8 +175,11 @@ _CANONICAL_WORDS = frozenset(str(s) for s in PointStatus) | {"up", "down"}
 
 def _read_text(path: str) -> str:
     try:
-        with open(path, encoding="utf-8-sig") as handle:  # universal newlines: \r\n reads as \n
-            return handle.read()
+        # read as bytes and decoded in one go (about twice as fast as a text-mode file); newlines as a
+        # text-mode file gives them: \r\n and a lone \r read as \n
+        with open(path, "rb") as handle:
+            text = handle.read().decode("utf-8-sig")
+        return text.replace("\r\n", "\n").replace("\r", "\n") if "\r" in text else text
     except FileNotFoundError:
         raise InputError("no such file", path=path) from None
     except IsADirectoryError:
