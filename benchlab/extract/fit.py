@@ -23,6 +23,7 @@ import numpy as np
 from benchlab.choices import DEFAULT_CC_CURRENT, MODEL_CHOICES
 from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
+from benchlab.extract.diagnostics import MIN_DECADES
 from benchlab.extract.eiv import effective_variance_fit
 from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked
 from benchlab.extract.result import FitResult
@@ -161,6 +162,63 @@ def _choose(criteria: dict[str, float]) -> tuple[str, str]:
     return chosen, f"{chosen}: {why} (AICc relative to it: {others})"
 
 
+def _rank(points: list[_Points], masks: list[np.ndarray], criteria: list[dict], ut: float, *,
+          ekv_from_theta: bool) -> dict[str, tuple]:
+    """Fit every candidate on the given windows and fill each sweep's AICc in ``criteria``.
+
+    Returns ``{model: (fit, {sweep index: row})}`` for the sweeps each candidate could be fitted to.
+    """
+    fits: dict[str, tuple] = {}
+    for candidate in AUTO_CANDIDATES:
+        usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
+        if not usable:
+            continue
+        start = None
+        if candidate == "ekv" and ekv_from_theta and "theta" in fits:
+            # on the top decades the theta candidate already fitted these points: ekv starts from it (its own
+            # start would fit a theta law again), n from the steepest log-current slope
+            fit_t, row_t = fits["theta"]
+            if all(b in row_t for b in usable):
+                stacked = _window_only(*_stack([points[b] for b in usable], [masks[b] for b in usable])[:3])
+                start = ekv_start_from_theta(stacked[0], stacked[1], stacked[2],
+                                             np.array([fit_t.params[row_t[b]] for b in usable]), ut)
+        fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut)
+        for row, b in enumerate(usable):
+            criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]), len(PARAM_NAMES[candidate]))
+        fits[candidate] = (fit, {b: row for row, b in enumerate(usable)})
+    return fits
+
+
+def _decades(i_d: np.ndarray) -> float:
+    return float(math.log10(i_d.max() / i_d.min())) if i_d.size > 1 and i_d.min() > 0 else 0.0
+
+
+def _rank_whole_curves(points, ranked, final_model, reasons, criteria, fits, ut) -> None:
+    """Where the full-curve model wins on the top decades and the sweep spans the range it needs, rank again on
+    the whole curve and report the winner there (in place).
+
+    A curve that ekv explains better even on the top two decades bends into weak inversion; fitted on those
+    decades alone its slope factor is not determined (``MIN_DECADES``), on the whole curve it is. The laws
+    without a weak-inversion tail are ranked on the same points, so ranking and reporting still share their data.
+    """
+    wider = [b for b in range(len(points)) if final_model[b] == "ekv" and not ranked[b][0].all()
+             and _decades(points[b].id) >= MIN_DECADES["ekv"]]
+    if not wider:
+        return
+    whole = [np.ones(points[b].id.size, dtype=bool) for b in wider]
+    again: list[dict] = [{} for _ in wider]
+    # each candidate from its own start: a theta law fitted to a weak-inversion tail is no start for ekv
+    _rank([points[b] for b in wider], whole, again, ut, ekv_from_theta=False)
+    for k, b in enumerate(wider):
+        final_model[b], why = _choose(again[k])
+        reasons[b] = (f"{why}, on the whole curve ({_decades(points[b].id):.1f} decades); on the top two decades "
+                      f"too: {reasons[b].split(': ', 1)[-1]}")
+        ranked[b] = (whole[k], "default")
+        criteria[b] = again[k]
+        for _, rows in fits.values():
+            rows.pop(b, None)  # its comparison fit was on the other window: the reported fit starts afresh
+
+
 def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start=None,
                ut: float = thermal_voltage(), weighted: bool = False):
     vgs, i_d, mask, valid = _stack(points, masks)
@@ -235,27 +293,11 @@ def fit_batch(sweeps, model: str = "auto", *, at_current: float | None = None,
     fits: dict[str, tuple] = {}
     if model == "auto":
         ranked = [_window("square", p.id, window, at_current) for p in points]
-        masks = [m for m, _ in ranked]
-        for candidate in AUTO_CANDIDATES:
-            usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
-            if not usable:
-                continue
-            start = None
-            if candidate == "ekv" and "theta" in fits:
-                # the theta candidate already fitted these points: ekv starts from it (its own start
-                # would fit a theta law again), n from the steepest log-current slope
-                fit_t, row_t = fits["theta"]
-                if all(b in row_t for b in usable):
-                    stacked = _window_only(*_stack([points[b] for b in usable], [masks[b] for b in usable])[:3])
-                    start = ekv_start_from_theta(stacked[0], stacked[1], stacked[2],
-                                                 np.array([fit_t.params[row_t[b]] for b in usable]), ut)
-            fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut)
-            for row, b in enumerate(usable):
-                criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]),
-                                               len(PARAM_NAMES[candidate]))
-            fits[candidate] = (fit, {b: row for row, b in enumerate(usable)})
+        fits = _rank(points, [m for m, _ in ranked], criteria, ut, ekv_from_theta=True)
         for b in range(len(points)):
             final_model[b], reasons[b] = _choose(criteria[b])
+        if window is None:
+            _rank_whole_curves(points, ranked, final_model, reasons, criteria, fits, ut)
     results: list[FitResult | None] = [None] * len(points)
     for name in MODEL_NAMES:
         members = [b for b, m in enumerate(final_model) if m == name]
