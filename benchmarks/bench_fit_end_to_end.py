@@ -27,11 +27,17 @@ the absolute times, are the result.
 
 from __future__ import annotations
 
+import os
+
+# one thread for numpy's linear algebra on both sides, set before numpy is imported (set later it has no
+# effect: a multi-threaded BLAS then slowed the loop's many small solves on a loaded machine)
+for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_name, "1")
+
 import argparse
 import contextlib
 import io
 import json
-import os
 import resource
 import subprocess
 import sys
@@ -219,5 +225,4 @@ def main_bench() -> None:
 
 
 if __name__ == "__main__":
-    os.environ.setdefault("OMP_NUM_THREADS", "1")
     main_bench()
