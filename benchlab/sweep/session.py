@@ -209,7 +209,9 @@ class SessionWriter:
             n = 1
             while (self.path / f"{label}.interrupted-{n}.csv").exists():
                 n += 1
-            for ext in ("csv", "json"):
+            # the sidecar first, then the CSV (whose name picks n): a process killed between the two leaves the
+            # CSV in place, and the next start moves it beside its sidecar under the same n
+            for ext in ("json", "csv"):
                 old = self.path / f"{label}.{ext}"
                 if old.exists():
                     os.replace(old, self.path / f"{label}.interrupted-{n}.{ext}")

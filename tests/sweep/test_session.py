@@ -114,6 +114,39 @@ def test_resume_keeps_interrupted_records_aside_and_refuses_a_done_part(tmp_path
     assert list(data.sweeps) == ["Q01", "Q02"] and all(s.complete for s in data.sweeps.values())
 
 
+def test_a_kill_while_an_interrupted_record_is_set_aside_never_splits_it(tmp_path, monkeypatch):
+    # SIGKILL between the two renames of start_part (tests/reliability/test_kill_resume.py strikes at random
+    # moments): the record set aside must stay a CSV + sidecar pair under one number
+    session = SessionWriter.create(tmp_path, "lot", planned_count=2)
+    bench = FakeBench()
+    bench.fail_on, bench.fail_after, bench.fail_exc = "read", 20, KeyboardInterrupt()
+    with pytest.raises(KeyboardInterrupt):
+        _sweep_into(session, "Q02", bench)
+    csv_before = (session.path / "Q02.csv").read_bytes()
+    import benchlab.sweep.session as session_module
+
+    renames = []
+
+    def killed_after_one_rename(src, dst):
+        if renames:
+            raise SystemExit("killed")  # the process ends between the two renames
+        renames.append(dst)
+        return real_replace(src, dst)
+
+    real_replace = session_module.os.replace
+    again = SessionWriter.reopen(session.path)
+    monkeypatch.setattr(session_module.os, "replace", killed_after_one_rename)
+    with pytest.raises(SystemExit):
+        again.start_part("Q02", PLAN.to_dict())
+    monkeypatch.undo()
+    again = SessionWriter.reopen(session.path)
+    _sweep_into(again, "Q02")
+    assert (session.path / "Q02.interrupted-1.csv").read_bytes() == csv_before
+    assert not list(session.path.glob("Q02.interrupted-2.*"))
+    for sidecar in session.path.glob("*.json"):  # every sidecar has its CSV
+        assert sidecar.with_suffix(".csv").exists() or sidecar.name == "session.json"
+
+
 @pytest.mark.parametrize("name", ["", "../up", "a b", "x" * 65, "-lead", "Q/1"])
 def test_bad_names_are_refused_before_anything_is_written(tmp_path, name):
     with pytest.raises(InputError):
