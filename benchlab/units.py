@@ -20,6 +20,8 @@ from __future__ import annotations
 import math
 import re
 
+from benchlab.names import printable
+
 PREFIXES: dict[str, float] = {
     "p": 1e-12, "n": 1e-9, "u": 1e-6, "µ": 1e-6, "μ": 1e-6, "m": 1e-3, "": 1.0, "k": 1e3, "M": 1e6, "G": 1e9,
 }
@@ -77,19 +79,20 @@ def parse_quantity(value: object, unit: str) -> float:
             raise ValueError(f"must be a finite number, got {value!r}")
         return number
     match = _QUANTITY.match(value)
+    echo = printable(value, 60)  # the value as typed, on one line (a newline or NUL shown as an escape)
     if match is None and value.strip().lstrip("+-").lower() in ("nan", "inf", "infinity"):
-        raise ValueError(f"'{value}' is not a finite number")
+        raise ValueError(f"'{echo}' is not a finite number")
     if match is None:
-        raise ValueError(f"'{value}' is not a quantity like '{example}'")
+        raise ValueError(f"'{echo}' is not a quantity like '{example}'")
     number, suffix = float(match.group(1)), match.group(2)
     if not math.isfinite(number):
-        raise ValueError(f"'{value}' is not a finite number")
+        raise ValueError(f"'{echo}' is not a finite number")
     if suffix == "":
         return number
     if unit == "%":
         if suffix == "%":
             return number / 100.0
-        raise ValueError(f"'{value}' has unit '{suffix}', expected a fraction (0.01) or a percentage (1 %)")
+        raise ValueError(f"'{echo}' has unit '{suffix}', expected a fraction (0.01) or a percentage (1 %)")
     for spelling in UNIT_SPELLINGS[unit]:
         if suffix.endswith(spelling):
             prefix = suffix[: -len(spelling)]
@@ -98,11 +101,11 @@ def parse_quantity(value: object, unit: str) -> float:
     if suffix in PREFIXES and unit not in _NO_PREFIX:
         return number * PREFIXES[suffix]
     if suffix[:1] == "K" and (suffix == "K" or suffix[1:] in UNIT_SPELLINGS[unit]):
-        raise ValueError(f"'{value}': 'K' is not an SI prefix (kilo is 'k': write '{match.group(1)} k{unit}')")
+        raise ValueError(f"'{echo}': 'K' is not an SI prefix (kilo is 'k': write '{match.group(1)} k{unit}')")
     shown = unit if unit else "a plain number"
     canonical = UNIT_SPELLINGS[unit][0] if UNIT_SPELLINGS[unit] else ""
     hint = f"{match.group(1)} {_prefix_of(suffix)}{canonical}".rstrip()
-    raise ValueError(f"'{value}' is not in {shown} (write e.g. '{hint}'"
+    raise ValueError(f"'{echo}' is not in {shown} (write e.g. '{hint}'"
                      + (f" or a bare number in {unit})" if unit else ")"))
 
 

@@ -47,7 +47,8 @@ def _run(folder: Path, ci: str | None) -> str:
     if ci is not None:
         env["CI"] = ci
     env["PYTEST_DISABLE_PLUGIN_AUTOLOAD"] = "1"
-    done = subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider", "--continue-on-collection-errors",
+    done = subprocess.run([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
+                           "--continue-on-collection-errors",
                            str(folder)],
                           cwd=folder, env=env, capture_output=True, text=True, timeout=120)
     return done.stdout.strip().splitlines()[-1]

@@ -122,6 +122,9 @@ def load_bench_config(path_or_file: str | Path | IO[bytes] | IO[str]) -> BenchCo
             raw = Path(source).read_bytes()
         except OSError as exc:
             raise ConfigError(f"cannot read the bench file: {exc.strerror or exc}", path=source) from exc
+        except ValueError:  # a NUL in the path (the UI's and the API's paths do not pass through argv)
+            raise ConfigError("cannot read the bench file: the path holds a NUL character",
+                              path=source.replace("\x00", "\\0")) from None
     try:
         text = raw.decode("utf-8") if isinstance(raw, bytes) else raw
     except UnicodeDecodeError as exc:

@@ -142,7 +142,10 @@ def resolve_parts(req: SinkRequest, lib=None) -> tuple[Part, list[Part], list]:
             if len(stock) < req.outputs + 1:
                 raise DesignError(f"{len(stock)} part(s) with curves in stock; a set of {req.outputs + 1} is needed")
             current = _operating_current(req, stock)
-            best = match_sets(stock, current_grid(current), req.outputs + 1, count=1).sets[0]
+            found = match_sets(stock, current_grid(current), req.outputs + 1, count=1).sets
+            if not found:  # e.g. a resistor so large the parts barely conduct
+                raise DesignError(f"no set of {req.outputs + 1} parts can be matched at {current:.3g} A")
+            best = found[0]
             ref = stock[best.ref_index]
             outputs = [stock[i] for i in best.output_indices]
         for p in [ref, *outputs]:

@@ -19,6 +19,7 @@ from typing import Any, Callable
 from benchlab.errors import BenchlabError, InputError, LibraryError
 from benchlab.kinds import PartClass, PointStatus
 from benchlab.sweep.classify import LEAK_VGS_FRACTION
+from benchlab.sweep.plan import MAX_SETTLE_S
 from benchlab.sweep.records import SweepOutcome
 
 DEFAULT_BIN_CURRENT_A = 250e-6  # VGS bins at the constant-current threshold criterion (common practice)
@@ -70,6 +71,9 @@ class AcceptanceWindow:
             value = getattr(self, name)
             if value is not None and not (isinstance(value, (int, float)) and math.isfinite(value)):
                 raise InputError(f"acceptance {name} must be a number, got {value!r}")
+        for name in ("kp_min", "leakage_max_a", "hysteresis_max_v"):  # limits on sizes: never below zero
+            if getattr(self, name) is not None and getattr(self, name) < 0:
+                raise InputError(f"acceptance {name} must be 0 or more, got {getattr(self, name):g}")
         if self.vth_min is not None and self.vth_max is not None and self.vth_min > self.vth_max:
             raise InputError(f"acceptance Vth range is empty ({self.vth_min:g} V > {self.vth_max:g} V)")
 
@@ -293,6 +297,8 @@ def library_rows(library: str | Path | None, *, text: str = "", gm_at_a: float =
     label, state, classification and flags) and sorted by ``sort_key`` (a row key; missing values last)."""
     from benchlab.services.library import list_parts
 
+    if not (isinstance(gm_at_a, (int, float)) and math.isfinite(gm_at_a) and gm_at_a > 0):
+        raise InputError(f"the gm current must be above 0 A, got {gm_at_a!r}")
     rows = []
     needle = text.strip().lower()
     for part in list_parts(library, state="all"):
@@ -362,6 +368,13 @@ class HandsFreeSettings:
     poll_s: float = 0.1  # between two looks at the fixture
     idle_timeout_s: float | None = None  # stop when no part arrives for this long (None: wait until cancelled)
     max_parts: int | None = None
+
+    def __post_init__(self) -> None:
+        if not (isinstance(self.settle_s, (int, float)) and 0 <= self.settle_s <= MAX_SETTLE_S):
+            raise InputError(f"hands-free settle time must be 0 to {MAX_SETTLE_S:g} s, got {self.settle_s!r}")
+        if not (isinstance(self.poll_s, (int, float)) and 0 < self.poll_s <= MAX_SETTLE_S):
+            raise InputError(f"hands-free poll interval must be above 0 and at most {MAX_SETTLE_S:g} s, "
+                             f"got {self.poll_s!r}")
 
 
 @dataclass

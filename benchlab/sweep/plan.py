@@ -27,6 +27,8 @@ from benchlab.choices import CURRENT_FROM
 from benchlab.errors import InputError, SafetyError
 from benchlab.kinds import Fixture, SweepMode
 
+MAX_SETTLE_S = 3600.0  # longest wait a setting may ask for (s): beyond it, a typing slip
+
 FIXTURES = tuple(Fixture)
 MODES = tuple(SweepMode)
 REFERENCE_CURRENT_A = 250e-6
@@ -259,9 +261,9 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
     for name in ("min_current_a", "max_current_a", "search_step_v", "max_step_v", "max_search_v", "detect_current_a",
                  "settle_tolerance", "leak_current_a", "nplc"):
         _positive(name, getattr(plan, name))
-    if not (math.isfinite(plan.settle_s) and 0 <= plan.settle_s <= 3600.0):
+    if not (math.isfinite(plan.settle_s) and 0 <= plan.settle_s <= MAX_SETTLE_S):
         # an hour per point is a typing slip; 1e300 once overflowed the wait with the output on
-        raise InputError(f"settle_s must be 0 to 3600 s, got {plan.settle_s!r}")
+        raise InputError(f"settle_s must be 0 to {MAX_SETTLE_S:g} s, got {plan.settle_s!r}")
     if not (math.isfinite(plan.start_v) and 0 <= plan.start_v <= lim.max_supply_v):
         raise SafetyError(f"start_v {plan.start_v!r} V must be between 0 and the bench limit max_supply_v {lim.max_supply_v:g} V")
     if not isinstance(plan.points, int) or plan.points < 2:

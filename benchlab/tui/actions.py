@@ -7,7 +7,8 @@ from pathlib import Path
 from rich.markup import escape
 from textual.widgets import DataTable, Input, Static
 
-from benchlab.errors import BenchlabError
+from benchlab.errors import BenchlabError, InputError
+from benchlab.names import printable
 
 SORT_KEYS = ("label", "lot", "state", "vth", "kp", "theta", "vgs_250u", "gm")
 
@@ -27,11 +28,36 @@ class DesignActions:
     def _value(self, input_id: str) -> str:
         return self._q(f"#{input_id}", Input).value.strip()
 
+    def _field_name(self, input_id: str) -> str:
+        return self._q(f"#{input_id}", Input).name or input_id
+
     def _quantity(self, input_id: str, unit: str, default=None):
+        """The number typed in a field, in SI ``unit`` (``default`` when empty); InputError naming the field."""
         from benchlab.units import parse_quantity
 
         text = self._value(input_id)
-        return parse_quantity(text, unit) if text else default
+        try:
+            return parse_quantity(text, unit) if text else default
+        except ValueError as exc:
+            raise InputError(f"{self._field_name(input_id)}: {exc}") from None
+
+    def _whole(self, input_id: str, default: int) -> int:
+        """A whole number typed in a field (``default`` when empty); InputError naming the field."""
+        from benchlab.names import printable
+
+        text = self._value(input_id)
+        if not text:
+            return default
+        if not (text.isascii() and text.isdigit() and len(text) <= 6):
+            raise InputError(f"{self._field_name(input_id)}: a whole number is expected, got '{printable(text, 40)}'")
+        return int(text)
+
+    def _lot(self, input_id: str) -> str | None:
+        """A lot name typed in a field (None when empty: all lots); InputError for a name outside the rule."""
+        from benchlab.names import check_name
+
+        text = self._value(input_id)
+        return check_name("lot name", text) if text else None
 
     # ----------------------------------------------------------------------------------- library
     def action_refresh_library(self) -> None:
@@ -103,9 +129,9 @@ class DesignActions:
         table = self._q("#sets-table", DataTable)
         try:
             current = self._quantity("sets-current", "A")
-            size = int(self._value("sets-size") or "2")
+            size = self._whole("sets-size", 2)
             result = match_parts(self.options.library, current, size, current_max=self._quantity("sets-current-max", "A"),
-                                 lot=self._value("sets-lot") or None, count=10)
+                                 lot=self._lot("sets-lot"), count=10)
         except (BenchlabError, ValueError, TypeError) as exc:
             self.show_error(exc)
             return
@@ -150,7 +176,7 @@ class DesignActions:
                               source_resistor_ohm=self._quantity("sink-degeneration", "ohm", 0.0),
                               mismatch_target=self._quantity("sink-mismatch", "%"))
         return SinkRequest(supply=self._quantity("sink-supply", "V"), current=current, resistor=resistor,
-                           outputs=int(self._value("sink-outputs") or "1"), lot=self._value("sink-lot") or None,
+                           outputs=self._whole("sink-outputs", 1), lot=self._lot("sink-lot"),
                            options=options, save=save)
 
     def recompute_sink(self, save: bool = False) -> None:
@@ -162,7 +188,7 @@ class DesignActions:
             design, design_id = design_sink(self._sink_request(save), self.options.library)
         except (BenchlabError, ValueError, TypeError) as exc:
             self.last_design = None
-            report.update(f"[b red]Cannot design this:[/] {escape(str(exc))}")
+            report.update(f"[b red]Cannot design this:[/] {escape(printable(str(exc), 300))}")
             return
         self.last_design = design
         report.update(escape(format_sink_report(design, design_id)))

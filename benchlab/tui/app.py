@@ -24,6 +24,7 @@ from textual.css.query import NoMatches
 from textual.widgets import ContentSwitcher, DataTable, Footer, Input, Static
 
 from benchlab.errors import BenchlabError
+from benchlab.names import printable
 from benchlab.tui.help import HelpScreen
 from benchlab.tui.plot import MAX_REDRAW_HZ
 from benchlab.tui.feed import EventFeed
@@ -190,13 +191,13 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
             self._q("#status", Static).update(text, layout=False)
 
     def say(self, text: str) -> None:
-        """Show ``text`` (plain, never markup) in the status line."""
-        self.status_text = escape(str(text))
+        """Show ``text`` (plain, never markup) in the status line, on one line."""
+        self.status_text = escape(printable(text, 300))
         self._status()
 
     def show_error(self, text) -> None:
-        """Show an error in one line (never a traceback)."""
-        self.status_text = f"[b red]error:[/] {escape(str(text))}"
+        """Show an error in one line (never a traceback; a newline or NUL in it is shown as an escape)."""
+        self.status_text = f"[b red]error:[/] {escape(printable(text, 300))}"
         self._status()
 
     # ----------------------------------------------------------------------------------- keys

@@ -46,12 +46,8 @@ class LoopActions:
 
     def _window(self):
         from benchlab.services.station import AcceptanceWindow
-        from benchlab.units import parse_quantity
 
-        def value(input_id: str, unit: str):
-            text = self._q(f"#{input_id}", Input).value.strip()
-            return parse_quantity(text, unit) if text else None
-
+        value = self._quantity  # empty: no limit
         return AcceptanceWindow(vth_min=value("vth-min", "V"), vth_max=value("vth-max", "V"),
                                 kp_min=value("kp-min", ""), leakage_max_a=value("leak-max", "A"),
                                 hysteresis_max_v=value("hyst-max", "V"))
@@ -285,18 +281,17 @@ class LoopActions:
         if not self._bench_ready():
             return
         from benchlab.services.station import HandsFreeSettings, LabelPattern
-        from benchlab.units import parse_quantity
 
         try:
             labels = LabelPattern.parse(self._q("#label", Input).value)
-            settle = parse_quantity(self._q("#hf-settle", Input).value or "1", "s")
+            settings = HandsFreeSettings(settle_s=self._quantity("hf-settle", "s", 1.0), poll_s=0.1)
             window = self._window()
         except BenchlabError as exc:
             self.show_error(exc)
             return
         self.hands_free_on = True
         tag = self._start_tag("hf-plot")
-        self._hands_free_worker(tag, labels, window, HandsFreeSettings(settle_s=settle, poll_s=0.1))
+        self._hands_free_worker(tag, labels, window, settings)
 
     @work(thread=True, group="sweep")
     def _hands_free_worker(self, tag, labels, window, settings) -> None:

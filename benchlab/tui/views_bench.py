@@ -13,7 +13,7 @@ from benchlab.units import format_si
 
 def _field(label: str, input_id: str, value: str = "", placeholder: str = "") -> ComposeResult:
     yield Label(label, classes="field-label")
-    yield Input(value=value, placeholder=placeholder, id=input_id, classes="field")
+    yield Input(value=value, placeholder=placeholder, id=input_id, classes="field", name=label)  # name: in errors
 
 
 class BenchView(Vertical):

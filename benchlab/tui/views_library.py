@@ -18,7 +18,7 @@ class LibraryView(Vertical):
             yield Label("Filter", classes="field-label")
             yield Input(placeholder="lot, label, state or flag", id="lib-filter", classes="field wide")
             yield Label("gm at (A)", classes="field-label")
-            yield Input(value="0.02", id="lib-gm-at", classes="field")
+            yield Input(value="0.02", id="lib-gm-at", classes="field", name="gm at (A)")
         with Horizontal(id="lib-body"):
             table = DataTable(id="lib-table", cursor_type="row", zebra_stripes=True)
             table.add_columns(*LIBRARY_COLUMNS)

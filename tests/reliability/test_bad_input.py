@@ -160,9 +160,7 @@ def _snapshot(folder: Path) -> dict[str, int]:
 def _try(tmp: Path, argv: list[str], files: dict[str, bytes], sim: SimBench) -> dict:
     for name, data in files.items():
         (tmp / name).parent.mkdir(parents=True, exist_ok=True)
-        data = data.replace(b"@SUPPLY@", sim.resources["supply"].encode()).replace(b"@METER@",
-                                                                                    sim.resources["meter"].encode())
-        (tmp / name).write_bytes(data)
+        (tmp / name).write_bytes(_with_resources(data, sim))
     switched_on = len([e for e in sim.log.entries(kind="output") if e.text == "ON"])
     before = _snapshot(tmp)
     args = [a.replace("{tmp}", str(tmp)) for a in argv]
@@ -202,6 +200,62 @@ def _shown(text: str) -> str:
     return text.replace("|", "\\|").replace("\n", "\\n").replace("\r", "\\r").replace("\x00", "\\0")
 
 
+# the UI's bench file (``benchlab ui --bench FILE``, connected with c): what is tried, and the file's bytes (None:
+# the path itself is the bad input)
+UI_BENCH_FILES: dict[str, tuple[str, bytes | None]] = {
+    "not UTF-8": ("b.toml", b"fixture = \"\xff\xfe\"\n"), "not TOML": ("b.toml", b"[[[ this is not toml"),
+    "settle_s = inf": ("b.toml", _bench(settle="inf s").encode()),
+    "ohms = nan": ("b.toml", _bench(ohms="nan").encode()),
+    "profile name '../../etc/passwd'": ("b.toml", _bench(profile="../../etc/passwd").encode()),
+    "a missing file": ("missing.toml", None), "a folder": ("folder", None), "a path with a NUL": ("b\x00.toml", None),
+}
+# Still open when the table was made: recorded, not asserted. The sink designer takes any finite supply or load
+# voltage, so 1e300 V gives a design (and `w` saves it, reserving its parts).
+UI_OPEN = {("sink form (w: save)", "1e300", "sink-supply"), ("sink form (w: save)", "1e300", "sink-load")}
+
+
+def _ui_rows(tmp_path: Path, sim: SimBench) -> tuple[list[str], list]:
+    """The UI's forms (tests/reliability/ui_badinput.py): table rows and the problems found."""
+    import asyncio
+
+    from tests.reliability.ui_badinput import GOOD_VALUES, try_forms
+
+    folder, files = tmp_path / "ui", tmp_path / "ui-bench"
+    folder.mkdir()
+    (files / "folder").mkdir(parents=True)
+    paths = {}
+    for n, (what, (name, data)) in enumerate(UI_BENCH_FILES.items()):
+        if data is not None:
+            (files / f"c{n}").mkdir()
+            name = f"c{n}/{name}"
+            (files / name).write_bytes(_with_resources(data, sim))
+        paths[what] = str(files / name)
+    rows, problems = [], []
+    for form, what, field, seen, fine in asyncio.run(try_forms(folder, paths, sim)):
+        if seen.crashed:
+            verdict = f"TRACEBACK ({seen.crashed})"
+        elif seen.accepted:
+            verdict = "accepted"
+        else:
+            verdict = "one error" if seen.lines == 1 else f"{seen.lines} error lines"
+        message = re.sub(re.escape(str(tmp_path)), "…", seen.message)
+        tried = what if field == "--bench" or what == GOOD_VALUES else f"{what} in '{seen.field_name}'"
+        rows.append(f"| UI {form} | {_shown(tried)} | `benchlab ui` | {verdict} | {'yes' if seen.written else 'no'} | "
+                    f"{'YES' if seen.powered else 'no'} | {_shown(message[:80]) if message else ''} |")
+        if fine:  # the good values, and numbers a field may hold: they must be taken (so a refusal is the input's)
+            ok = seen.accepted and not seen.crashed
+        else:
+            ok = verdict == "one error" and not seen.written and not seen.powered
+        if not ok and (form, what, field) not in UI_OPEN:
+            problems.append((f"UI {form}", f"{what} in {field}" if what != GOOD_VALUES else what, verdict, seen))
+    return rows, problems
+
+
+def _with_resources(data: bytes, sim: SimBench) -> bytes:
+    return data.replace(b"@SUPPLY@", sim.resources["supply"].encode()).replace(b"@METER@",
+                                                                               sim.resources["meter"].encode())
+
+
 def test_bad_input_table(tmp_path):
     with SimBench(SimConfig(time_scale=0.0)) as sim:
         sim.start(first_port=0)
@@ -226,6 +280,9 @@ def _table(tmp_path: Path, sim: SimBench) -> None:
             ok = not result["traceback"] and not result["label_sent"]
         if not ok and (area, what) not in OPEN:
             problems.append((area, what, verdict, result))
+    ui_rows, ui_problems = _ui_rows(tmp_path, sim)
+    rows += ui_rows
+    problems += ui_problems
     table = "\n".join(["| where | input | command | result | written | powered | message |",
                        "|---|---|---|---|---|---|---|", *rows])
     if os.environ.get("BENCHLAB_UPDATE_DOCS") == "1":
