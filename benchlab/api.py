@@ -21,7 +21,6 @@ from typing import Any, Iterator, Sequence
 import pandas as pd
 
 from benchlab.errors import LibraryError
-from benchlab.report.data import CC_CURRENT_A
 from benchlab.services import tables
 
 __all__ = ["library", "ReadOnlyLibrary", "parts", "sweeps", "fits", "designs", "design", "thermal"]
@@ -85,8 +84,7 @@ def _opened(handle) -> Iterator[Any]:
         lib.close()
 
 
-def parts(library=None, lot: str | None = None, state: str | None = None,
-          gm_current: float = CC_CURRENT_A) -> pd.DataFrame:
+def parts(library=None, lot: str | None = None, state: str | None = None) -> pd.DataFrame:
     """One row per part of the library.
 
     Parameters
@@ -97,21 +95,21 @@ def parts(library=None, lot: str | None = None, state: str | None = None,
         Only this lot.
     state : str, optional
         Only this state (``in_stock``, ``reserved``, ``used``, ``rejected``); None for all.
-    gm_current : float
-        The drain current (A) at which ``gm`` is taken from each curve (default 250 uA). A linear-model part
-        has one gm, reported with ``gm_current`` empty.
 
     Returns
     -------
     pandas.DataFrame
-        ``lot, label, state, classification, model, vth, kp, theta, n, vth_cc, gm, gm_current``, the standard
-        errors as ``<name>_stderr``, ``flags`` (comma-separated) and ``reason`` (why a part was rejected).
-        Values a part's model does not have are empty (NaN), never 0.
+        ``lot, label, state, classification, model, vth, kp, theta, n, vth_cc, gm, gm_current,
+        operating_current``, the standard errors as ``<name>_stderr``, ``flags`` (comma-separated) and ``reason``
+        (why a part was rejected). ``vth_cc`` is the curve's VGS at 250 uA and ``gm`` its gm at ``gm_current``
+        (the part's ``operating_current``, else the library's default: ``benchlab parts set-current`` /
+        ``library set-current``), as the library stored them. Values a part's model does not have, or not
+        computed, are empty (NaN), never 0.
     """
     with _opened(library) as lib:
-        rows = tables.part_rows(lib, lot=lot, state=state, gm_current=gm_current)
+        rows = tables.part_rows(lib, lot=lot, state=state)
     columns = ["lot", "label", "state", "classification", "model", "vth", "kp", "theta", "n", "vth_cc", "gm",
-               "gm_current", "vth_stderr", "kp_stderr", "theta_stderr", "n_stderr", "gm_stderr", "vth_cc_stderr",
+               "gm_current", "operating_current", "vth_stderr", "kp_stderr", "theta_stderr", "n_stderr", "gm_stderr", "vth_cc_stderr",
                "flags", "reason"]
     frame = pd.DataFrame(rows, columns=columns)
     numbers = [c for c in columns[5:] if c not in ("flags", "reason")]

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from benchlab.choices import MODEL_CHOICES
-from benchlab.commands._args import json_option, library_option, print_json
+from benchlab.commands._args import json_option, library_option, print_json, quantity
 
 
 def register(subparsers) -> None:
@@ -58,6 +58,24 @@ def register(subparsers) -> None:
     copy.add_argument("destination", metavar="DESTINATION", help="empty library file or postgresql:// URL")
     json_option(copy, "the verification")
     copy.set_defaults(func=_copy)
+
+    current = sub.add_parser("set-current", parents=[lib],
+                             help="set the library's default operating current: gm of every part without its own "
+                                  "(benchlab parts set-current) is stored there")
+    current.add_argument("current", type=quantity("A", "positive"), metavar="CURRENT", help="e.g. 350mA")
+    json_option(current, "the setting and the parts updated")
+    current.set_defaults(func=_set_current)
+
+
+def _set_current(args) -> int:
+    from benchlab.services import library as service
+
+    updated = service.set_default_current(args.library, args.current, operator=args.operator)
+    if args.json:
+        print_json({"operating_current": args.current, "fits_updated": updated})
+    else:
+        print(f"default operating current {args.current:g} A; gm stored there for {updated} part(s)")
+    return 0
 
 
 def _import(args) -> int:

@@ -61,6 +61,15 @@ def register(subparsers) -> None:
     json_option(state, "the part")
     state.set_defaults(func=_state)
 
+    current = sub.add_parser("set-current", parents=[lib],
+                             help="set the current a part will run at: its gm is stored there (without CURRENT: "
+                                  "the library's default, benchlab library set-current)")
+    current.add_argument("part", help="LABEL or LOT/LABEL")
+    current.add_argument("current", nargs="?", type=quantity("A", "positive"), metavar="CURRENT",
+                         help="operating current, e.g. 350mA")
+    json_option(current, "the part")
+    current.set_defaults(func=_set_current)
+
 
 def _add(args) -> int:
     from benchlab.library.records import json_default
@@ -112,6 +121,20 @@ def _reject(args) -> int:
         print_json(part.to_dict(), default=json_default)
     else:
         print(f"{part.spec}: rejected ({part.reason})")
+    return 0
+
+
+def _set_current(args) -> int:
+    from benchlab.library.records import json_default
+    from benchlab.services import library as service
+
+    part = service.set_operating_current(args.library, args.part, args.current, operator=args.operator)
+    if args.json:
+        print_json(part.to_dict(), default=json_default)
+    else:
+        where = "its own" if part.operating_current is not None else "the library's default"
+        gm = "not computed" if part.gm_op is None else f"{part.gm_op:.4g} A/V at {part.gm_current:.4g} A"
+        print(f"{part.spec}: gm {gm} ({where} operating current)")
     return 0
 
 

@@ -23,11 +23,11 @@ TABLES: tuple[tuple[str, tuple[str, ...], str, str], ...] = (
      "SELECT id, name, description, created FROM lots ORDER BY id",
      "INSERT INTO lots (id, name, description, created) VALUES (?, ?, ?, ?)"),
     ("parts", ("id", "lot_id", "label", "polarity", "package", "notes", "state", "reason", "classification",
-               "created"),
-     "SELECT id, lot_id, label, polarity, package, notes, state, reason, classification, created FROM parts "
-     "ORDER BY id",
-     "INSERT INTO parts (id, lot_id, label, polarity, package, notes, state, reason, classification, created) "
-     "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
+               "created", "operating_current"),
+     "SELECT id, lot_id, label, polarity, package, notes, state, reason, classification, created, operating_current "
+     "FROM parts ORDER BY id",
+     "INSERT INTO parts (id, lot_id, label, polarity, package, notes, state, reason, classification, created, "
+     "operating_current) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
     ("sweeps", ("id", "part_id", "session_path", "csv_path", "session_id", "started", "complete", "classification",
                 "reason", "sidecar_json", "imported"),
      "SELECT id, part_id, session_path, csv_path, session_id, started, complete, classification, reason, "
@@ -38,11 +38,14 @@ TABLES: tuple[tuple[str, tuple[str, ...], str, str], ...] = (
      "SELECT sweep_id, point, vgs, id, status, direction, spread_v FROM sweep_points ORDER BY sweep_id, point",
      "INSERT INTO sweep_points (sweep_id, point, vgs, id, status, direction, spread_v) VALUES (?, ?, ?, ?, ?, ?, ?)"),
     ("fits", ("id", "part_id", "sweep_id", "source", "model", "params_json", "stderr_json", "flags_json",
-              "result_json", "fitted_at", "fitter_version"),
+              "result_json", "fitted_at", "fitter_version", "vgs_ref", "gm_op", "gm_current"),
      "SELECT id, part_id, sweep_id, source, model, params_json, stderr_json, flags_json, result_json, fitted_at, "
-     "fitter_version FROM fits ORDER BY id",
+     "fitter_version, vgs_ref, gm_op, gm_current FROM fits ORDER BY id",
      "INSERT INTO fits (id, part_id, sweep_id, source, model, params_json, stderr_json, flags_json, result_json, "
-     "fitted_at, fitter_version) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
+     "fitted_at, fitter_version, vgs_ref, gm_op, gm_current) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)"),
+    ("settings", ("name", "value"),
+     "SELECT name, value FROM settings ORDER BY name",
+     "INSERT INTO settings (name, value) VALUES (?, ?)"),
     ("designs", ("id", "created", "kind", "design_json"),
      "SELECT id, created, kind, design_json FROM designs ORDER BY id",
      "INSERT INTO designs (id, created, kind, design_json) VALUES (?, ?, ?, ?)"),

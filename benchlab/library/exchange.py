@@ -9,6 +9,7 @@ from typing import TYPE_CHECKING, Any, Mapping
 from benchlab.errors import LibraryError
 from benchlab.names import check_name
 from benchlab.library.records import PART_STATES, finite_or_none, natural_key, to_json, utc_now
+from benchlab.library.operating import SETTING_OPERATING_CURRENT
 from benchlab.library.thermal import CSV_THERMAL_COLUMNS, csv_thermal_cells, import_thermal, thermal_history
 from benchlab.models import DeviceParams
 
@@ -21,6 +22,7 @@ _MODEL_FIELDS = {"linear": ("vth", "gm", "temperature_k"), "square": ("vth", "kp
                  "theta": ("vth", "kp", "theta", "temperature_k"), "ekv": ("vth", "kp", "theta", "n", "temperature_k")}
 CSV_COLUMNS = (("lot", "label", "polarity", "state", "reason", "package", "notes", "classification", "model")
                + PARAM_FIELDS + tuple(f"stderr_{f}" for f in PARAM_FIELDS[:5])
+               + ("vgs_ref", "gm_op", "gm_current", "operating_current")
                + ("flags", "fit_source", "fitted_at", "fitter_version") + CSV_THERMAL_COLUMNS)
 
 
@@ -64,15 +66,18 @@ def export_library(lib: "Library", lot: str | None = None, state: str | None = N
                                           "direction": [p[4] for p in pts], "spread_v": [p[5] for p in pts]}})
             fits = [{"sweep": f[0], "source": f[1], "model": f[2], "params": json.loads(f[3]),
                      "stderr": json.loads(f[4]), "flags": json.loads(f[5]), "result": json.loads(f[6]),
-                     "fitted_at": f[7], "fitter_version": f[8]}
+                     "fitted_at": f[7], "fitter_version": f[8], "vgs_ref": f[9], "gm_op": f[10], "gm_current": f[11]}
                     for f in conn.execute("SELECT sweep_id, source, model, params_json, stderr_json, flags_json, "
-                                          "result_json, fitted_at, fitter_version FROM fits WHERE part_id = ? "
-                                          "ORDER BY id", (pid,))]
+                                          "result_json, fitted_at, fitter_version, vgs_ref, gm_op, gm_current "
+                                          "FROM fits WHERE part_id = ? ORDER BY id", (pid,))]
             history = [{"changed_at": h[0], "old_state": h[1], "new_state": h[2], "reason": h[3], "operator": h[4]}
                        for h in conn.execute("SELECT changed_at, old_state, new_state, reason, operator FROM state_changes "
                                              "WHERE part_id = ? ORDER BY id", (pid,))]
+            current = lib.get_part(pid)
             parts.append({"lot": lot_name, "label": label, "polarity": polarity, "package": package, "notes": notes,
                           "state": pstate, "reason": reason, "classification": classification, "created": created,
+                          "operating_current": current.operating_current, "vgs_ref": current.vgs_ref,
+                          "gm_op": current.gm_op, "gm_current": current.gm_current,
                           "sweeps": sweeps, "fits": fits, "history": history,
                           "thermal": thermal_history(lib, pid)})
         lot_names = sorted({p["lot"] for p in parts} | ({lot} if lot else set()), key=natural_key)
@@ -82,10 +87,18 @@ def export_library(lib: "Library", lot: str | None = None, state: str | None = N
                           "SELECT created, kind, design_json FROM designs WHERE id = ?", ids)
         binnings = _linked(conn, "SELECT binning_id, part_id, bin FROM bin_members ORDER BY binning_id, bin, part_id",
                            "SELECT created, scheme_json FROM binnings WHERE id = ?", ids)
+        settings = {name: value for name, value in conn.execute("SELECT name, value FROM settings ORDER BY name")}
     return {"format": EXPORT_FORMAT, "exported": utc_now(), "filter": {"lot": lot, "state": state},
-            "lots": lots, "parts": parts,
+            "settings": settings, "lots": lots, "parts": parts,
             "designs": [{"created": d[0], "kind": d[1], "design": json.loads(d[2]), "parts": m} for d, m in designs],
             "binnings": [{"created": b[0], "scheme": json.loads(b[1]), "members": m} for b, m in binnings]}
+
+
+def finite_or_none_safe(value: Any) -> float | None:
+    """A finite number from an export field, None for anything else (a missing or malformed entry)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    return finite_or_none(value)
 
 
 def _linked(conn, members_sql: str, row_sql: str, ids: Mapping[int, tuple[str, str]]) -> list[tuple]:
@@ -115,6 +128,11 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
     counts = {"lots": 0, "parts": 0, "sweeps": 0, "fits": 0, "designs": 0, "binnings": 0, "thermal": 0}
     try:
         with lib.write():
+            # the exporting library's default operating current, unless this library has its own
+            default = finite_or_none_safe((data.get("settings") or {}).get(SETTING_OPERATING_CURRENT))
+            if default is not None and default > 0 and conn.execute(
+                    "SELECT 1 FROM settings WHERE name = ?", (SETTING_OPERATING_CURRENT,)).fetchone() is None:
+                conn.execute("INSERT INTO settings (name, value) VALUES (?, ?)", (SETTING_OPERATING_CURRENT, default))
             for lot in data.get("lots", []):
                 check_name("lot name", lot["name"], error=LibraryError)
                 if conn.execute("SELECT 1 FROM lots WHERE name = ?", (lot["name"],)).fetchone() is None:
@@ -128,6 +146,9 @@ def import_library(lib: "Library", data: Mapping[str, Any]) -> dict[str, int]:
                                        part.get("notes", ""), part.get("state", "in_stock"), part.get("reason"),
                                        part.get("classification"), part.get("created"))
                 part_ids[(part["lot"], part["label"])] = pid
+                own = finite_or_none_safe(part.get("operating_current"))
+                if own is not None and own > 0:  # before its fits: their gm is stored at it
+                    conn.execute("UPDATE parts SET operating_current = ? WHERE id = ?", (own, pid))
                 counts["parts"] += 1
                 sweep_ids = {}
                 for s in part.get("sweeps", []):
@@ -219,6 +240,11 @@ def csv_rows(lib: "Library", lot: str | None = None, state: str | None = None) -
             for name in PARAM_FIELDS[:5]:
                 value = part.stderr.get(name)
                 row[f"stderr_{name}"] = "" if value is None else repr(float(value))
+            # the stored operating figures (VGS at 250 uA, gm at the operating current and that current; the
+            # part's own operating current): empty when not computed, never a placeholder 0
+            for name in ("vgs_ref", "gm_op", "gm_current", "operating_current"):
+                value = getattr(part, name)
+                row[name] = "" if value is None else repr(float(value))
             if part.fit_id is not None:
                 source, fitted_at, version = lib.connection.execute(
                     "SELECT source, fitted_at, fitter_version FROM fits WHERE id = ?", (part.fit_id,)).fetchone()

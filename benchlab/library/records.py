@@ -89,6 +89,13 @@ class PartRecord:
         Database id of that fit.
     classification : str or None
         The sweep's verdict (good, open, shorted, leaky, unstable), None for hand-entered parts.
+    operating_current : float or None
+        The part's own operating current (A); None: the library's default applies.
+    vgs_ref : float or None
+        VGS (V) of the current curve at 250 uA, stored with the fit (None when not computed).
+    gm_op, gm_current : float or None
+        gm (A/V) of the current curve stored at ``gm_current`` (A): the part's operating current or the
+        library's default (None when not computed).
     """
 
     id: int
@@ -104,6 +111,10 @@ class PartRecord:
     flags: tuple = ()
     fit_id: int | None = None
     classification: str | None = None
+    operating_current: float | None = None
+    vgs_ref: float | None = None
+    gm_op: float | None = None
+    gm_current: float | None = None
 
     @property
     def spec(self) -> str:
@@ -116,6 +127,8 @@ class PartRecord:
             "state": self.state, "reason": self.reason, "package": self.package, "notes": self.notes,
             "params": self.params.to_dict() if self.params else None, "stderr": dict(self.stderr),
             "flags": list(self.flags), "fit_id": self.fit_id, "classification": self.classification,
+            "operating_current": self.operating_current, "vgs_ref": self.vgs_ref, "gm_op": self.gm_op,
+            "gm_current": self.gm_current,
         }
 
 

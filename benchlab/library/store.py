@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any, Iterable, Iterator, Mapping, Sequence
 
 from benchlab.errors import LibraryError
-from benchlab.library import schema
+from benchlab.library import operating, schema
 from benchlab.library.backend import Database, is_url, open_database
 from benchlab.library.designs import DesignStore
 from benchlab.library.records import PART_STATES, POLARITIES, PartRecord, natural_key, to_json, utc_now
@@ -26,7 +26,7 @@ LIBRARY_ENV = "BENCHLAB_LIBRARY"
 
 _PART_SELECT = """
 SELECT p.id, l.name, p.label, p.polarity, p.state, p.reason, p.package, p.notes, p.classification,
-       f.id, f.params_json, f.stderr_json, f.flags_json
+       f.id, f.params_json, f.stderr_json, f.flags_json, p.operating_current, f.vgs_ref, f.gm_op, f.gm_current
 FROM parts p
 JOIN lots l ON l.id = p.lot_id
 LEFT JOIN fits f ON f.id = (SELECT max(id) FROM fits WHERE part_id = p.id)
@@ -57,7 +57,7 @@ def default_operator() -> str:
 
 def _row_to_part(row: Sequence[Any]) -> PartRecord:
     (pid, lot, label, polarity, state, reason, package, notes, classification,
-     fit_id, params_json, stderr_json, flags_json) = row
+     fit_id, params_json, stderr_json, flags_json, operating_current, vgs_ref, gm_op, gm_current) = row
     try:
         params = DeviceParams.from_dict(json.loads(params_json)) if params_json else None
     except (TypeError, ValueError) as exc:
@@ -69,7 +69,8 @@ def _row_to_part(row: Sequence[Any]) -> PartRecord:
         id=pid, lot=lot, label=label, polarity=polarity, state=state, reason=reason, package=package,
         notes=notes, params=params, stderr=stderr,
         flags=tuple(json.loads(flags_json)) if flags_json else (), fit_id=fit_id,
-        classification=classification,
+        classification=classification, operating_current=operating_current, vgs_ref=vgs_ref, gm_op=gm_op,
+        gm_current=gm_current,
     )
 
 
@@ -279,12 +280,17 @@ class Library:
     def insert_fit(self, part_id: int, *, source: str, params: DeviceParams, stderr: Mapping | None = None,
                    flags: Iterable[str] = (), result: Mapping | None = None, sweep_id: int | None = None,
                    fitted_at: str | None = None, fitter_version: str | None = None) -> int:
-        """Store a fit of a part (call inside :meth:`write`); it becomes the part's current curve."""
+        """Store a fit of a part (call inside :meth:`write`); it becomes the part's current curve, stored with its
+        VGS at 250 uA and its gm at the part's operating current (:mod:`benchlab.library.operating`)."""
+        result_data = json.loads(to_json(dict(result or {})))
+        vgs_ref, gm_op, gm_current = operating.figures(params, operating.current_of(self, part_id))
         new_id = self._db.insert(
             "INSERT INTO fits (part_id, sweep_id, source, model, params_json, stderr_json, flags_json, "
-            "result_json, fitted_at, fitter_version) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            "result_json, fitted_at, fitter_version, vgs_ref, gm_op, gm_current) "
+            "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
             (part_id, sweep_id, source, params.model, to_json(params.to_dict()), to_json(dict(stderr or {})),
-             to_json(list(flags)), to_json(dict(result or {})), fitted_at or utc_now(), fitter_version))
+             to_json(list(flags)), to_json(result_data), fitted_at or utc_now(), fitter_version, vgs_ref, gm_op,
+             gm_current))
         return new_id
 
     def get_part(self, part: str | int | PartRecord) -> PartRecord:

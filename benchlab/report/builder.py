@@ -18,7 +18,7 @@ from benchlab.errors import InputError
 from benchlab.library.records import utc_now
 from benchlab.models import DeviceParams, solve_resistor_line
 from benchlab.report import figures, html_page as hp
-from benchlab.report.data import CC_CURRENT_A, ReportData, lot_statistics, part_row
+from benchlab.report.data import ReportData, lot_statistics, part_row
 from benchlab.report.part_figures import monte_carlo_figure, outputs_figure, part_fit_figure
 from benchlab.report.schematic import sink_schematic
 
@@ -191,8 +191,8 @@ def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.
     figs = _Figures(keep=pdf is not None)
     design = data.design
     chosen = [label for s in data.design_sets for label in s]
-    vgs_cc = {p.label: data.vgs_at_cc(p.label) for p in data.parts}
-    stats = lot_statistics(data.parts, vgs_cc)
+    vgs_cc = {p.label: data.vgs_at_cc(p.label) for p in data.parts}  # measured, for the figures' data marker
+    stats = lot_statistics(data.parts, {p.label: p.vgs_ref for p in data.parts})  # the stored values
     operating_point = None
     is_sink = design is not None and isinstance(design.get("outputs"), list) and "r_chosen" in design
     errors, agree = monte_carlo_errors(design) if is_sink else ({}, False)
@@ -262,9 +262,8 @@ def build_report(data: ReportData, out_dir: str | os.PathLike, *, pdf: str | os.
     body.append(figs.add(figures.scatter_figure(good, data.design_sets),
                          "KP against threshold for every good part with a KP curve; the design's parts circled, the "
                          "reference named.", "KP against threshold, chosen sets marked"))
-    gm_current = _number(design, "i_ref") if design else None
-    rows = [part_row(p, vgs_cc.get(p.label), gm_current or CC_CURRENT_A) for p in data.parts]
-    body.append(hp.parts_table(rows, chosen, gm_current or CC_CURRENT_A))
+    rows = [part_row(p) for p in data.parts]
+    body.append(hp.parts_table(rows, chosen))
     body.append("<h2>Bench and sessions</h2>")
     body.append(hp.bench_section(data.sessions, __version__, data.fitter_versions))
     body.append(hp.cautions_section([], heading="Bench cautions"))

@@ -77,23 +77,21 @@ def trace_of_sweep(part: PartRecord, sweep: Mapping[str, Any]) -> SweepTrace | N
                       rejected=part.state == "rejected")
 
 
-def part_row(part: PartRecord, vgs_cc: float | None, gm_current: float | None) -> dict[str, Any]:
-    """One part as a flat row (SI units): identity, curve, VGS at 250 uA, gm at ``gm_current``, standard errors.
+def part_row(part: PartRecord) -> dict[str, Any]:
+    """One part as a flat row (SI units): identity, curve, the stored VGS at 250 uA (``vth_cc``) and gm at the
+    part's operating current (``gm`` at ``gm_current``: its own or the library's default), standard errors.
 
-    The report's parts table and ``benchlab.api.parts()`` are both made of these rows.
+    The report's parts table and ``benchlab.api.parts()`` are both made of these rows; every figure is the one the
+    library stored with the part's current fit (``benchlab.library.operating``), None where it was not computed.
     """
     prm = part.params
-    gm = None
-    if prm is not None and gm_current:
-        value = float(prm.gm_at(gm_current))
-        gm = value if math.isfinite(value) else None
     row = {"lot": part.lot, "label": part.label, "state": part.state, "classification": part.classification,
            "model": prm.model if prm else None, "vth": prm.vth if prm else None,
            "kp": prm.kp if prm and prm.model != "linear" else None,
            "theta": prm.theta if prm and prm.model in ("theta", "ekv") else None,
            "n": prm.n if prm and prm.model == "ekv" else None,
-           "vth_cc": vgs_cc, "gm": prm.gm if prm and prm.model == "linear" else gm,
-           "gm_current": None if prm and prm.model == "linear" else (gm_current if gm is not None else None)}
+           "vth_cc": part.vgs_ref, "gm": part.gm_op, "gm_current": part.gm_current if part.gm_op is not None else None,
+           "operating_current": part.operating_current}
     for key in ("vth", "kp", "theta", "n", "gm", "vth_cc"):
         value = part.stderr.get(key)
         row[f"{key}_stderr"] = float(value) if isinstance(value, (int, float)) and math.isfinite(value) else None
@@ -201,13 +199,7 @@ def collect(lib: Library, lot: str, design_id: int | None = None) -> ReportData:
             if entry["name"] == lot:
                 continue
             members = lib.parts(lot=entry["name"], state=None)
-            latest = {}
-            for part in members:
-                for sweep in lib.sweeps(part):
-                    trace = trace_of_sweep(part, sweep)
-                    if trace is not None:
-                        latest[part.label] = trace
-            other_lots.append((entry["name"], lot_statistics(members, {k: vgs_at_cc(t) for k, t in latest.items()})))
+            other_lots.append((entry["name"], lot_statistics(members, {p.label: p.vgs_ref for p in members})))
     sets = _design_sets(design) if design else ()
     if reference is not None:  # the scatter marks the first part of each set as the reference
         sets = tuple((reference.label, *[x for x in s if x != reference.label]) if reference.label in s else s

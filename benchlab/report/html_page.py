@@ -154,12 +154,12 @@ def matched_set_section(design: Mapping[str, Any]) -> str:
     return "\n".join(lines)
 
 
-def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str], gm_current: float | None) -> str:
-    """The parts of the lot, one row each (rows from :func:`benchlab.report.data.part_row`), chosen highlighted."""
+def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str]) -> str:
+    """The parts of the lot, one row each (rows from :func:`benchlab.report.data.part_row`: the values the library
+    stored), chosen highlighted."""
     chosen = set(chosen)
-    gm_head = f"gm at {format_si(gm_current, 'A', 4)} (A/V)" if gm_current else "gm (A/V)"
     head = ("part", "state", "sweep", "model", "Vth (V)", "sigma Vth (mV)", "KP (A/V^2)", "sigma KP (A/V^2)",
-            "THETA (1/V)", "n", "VGS at 250 uA (V)", gm_head, "flags / reason")
+            "THETA (1/V)", "n", "VGS at 250 uA (V)", "gm (A/V)", "gm at", "flags / reason")
     cells, classes = [], []
     for r in rows:
         classes.append(" ".join(c for c in ("rejected" if r["state"] == "rejected" else "",
@@ -167,7 +167,8 @@ def parts_table(rows: Sequence[Mapping[str, Any]], chosen: Iterable[str], gm_cur
         note = r["reason"] if r["state"] == "rejected" else (r["flags"] or "").replace(",", ", ")
         cells.append((r["label"], r["state"], r["classification"] or "-", r["model"] or "-", num(r["vth"], ".4f"),
                       num(r["vth_stderr"], ".2g", 1e3), num(r["kp"]), num(r["kp_stderr"], ".2g"),
-                      num(r["theta"], ".3g"), num(r["n"], ".3f"), num(r["vth_cc"], ".4f"), num(r["gm"]), note or ""))
+                      num(r["theta"], ".3g"), num(r["n"], ".3f"), num(r["vth_cc"], ".4f"), num(r["gm"]),
+                      format_si(r["gm_current"], "A") if r["gm"] is not None else "-", note or ""))
     return table(head, cells, caption="Parts of the lot (chosen parts highlighted, rejected parts greyed)",
                  row_classes=classes, text_columns=4)
 

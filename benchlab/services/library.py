@@ -22,6 +22,7 @@ from benchlab.library.exchange import CSV_COLUMNS, EXPORT_FORMAT, csv_rows
 from benchlab.library.records import json_default
 from benchlab.models import DeviceParams
 from benchlab.names import check_name, csv_cell
+from benchlab.units import format_si
 
 
 def library_path(path: str | os.PathLike | None = None) -> Path | str:
@@ -114,6 +115,23 @@ def show_part(path, spec: str) -> dict[str, Any]:
         part = lib.get_part(spec)
         return {"part": part.to_dict(), "fits": lib.fits(part), "sweeps": lib.sweeps(part, with_points=False),
                 "history": lib.history(part)}
+
+
+def set_operating_current(path, spec: str, current: float | None, *, operator: str | None = None) -> PartRecord:
+    """Set a part's operating current (A; None: the library's default) and store its gm there."""
+    from benchlab.library import operating
+
+    with open_library(path, operator=operator) as lib:
+        operating.set_part_current(lib, spec, current)
+        return lib.get_part(spec)
+
+
+def set_default_current(path, current: float, *, operator: str | None = None) -> int:
+    """Set the library-wide operating current (A); returns how many parts' stored gm moved to it."""
+    from benchlab.library import operating
+
+    with open_library(path, create=True, operator=operator) as lib:
+        return operating.set_default_current(lib, current)
 
 
 def set_state(path, spec: str, state: str, reason: str | None = None, *, operator: str | None = None) -> PartRecord:
@@ -232,27 +250,26 @@ def write_output(text: str, out: str | None) -> str | None:
     return None
 
 
-REFERENCE_CURRENT_A = 250e-6  # the library-wide current of the VGS / gm columns (datasheet VGS(th) condition)
 
 
 def format_parts_table(parts: Sequence[PartRecord]) -> str:
-    """A readable fixed-width table of parts (label, lot, state, model, Vth, KP, THETA, VGS and gm at 250 uA, flags)."""
+    """A readable fixed-width table of parts (label, lot, state, model, Vth, KP, THETA, the stored VGS at 250 uA and
+    gm at the part's operating current with that current, flags)."""
     header = (f"{'PART':<22} {'STATE':<9} {'MODEL':<7} {'VTH/V':>8} {'KP/(A/V2)':>10} {'THETA':>7} "
-              f"{'VGS@250uA':>9} {'GM@250uA':>9}  NOTE")
+              f"{'VGS@250uA':>9} {'GM/(A/V)':>9} {'GM AT':>8}  NOTE")
     lines = [header]
     for p in parts:
         prm = p.params
         vth = f"{prm.vth:8.4f}" if prm else f"{'-':>8}"
         kp = f"{prm.kp:10.4g}" if prm and prm.model != "linear" else f"{'-':>10}"
         theta = f"{prm.theta:7.3g}" if prm and prm.theta else f"{'-':>7}"
-        # VGS and gm of the stored curve at the library-wide reference current (the 250 uA datasheet
-        # threshold condition), for every model; '-' only without a curve
-        v_ref = float(prm.vgs_at(REFERENCE_CURRENT_A)) if prm else None
-        g_ref = float(prm.gm_at(REFERENCE_CURRENT_A)) if prm else None
-        vgs = f"{v_ref:9.4f}" if v_ref is not None and math.isfinite(v_ref) else f"{'-':>9}"
-        gm = f"{g_ref:9.4g}" if g_ref is not None and math.isfinite(g_ref) else f"{'-':>9}"
+        # the values stored with the part's current fit (benchlab.library.operating): VGS at 250 uA, gm at the
+        # part's operating current (or the library's default) and that current; '-' where not computed
+        vgs = f"{p.vgs_ref:9.4f}" if p.vgs_ref is not None else f"{'-':>9}"
+        gm = f"{p.gm_op:9.4g}" if p.gm_op is not None else f"{'-':>9}"
+        at = f"{format_si(p.gm_current, 'A'):>8}" if p.gm_op is not None and p.gm_current is not None else f"{'-':>8}"
         note = p.reason if p.state == "rejected" else ", ".join(p.flags)
-        lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {theta} {vgs} {gm}  "
+        lines.append(f"{p.spec:<22} {p.state:<9} {(prm.model if prm else '-'):<7} {vth} {kp} {theta} {vgs} {gm} {at}  "
                      f"{note or ''}")
     lines.append(f"{len(parts)} part(s)")
     return "\n".join(lines)
@@ -274,6 +291,10 @@ def format_part_details(details: dict[str, Any]) -> str:
         values = [f"{k}={params[k]:.6g} {units[k]}".rstrip() + (f" (+/- {stderr[k]:.2g})" if stderr.get(k) else "")
                   for k in shown if params.get(k) or k == "vth"]
         lines.append(f"  curve ({params['model']}): " + ", ".join(values))
+        vgs_ref, gm_op = part.get("vgs_ref"), part.get("gm_op")
+        lines.append(f"  VGS at 250 uA: {'-' if vgs_ref is None else f'{vgs_ref:.4f} V'}; gm: "
+                     + ("not computed" if gm_op is None else f"{gm_op:.4g} A/V at {format_si(part['gm_current'], 'A')}")
+                     + (" (its own operating current)" if part.get("operating_current") is not None else ""))
     if part.get("flags"):
         lines.append("  flags: " + ", ".join(part["flags"]))
     lines.append(f"  fits: {len(details['fits'])}")

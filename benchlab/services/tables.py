@@ -10,19 +10,13 @@ from __future__ import annotations
 import os
 from typing import Any, Sequence
 
-from benchlab.report.data import CC_CURRENT_A, part_row, trace_of_sweep, vgs_at_cc
+from benchlab.report.data import part_row
 
 
-def part_rows(lib, lot: str | None = None, state: str | None = None,
-              gm_current: float = CC_CURRENT_A) -> list[dict[str, Any]]:
-    """One row per part (``state=None``: every state), VGS at 250 uA from its latest stored sweep, gm at
-    ``gm_current`` from its curve (a linear-model part's own gm)."""
-    rows = []
-    with lib.snapshot():
-        for part in lib.parts(lot=lot, state=state):
-            traces = [t for t in (trace_of_sweep(part, s) for s in lib.sweeps(part)) if t is not None]
-            rows.append(part_row(part, vgs_at_cc(traces[-1]) if traces else None, gm_current))
-    return rows
+def part_rows(lib, lot: str | None = None, state: str | None = None) -> list[dict[str, Any]]:
+    """One row per part (``state=None``: every state) with the values the library stored: VGS at 250 uA, gm at the
+    part's operating current (or the library's default) and that current."""
+    return [part_row(part) for part in lib.parts(lot=lot, state=state)]
 
 
 def sweep_rows(paths: Sequence[str | os.PathLike]) -> list[dict[str, Any]]:

@@ -77,13 +77,14 @@ def test_parts_list_and_csv_show_vgs_and_gm_at_250uA_never_a_placeholder(capsys,
     write_session(tmp_path / "sessions", "s1", "BAG-A", _square_bag(3))
     assert _run(capsys, "library", "import", str(tmp_path / "sessions"), "--library", library_target)[0] == 0
     code, out, _ = _run(capsys, "parts", "list", "--library", library_target)
-    assert code == 0 and "VGS@250uA" in out and "GM@250uA" in out
+    assert code == 0 and "VGS@250uA" in out and "GM/(A/V)" in out and "GM AT" in out
     with Library.open(library_target) as lib:
         part = lib.parts(lot="BAG-A")[0]
     row = next(line for line in out.splitlines() if line.startswith(f"BAG-A/{part.label}"))
     # the square law at 250 uA: VGS = Vth + sqrt(2 I / KP), gm = sqrt(2 KP I) (Shichman-Hodges)
     assert f"{part.params.vth + (2 * 250e-6 / part.params.kp) ** 0.5:9.4f}" in row
-    assert f"{(2 * part.params.kp * 250e-6) ** 0.5:9.4g}" in row
+    # gm at the library's default operating current (250 uA unless set)
+    assert f"{(2 * part.params.kp * 250e-6) ** 0.5:9.4g}   250 uA" in row
     code, out, _ = _run(capsys, "export", "csv", "--library", library_target)
     assert code == 0
     import csv
