@@ -154,22 +154,34 @@ class SweepTable:
                 self._cache[key] = np.array(raw, dtype=object)
         return self._cache[key]
 
+    @property
+    def _sequential(self) -> bool:
+        # the recorder's own numbering, 0, 1, 2, ... in file order (checked on the text: no conversion needed)
+        key = "sequential"
+        if key not in self._cache:
+            raw = self._raw("point") if "point" in self.index else []
+            self._cache[key] = bool(raw) and raw == list(map(str, range(len(raw))))
+        return self._cache[key]
+
     def point_numbers(self) -> np.ndarray:
         """The point index of each row (the ``point`` column, else the row's place from 0)."""
-        if "point" not in self.index:
+        if "point" not in self.index or self._sequential:
             return np.arange(len(self))
         return self.number("point").astype(np.int64)
 
     def fit_points(self, detect_current: float | None = None) -> "FitPoints":
         """The points a fit may use (see :func:`fit_points`)."""
-        return fit_points(self.number("vgs"), self.number("id"),
-                          status=self.text("status") if self.has("status") else None,  # none: every point ok
-                          point=self.number("point") if self.has("point") else None,
+        status = self.text("status") if self.has("status") else None
+        if status is not None and self._cache.setdefault("all_ok", set(self._raw("status")) == {"ok"}):
+            status = None  # every point ok: nothing to leave out by status
+        return fit_points(self.number("vgs"), self.number("id"), status=status,
+                          point=self.number("point") if self.has("point") and not self._sequential else None,
                           direction=self.text("direction") if self.has("direction") else None,
                           spread_v=self.number("spread_v") if self.has("spread_v") else None,
                           rows=self.rows, detect_current=detect_current, ordered=self.ordered, source=self.path)
 
 
+_INDEX_CACHE: dict = {}  # header -> column index (a folder of records shares one header)
 _CANONICAL_WORDS = frozenset(str(s) for s in PointStatus) | {"up", "down"}
 
 
@@ -234,24 +246,25 @@ def read_table(path) -> SweepTable:
     quoted = '"' in text
     header = (_split_rows([lines[head_at]], name)[0] if quoted else lines[head_at].split(","))
     header = [h.strip() for h in header]
-    index = _column_index(header, name)
+    index = _INDEX_CACHE.get(tuple(header)) or _column_index(header, name)
+    if len(_INDEX_CACHE) < 64:
+        _INDEX_CACHE[tuple(header)] = index
     body = lines[head_at + 1:]
-    commas = None if quoted else set(map(str.count, body, repeat(",")))
-    if commas is not None and 0 not in commas:  # every line holds a comma: none is blank
+    width = len(header)
+    # every line with the header's width (the usual file): no line is blank, rows are numbered by place
+    whole = not quoted and width > 1 and set(map(str.count, body, repeat(","))) == {width - 1}
+    if whole:
         rows = range(1, len(body) + 1)
     else:
         rows = [k + 1 for k, line in enumerate(body) if line.strip()]
-        commas = None
-    if len(rows) != len(body):
-        body = [body[k - 1] for k in rows]
+        if len(rows) != len(body):
+            body = [body[k - 1] for k in rows]
     truncated = False
     if cut and body and all(c in index for c in RECORD_COLUMNS):
         body, rows, truncated = body[:-1], rows[:-1], True  # the point in flight when the recorder stopped
-        commas = None
-    width = len(header)
     if not body:
         cells = []  # a record stopped before its first point
-    elif not quoted and (commas if commas is not None else set(map(str.count, body, repeat(",")))) == {width - 1}:
+    elif whole or (not quoted and set(map(str.count, body, repeat(","))) == {width - 1}):
         cells = ",".join(body).split(",")  # the whole table in one split
     else:
         split = _split_rows(body, name) if quoted else [line.split(",") for line in body]
@@ -263,7 +276,7 @@ def read_table(path) -> SweepTable:
     numbers = np.arange(1, len(rows) + 1) if isinstance(rows, range) else np.asarray(rows, dtype=np.int64)
     table = SweepTable(path=name, header=tuple(header), index=index, rows=numbers, truncated=truncated, _cells=cells)
     _check_ok_points(table)  # every number the fit needs is checked as the file is read
-    if table.has("point"):
+    if table.has("point") and not table._sequential:
         _check_point_numbers(table)
     return table
 

@@ -307,7 +307,7 @@ def library_rows(library: str | Path | None, *, text: str = "", gm_at_a: float =
                "classification": part.classification or "", "flags": ",".join(part.flags),
                "vth": params.vth if params else None, "kp": params.kp if params else None,
                "theta": params.theta if params else None,
-               "vgs_250u": _safe(lambda: float(params.vgs_at(DEFAULT_BIN_CURRENT_A))) if params else None,
+               "vgs_250u": part.vgs_ref,  # as the library stored it with the curve (benchlab.library.operating)
                "gm": _safe(lambda: float(params.gm_at(gm_at_a))) if params else None}
         haystack = " ".join(str(row[k]) for k in ("lot", "label", "state", "classification", "flags")).lower()
         if needle and needle not in haystack:

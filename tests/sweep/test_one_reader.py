@@ -131,3 +131,21 @@ def test_fit_import_and_refit_weight_by_the_same_stated_vgs_noise(tmp_path):
     with stored as lib:
         (sweep,) = lib.sweeps(lib.parts(state=None)[0])
     assert sweep["direction"][-1] == "up" and sweep["spread_v"][-1] is not None
+
+
+def test_rows_out_of_file_order_are_taken_in_point_order_and_line_endings_do_not_matter(tmp_path):
+    path = _record(tmp_path / "s", cut=False)
+    lines = path.read_text().splitlines()
+    rng = np.random.default_rng(5)
+    shuffled = tmp_path / "shuffled.csv"
+    body = lines[1:]
+    order = rng.permutation(len(body))
+    # a spreadsheet's export: byte-order mark, CRLF line ends, rows sorted some other way
+    shuffled.write_bytes(("\ufeff" + "\r\n".join([lines[0]] + [body[k] for k in order]) + "\r\n").encode("utf-8"))
+    a, b = read_table(path).fit_points(2e-6), read_table(shuffled).fit_points(2e-6)
+    assert np.array_equal(a.vgs, b.vgs) and np.array_equal(a.id, b.id) and a.sigma_v == b.sigma_v
+    assert np.array_equal(b.rows, 1 + np.argsort(order)[9:])  # each point still names its own row in the file
+    again = tmp_path / "again.csv"
+    again.write_text("\n".join([lines[0]] + body + [body[12]]) + "\n")
+    with pytest.raises(InputError, match=r"row 50: point number 12 appears twice"):
+        read_table(again)
