@@ -148,6 +148,11 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
     vgs = np.asarray(vgs, dtype=float).ravel()
     i_d = np.asarray(i_d, dtype=float).ravel()
     rows = np.arange(1, vgs.size + 1) if rows is None else np.asarray(rows, dtype=int).ravel()
+    if isinstance(direction, np.ndarray) and direction.dtype.kind == "U" and direction.size == vgs.size \
+            and not (direction != "up").any():
+        direction = None  # a record whose points are all up: the same as no direction, which gets the fast path
+        if not _plainly_good(vgs, i_d):
+            direction = np.full(vgs.size, "up")
     if direction is None and _plainly_good(vgs, i_d):
         # the common case (a clean rising sweep) in one pass; anything else gets the full checks
         return Sweep(vgs=vgs, id=i_d, direction=np.full(vgs.size, "up"), rows=rows, source=source,
@@ -179,7 +184,9 @@ def validate_points(vgs, i_d, direction=None, *, rows=None, source: str | None =
     if direction is None:
         direction = _infer_direction(vgs, i_d, rows, source, ordered)
     else:
-        direction = np.asarray([str(d).strip().lower() for d in direction])
+        direction = np.asarray(direction)
+        if direction.dtype.kind != "U" or not np.isin(direction, DIRECTIONS).all():  # not written by the reader
+            direction = np.asarray([str(d).strip().lower() for d in direction])
         unknown = np.flatnonzero(~np.isin(direction, DIRECTIONS))
         if unknown.size:
             raise InputError(f"direction '{direction[unknown[0]]}' is not 'up' or 'down'", path=source,
