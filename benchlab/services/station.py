@@ -333,7 +333,9 @@ def _safe(compute: Callable[[], float]) -> float | None:
 
 def part_curve(library: str | Path | None, spec: str, points: int = 60) -> dict[str, Any]:
     """A part's last stored sweep (usable points) and its fitted curve over the same VGS range, with the
-    relative residuals of the fit at the measured points."""
+    residuals of the stored fit at the measured points inside the current range it was fitted on: measured /
+    fitted - 1 in percent (``residual_vgs``, ``residual_pct``, as the report's figure draws them), their rms as a
+    fraction, and how many points lie outside that range (``outside_window``, not in the residuals)."""
     import numpy as np
 
     from benchlab.services.library import open_library
@@ -341,22 +343,29 @@ def part_curve(library: str | Path | None, spec: str, points: int = 60) -> dict[
     with open_library(library) as lib:
         part = lib.get_part(spec)
         sweeps = lib.sweeps(part, with_points=True)
+        window = lib.fit_window(part.fit_id) if part.fit_id is not None else None
     measured = ([], [])
     if sweeps:
         last = sweeps[-1]
         keep = [(v, i) for v, i, st in zip(last["vgs"], last["id"], last["status"])
                 if st == PointStatus.OK and v is not None and i is not None and i > 0]
         measured = ([v for v, _ in keep], [i for _, i in keep])
-    fit_v, fit_i, residual = [], [], None
+    fit_v, fit_i, res_v, res_pct, rms, outside = [], [], [], [], None, 0
     if part.params is not None and measured[0]:
         fit_v = list(np.linspace(min(measured[0]), max(measured[0]), points))
         fit_i = [float(part.params.current(v)) for v in fit_v]
-        model = np.array([float(part.params.current(v)) for v in measured[0]])
-        data = np.array(measured[1])
-        ok = data > 0
-        residual = float(np.sqrt(np.mean(((model[ok] - data[ok]) / data[ok]) ** 2))) if ok.any() else None
+        model = np.asarray(part.params.current(np.asarray(measured[0], dtype=float)), dtype=float)
+        data = np.asarray(measured[1], dtype=float)
+        inside = np.ones(data.size, dtype=bool) if window is None else (
+            (data >= window[0] * (1 - 1e-9)) & (data <= window[1] * (1 + 1e-9)))
+        outside = int((~inside).sum())
+        ok = inside & (model > 0) & np.isfinite(model)
+        if ok.any():
+            relative = data[ok] / model[ok] - 1.0
+            res_v, res_pct = np.asarray(measured[0])[ok].tolist(), (relative * 100.0).tolist()
+            rms = float(np.sqrt(np.mean(relative ** 2)))
     return {"part": part, "vgs": measured[0], "id": measured[1], "fit_vgs": fit_v, "fit_id": fit_i,
-            "rms_relative_residual": residual}
+            "residual_vgs": res_v, "residual_pct": res_pct, "rms_relative_residual": rms, "outside_window": outside}
 
 
 # --------------------------------------------------------------------------------------------- hands-free

@@ -109,6 +109,10 @@ class DesignActions:
         plot.title = spec
         plot.set_points(curve["vgs"], curve["id"])
         plot.set_fit(curve["fit_vgs"], curve["fit_id"])
+        resid = self._q("#lib-resid")
+        rms = curve["rms_relative_residual"]
+        resid.title = "residual of the fit" + (f", rms {rms * 100:.2f} %" if rms is not None else ": no fit")
+        resid.set_points(curve["residual_vgs"], curve["residual_pct"])
         part = curve["part"]
         params = part.params
         lines = [f"[b]{escape(spec)}[/]  state {part.state}" + (escape(f" ({part.reason})") if part.reason else ""),
@@ -119,7 +123,9 @@ class DesignActions:
                          (f" +/- {err['vth'] * 1e3:.1f} mV" if err.get("vth") else ""))
             lines.append(f"KP {params.kp:.4g} A/V^2  THETA {params.theta:.3g} 1/V")
         if curve["rms_relative_residual"] is not None:
-            lines.append(f"fit residual (rms, relative) {curve['rms_relative_residual'] * 100:.2f} %")
+            lines.append(f"fit residual (rms, measured / fitted - 1) {curve['rms_relative_residual'] * 100:.2f} %"
+                         + (f"; {curve['outside_window']} points outside the fitted range" if curve["outside_window"]
+                            else ""))
         self._q("#lib-part", Static).update("\n".join(lines))
 
     # ----------------------------------------------------------------------------------- sets

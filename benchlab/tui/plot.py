@@ -5,7 +5,7 @@ Rendering holds the GIL: redrawing on every point starves the sweep thread, so p
 redraw is scheduled once. After each render the next waits for ``1 / MAX_REDRAW_HZ`` or for the render's own
 cost (thread CPU time) divided by ``RENDER_SHARE``, whichever is longer: on a fast machine the plot moves at
 10 frames a second, on a loaded one it slows down instead of taking the sweep's time (benchmarks/bench_ui.py).
-A change after a quiet spell (a part picked in the Library) is drawn at once.
+With no sweep running (the app's ``running_tag`` is None) every change is drawn at once.
 """
 
 from __future__ import annotations
@@ -84,7 +84,9 @@ class CurvePlot(PlotextPlot):
             self._schedule()
 
     def _schedule(self) -> None:
-        wait = self._next_at - time.monotonic()
+        # the budget only matters while a sweep's thread needs the GIL (the app's running_tag): idle, draw at once
+        busy = getattr(self.app, "running_tag", None) is not None
+        wait = self._next_at - time.monotonic() if busy else 0.0
         if wait > 0.001:
             self._pending = self.set_timer(wait, self._redraw_if_dirty)
         else:  # (a textual timer of no delay is not allowed)
@@ -120,5 +122,32 @@ class CurvePlot(PlotextPlot):
         fit = [(v, i) for v, i in zip(self.fit_vgs, self.fit_ids) if math.isfinite(i) and (i > 0 or not self.log_scale)]
         if fit:
             plt.plot([v for v, _ in fit], [i for _, i in fit], marker="braille", label="fit")
+        self.redraws += 1
+        self.refresh()
+
+
+class ResidualPlot(CurvePlot):
+    """Residuals of a fit against VGS (measured / fitted - 1, in %) around the zero line; ``ids`` hold the %."""
+
+    def __init__(self, title: str = "residual", **kwargs):
+        super().__init__(title=title, **kwargs)
+        self.log_scale = False
+
+    def toggle_scale(self) -> None:
+        """Residuals are always drawn on a linear axis."""
+
+    def draw(self) -> None:
+        plt = self.plt
+        plt.clear_data()
+        plt.clear_figure()
+        keep = [(v, r) for v, r in zip(self.vgs, self.ids) if math.isfinite(v) and math.isfinite(r)]
+        plt.title(self.title)
+        plt.xlabel("VGS (V)")
+        plt.ylabel("residual (%)")
+        if keep:
+            top = max(abs(r) for _, r in keep) * 1.1 or 1.0
+            plt.ylim(-top, top)  # symmetric: the zero line sits in the middle, over or under is plain to see
+            plt.hline(0.0)
+            plt.scatter([v for v, _ in keep], [r for _, r in keep], marker="braille")
         self.redraws += 1
         self.refresh()

@@ -6,7 +6,7 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import DataTable, Input, Label, Static
 
-from benchlab.tui.plot import CurvePlot
+from benchlab.tui.plot import CurvePlot, ResidualPlot
 from benchlab.tui.views_bench import _field
 
 LIBRARY_COLUMNS = ("lot", "label", "state", "Vth (V)", "KP (A/V^2)", "THETA (1/V)", "VGS@250uA (V)", "gm (S)", "flags")
@@ -25,6 +25,7 @@ class LibraryView(Vertical):
             yield table
             with Vertical(id="lib-detail"):
                 yield CurvePlot(title="selected part", id="lib-plot")
+                yield ResidualPlot(id="lib-resid")
                 yield Static("", id="lib-part", classes="panel")
         yield Static("", id="lib-bins", classes="panel short")
 

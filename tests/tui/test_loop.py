@@ -52,6 +52,13 @@ async def test_whole_loop_characterize_library_sets_sink(tmp_path):
         await pilot.pause(0.2)
         table = app.query_one("#lib-table")
         assert table.row_count == 5
+        # the detail pane: the curve and, beside it, the residuals of the stored fit (measured / fitted - 1)
+        app.show_part(f"led-rack/{next(label for label, ok in decided.items() if ok)}")
+        await pilot.pause(0.2)
+        resid, curve = app.query_one("#lib-resid"), app.query_one("#lib-plot")
+        assert 5 <= len(resid.vgs) <= len(curve.vgs) and resid.redraws >= 1
+        rms = (sum(r * r for r in resid.ids) / len(resid.ids)) ** 0.5
+        assert f"rms {rms:.2f} %" in resid.title and rms < 20  # a good part's fit within 20 % everywhere
         # Sets: a matched pair among the in-stock parts
         await pilot.press("f5")
         await type_into(pilot, "sets-current", "5m")
