@@ -90,6 +90,8 @@ def run_soak(root: Path, parts: int = 30, *, fault_rate: float = 0.01, seed: int
             plan = build_plan(bench, points=12, max_current_a=0.05)
             while attempts < parts * MAX_TRIES_PER_PART:
                 attempts += 1
+                if sim.core.part_index == -1 and sim.core._pending_index is not None and not sim.core.outputs_on():
+                    sim.core.next_part()  # a part was pulled out mid-sweep: the operator seats the next one
                 label = sim.current_part.label if sim.current_part is not None else None
                 if label is not None:
                     tries[label] = tries.get(label, 0) + 1
