@@ -59,9 +59,7 @@ class ThermalView(Horizontal):
             yield CurvePlot(title="tempco sweeps", id="th-plot")
         with Vertical(id="th-right", classes="result"):
             yield Static("No thermal run yet.", id="th-result", classes="panel")
-            table = DataTable(id="th-table", zebra_stripes=True, cursor_type="none")
-            table.add_columns("quantity", "value", "source")
-            yield table
+            yield Static("", id="th-values")
 
 
 class ThermalActions:
@@ -206,13 +204,12 @@ class ThermalActions:
         """The values the design will use for ``part`` and where each comes from (measured or assumed)."""
         from benchlab.services import thermal as svc
 
-        table = self._q("#th-table", DataTable)
-        table.clear()
-        if not part:
-            return
-        for row in svc.library_thermal(self.options.library, part):
-            table.add_row(row["quantity"], svc.format_value(row["quantity"], row["value"], row["stderr"]),
-                          row["source"])
+        rows = svc.library_thermal(self.options.library, part) if part else []
+        lines = [f"[b]{'design uses':<12} {'value':<24} source[/b]"] if rows else []
+        for row in rows:
+            value = svc.format_value(row["quantity"], row["value"], row["stderr"])
+            lines.append(escape(f"{row['quantity']:<12} {value:<24} {row['source']}"))
+        self._q("#th-values", Static).update("\n".join(lines))
 
 
 __all__ = ["ThermalActions", "ThermalNews", "ThermalView"]
