@@ -104,17 +104,17 @@ def _window(model: str, i_d: np.ndarray, window, at_current) -> tuple[np.ndarray
 
 
 def _stack(points: list[_Points], masks: list[np.ndarray]):
-    width = max(p.vgs.size for p in points)
-    vgs = np.zeros((len(points), width))
+    sizes = np.array([p.vgs.size for p in points])
+    width = int(sizes.max())
+    valid = np.arange(width)[None, :] < sizes[:, None]  # each row's points first, then padding
+    vgs = np.empty((len(points), width))
+    vgs[valid] = np.concatenate([p.vgs for p in points])
+    # padding repeats a row's last VGS (any real value keeps the model finite); currents pad with 1
+    vgs[~valid] = np.repeat(vgs[np.arange(len(points)), sizes - 1], width - sizes)
     i_d = np.ones((len(points), width))
+    i_d[valid] = np.concatenate([p.id for p in points])
     mask = np.zeros((len(points), width))
-    valid = np.zeros((len(points), width), dtype=bool)
-    for row, (p, m) in enumerate(zip(points, masks)):
-        vgs[row, :p.vgs.size] = p.vgs
-        vgs[row, p.vgs.size:] = p.vgs[-1]
-        i_d[row, :p.id.size] = p.id
-        mask[row, :p.vgs.size] = m
-        valid[row, :p.vgs.size] = True
+    mask[valid] = np.concatenate(masks)
     return vgs, i_d, mask, valid
 
 
