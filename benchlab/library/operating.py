@@ -22,6 +22,7 @@ REFERENCE_CURRENT_A = 250e-6  # VGS(th) of power-MOSFET datasheets at VDS = VGS 
 # the library-wide operating current when the library sets none: the reference current itself
 BUILTIN_OPERATING_CURRENT_A = REFERENCE_CURRENT_A
 SETTING_OPERATING_CURRENT = "operating_current_a"
+SCHEMA_VERSION = 7  # the library schema version that added the stored figures (migrations/0007_operating_figures.sql)
 
 
 def _finite(value: Any) -> float | None:

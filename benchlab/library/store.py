@@ -121,6 +121,7 @@ class Library:
         target = str(target).strip() if is_url(str(target).strip()) else Path(target)
         db = open_database(target, timeout_s=timeout_s, create=create)
         try:
+            before = db.schema_version()
             schema.migrate(db, path=db.target)
         except db.errors as exc:
             db.close()
@@ -130,7 +131,11 @@ class Library:
         except BaseException:
             db.close()
             raise
-        return cls(db, db.target, operator)
+        lib = cls(db, db.target, operator)
+        if 0 < before < operating.SCHEMA_VERSION:  # fits stored before the operating figures existed: fill them
+            with lib.write():
+                operating.refresh(lib)
+        return lib
 
     def close(self) -> None:
         """Close the connection."""

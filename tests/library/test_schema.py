@@ -39,6 +39,10 @@ def test_old_version_database_is_migrated_keeping_its_data(library_target):
         assert lib.get_part("Q01").state == "reserved"
         assert lib.design(design_id)["supply"] == 12.0
         assert lib.history("Q01")[-1]["new_state"] == "reserved"  # table of migration 3
+        # the figures of migration 7, filled in for the fit stored before it: square law, VGS = Vth + sqrt(2 I / KP)
+        # and gm = sqrt(2 KP I) at the built-in default current, 250 uA (Sedra & Smith, Microelectronic Circuits)
+        assert part.vgs_ref == pytest.approx(2.5 + (2 * 250e-6 / 0.9) ** 0.5, abs=1e-12)
+        assert part.gm_op == pytest.approx((2 * 0.9 * 250e-6) ** 0.5, rel=1e-12) and part.gm_current == 250e-6
 
 
 def test_newer_schema_is_refused_with_a_clear_error(library_target):
