@@ -25,7 +25,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # run from a checkout without installing
 
-from benchlab.services import characterize, station
+from benchlab.services import characterize, handsfree, station
 from benchlab.services.characterize import SimOptions
 from benchlab.tui.app import BenchlabApp, UiOptions
 
@@ -79,12 +79,11 @@ def hands_free_rate(root: Path, parts: int, handling_s: float, settle_s: float) 
             starts.append(time.perf_counter())
 
     try:
-        state = station.hands_free(handle, plan, station.AcceptanceWindow(), station.LabelPattern(), lot="bench",
-                                   sessions_root=root / "hf", library=str(root / "hf.db"),
-                                   settings=station.HandsFreeSettings(settle_s=settle_s, poll_s=0.05,
-                                                                      idle_timeout_s=4 * handling_s + 10,
-                                                                      max_parts=parts),
-                                   cancel=threading.Event(), on_status=on_status)
+        settings = handsfree.HandsFreeSettings(settle_s=settle_s, poll_s=0.05, idle_timeout_s=4 * handling_s + 10,
+                                               max_parts=parts)
+        state = handsfree.hands_free(handle, plan, station.AcceptanceWindow(), station.LabelPattern(), lot="bench",
+                                     sessions_root=root / "hf", library=str(root / "hf.db"), settings=settings,
+                                     cancel=threading.Event(), on_status=on_status)
     finally:
         handle.close()
     cycle = (starts[-1] - starts[0]) / (len(starts) - 1)  # from one sweep's start to the next

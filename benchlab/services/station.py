@@ -3,7 +3,7 @@
 Everything here is plain logic over the other services, so the UI holds none of its own: the
 acceptance window and its verdict, the running label, judging a swept part (fit, flags, leakage,
 VGS bin), storing it in the library as accepted or rejected, reading the output state the
-instruments report, aborting, and the hands-free loop (probe -> seated -> sweep -> removed).
+instruments report, aborting. The hands-free loop is in :mod:`benchlab.services.handsfree`.
 """
 
 from __future__ import annotations
@@ -11,15 +11,13 @@ from __future__ import annotations
 import math
 import re
 import threading
-import time
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable
 
-from benchlab.errors import BenchlabError, InputError, LibraryError
+from benchlab.errors import BenchlabError, InputError
 from benchlab.kinds import PartClass, PointStatus
 from benchlab.sweep.classify import LEAK_VGS_FRACTION
-from benchlab.sweep.plan import MAX_SETTLE_S
 from benchlab.sweep.records import SweepOutcome
 
 DEFAULT_BIN_CURRENT_A = 250e-6  # VGS bins at the constant-current threshold criterion (common practice)
@@ -368,102 +366,6 @@ def part_curve(library: str | Path | None, spec: str, points: int = 60) -> dict[
             "residual_vgs": res_v, "residual_pct": res_pct, "rms_relative_residual": rms, "outside_window": outside}
 
 
-# --------------------------------------------------------------------------------------------- hands-free
-@dataclass
-class HandsFreeSettings:
-    """How the hands-free loop watches the fixture."""
-
-    settle_s: float = 1.0  # a part must sit (conducting) this long before its sweep starts
-    poll_s: float = 0.1  # between two looks at the fixture
-    idle_timeout_s: float | None = None  # stop when no part arrives for this long (None: wait until cancelled)
-    max_parts: int | None = None
-
-    def __post_init__(self) -> None:
-        if not (isinstance(self.settle_s, (int, float)) and 0 <= self.settle_s <= MAX_SETTLE_S):
-            raise InputError(f"hands-free settle time must be 0 to {MAX_SETTLE_S:g} s, got {self.settle_s!r}")
-        if not (isinstance(self.poll_s, (int, float)) and 0 < self.poll_s <= MAX_SETTLE_S):
-            raise InputError(f"hands-free poll interval must be above 0 and at most {MAX_SETTLE_S:g} s, "
-                             f"got {self.poll_s!r}")
-
-
-@dataclass
-class HandsFreeState:
-    parts: int = 0
-    verdicts: list = field(default_factory=list)
-
-
-def hands_free(handle, plan, window: AcceptanceWindow, labels: LabelPattern, *, lot: str, sessions_root: str | Path,
-               library: str | Path | None, settings: HandsFreeSettings, cancel: threading.Event,
-               on_event: Callable[[Any], None] | None = None, on_status: Callable[[str], None] | None = None,
-               on_verdict: Callable[[PartVerdict, str], None] | None = None, operator: str = "",
-               ambient_c: float | None = None, sleep: Callable[[float], None] = time.sleep) -> HandsFreeState:
-    """Watch the fixture with a harmless probe; sweep each part once it has sat for ``settle_s``, judge it,
-    store it (accepted when it passes, rejected with the reasons when not; nothing when the sweep did
-    not complete or the part dropped out), then wait for it to be taken out. The output is off on return.
-    """
-    from benchlab.services.characterize import sweep_one
-    from benchlab.sweep.probe import FixtureProbe
-
-    say = on_status or (lambda text: None)
-    state = HandsFreeState()
-    probe = FixtureProbe(plan, handle.bench)
-
-    def wait_for(seated: bool) -> bool:
-        since, idle_from = None, time.monotonic()
-        while not cancel.is_set():
-            reading = probe.read()
-            now = time.monotonic()
-            if reading.seated == seated:
-                since = since or now
-                if not seated or now - since >= settings.settle_s:
-                    return True
-            else:
-                since = None
-            if seated and settings.idle_timeout_s is not None and now - idle_from > settings.idle_timeout_s:
-                return False
-            sleep(settings.poll_s)
-        return False
-
-    try:
-        while not cancel.is_set() and (settings.max_parts is None or state.parts < settings.max_parts):
-            probe.start()
-            say(f"waiting for a part ({labels.label} next)")
-            if not wait_for(True):
-                break
-            problems = probe.stop()
-            if problems:
-                raise BenchlabError("; ".join(problems))
-            say(f"sweeping {labels.label}")
-            outcome, csv_path = sweep_one(handle, plan, labels.label, lot=lot, sessions_root=sessions_root,
-                                          operator=operator, ambient_c=ambient_c, on_event=on_event, cancel=cancel,
-                                          seat=False)
-            verdict = judge(outcome, csv_path.parent, window)
-            note = "not stored"
-            if verdict.storable:
-                try:
-                    note = store(verdict, library, lot, accept=verdict.passed, reason="; ".join(verdict.failures),
-                                 operator=operator or None)
-                except LibraryError as exc:
-                    # a shared library that is out of reach never stops the bag: the session is on disk
-                    note = (f"not stored in the library ({exc}); the sweep is kept in {verdict.session_path}: "
-                            f"benchlab library import {verdict.session_path}")
-            state.parts += 1
-            state.verdicts.append(verdict)
-            if on_verdict:
-                on_verdict(verdict, note)
-            if not outcome.complete and not verdict.lost_contact:
-                break
-            labels = labels.advanced()
-            probe.start()
-            say("take the part out")
-            if not wait_for(False):
-                break
-    finally:
-        probe.stop()
-        handle.bench.safe_off()
-    return state
-
-
-__all__ = ["AcceptanceWindow", "HOT_RISE_K", "HandsFreeSettings", "LabelPattern", "PartHeating", "PartVerdict", "abort",
-           "bench_summary", "hands_free", "judge", "leakage_of", "library_rows", "load_next_sim_part", "output_states",
-           "part_curve", "part_heating", "store"]
+__all__ = ["AcceptanceWindow", "HOT_RISE_K", "LabelPattern", "PartHeating", "PartVerdict", "abort", "bench_summary",
+           "judge", "leakage_of", "library_rows", "load_next_sim_part", "output_states", "part_curve", "part_heating",
+           "store"]

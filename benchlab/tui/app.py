@@ -41,7 +41,7 @@ VIEW_TITLES = {"bench": "Bench", "characterize": "Characterize", "handsfree": "H
 # the keys of each view (the footer shows only the current view's, plus the global ones)
 VIEW_ACTIONS = {"bench": {"connect_bench", "connect_sim", "disconnect"},
                 "characterize": {"run_sweep", "accept", "retest", "reject", "toggle_scale", "next_part"},
-                "handsfree": {"hands_free"},
+                "handsfree": {"hands_free", "hf_sweep_anyway", "hf_mark_open"},
                 "library": {"refresh_library", "sort_library"},
                 "sets": {"find_sets", "reserve_set"},
                 "sink": {"save_design", "export_netlist"},
@@ -96,6 +96,8 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
         Binding("g", "toggle_scale", "Log/linear"),
         Binding("n", "next_part", "Next sim part"),
         Binding("h", "hands_free", "Hands-free on/off"),
+        Binding("y", "hf_sweep_anyway", "Sweep anyway"),
+        Binding("b", "hf_mark_open", "Mark open"),
         Binding("u", "refresh_library", "Reload"),
         Binding("o", "sort_library", "Sort"),
         Binding("m", "find_sets", "Find sets"),
@@ -148,6 +150,8 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
         self._switch_interval = sys.getswitchinterval()
         sys.setswitchinterval(SWITCH_INTERVAL_S)
         self._q("#lot", Input).value = self.options.lot
+        if self.options.sim is not None and self.options.sim.handling_s:  # the simulated operator's handling time
+            self._q("#hf-handling", Input).value = f"{self.options.sim.handling_s:g}"
         self._title()
         self._status()
         self.set_interval(STATUS_POLL_S, self._poll_outputs)

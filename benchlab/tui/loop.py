@@ -280,42 +280,70 @@ class LoopActions:
             return
         if not self._bench_ready():
             return
-        from benchlab.services.station import HandsFreeSettings, LabelPattern
+        from benchlab.services.handsfree import HandsFreeControl, HandsFreeSettings
+        from benchlab.services.station import LabelPattern
 
         try:
             labels = LabelPattern.parse(self._q("#label", Input).value)
-            settings = HandsFreeSettings(settle_s=self._quantity("hf-settle", "s", 1.0), poll_s=0.1)
+            settings = HandsFreeSettings(settle_s=self._quantity("hf-settle", "s", 1.0), poll_s=0.1,
+                                         handling_s=self._quantity("hf-handling", "s", None))
             window = self._window()
         except BenchlabError as exc:
             self.show_error(exc)
             return
         self.hands_free_on = True
+        self._hf_control = HandsFreeControl()
         tag = self._start_tag("hf-plot")
-        self._hands_free_worker(tag, labels, window, settings)
+        self._hands_free_worker(tag, labels, window, settings, self._hf_control)
 
     @work(thread=True, group="sweep")
-    def _hands_free_worker(self, tag, labels, window, settings) -> None:
-        from benchlab.services import station
+    def _hands_free_worker(self, tag, labels, window, settings, control) -> None:
+        from benchlab.services.handsfree import hands_free
 
-        def news(text="", verdict=None, note=""):
+        def news(text="", verdict=None, note="", question=False):
             if text.startswith("sweeping"):
                 self.feed.push(tag, NewCurve())  # in line with the points: the next ones are the new part's
-            self.post_message(HandsFreeNews(tag, text, verdict, note))
+            self.post_message(HandsFreeNews(tag, text, verdict, note, question))
 
-        self._on_bench(tag, lambda: station.hands_free(
+        self._on_bench(tag, lambda: hands_free(
             self.handle, self.plan, window, labels, lot=self.options.lot or "lot-1",
             sessions_root=self.options.sessions, library=self.options.library, settings=settings,
             cancel=self.cancel_event, on_event=self.feed.sink(tag),
             on_status=lambda text: news(text), on_verdict=lambda v, n: news("", v, n),
-            operator=self.options.operator) and None)
+            operator=self.options.operator, control=control,
+            on_question=lambda text: news(text, question=True)) and None)
+
+    def _answer_no_part(self, answer: str) -> None:
+        control = getattr(self, "_hf_control", None)
+        if not self.hands_free_on or control is None or not control.answer(answer):
+            self.say("no question to answer: hands-free asks when no part shows up for the handling time")
+
+    def action_hf_sweep_anyway(self) -> None:
+        from benchlab.services.handsfree import SWEEP_ANYWAY
+
+        self._answer_no_part(SWEEP_ANYWAY)
+
+    def action_hf_mark_open(self) -> None:
+        from benchlab.services.handsfree import MARK_OPEN
+
+        self._answer_no_part(MARK_OPEN)
 
     @_quiet
     def on_hands_free_news(self, message: HandsFreeNews) -> None:
         if message.tag != self.shown_tag:
             return
         view = self._q(HandsFreeView)
+        if message.question:
+            view.big("NO PART SEEN: an empty fixture, or an open part?", "other")
+            view.query_one("#hf-status").update(escape(message.text) + "\n[b]y[/b] sweep it anyway (an open part is "
+                                                "classified open)   [b]b[/b] mark it open, next label   or seat a part")
+            self._hf_asked = True
+            return
         if message.text:
             view.query_one("#hf-status").update(escape(message.text))
+            if getattr(self, "_hf_asked", False):  # answered, or a part turned up: the question is gone
+                self._hf_asked = False
+                view.big("", "")
             return
         v = message.verdict
         head = v.headline()

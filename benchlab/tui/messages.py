@@ -36,12 +36,13 @@ class SweepFinished(Message):
 class HandsFreeNews(Message):
     """What the hands-free loop is doing, or a part it judged (``verdict``, ``note``)."""
 
-    def __init__(self, tag: int, text: str = "", verdict: Any = None, note: str = ""):
+    def __init__(self, tag: int, text: str = "", verdict: Any = None, note: str = "", question: bool = False):
         super().__init__()
         self.tag = tag
         self.text = text
         self.verdict = verdict
         self.note = note
+        self.question = question  # ``text`` asks the technician: no part seen (an empty fixture or an open part?)
 
 
 class Connected(Message):

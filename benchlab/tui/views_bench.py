@@ -93,6 +93,8 @@ class HandsFreeView(Vertical):
         with Horizontal(id="hf-top"):
             with Vertical(classes="form narrow"):
                 yield from _field("Settle time (s)", "hf-settle", "1.0")
+            with Vertical(classes="form narrow"):
+                yield from _field("Handling time (s)", "hf-handling", "5", "never ask")
             yield Static("Hands-free is off. Press h to start: the source probes the fixture at a few volts with "
                          "a 1 mA limit; seat a part and its sweep starts by itself.", id="hf-status", classes="panel")
         yield Static("", id="hf-big", classes="big")
