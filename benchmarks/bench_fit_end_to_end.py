@@ -192,7 +192,7 @@ def main_bench() -> None:
     parser.add_argument("--files", type=int, default=2000)
     parser.add_argument("--points", type=int, default=100)
     parser.add_argument("--parts", type=int, default=10000)
-    parser.add_argument("--rounds", type=int, default=3, help="rounds taking turns; each side's fastest counts")
+    parser.add_argument("--rounds", type=int, default=5, help="rounds taking turns; each side's fastest counts")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         files, truth = write_files(Path(tmp), args.files, args.points)
