@@ -24,6 +24,11 @@ from benchlab.design.verdict import MIN_DESIGN_CURRENT_A, sink_verdict, supply_s
 from benchlab.errors import DesignError, InputError
 
 
+# The highest supply or load voltage the designer accepts: the top of the low-voltage range (1500 V DC in IEC 60038
+# and the EU Low Voltage Directive, from memory). Above it insulation, clearances and licensed practice decide, not
+# a fitted curve; it also keeps absurd entries (1e300 V) from becoming a saved design.
+MAX_SINK_VOLTAGE_V = 1500.0
+
 @dataclass(frozen=True)
 class SinkOptions:
     """Design choices; every default is stated in the result.
@@ -85,8 +90,8 @@ class SinkOptions:
             raise InputError("the mismatch target is a fraction between 0 and 1 (0.01 for 1 %)")
         if self.monte_carlo < 0 or self.monte_carlo == 1:
             raise InputError("the Monte Carlo needs 0 (off) or at least 2 samples")
-        if self.load_voltage is not None and self.load_voltage < 0:
-            raise InputError("the load voltage must be >= 0 V")
+        if self.load_voltage is not None and not 0 <= self.load_voltage <= MAX_SINK_VOLTAGE_V:
+            raise InputError(f"the load voltage must be between 0 and {MAX_SINK_VOLTAGE_V:g} V")
         if self.resistor_tolerance is not None and not 0 <= self.resistor_tolerance < 1:
             raise InputError("the resistor tolerance is a fraction between 0 and 1")
         if self.thermal_resistance is not None and not self.thermal_resistance > 0:

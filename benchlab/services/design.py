@@ -14,7 +14,7 @@ import numpy as np
 
 from benchlab.design.matching import MatchedSet, MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
-from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, synthesize_sink
+from benchlab.design.sink import MAX_SINK_VOLTAGE_V, SinkDesign, SinkOptions, analyze_sink, synthesize_sink
 from benchlab.errors import DesignError, InputError, LibraryError, PartUnavailableError
 from benchlab.units import format_si
 
@@ -62,8 +62,8 @@ def _stock(lib, lot: str | None, polarity: str = "N") -> list:
 
 
 def _check_request(req: SinkRequest) -> None:
-    if not (req.supply and req.supply > 0):
-        raise InputError("--supply must be a positive voltage")
+    if not (req.supply and 0 < req.supply <= MAX_SINK_VOLTAGE_V):
+        raise InputError(f"--supply must be a positive voltage up to {MAX_SINK_VOLTAGE_V:g} V")
     if (req.current is None) == (req.resistor is None):
         raise InputError("give exactly one of --at-current (design the resistor) or --resistor (analyse it)")
     if req.current is not None and not req.current > 0:

@@ -106,3 +106,16 @@ def test_five_percent_resistors_fall_back_to_the_nominal_choice_and_say_so():
     assert design.worst_error <= 0.05
     assert design.monte_carlo["worst_error_p97_5"] > 0.05
     assert "nominal values only" in design.verdict
+
+
+def test_absurd_voltages_are_refused_before_any_design():
+    # the designer's range ends at the low-voltage limit (1500 V DC, IEC 60038, from memory): 1e300 V used to give
+    # a design that the terminal UI could save, reserving its parts
+    from benchlab.errors import InputError
+    from benchlab.services.design import SinkRequest, design_sink
+
+    with pytest.raises(InputError, match="1500 V"):
+        SinkOptions(load_voltage=1e300).validated()
+    with pytest.raises(InputError, match="--supply"):
+        design_sink(SinkRequest(supply=1e300, current=0.02, ref_model="square:vth=2.9,kp=1",
+                                out_models=["square:vth=2.9,kp=1"]))
