@@ -172,6 +172,9 @@ class LoopActions:
             self.hands_free_on = False
             text = f"Hands-free stopped: {message.error}" if message.error else "Hands-free stopped; output off."
             self._q("#hf-status", Static).update(escape(text) + " Press h to start again.")
+            if getattr(self, "_hf_asked", False):  # the unanswered question goes with the run
+                self._hf_asked = False
+                self._q(HandsFreeView).big("", "")
             self._status()
             return
         result = self._q("#char-result", Static)
