@@ -25,7 +25,7 @@ from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
 from benchlab.extract.diagnostics import MIN_DECADES
 from benchlab.extract.eiv import effective_variance_fit
-from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked
+from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked, solve_batch
 from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
 from benchlab.models import MODEL_NAMES, T_NOMINAL_K, thermal_voltage
@@ -186,7 +186,80 @@ def _rank(points: list[_Points], masks: list[np.ndarray], criteria: list[dict], 
         for row, b in enumerate(usable):
             criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]), len(PARAM_NAMES[candidate]))
         fits[candidate] = (fit, {b: row for row, b in enumerate(usable)})
+    _rank_on_common_weights(points, masks, criteria, fits, ut)
     return fits
+
+
+def _stated_sigma_v(points: list[_Points]):
+    # the VGS noise a record states (its repeated readings' spread), None when no sweep states one
+    stated = np.array([np.nan if p.sweep.sigma_v is None else p.sweep.sigma_v for p in points])
+    return stated if np.isfinite(stated).any() else None
+
+
+def _rank_on_common_weights(points: list[_Points], masks: list[np.ndarray], criteria: list[dict], fits: dict,
+                            ut: float) -> None:
+    """Replace each sweep's criteria by the known-variance AICc on point weights every candidate shares.
+
+    The unweighted comparison lets the noisiest points (low currents, where a little VGS noise is a large relative
+    current error) decide, and each model's own variance estimate would absorb its misfit. So the noise of each
+    point is estimated once, from the global model (effective variance, extract/eiv.py): theta for the nested
+    square/theta pair, ekv where the unweighted comparison found it best,
+    every candidate is re-fitted with those weights, and ranked by chi^2 + 2k + 2k(k+1)/(n-k-1): the AICc with
+    the variance taken from the global model (Burnham and Anderson, Model Selection and Multimodel Inference,
+    2nd ed. 2002, sections 2.4-2.5; from memory).
+    """
+    if len(fits) < 2:
+        return
+    richest = {}  # the noise source of each sweep (the global model)
+    for b in range(len(points)):
+        ranked = {m: c for m, c in criteria[b].items() if math.isfinite(c)}
+        if len(ranked) < 2:
+            continue
+        best = min(ranked, key=ranked.get)
+        # square is theta with THETA = 0: theta is the global model of that nested pair; ekv (not nested with
+        # them) is the noise source only where it fits best
+        richest[b] = "theta" if best != "ekv" and "theta" in ranked else best
+    sigma: dict[int, np.ndarray] = {}
+    for name in AUTO_CANDIDATES:
+        rows = [b for b, r in richest.items() if r == name]
+        if not rows:
+            continue
+        fit, row_of = fits[name]
+        chosen = [points[b] for b in rows]
+        vgs = _stack(chosen, [masks[b] for b in rows])[0]
+        v, i, m, columns = _window_only(*_stack(chosen, [masks[b] for b in rows])[:3])
+        weighted, s = effective_variance_fit(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
+                                             sigma_v=_stated_sigma_v(chosen))
+        full = _spread(s, columns, vgs.shape[1])
+        for k, b in enumerate(rows):
+            sigma[b] = full[k, :points[b].vgs.size]
+        # the global model's own weighted fit is the last pass of that fit (same weights): no second solve
+        _store_aicc(criteria, rows, name, weighted)
+    for name, (fit, row_of) in fits.items():
+        rows = [b for b in row_of if b in sigma and richest[b] != name]
+        if not rows:
+            continue
+        chosen = [points[b] for b in rows]
+        _, _, mask, _ = _stack(chosen, [masks[b] for b in rows])
+        weights = np.ones(mask.shape)
+        for k, b in enumerate(rows):
+            weights[k, :sigma[b].size] = sigma[b]
+        v, i, m, columns = _window_only(*_stack(chosen, [masks[b] for b in rows])[:3])
+        if columns is not None:
+            weights = np.take_along_axis(weights, columns, axis=1)
+        weighted = solve_batch(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
+                               sigma=np.where(m > 0, weights, 1.0), with_covariance=False)
+        _store_aicc(criteria, rows, name, weighted)
+
+
+def _store_aicc(criteria: list[dict], rows: list[int], name: str, weighted) -> None:
+    # AICc with a known variance: chi^2 + 2k + 2k(k+1)/(n-k-1)
+    k_params = len(PARAM_NAMES[name])
+    for row, b in enumerate(rows):
+        n = float(weighted.n_points[row])
+        chi2 = float(weighted.rss[row])
+        ok = math.isfinite(chi2) and n - k_params - 1 > 0
+        criteria[b][name] = chi2 + 2 * k_params + 2 * k_params * (k_params + 1) / (n - k_params - 1) if ok else math.inf
 
 
 def _decades(i_d: np.ndarray) -> float:
@@ -235,9 +308,7 @@ def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start
     if not weighted:
         return fit, (vgs, i_d, mask, valid), None
     # the reported fit: effective-variance weights for noise on both axes (see extract/eiv.py)
-    stated = np.array([np.nan if p.sweep.sigma_v is None else p.sweep.sigma_v for p in points])
-    fit, sigma = effective_variance_fit(model, *window[:3], fit.params, ut=ut,
-                                        sigma_v=stated if np.isfinite(stated).any() else None)
+    fit, sigma = effective_variance_fit(model, *window[:3], fit.params, ut=ut, sigma_v=_stated_sigma_v(points))
     return fit, (vgs, i_d, mask, valid), _spread(sigma, window[3], vgs.shape[1])
 
 
