@@ -285,9 +285,12 @@ class LoopActions:
             return
         from benchlab.services.handsfree import HandsFreeControl, HandsFreeSettings
         from benchlab.services.station import LabelPattern
+        from benchlab.sweep.session import check_name
 
         try:
             labels = LabelPattern.parse(self._q("#label", Input).value)
+            # the same Lot field as the Characterize loop (it was the lot the app was started with)
+            lot = check_name("lot name", self._q("#lot", Input).value.strip())
             settings = HandsFreeSettings(settle_s=self._quantity("hf-settle", "s", 1.0), poll_s=0.1,
                                          handling_s=self._quantity("hf-handling", "s", None))
             window = self._window()
@@ -297,10 +300,10 @@ class LoopActions:
         self.hands_free_on = True
         self._hf_control = HandsFreeControl()
         tag = self._start_tag("hf-plot")
-        self._hands_free_worker(tag, labels, window, settings, self._hf_control)
+        self._hands_free_worker(tag, labels, lot, window, settings, self._hf_control)
 
     @work(thread=True, group="sweep")
-    def _hands_free_worker(self, tag, labels, window, settings, control) -> None:
+    def _hands_free_worker(self, tag, labels, lot, window, settings, control) -> None:
         from benchlab.services.handsfree import hands_free
 
         def news(text="", verdict=None, note="", question=False):
@@ -309,7 +312,7 @@ class LoopActions:
             self.post_message(HandsFreeNews(tag, text, verdict, note, question))
 
         self._on_bench(tag, lambda: hands_free(
-            self.handle, self.plan, window, labels, lot=self.options.lot or "lot-1",
+            self.handle, self.plan, window, labels, lot=lot,
             sessions_root=self.options.sessions, library=self.options.library, settings=settings,
             cancel=self.cancel_event, on_event=self.feed.sink(tag),
             on_status=lambda text: news(text), on_verdict=lambda v, n: news("", v, n),

@@ -136,6 +136,9 @@ async def test_hands_free_bag_of_ten_with_a_part_pulled(tmp_path):
     async with app.run_test(size=SIZE) as pilot:
         await connected(pilot)
         sim = app.handle.simulator
+        # hands-free files the parts under the Lot field, as the Characterize loop does (not the start-up lot)
+        await pilot.press("f2")
+        await type_into(pilot, "lot", "rack-b")
         lines = await hands_free_whole_bag(pilot)
         assert output_log(app)[-1] == "OFF"
     removed = [e.text for e in sim.log.entries(kind="operator")]
@@ -148,3 +151,4 @@ async def test_hands_free_bag_of_ten_with_a_part_pulled(tmp_path):
     assert sum("LOST CONTACT" in line and "not stored" in line for line in lines) == 1
     stored = list_parts(str(tmp_path / "lib.db"), state="all")
     assert len(stored) == len(swept)  # nothing stored for the pulled part
+    assert {p.lot for p in stored} == {"rack-b"}
