@@ -86,14 +86,20 @@ async def _screens(tmp_path) -> dict[str, str]:
                 await type_into(pilot, "sink-lot", STOCK_LOT)
                 await type_into(pilot, "sink-supply", "12")
                 await type_into(pilot, "sink-current", "5 mA")
-            app.set_focus(None)
-            await pilot.pause(0.4)
-            app.status_text = ""
-            app.outputs_at = "12:00:00"
-            app._status()
-            await pilot.pause(0.2)
-            shots[view] = app.export_screenshot(title=f"benchlab ui: {view} view (simulated bench, invented parts)")
+            shots[view] = await steady_screenshot(pilot, view)
     return shots
+
+
+async def steady_screenshot(pilot, view: str) -> str:
+    """The screen as an SVG, with no focus and the status line's clock and text fixed (so it can be compared)."""
+    app = pilot.app
+    app.set_focus(None)
+    await pilot.pause(0.4)
+    app.status_text = ""
+    app.outputs_at = "12:00:00"
+    app._status()
+    await pilot.pause(0.2)
+    return app.export_screenshot(title=f"benchlab ui: {view} view (simulated bench, invented parts)")
 
 
 async def test_every_view_matches_its_saved_screenshot(tmp_path):

@@ -20,7 +20,7 @@ from benchlab.library.thermal import measured_thermal
 from benchlab.services.library import add_part, open_library
 
 from .conftest import SIZE, connected, make_app, output_log, press_outside_fields, type_into, until
-from .test_snapshots import DOCS, normalize
+from .test_snapshots import DOCS, normalize, steady_screenshot
 
 
 def _measured(db: str, label: str) -> dict:
@@ -73,19 +73,8 @@ async def test_tempco_and_rth_from_the_ui_are_stored_and_the_output_ends_off(tmp
         role = "smu" if fixture == "smu" else "supply"
         assert history.output_was_ever_on(role) and not history.output_was_left_on()
         if fixture == "smu":
-            _check_screenshot(app, await _screenshot(pilot))
+            _check_screenshot(app, await steady_screenshot(pilot, "thermal"))
     assert output_log(app)[-1] == "OFF"
-
-
-async def _screenshot(pilot) -> str:
-    app = pilot.app
-    app.set_focus(None)
-    await pilot.pause(0.4)
-    app.status_text = ""
-    app.outputs_at = "12:00:00"
-    app._status()
-    await pilot.pause(0.2)
-    return app.export_screenshot(title="benchlab ui: thermal view (simulated bench, invented parts)")
 
 
 def _check_screenshot(app, svg: str) -> None:
