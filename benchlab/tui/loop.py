@@ -188,7 +188,9 @@ class LoopActions:
         if fit is not None and message.tag == self.shown_tag:
             self._draw_fit(self._q("#char-plot"), fit)
             self._q("#char-plot").draw_now()
-        self.say(f"{message.verdict.label}: {message.verdict.headline()}: a accept, t retest, x reject")
+        # an incomplete sweep is never stored (services/station.store refuses it): offer only what works
+        keys = "a accept, t retest, x reject" if message.verdict.storable else "nothing stored; t retest"
+        self.say(f"{message.verdict.label}: {message.verdict.headline()}: {keys}")
 
     def _draw_fit(self, plot, fit) -> None:
         import numpy as np

@@ -110,7 +110,10 @@ async def test_abort_mid_sweep_leaves_the_output_off(tmp_path):
         sidecar = json.loads(next((tmp_path / "sessions").glob("*/Q01.json")).read_text())
         assert sidecar["complete"] is False  # stopped early, marked so, points kept
         assert tag is not None
-        assert app.verdict is None or not app.verdict.complete
+        # an interrupted sweep is judged, never stored: the prompt offers only the retest
+        await until(pilot, lambda: app.verdict is not None and "t retest" in app.status_text, 5)
+        assert not app.verdict.complete
+        assert "a accept" not in app.status_text and "nothing stored" in app.status_text
 
 
 async def test_keys_are_handled_while_a_sweep_runs(tmp_path):
