@@ -29,6 +29,12 @@ from benchlab.errors import DesignError, InputError
 # a fitted curve; it also keeps absurd entries (1e300 V) from becoming a saved design.
 MAX_SINK_VOLTAGE_V = 1500.0
 
+
+def check_supply_voltage(supply_v: float) -> None:
+    """Refuse a supply the designer does not handle (not a positive number up to ``MAX_SINK_VOLTAGE_V``)."""
+    if not (isinstance(supply_v, (int, float)) and 0 < supply_v <= MAX_SINK_VOLTAGE_V):
+        raise InputError(f"the supply must be a positive voltage up to {MAX_SINK_VOLTAGE_V:g} V (got {supply_v!r})")
+
 @dataclass(frozen=True)
 class SinkOptions:
     """Design choices; every default is stated in the result.
@@ -225,6 +231,7 @@ def analyze_sink(supply_v: float, resistor_ohm: float, ref: Part, outputs: Seque
     -------
     SinkDesign
     """
+    check_supply_voltage(supply_v)
     options = options.validated()
     _check_parts(ref, outputs)
     rs = float(options.source_resistor_ohm)
@@ -371,6 +378,7 @@ def synthesize_sink(supply_v: float, target_a: float, ref: Part, outputs: Sequen
     -------
     SinkDesign
     """
+    check_supply_voltage(supply_v)
     options = options.validated()
     _check_parts(ref, outputs)
     if options.mismatch_target is None:

@@ -14,7 +14,8 @@ import numpy as np
 
 from benchlab.design.matching import MatchedSet, MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
-from benchlab.design.sink import MAX_SINK_VOLTAGE_V, SinkDesign, SinkOptions, analyze_sink, synthesize_sink
+from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, check_supply_voltage, synthesize_sink
+from benchlab.design.verdict import MIN_DESIGN_CURRENT_A
 from benchlab.errors import DesignError, InputError, LibraryError, PartUnavailableError
 from benchlab.units import format_si
 
@@ -62,8 +63,7 @@ def _stock(lib, lot: str | None, polarity: str = "N") -> list:
 
 
 def _check_request(req: SinkRequest) -> None:
-    if not (req.supply and 0 < req.supply <= MAX_SINK_VOLTAGE_V):
-        raise InputError(f"--supply must be a positive voltage up to {MAX_SINK_VOLTAGE_V:g} V")
+    check_supply_voltage(req.supply)
     if (req.current is None) == (req.resistor is None):
         raise InputError("give exactly one of --at-current (design the resistor) or --resistor (analyse it)")
     if req.current is not None and not req.current > 0:
@@ -89,7 +89,13 @@ def _operating_current(req: SinkRequest, candidates: Sequence[Part]) -> float:
     median = candidates[int(np.argsort(vgs)[len(vgs) // 2])]
     from benchlab.models import solve_resistor_line
 
-    return solve_resistor_line(median.params, req.supply, req.resistor, req.options.source_resistor_ohm)[1]
+    current = solve_resistor_line(median.params, req.supply, req.resistor, req.options.source_resistor_ohm)[1]
+    if current < MIN_DESIGN_CURRENT_A:
+        # the parts would be off on that line: no set can be picked for it (the designer refuses the same)
+        raise DesignError(f"{req.supply:g} V through {req.resistor:g} ohm gives a typical part of the stock about "
+                          f"{current:.3g} A, below the {MIN_DESIGN_CURRENT_A * 1e6:g} uA a sweep detects: raise the "
+                          "supply or lower the resistor")
+    return current
 
 
 def best_outputs_for(ref: Part, candidates: Sequence[Part], count: int, current: float) -> list[Part]:

@@ -116,6 +116,11 @@ def test_absurd_voltages_are_refused_before_any_design():
 
     with pytest.raises(InputError, match="1500 V"):
         SinkOptions(load_voltage=1e300).validated()
-    with pytest.raises(InputError, match="--supply"):
+    with pytest.raises(InputError, match="supply must be a positive voltage up to 1500 V"):
         design_sink(SinkRequest(supply=1e300, current=0.02, ref_model="square:vth=2.9,kp=1",
                                 out_models=["square:vth=2.9,kp=1"]))
+    # the designer itself refuses it too (the Python API calls it directly)
+    ref, outs = _mismatched_set()
+    for call in (lambda: synthesize_sink(1e300, 0.02, ref, outs), lambda: synthesize_sink(-12.0, 0.02, ref, outs)):
+        with pytest.raises(InputError, match="1500 V"):
+            call()
