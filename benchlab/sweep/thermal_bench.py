@@ -19,6 +19,7 @@ is never undone) and log every reading.
 from __future__ import annotations
 
 import math
+from abc import ABC, abstractmethod
 from typing import Any
 
 import numpy as np
@@ -41,26 +42,28 @@ def check_cancel(cancel) -> None:
         raise SweepCancelled("cancelled; the output is off")
 
 
-class _Currents:
+class _Currents(ABC):
     """What both fixtures share: sense readings, pulses, the log."""
 
     def __init__(self, plan, clock, log, cancel, limits: Limits):
         self.plan, self.clock, self.log, self.cancel, self.limits = plan, clock, log, cancel, limits
 
     # -- per fixture -------------------------------------------------------------------------------------
+    @abstractmethod
     def force(self, amps: float, expect_vgs: float | None = None) -> None:
         """Make ``amps`` flow through the part (output state unchanged)."""
-        raise NotImplementedError
 
+    @abstractmethod
     def measure(self) -> tuple[float, float]:
         """One reading: (VGS, drain current)."""
-        raise NotImplementedError
 
+    @abstractmethod
     def set_output(self, on: bool) -> None:
-        raise NotImplementedError
+        """Switch the forcing source's output."""
 
+    @abstractmethod
     def safe_off(self) -> list[str]:
-        raise NotImplementedError
+        """Output off and setpoints to zero; returns what could not be done."""
 
     def max_current(self, expect_vgs: float) -> float:
         """The largest current this bench can force with the part at ``expect_vgs`` (A)."""
