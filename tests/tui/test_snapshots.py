@@ -92,9 +92,16 @@ async def _screens(tmp_path) -> dict[str, str]:
 
 async def steady_screenshot(pilot, view: str) -> str:
     """The screen as an SVG, with no focus and the status line's clock and text fixed (so it can be compared)."""
+    from benchlab.tui.plot import CurvePlot
+
     app = pilot.app
     app.set_focus(None)
     await pilot.pause(0.4)
+    for plot in app.query(CurvePlot):
+        # a plot redraws on a timer while points arrive: draw the final state now, or the screenshot shows
+        # whichever frame the timer reached (the thermal view's plot after its last run, under load)
+        plot.draw_now()
+    await pilot.pause(0.2)
     app.status_text = ""
     app.outputs_at = "12:00:00"
     app._status()
