@@ -230,8 +230,9 @@ def extrapolate_to_switch(times_s: Sequence[float], volts: Sequence[float]) -> L
 
     The junction cools from the moment heating stops, so the first reading already sees part of the fall;
     extrapolating against sqrt(t) (one-dimensional heat flow near the die) recovers the voltage at t = 0.
-    From memory: early on, the die cools as the surface of a semi-infinite body whose heat flux is switched off,
-    a fall proportional to sqrt(t) (the textbook constant-flux result, by superposition); JESD51-1's own
+    Early on, the die cools as the surface of a semi-infinite body whose heat flux is switched off, a fall
+    proportional to sqrt(t) (Carslaw & Jaeger, constant flux into a semi-infinite solid, by superposition);
+    checked against ngspice's distributed RC line in tests/extract/test_cooling_ngspice.py. JESD51-1's own
     wording of the correction could not be checked (docs/thermal.md).
     """
     t = np.asarray(times_s, dtype=float)
