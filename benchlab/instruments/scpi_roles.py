@@ -10,7 +10,7 @@ error queue until it is empty, so a refused command raises
 
 from __future__ import annotations
 
-from typing import Any, Callable
+from typing import Any, Callable, Sequence
 
 from benchlab.errors import (BenchlabError, ConnectionLost, InputError, InstrumentError,
                              InstrumentReportedError, InstrumentTimeout)
@@ -90,6 +90,58 @@ class ScpiInstrument:
         lines = self.profile.lines(operation, **values)
         for k, line in enumerate(lines):
             self.send(line, idempotent=idempotent, defer=defer and k == len(lines) - 1)
+
+    def configure_batch(self, steps: Sequence[tuple[str, dict[str, Any]]]) -> None:
+        """Send several settings, ``(operation, values)`` in order, with one error-queue check for all of them.
+
+        On a pipelining profile (``pipeline_error_check``: the instrument takes compound messages) every line goes
+        in one message with the error query at its end: one round trip for the batch (:meth:`send_batch`). Else
+        each line is sent and checked in turn, exactly as :meth:`configure` would. Put only settings that power
+        nothing in a batch: an execution error leaves the later units of a compound message applied.
+        """
+        if not self.pipelined:
+            for operation, values in steps:
+                self.configure(operation, **values)
+            return
+        self.send_batch([line for operation, values in steps for line in self.profile.lines(operation, **values)])
+
+    def send_batch(self, lines: Sequence[str]) -> None:
+        """Send settings as one compound message ending in the error query (IEEE 488.2: program message units
+        joined by ``;``); raise the first error queued.
+
+        A command error (-1xx) makes the instrument drop the rest of the message, the error query with it (IEEE
+        488.2; docs/scpi.md): the query then times out and the queue is read, so that error is the one raised. The lines
+        must be settings that are safe to send twice: a lost, garbled or passing (-240, -300, ...) answer sends
+        the whole batch once more, checked.
+
+        Raises
+        ------
+        InstrumentReportedError
+            With the instrument's code and text; ``command`` is the whole batch.
+        """
+        self.confirm()
+        (error_query,) = self.profile.lines("error_query")
+        batch = chain(lines)
+        for attempt in (1, 2):
+            retries = getattr(self.transport, "retry_count", 0)
+            reply = self._query_or_its_error(chain([*lines, error_query]), batch, True, None)
+            try:
+                code, text = parse_error_reply(reply)
+            except ValueError:
+                code, text = None, f"unexpected reply {reply[:80]!r} to '{error_query}' after '{batch}'"
+            if code == 0:
+                if getattr(self.transport, "retry_count", 0) != retries:
+                    self._drop_transient_errors(batch)  # the unanswered first try may have queued one
+                return
+            if code is not None:
+                more = self.read_error_queue()
+                if code not in TRANSIENT_ERROR_CODES or attempt == 2:
+                    if more:
+                        text += f" (and {len(more)} more queued error(s))"
+                    raise InstrumentReportedError(code, text, command=batch, resource=self.resource)
+            elif attempt == 2:
+                raise InstrumentError(text, resource=self.resource)
+            self.repeats += 1
 
     def send(self, command: str, *, idempotent: bool = True, defer: bool = False) -> None:
         """Write one message, then raise the first error the instrument queued for it.

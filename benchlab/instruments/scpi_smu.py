@@ -40,6 +40,26 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         self.configure(f"source_{mode}")
         self.mode = mode
 
+    def prepare_source(self, mode: str, compliance: float, nplc: float | None = None) -> None:
+        """:meth:`configure_source`, :meth:`set_nplc` (when ``nplc`` is given) and a level of 0 as one batch.
+
+        The compliance comes first. On a pipelining profile the batch is one compound message ending in the
+        error query (one round trip, :meth:`~ScpiInstrument.configure_batch`); else each setting is sent and
+        checked in turn, the same lines as the separate calls. The output must be off: nothing here powers it.
+        """
+        if mode not in ("voltage", "current"):
+            raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
+        limit_of = "current" if mode == SourceFunction.VOLTAGE else "voltage"
+        limit_unit, level_unit = ("amps", "volts") if limit_of == "current" else ("volts", "amps")
+        steps = [(f"set_{limit_of}_compliance", {limit_unit: float(compliance)}), (f"source_{mode}", {})]
+        if nplc is not None:
+            steps.append(("set_nplc", {"nplc": float(nplc)}))
+        steps.append((f"set_{mode}_level", {level_unit: 0.0}))
+        self.configure_batch(steps)
+        self.mode = mode
+        if nplc is not None:
+            self.nplc = float(nplc)
+
     def _require_mode(self) -> str:
         if self.mode is None:
             raise InstrumentError("configure_source() must be called before setting a level",
@@ -158,9 +178,10 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         return self._parse(reply, expect_points=len(levels))
 
     def _run_list_chained(self, setup: list[str], mode: str, points: int, timeout_ms: int) -> list[tuple[float, float]]:
-        """A pipelining profile's list run: the settings in one message (then their error check), then start,
-        wait, fetch, back to fixed mode and the error query in one more: two round trips per list."""
-        self.send(chain(setup))
+        """A pipelining profile's list run: the settings and their error query in one message, then start,
+        wait, fetch, back to fixed mode and the error query in one more: two round trips per list. The first
+        must pass before the second goes out: a refused upload would otherwise start the list held before."""
+        self.send_batch(setup)
         start = self.profile.list_lines("start")
         run = [*start, *self.profile.lines("wait"), *self.profile.list_lines("fetch"),
                *self.profile.list_lines(f"fixed_mode_{mode}"), *self.profile.lines("error_query")]

@@ -86,12 +86,12 @@ class _Sweep:
                     self.source.check_voltage(v)
         else:
             self.source.safe_off()
+            # compliance first, then mode, integration time and level 0: one batch, one error check where the
+            # profile allows it (pipeline_error_check); the list and the point path start alike
             if plan.mode == SweepMode.CURRENTS:
-                self.source.configure_source("current", plan.limits.max_supply_v)
+                self.source.prepare("current", plan.limits.max_supply_v, plan.nplc)
             else:
-                self.source.configure_source("voltage", plan.current_limit())
-            self.source.set_nplc(plan.nplc)
-            self.source.set_level(0.0)
+                self.source.prepare("voltage", plan.current_limit(), plan.nplc)
             if plan.mode == SweepMode.VOLTAGES:
                 for v in plan.voltages:
                     self.source.check_level(v)
@@ -397,8 +397,7 @@ class _Sweep:
         was_on = self.source.output_is_on()
         if was_on:
             self.source.set_output(False)
-        self.source.configure_source("voltage", allowed)
-        self.source.set_level(0.0)
+        self.source.prepare("voltage", allowed)
         if was_on and not self.pulsed:
             self.source.set_output(True)
 

@@ -227,6 +227,26 @@ class GuardedSmu(_GuardedOutput):
 
     def configure_source(self, mode: str, compliance: float) -> None:
         """Select what to force and set the compliance; refused while the output is on."""
+        self._check_source(mode, compliance)
+        self.inner.configure_source(mode, compliance)
+        self.mode, self.compliance, self.level = mode, compliance, 0.0
+
+    def prepare(self, mode: str, compliance: float, nplc: float | None = None) -> None:
+        """Compliance, mode, integration time (when given) and a level of 0, checked as :meth:`configure_source`;
+        one batch with one error check where the instrument allows it (``prepare_source``), else one by one."""
+        compliance = self._check_source(mode, compliance)
+        prepare = getattr(self.inner, "prepare_source", None)
+        if prepare is not None:
+            prepare(mode, compliance, nplc)
+        else:
+            self.inner.configure_source(mode, compliance)
+            if nplc is not None:
+                self.inner.set_nplc(nplc)
+            self.inner.set_level(0.0)
+        self.mode, self.compliance, self.level = mode, compliance, 0.0
+
+    def _check_source(self, mode: str, compliance: float) -> float:
+        """Raise :class:`SafetyError` unless ``mode`` with ``compliance`` may be configured now."""
         compliance = _check_number("compliance", compliance)
         if self._output_on:
             raise SafetyError("refused to change the source mode while the output is on")
@@ -240,8 +260,7 @@ class GuardedSmu(_GuardedOutput):
                                   f"{self.limits.max_supply_v:g} V")
         else:
             raise SafetyError(f"refused source mode '{mode}' (expected 'voltage' or 'current')")
-        self.inner.configure_source(mode, compliance)
-        self.mode, self.compliance, self.level = mode, compliance, 0.0
+        return compliance
 
     def check_level(self, value: float, expect_other: float | None = None) -> float:
         """Raise unless ``value`` may be forced. ``expect_other`` is the predicted current (forcing
