@@ -18,11 +18,11 @@ import numpy as np
 
 from benchlab.errors import InputError
 from benchlab.sweepfile import (FLOOR_SIGMAS, MAX_FLOOR_FRACTION, MIN_SPREAD_SAMPLES, FitPoints, detection_floor,
-                                read_table, stated_vgs_noise)
+                                read_plain_many, read_table, stated_vgs_noise)
 
 # re-exported: the floor and the stated VGS noise are part of the one fitting rule in benchlab.sweepfile
 __all__ = ["FLOOR_SIGMAS", "MAX_FLOOR_FRACTION", "MIN_SPREAD_SAMPLES", "Sweep", "detection_floor", "load_sweep_csv",
-           "stated_vgs_noise", "step_noise", "sweep_from_points", "validate_points"]
+           "load_sweeps_csv", "stated_vgs_noise", "step_noise", "sweep_from_points", "validate_points"]
 
 # Above these magnitudes the numbers are almost surely in mA / mV, not A / V: a bench
 # fixture for discrete parts does not pass 20 A or reach 100 V (common practice).
@@ -287,3 +287,58 @@ def load_sweep_csv(path, *, detect_current: float | None = None) -> Sweep:
     if not len(table):
         raise InputError("no data rows after the header", path=str(path))
     return sweep_from_points(table.fit_points(detect_current))
+
+
+def _plainly_good_many(found: list[FitPoints]) -> np.ndarray:
+    """:func:`_plainly_good` of many sweeps' points at once (one pass over all of them)."""
+    if not found:
+        return np.zeros(0, dtype=bool)
+    sizes = np.array([f.vgs.size for f in found])
+    vgs, i_d = np.concatenate([f.vgs for f in found]), np.concatenate([f.id for f in found])
+    ends = np.cumsum(sizes)
+    starts = ends - sizes
+    dv, di = np.diff(vgs), np.diff(i_d)
+    step_bad = ~((di > 0) & ~((dv <= 0) & (di <= 0)))
+    bad = np.concatenate(([0], np.cumsum(step_bad)))  # the steps between one sweep's points: starts .. ends - 2
+    inner = np.maximum(ends - 1, starts)
+    first, last = i_d[np.minimum(starts, vgs.size - 1)], i_d[ends - 1]
+    finite = np.concatenate(([0], np.cumsum(~(np.isfinite(vgs) & np.isfinite(i_d)))))
+    return ((sizes > 0) & (bad[inner] - bad[starts] == 0) & (first > 0) & (last <= MAX_PLAUSIBLE_CURRENT_A)
+            & (np.abs(vgs[np.minimum(starts, vgs.size - 1)]) <= MAX_PLAUSIBLE_VOLTAGE_V)
+            & (np.abs(vgs[ends - 1]) <= MAX_PLAUSIBLE_VOLTAGE_V) & (finite[ends] - finite[starts] == 0))
+
+
+def load_sweeps_csv(paths, detect_currents=None) -> list:
+    """:func:`load_sweep_csv` of many files at once: plain CSVs are read and checked together
+    (:func:`benchlab.sweepfile.read_plain_many`), every other file one by one; the results are the same.
+
+    Parameters
+    ----------
+    paths : sequence of str or Path
+    detect_currents : sequence of float or None, optional
+        Each file's ``detect_current`` (see :func:`load_sweep_csv`); default None for all.
+
+    Returns
+    -------
+    list of Sweep or InputError
+        In the order of ``paths``: the sweep, or the error :func:`load_sweep_csv` raises for that file.
+    """
+    detect_currents = [None] * len(paths) if detect_currents is None else list(detect_currents)
+    # a detection current belongs to a session record, which the batched path does not take
+    plain = read_plain_many([p if d is None else None for p, d in zip(paths, detect_currents)]) if paths else []
+    batch = [k for k, f in enumerate(plain) if f is not None]
+    good = _plainly_good_many([plain[k] for k in batch])
+    out: list = [None] * len(paths)
+    for k, ok in zip(batch, good.tolist()):
+        if ok:  # as validate_points' fast path: a clean rising sweep
+            f = plain[k]
+            out[k] = Sweep(vgs=f.vgs, id=f.id, direction=np.full(f.vgs.size, "up"), rows=f.rows, source=f.source,
+                           skipped={}, sigma_v=None)
+    for k, path in enumerate(paths):
+        if out[k] is None:
+            try:
+                out[k] = (sweep_from_points(plain[k]) if plain[k] is not None
+                          else load_sweep_csv(path, detect_current=detect_currents[k]))
+            except InputError as exc:
+                out[k] = exc
+    return out

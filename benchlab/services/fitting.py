@@ -17,6 +17,7 @@ from typing import Any
 
 from benchlab.errors import BenchlabError, FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
+from benchlab.extract.sweepdata import load_sweeps_csv
 from benchlab.extract.fit import DEFAULT_CC_CURRENT
 from benchlab.models import T_NOMINAL_K
 from benchlab.kinds import PartClass, PointStatus
@@ -165,15 +166,34 @@ def resolve_inputs(paths) -> list[SweepSource]:
     return sources
 
 
+def _detect_current(source: SweepSource) -> float | None:
+    # the sweep engine records its search steps too; below its plan's detection current they are not data
+    if source.sidecar_path is None:
+        return None
+    plan = _read_json(source.sidecar_path).get("plan")
+    value = plan.get("detect_current_a") if isinstance(plan, dict) else None
+    return float(value) if isinstance(value, (int, float)) and value > 0 else None
+
+
 def load_source(source: SweepSource) -> Sweep:
     """Read and check one sweep; a session record leaves out the points taken before the part conducted."""
-    detect = None
-    if source.sidecar_path is not None:
-        plan = _read_json(source.sidecar_path).get("plan")
-        value = plan.get("detect_current_a") if isinstance(plan, dict) else None
-        # the sweep engine records its search steps too; below its detection current they are not data
-        detect = float(value) if isinstance(value, (int, float)) and value > 0 else None
-    return load_sweep_csv(source.csv_path, detect_current=detect)
+    return load_sweep_csv(source.csv_path, detect_current=_detect_current(source))
+
+
+def load_sources(sources: list[SweepSource]) -> list:
+    """:func:`load_source` of many sweeps at once (plain CSVs are read together): per source its
+    :class:`Sweep`, or the :class:`InputError` that refused it."""
+    detects: list = []
+    for source in sources:
+        try:
+            detects.append(_detect_current(source))
+        except InputError as exc:
+            detects.append(exc)
+    wanted = [k for k, d in enumerate(detects) if not isinstance(d, InputError)]
+    found = load_sweeps_csv([sources[k].csv_path for k in wanted], [detects[k] for k in wanted])
+    for k, sweep in zip(wanted, found):
+        detects[k] = sweep
+    return detects
 
 
 @dataclass(frozen=True)
@@ -233,19 +253,20 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         if plain:
             raise InputError("--save stores fits in a session record's sidecar; this CSV has none "
                              "(fit it without --save, or fit the session)", path=str(plain[0].csv_path))
-    loaded, skipped, failed = [], [], []
+    loaded, skipped, failed, wanted = [], [], [], []
     for source in sources:
         if source.classification == PartClass.INTERRUPTED:
             skipped.append((source, "the sweep did not finish, so the part was not judged nor fitted; sweep it "
                                     f"again (benchlab bag --resume {source.csv_path.parent})"))
-            continue
-        if _is_dud(source):
+        elif _is_dud(source):
             skipped.append((source, "a dud is not fitted: its curve does not describe a working transistor"))
-            continue
-        try:
-            loaded.append((source, load_source(source)))
-        except InputError as exc:
-            failed.append((source, exc))
+        else:
+            wanted.append(source)
+    for source, sweep in zip(wanted, load_sources(wanted)):
+        if isinstance(sweep, InputError):
+            failed.append((source, sweep))
+        else:
+            loaded.append((source, sweep))
     options = dict(at_current=at_current, cc_current=cc_current, window=window, bootstrap=bootstrap)
 
     def kelvin(source: SweepSource) -> float:

@@ -149,3 +149,59 @@ def test_rows_out_of_file_order_are_taken_in_point_order_and_line_endings_do_not
     again.write_text("\n".join([lines[0]] + body + [body[12]]) + "\n")
     with pytest.raises(InputError, match=r"row 50: point number 12 appears twice"):
         read_table(again)
+
+
+def _same_sweep(a, b):
+    assert type(a) is type(b)
+    if isinstance(a, InputError):
+        assert str(a) == str(b)
+        return
+    for name in ("vgs", "id", "direction", "rows"):
+        assert np.array_equal(getattr(a, name), getattr(b, name)), name
+    assert (a.source, a.skipped, a.fold_backs, a.sigma_v) == (b.source, b.skipped, b.fold_backs, b.sigma_v)
+
+
+def test_many_files_read_together_give_what_each_gives_alone(tmp_path):
+    # the batched path (benchlab fit reads plain CSVs together) must change no point, row, direction or error
+    from benchlab.extract.sweepdata import load_sweeps_csv
+
+    currents = np.geomspace(1e-4, 0.1, 30).tolist()
+    vgs = PARAMS.vgs_at(np.array(currents)).tolist()
+    good = [f"{v!r},{i!r}" for v, i in zip(vgs, currents)]
+    shapes = {
+        "plain": "vgs,id\n" + "\n".join(good) + "\n",
+        "plain2": "vgs,id\n" + "\n".join(good[:20]) + "\n",
+        "units": "VGS (V),ID [A]\n" + "\n".join(good) + "\n",
+        "extra": "time,vgs,id\n" + "\n".join(f"{k},{g}" for k, g in enumerate(good)) + "\n",
+        "crlf": "vgs,id\r\n" + "\r\n".join(good) + "\r\n",
+        "no_newline": "vgs,id\n" + "\n".join(good),
+        "blank_line": "vgs,id\n" + "\n".join(good[:10]) + "\n\n" + "\n".join(good[10:]) + "\n",
+        "quoted": '"vgs","id"\n' + "\n".join(good) + "\n",
+        "noise_floor": "vgs,id\n1.0,-1e-9\n1.1,2e-9\n1.2,-2e-9\n" + "\n".join(good) + "\n",
+        "up_down": "vgs,id\n" + "\n".join(good + good[::-1][1:]) + "\n",
+        "unsorted": "vgs,id\n" + "\n".join(good[5:] + good[:5]) + "\n",
+        "not_a_number": "vgs,id\n" + "\n".join(good[:5]) + "\nx,1e-3\n",
+        "nan": "vgs,id\n" + "\n".join(good[:5]) + "\nnan,1e-3\n",
+        "negative": "vgs,id\n" + "\n".join(good[:5]) + "\n3.9,-1e-3\n" + "\n".join(good[5:]) + "\n",
+        "in_ma": "vgs,id\n" + "\n".join(f"{v!r},{1e3 * i!r}" for v, i in zip(vgs, currents)) + "\n",
+        "short_row": "vgs,id\n" + "\n".join(good[:5]) + "\n3.9\n",
+        "header_only": "vgs,id\n",
+        "no_columns": "a,b\n1,2\n",
+        "mv_units": "vgs (mV),id\n1,2\n",
+    }
+    paths = []
+    for name, text in shapes.items():
+        (tmp_path / f"{name}.csv").write_bytes(text.encode())
+        paths.append(tmp_path / f"{name}.csv")
+    paths.append(tmp_path / "missing.csv")
+    paths.append(_record(tmp_path / "s", cut=True))
+    detects = [None] * (len(paths) - 1) + [2e-6]
+    together = load_sweeps_csv(paths + paths[:3], detects + detects[:3])
+    for path, detect, batched in zip(paths + paths[:3], detects + detects[:3], together):
+        try:
+            alone = load_sweep_csv(path, detect_current=detect)
+        except InputError as exc:
+            alone = exc
+        _same_sweep(batched, alone)
+    kinds = {p.stem: type(s).__name__ for p, s in zip(paths, together)}
+    assert kinds["plain"] == "Sweep" and kinds["not_a_number"] == kinds["missing"] == "InputError"  # both kinds met
