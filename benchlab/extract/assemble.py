@@ -86,16 +86,29 @@ def _bootstrap(model, vgs, i_d, mask, p, resamples, seed, at_current, ut, sigma)
 
 
 # the size a standard error is judged against: the parameter itself, except the threshold (an
-# absolute 0.5 V: a threshold near 0 V is no less well known) and n, whose physical part is n - 1
-def poorly_determined(names, values, errors) -> list[str]:
+# absolute 0.5 V: a threshold near 0 V is no less well known), n, whose physical part is n - 1, and
+# THETA, judged by what it does to the current (below)
+def poorly_determined(names, values, errors, top_overdrive: float | None = None) -> list[str]:
     """Fitted parameters whose standard error exceeds half their size (every parameter is checked).
 
-    Sizes: ``vth`` 1 V (so an error above 0.5 V), ``n`` its excess over the bound, n - 1, every
-    other parameter its own magnitude.
+    Sizes: ``vth`` 1 V (so an error above 0.5 V), ``n`` its excess over the bound, n - 1, ``theta``
+    its magnitude but at least the THETA that moves the current at the top of the fitted window by
+    :data:`~benchlab.extract.diagnostics.THETA_EFFECT_FLOOR` (``top_overdrive``: VGS - Vth there, V),
+    every other parameter its own magnitude.
+
+    THETA's relative error says little where THETA is small: on a part with no mobility degradation
+    (a SPICE level-1 card) THETA comes out 0.01 +- 0.04 1/V and its error is four times its size,
+    yet its whole effect on the current, 1 / (1 + THETA Vov), is a percent or two at the top of the
+    sweep, well inside what a good fit may miss. So THETA is poorly determined when its error is
+    above half its size and also moves the current at the top of the window by more than half the
+    floor: d ln ID / dTHETA = -Vov / (1 + THETA Vov).
     """
     loose = []
     for name, value, error in zip(names, values, errors):
         size = 1.0 if name == "vth" else (value - 1.0 if name == "n" else abs(value))
+        if name == "theta" and top_overdrive is not None and top_overdrive > 0:
+            # the THETA whose effect at the top is the floor, for this THETA's own denominator
+            size = max(size, diagnostics.THETA_EFFECT_FLOOR * (1.0 + max(value, 0.0) * top_overdrive) / top_overdrive)
         if error is not None and np.isfinite(error) and error > 0.5 * size:
             loose.append(f"{name} {value:.4g} +- {error:.2g}")
     return loose
@@ -277,7 +290,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             flags_found += diagnostics.hysteresis_check(shift)
         if not converged_rows[row]:
             flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {iteration_rows[row]} iterations"))
-        loose = poorly_determined(names, p, [sd[name] for name in names])
+        loose = poorly_determined(names, p, [sd[name] for name in names], window_rows[row][3] - p[0])
         if loose:
             flags_found.append((FLAG_UNCERTAIN, "standard error above half the parameter: " + ", ".join(loose)))
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,

@@ -21,6 +21,10 @@ MIN_POINTS_ABOVE_THRESHOLD = 5
 # the weak-inversion slope plus the strong-inversion curve)
 MIN_DECADES = {"linear": 0.0, "square": 0.7, "theta": 1.2, "ekv": 2.5}
 POOR_FIT_RELATIVE_RMS = 0.05
+# THETA's effect on the current at the top of the fitted window, THETA Vov / (1 + THETA Vov), below which
+# its standard error is not judged against THETA's own size (our choice: the poor-fit limit, a bend the
+# fit could miss and still count as good; assemble.poorly_determined)
+THETA_EFFECT_FLOOR = POOR_FIT_RELATIVE_RMS
 NON_MONOTONIC_DROP = 0.02
 # a fall must also stand this many standard deviations of a difference of two readings above the
 # sweep's current noise floor, else meter noise near the detection floor reads as a fall (our choice:

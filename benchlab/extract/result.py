@@ -10,7 +10,7 @@ from benchlab.models import DeviceParams
 
 # Bump when a change to the fitter can change its numbers; stored with every fit so a
 # saved result can be told apart from a re-run with a newer fitter.
-FITTER_VERSION = "1.3"
+FITTER_VERSION = "1.4"
 
 # Flag codes (stable strings, also in docs/extraction.md)
 FLAG_FEW_POINTS = "few_points_above_threshold"

@@ -33,6 +33,12 @@ R_SERIES = 470.0
 CARD = ".model NMOD NMOS (LEVEL=3 VTO=2.85 KP=2.4 THETA=0.3)"
 TRUE = {"vth": 2.85, "kp": 2.4, "theta": 0.3}
 OUTPUT_CARD = ".model NMOD NMOS (LEVEL=3 VTO=2.91 KP=2.2 THETA=0.25)"
+# power-MOSFET currents for the automatic choice: supply 0-12 V in 50 mV steps through 90 ohm, up to about 0.1 A;
+# a THETA of 0.1 1/V (as the THETA-law parts of the simulated bag) then bends the top of the curve by about 4 %,
+# one to three standard errors of THETA at 0.1 % noise on both axes
+R_AMPS = 90.0
+BENT_CARD = ".model NMOD NMOS (LEVEL=3 VTO=3.0 KP=1.2 THETA=0.1)"
+LEVEL1_CARD = ".model NMOD NMOS (LEVEL=1 VTO=3.0 KP=1.2)"
 
 
 def _ngspice(tmp_path_factory) -> Spice:
@@ -48,7 +54,9 @@ def _ngspice(tmp_path_factory) -> Spice:
 def curves(tmp_path_factory):
     """One noise-free ngspice run per card (supply 0-12 V in 20 mV steps through 470 ohm)."""
     spice = _ngspice(tmp_path_factory)
-    return {card: spice.resistor_sweep(card, resistor=R_SERIES, step=0.02) for card in (CARD, OUTPUT_CARD)}
+    runs = {card: spice.resistor_sweep(card, resistor=R_SERIES, step=0.02) for card in (CARD, OUTPUT_CARD)}
+    runs.update({card: spice.resistor_sweep(card, resistor=R_AMPS, step=0.05) for card in (BENT_CARD, LEVEL1_CARD)})
+    return runs
 
 
 def _meter_copies(curve, seed, copies=COPIES):
@@ -59,7 +67,7 @@ def _meter_copies(curve, seed, copies=COPIES):
     return [meter_readings(v_supply, v_part, R_SERIES, rng) for _ in range(copies)]
 
 
-def _percent_copies(curve, seed, copies=COPIES):
+def _percent_copies(curve, seed, copies=COPIES, level=2e-4):
     # independent Gaussian noise of 0.02 % of reading on VGS and on ID (a 5.5-digit meter on a
     # range it fills, from memory); points below 10 uA left out as a sweep's detection floor would.
     # (At 0.05 % the VGS noise biases THETA by about half its standard error -- the second-order
@@ -68,7 +76,14 @@ def _percent_copies(curve, seed, copies=COPIES):
     keep = i_d > 1e-5
     v, i = v_part[keep], i_d[keep]
     rng = np.random.default_rng(seed)
-    return [(v * (1 + rng.normal(0, 2e-4, v.size)), i * (1 + rng.normal(0, 2e-4, i.size))) for _ in range(copies)]
+    return [(v * (1 + rng.normal(0, level, v.size)), i * (1 + rng.normal(0, level, i.size))) for _ in range(copies)]
+
+
+def _covered(results, name, truth):
+    # the share of results whose +-1 standard error interval holds the true value
+    values = np.array([getattr(r, name) for r in results])
+    errors = np.array([r.stderr[name] for r in results])
+    return float(np.mean(np.abs(values - truth) <= errors))
 
 
 def _check_coverage(results):
@@ -76,7 +91,7 @@ def _check_coverage(results):
         values = np.array([getattr(r, name) for r in results])
         errors = np.array([r.stderr[name] for r in results])
         ratio = values.std(ddof=1) / np.median(errors)
-        covered = np.mean(np.abs(values - truth) <= errors)
+        covered = _covered(results, name, truth)
         assert 0.8 <= ratio <= 1.25, f"{name}: scatter / median stderr = {ratio:.3f}"
         assert 0.60 <= covered <= 0.76, f"{name}: 68 % interval covers the truth in {100 * covered:.1f} %"
 
@@ -89,6 +104,31 @@ def test_covariance_errors_are_honest(curves, noise):
 @pytest.mark.parametrize("noise", [_meter_copies, _percent_copies], ids=["meter", "percent"])
 def test_bootstrap_errors_are_honest(curves, noise):
     _check_coverage(fit_batch(noise(curves[CARD], seed=12), "theta", bootstrap=100))
+
+
+@pytest.mark.parametrize(("card", "level"), [(BENT_CARD, 1e-3), (LEVEL1_CARD, 1e-3), (LEVEL1_CARD, 5e-4)],
+                         ids=["level3-theta", "level1", "level1-quieter"])
+def test_automatic_choice_threshold_errors_are_honest(curves, card, level):
+    # the automatic model choice on parts swept to 0.1 A with 0.1 % noise on both axes (a 4.5-digit meter, from
+    # memory; and 0.05 %). On the level-3 card (ngspice VTO = 3.0 V, THETA = 0.1 1/V) the bend stands one to three
+    # standard errors above the noise: the choice by AICc reported the square law for half the copies, with a
+    # threshold interval that almost never held VTO (39 % over all copies; level 1: 58 %). On the level-1 card
+    # (VTO = 3.0 V, no THETA) the THETA law must not lose the threshold either. Criterion of the coverage test (/work references,
+    # uncertainty.md): the 68 % interval of the reported threshold holds VTO in 60-76 % of the copies (480 here:
+    # +-3.8 binomial standard deviations around 68 %)
+    results = fit_batch(_percent_copies(curves[card], seed=18, copies=2 * COPIES, level=level))
+    covered = _covered(results, "vth", 3.0)
+    models = [r.model for r in results]
+    assert 0.60 <= covered <= 0.76, f"auto Vth interval covers VTO in {100 * covered:.1f} % ({set(models)})"
+    if card == LEVEL1_CARD and level < 1e-3:
+        # at 0.05 % noise, no weak-inversion tail and no THETA: the square law where THETA rests on its bound, the
+        # THETA law (THETA consistent with 0) where the noise put it above; such a THETA changes the current at the
+        # top by a percent or two and must not mark the fit "poorly determined"
+        assert set(models) == {"square", "theta"}
+        assert 0.3 <= models.count("theta") / len(models) <= 0.7
+        thetas = [r for r in results if r.model == "theta"]
+        assert np.mean([r.theta <= 2 * r.stderr["theta"] for r in thetas]) > 0.9
+        assert not [r.notes for r in results if "parameters_poorly_determined" in r.flags]
 
 
 def test_fitted_parameters_are_correlated_and_stored(curves):
