@@ -20,9 +20,12 @@ EXIT_GRACE_S = 10.0  # after SIGTERM / SIGHUP: longest time the app may take to 
 def register(subparsers) -> None:
     p = subparsers.add_parser(
         "ui", parents=[library_option()], help="the terminal app: sweep parts one after another, hands-free, "
-                                               "browse the library, pick sets, design a sink",
-        description="A keyboard-first terminal app. F1-F6 switch views (Bench, Characterize, Hands-free, Library, "
-                    "Sets, Sink); Ctrl+K aborts and switches every output off from any view; F10 lists every key.")
+                                               "browse the library, pick sets, design a sink, thermal measurements",
+        description="A keyboard-first terminal app. F1-F7 switch views (Bench, Characterize, Hands-free, Library, "
+                    "Sets, Sink, Thermal); Ctrl+K aborts and switches every output off from any view; F10 lists "
+                    "every key. Caution: a swept part and its heat sink can get hot enough to burn, and the Thermal "
+                    "view heats the fixture block and the part well above room temperature; switch the output off "
+                    "and let them cool before touching or changing a part.")
     where = p.add_mutually_exclusive_group()
     where.add_argument("--bench", metavar="CONFIG", help="bench file (TOML, see docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="connect the built-in simulated bench at start")

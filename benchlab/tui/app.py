@@ -75,15 +75,17 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
 
     CSS_PATH = "app.tcss"
     TITLE = "benchlab"
+    # F1..F7 are listed in the title bar (and on the help screen), not in the footer: there they took the room of
+    # the view's own keys, which were cut at the right edge of a 150-column terminal
     BINDINGS = [
         Binding("ctrl+k", "abort", "Abort: output off", priority=True),
-        Binding("f1", "view('bench')", "Bench"),
-        Binding("f2", "view('characterize')", "Characterize"),
-        Binding("f3", "view('handsfree')", "Hands-free"),
-        Binding("f4", "view('library')", "Library"),
-        Binding("f5", "view('sets')", "Sets"),
-        Binding("f6", "view('sink')", "Sink"),
-        Binding("f7", "view('thermal')", "Thermal"),
+        Binding("f1", "view('bench')", "Bench", show=False),
+        Binding("f2", "view('characterize')", "Characterize", show=False),
+        Binding("f3", "view('handsfree')", "Hands-free", show=False),
+        Binding("f4", "view('library')", "Library", show=False),
+        Binding("f5", "view('sets')", "Sets", show=False),
+        Binding("f6", "view('sink')", "Sink", show=False),
+        Binding("f7", "view('thermal')", "Thermal", show=False),
         Binding("f10,question_mark", "help", "Help"),
         Binding("ctrl+q,ctrl+c", "quit_safely", "Quit", priority=True),
         Binding("s", "connect_sim", "Simulator"),
