@@ -76,9 +76,19 @@ def next_target(plan: SweepPlan, measured: Sequence[float]) -> float:
 def interpolation_base(plan: SweepPlan, ups: Sequence[SweepPoint],
                        seen: list[tuple[float, float]]) -> list[tuple[float, float]]:
     """The conducting points, and below them the search's last reading under the detection floor when it
-    shows a positive current (a sub-threshold reading: too faint to fit, close enough to aim between)."""
+    shows a positive current (a sub-threshold reading: too faint to fit, close enough to aim between).
+
+    A reading at or below ``LEAK_VGS_FRACTION`` of the lowest conducting VGS is not such a reading: that far below
+    threshold a healthy part carries next to nothing (the classifier's leak region), so its current is leakage
+    and the meter's noise, no guide to the sub-threshold slope. Aiming through it (a few nA read at 1 V, the
+    part conducting at 2.8 V: 0.3 V per decade, three times a real sub-threshold slope) put the first grid point
+    a decade and more below its target on the simulated bench, a reading the grid then had to take again; the
+    slope guess of :mod:`benchlab.sweep.stepping` is used instead.
+    """
+    lowest_vgs = min(v for v, _ in seen)
     below = [(p.vgs, p.id) for p in ups if p.status == PointStatus.OK and 0 < p.id < seen[0][1] / 10
-             and p.id < plan.detect_floor_a() and math.isfinite(p.vgs) and p.vgs < seen[0][0]]
+             and p.id < plan.detect_floor_a() and math.isfinite(p.vgs) and p.vgs < seen[0][0]
+             and p.vgs > LEAK_VGS_FRACTION * lowest_vgs]
     return ([max(below)] if below else []) + seen
 
 

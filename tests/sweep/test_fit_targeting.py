@@ -15,7 +15,7 @@ from benchlab.models import DeviceParams
 from benchlab.services.fitting import running_vth_stderr
 from benchlab.sweep.engine import run
 from benchlab.sweep.fit_targeting import (
-    fit_reached, grid_currents, interpolate_vgs, leak_check_level, next_fit_step, next_target,
+    fit_reached, grid_currents, interpolate_vgs, interpolation_base, leak_check_level, next_fit_step, next_target,
 )
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepPoint
@@ -62,6 +62,29 @@ def test_grid_is_filled_from_the_bottom_then_halved():
 def test_setpoints_between_points_are_interpolated_in_log_current():
     # two points a decade apart and 90 mV apart: half a decade up is 45 mV up
     assert interpolate_vgs([(2.0, 1e-4), (2.09, 1e-3)], math.sqrt(1e-7)) == pytest.approx(2.045)
+
+
+def test_a_reading_in_the_leak_region_does_not_steer_the_first_grid_point():
+    # the simulated bench (seed 1, part 2): the leak-check reading at 1.04 V read 7 nA (leakage and the meter's
+    # noise), the load-line jump 7.46 mA at 2.784 V. Aiming through the 7 nA reading is a slope of 0.29 V per
+    # decade, n = 4.9 in S = n UT ln10 where a MOSFET's sub-threshold n lies about 1-2 (Enz, Krummenacher, Vittoz
+    # 1995; the range is common practice): the 1 mA target was set 0.16 V low and read 52 uA, a point the grid
+    # took again. The slope guess (0.1 V per decade) aims it at 2.784 - 0.1 x log10(7.46 / 1.04) V.
+    p = plan()
+    ups = [pt(1.044, 1.045, 7e-9, 0), pt(3.133, 2.784, 7.46e-3, 1)]
+    step = next_fit_step(p, ups, 3.133)
+    assert step.expect_id == pytest.approx(1e-3)
+    assert step.expect_vgs == pytest.approx(2.784 + 0.1 * math.log10(1e-3 / 7.46e-3), abs=1e-6)
+    assert step.level == pytest.approx(step.expect_vgs + 1e-3 * p.series_resistor_ohm, abs=1e-6)
+
+
+def test_a_sub_threshold_reading_above_the_leak_region_still_guides_the_aim():
+    # seed 5, bag of 10, part 10: 69 nA at 3.146 V (above half the 3.769 V of the first conducting reading) is
+    # channel current below the detection floor: it stays the base below the conducting points
+    p = plan()
+    ups = [pt(1.047, 1.050, -4.5e-9, 0), pt(3.144, 3.146, 6.9e-8, 1), pt(5.241, 3.769, 3.134e-2, 2)]
+    seen = [(3.769, 3.134e-2)]
+    assert interpolation_base(p, ups, seen) == [(3.146, 6.9e-8), (3.769, 3.134e-2)]
 
 
 def _conducting(count: int) -> list[SweepPoint]:
