@@ -22,8 +22,9 @@ COMMAND_MODULES: tuple[str, ...] = (
 )
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The ``benchlab`` parser with every command module's subcommands registered."""
+def build_parser(command: str | None = None) -> argparse.ArgumentParser:
+    """The ``benchlab`` parser with every command module's subcommands registered (``command``: only the module of
+    that name, enough to parse a command line that starts with it; argparse's help texts cost a few ms each)."""
     parser = Parser(
         prog="benchlab",
         description=(
@@ -34,7 +35,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"benchlab {__version__}")
     subparsers = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for name in COMMAND_MODULES:
+    for name in (command,) if command in COMMAND_MODULES else COMMAND_MODULES:
         importlib.import_module(f"benchlab.commands.{name}").register(subparsers)
     _describe_subcommands(parser)
     return parser
@@ -59,7 +60,9 @@ def _show_deprecation(message, category, filename, lineno, file=None, line=None)
 
 def main(argv: list[str] | None = None) -> int:
     """Run the CLI; returns the exit code (a ``BenchlabError`` is printed as one line, exit code from the error)."""
-    parser = build_parser()
+    words = sys.argv[1:] if argv is None else argv
+    # a command line naming its command needs that command's parser only (a command module named as its command)
+    parser = build_parser(words[0] if words and words[0] in COMMAND_MODULES else None)
     args = parser.parse_args(argv)
     if not getattr(args, "func", None):
         parser.print_help()

@@ -114,6 +114,26 @@ def poorly_determined(names, values, errors, top_overdrive: float | None = None)
     return loose
 
 
+def _loose_rows(names, params, errors) -> np.ndarray:
+    # the rows where :func:`poorly_determined` can find a parameter, all rows at once: its test on each parameter's
+    # own size (THETA's size there is never smaller, so no row it flags is missed); the others need no call
+    size = np.abs(params)
+    for j, name in enumerate(names):
+        if name == "vth":
+            size[:, j] = 1.0
+        elif name == "n":
+            size[:, j] = params[:, j] - 1.0
+    with np.errstate(invalid="ignore"):
+        return np.any(np.isfinite(errors) & (errors > 0.5 * size), axis=1)
+
+
+def _counts_per_row(masks) -> np.ndarray:
+    # the number of True entries of each boolean array, all at once
+    ends = np.cumsum([m.size for m in masks])
+    total = np.concatenate(([0], np.cumsum(np.concatenate(masks))))
+    return total[ends] - total[ends - np.array([m.size for m in masks])]
+
+
 def correlations_batch(names, covariance) -> list[dict[str, float]]:
     """Correlation coefficients ``corr_<a>_<b>`` of the fitted parameters of each row, from their
     covariance (shape (B, P, P)).
@@ -219,7 +239,10 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     gm_over_id, jacobian = _sensitivities(model, vgs, i_d, params, ut)
     if directions is None:
         directions = [(sweep.direction == "up", sweep.direction == "down") for sweep in sweeps]
-    order_v, order_i, order_valid = _rising_pass_in_order(sweeps, directions)
+    # points taken going up and going down, per sweep (both passes: the hysteresis check)
+    n_up, n_down = (_counts_per_row([pair[k] for pair in directions]) for k in (0, 1))
+    both_rows = ((n_up > 0) & (n_down > 0)).tolist()
+    order_v, order_i, order_valid = _rising_pass_in_order(sweeps, directions, n_up.tolist())
     for checks in (diagnostics.window_checks(model, vgs, i_d, used, vth), diagnostics.fit_quality(rms_rel),
                    diagnostics.monotonic_check(order_v, order_i, order_valid),
                    diagnostics.bound_checks(model, theta, slope_n),
@@ -243,6 +266,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
         gm_rows, v_at_rows = gm_at.tolist(), vgs_at.tolist()
         gm_sd_rows, vgs_sd_rows = _optional_list(g_sd), _optional_list(v_sd)
     converged_rows, iteration_rows = fit.converged.tolist(), fit.iterations.tolist()
+    loose_rows = _loose_rows(names, params, param_sd).tolist()
     temperature = float(temperature_k)
     swing = ut * math.log(10.0) * 1e3
     results = []
@@ -283,14 +307,15 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
                                                     f"VGS={v_fold:.4f} V, ID={i_fold:.4g} A): likely a heating "
                                                     "fold-back"))
         shift = None
-        if directions[row][0].any() and directions[row][1].any():  # both passes measured
+        if both_rows[row]:  # both passes measured
             up_v, up_i = sweep.select("up")
             down_v, down_i = sweep.select("down")
             shift = diagnostics.hysteresis(up_v, up_i, down_v, down_i)
             flags_found += diagnostics.hysteresis_check(shift)
         if not converged_rows[row]:
             flags_found.append((FLAG_NOT_CONVERGED, f"the solver stopped after {iteration_rows[row]} iterations"))
-        loose = poorly_determined(names, p, [sd[name] for name in names], window_rows[row][3] - p[0])
+        loose = (poorly_determined(names, p, [sd[name] for name in names], window_rows[row][3] - p[0])
+                 if bootstrap or loose_rows[row] else None)
         if loose:
             flags_found.append((FLAG_UNCERTAIN, "standard error above half the parameter: " + ", ".join(loose)))
         stderr = {"vth": sd.get("vth"), "kp": sd.get("kp") if model != "linear" else None,
@@ -317,18 +342,20 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     return results
 
 
-def _rising_pass_in_order(sweeps, directions):
+def _rising_pass_in_order(sweeps, directions, any_up):
     # the fitted pass in measurement order, a falling pass read backwards
     passes = []
-    for sweep, (up, down) in zip(sweeps, directions):
-        if up.any():
-            passes.append((sweep.vgs[up], sweep.id[up]))
+    for sweep, (up, down), has_up in zip(sweeps, directions, any_up):
+        if has_up:
+            passes.append((sweep.vgs, sweep.id) if up.size == sweep.vgs.size and has_up == up.size
+                          else (sweep.vgs[up], sweep.id[up]))
         else:
             passes.append((sweep.vgs[down][::-1], sweep.id[down][::-1]))
-    width = max(v.size for v, _ in passes)
+    sizes = np.array([v.size for v, _ in passes])
+    width = int(sizes.max())
+    valid = np.arange(width)[None, :] < sizes[:, None]  # each row's points first
     vgs = np.zeros((len(passes), width))
     i_d = np.ones((len(passes), width))
-    valid = np.zeros((len(passes), width), dtype=bool)
-    for row, (v, i) in enumerate(passes):
-        vgs[row, :v.size], i_d[row, :i.size], valid[row, :v.size] = v, i, True
+    vgs[valid] = np.concatenate([v for v, _ in passes])
+    i_d[valid] = np.concatenate([i for _, i in passes])
     return vgs, i_d, valid

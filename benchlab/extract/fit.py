@@ -53,9 +53,20 @@ def _fit_points(sweeps: list[Sweep]) -> list[_Points]:
     if not sweeps:
         return []
     directions = np.concatenate([s.direction for s in sweeps])
-    cuts = np.cumsum([s.direction.size for s in sweeps])[:-1]
+    sizes = np.array([s.direction.size for s in sweeps])
+    ends = np.cumsum(sizes)
+    ups, downs = directions == "up", directions == "down"
+    # a sweep taken upwards only, its current rising point by point, is in the fit's order already
+    currents = np.concatenate([s.id for s in sweeps])
+    out_of_order = np.concatenate(([0], np.cumsum(~ups[1:] | (np.diff(currents) <= 0))))
+    starts = ends - sizes
+    ready = (sizes > 0) & ups[np.minimum(starts, ups.size - 1)] & \
+        (out_of_order[np.maximum(ends - 1, starts)] - out_of_order[starts] == 0)
     out = []
-    for sweep, up, down in zip(sweeps, np.split(directions == "up", cuts), np.split(directions == "down", cuts)):
+    for sweep, up, down, in_order in zip(sweeps, np.split(ups, ends[:-1]), np.split(downs, ends[:-1]), ready.tolist()):
+        if in_order:
+            out.append(_Points(sweep, sweep.vgs, sweep.id, up, down))
+            continue
         keep = up if up.any() else down
         vgs, i_d = sweep.vgs[keep], sweep.id[keep]
         order = np.lexsort((vgs, i_d))

@@ -134,13 +134,14 @@ class FitResult:
     def to_dict(self) -> dict[str, Any]:
         """Plain JSON-ready dict (NaN/inf become None, tuples become lists)."""
         data = {}
+        finite = math.isfinite
         for name in _FIELD_NAMES:
             value = getattr(self, name)
             kind = type(value)
             if kind is float:
-                data[name] = value if math.isfinite(value) else None
-            elif kind is dict:
-                data[name] = {k: _clean(v) for k, v in value.items()}
+                data[name] = value if finite(value) else None
+            elif kind is dict:  # as _clean, written out (it runs for every number of every result)
+                data[name] = {k: None if isinstance(v, float) and not finite(v) else v for k, v in value.items()}
             elif kind is tuple:
                 data[name] = list(value)
             elif kind is DeviceParams:

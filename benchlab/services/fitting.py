@@ -8,8 +8,11 @@ gets one clear error and leaves every file untouched.
 
 from __future__ import annotations
 
+import errno
 import json
 import math
+import os
+import stat
 from dataclasses import dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
@@ -116,6 +119,18 @@ def _folder_ambient(folder: Path) -> float | None:
     return _ambient(meta) if meta.get("format") == SESSION_FORMAT else None
 
 
+def _mode(path: Path) -> int | None:
+    # the file's mode, None where Path.exists() says False (one stat where is_dir() and exists() took two)
+    try:
+        return os.stat(path).st_mode
+    except OSError as exc:
+        if exc.errno in (errno.ENOENT, errno.ENOTDIR, errno.EBADF, errno.ELOOP):
+            return None
+        raise
+    except ValueError:  # a path the system cannot hold (a NUL byte)
+        return None
+
+
 def resolve_inputs(paths) -> list[SweepSource]:
     """Turn command-line paths into sweep sources (a session folder gives all its parts, a folder
     of sessions all of theirs).
@@ -128,7 +143,8 @@ def resolve_inputs(paths) -> list[SweepSource]:
     sources: list[SweepSource] = []
     for raw in paths:
         path = Path(raw)
-        if path.is_dir():
+        mode = _mode(path)
+        if mode is not None and stat.S_ISDIR(mode):
             if (path / "session.json").exists():
                 sources += _session_sources(path)
                 continue
@@ -139,7 +155,7 @@ def resolve_inputs(paths) -> list[SweepSource]:
                                  path=str(path))
             for folder in inner:
                 sources += _session_sources(folder, allow_empty=True)
-        elif not path.exists():
+        elif mode is None:
             raise InputError("no such file", path=str(path))
         elif path.suffix.lower() == ".json":
             data = _read_json(path)
@@ -156,7 +172,7 @@ def resolve_inputs(paths) -> list[SweepSource]:
                 raise InputError("not a benchlab sweep sidecar or session file", path=str(path))
         else:
             sidecar = path.with_suffix(".json")
-            data = _read_json(sidecar) if sidecar.exists() else {}
+            data = _read_json(sidecar) if _mode(sidecar) is not None else {}
             is_record = data.get("format") == SWEEP_FORMAT
             sources.append(SweepSource(path, sidecar if is_record else None, path.stem,
                                        sweep_verdict(data) if is_record else None,
@@ -323,11 +339,12 @@ def json_lines(records: list[FitRecord], curve_points: int = 0) -> str:
     """One JSON object per sweep, one per line (no NaN: undefined numbers are null); with
     ``curve_points`` each carries ``curve`` (see :func:`curve_of`)."""
     lines = []
+    encode = json.JSONEncoder(allow_nan=False).encode  # json.dumps(data, allow_nan=False), one encoder for all
     for record in records:
         data = record.to_dict()
         if curve_points:
             data["curve"] = curve_of(record, curve_points)
-        lines.append(json.dumps(data, allow_nan=False))
+        lines.append(encode(data))
     return "\n".join(lines)
 
 
