@@ -108,6 +108,23 @@ def test_guard_smu_compliance_and_levels():
     assert not bench.smu.lists  # the bad list never reached the instrument
 
 
+def test_guard_smu_prepare_refuses_as_configure_source_does_before_anything_is_sent():
+    # safety invariant (docs/sweeps.md): no compliance beyond the configured limits, none changed while powered
+    bench = FakeBench()
+    smu = GuardedSmu(bench.smu, LIMITS)
+    with pytest.raises(SafetyError):
+        smu.prepare("voltage", 0.8, 1.0)  # compliance above max_drain_a
+    with pytest.raises(SafetyError):
+        smu.prepare("current", 20.0)  # compliance above max_supply_v
+    assert bench.log == []  # nothing reached the instrument
+    smu.prepare("voltage", 0.1, 0.5)  # an instrument without prepare_source: the three settings in order
+    assert bench.log == [("configure", "voltage", 0.1), ("nplc", 0.5), ("level", 0.0)]
+    assert (smu.mode, smu.compliance, smu.level) == ("voltage", 0.1, 0.0)
+    smu.set_output(True)
+    with pytest.raises(SafetyError, match="while the output is on"):
+        smu.prepare("voltage", 0.1)
+
+
 # ------------------------------------------------------------------------------------------ order
 def test_sweep_sets_limit_first_and_switches_off_at_the_end():
     bench = FakeBench()
