@@ -109,7 +109,20 @@ def register(subparsers) -> None:
     bins.set_defaults(func=_bin)
 
 
+# phrases of the designer's errors -> the options a user typed
+_SINK_OPTIONS = {"the target current": "--at-current", "the load voltage": "--load-voltage",
+                 "the resistor tolerance": "--tolerance", "the mismatch target": "--mismatch-target",
+                 "the number of Monte Carlo samples": "--monte-carlo", "the supply": "--supply"}
+
+
 def _sink(args) -> int:
+    try:
+        return _design_sink(args)
+    except InputError as exc:
+        raise name_options(exc, _SINK_OPTIONS) from None
+
+
+def _design_sink(args) -> int:
     from benchlab.design.sink import SinkOptions
     from benchlab.design.text import format_sink_report
     from benchlab.services import design as service
@@ -138,7 +151,9 @@ def _sink(args) -> int:
 
 
 # phrases of the matcher's errors -> the options a user typed
-_MATCH_OPTIONS = {"the operating current": "--at-current", "the top of the current range": "--at-current-max"}
+_MATCH_OPTIONS = {"the operating current": "--at-current", "the top of the current range": "--at-current-max",
+                  "the warm step": "--warm"}
+_BIN_OPTIONS = {"the operating current": "--at-current", "the bin width": "--width"}
 
 
 def _match(args) -> int:
@@ -176,6 +191,13 @@ def _match_sets(args) -> int:
 
 
 def _bin(args) -> int:
+    try:
+        return _bin_parts(args)
+    except InputError as exc:
+        raise name_options(exc, _BIN_OPTIONS) from None
+
+
+def _bin_parts(args) -> int:
     from benchlab.design.text import format_bins
     from benchlab.services import design as service
 

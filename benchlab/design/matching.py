@@ -31,6 +31,7 @@ from typing import Any, Sequence
 
 import numpy as np
 
+from benchlab.bounds import MAX_GATE_V, MAX_WARM_K, check_at_most, check_operating_current
 from benchlab.design.parts import Part, PartArrays, parts_to_arrays
 from benchlab.design.verdict import MIN_DESIGN_CURRENT_A
 from benchlab.errors import InputError
@@ -40,8 +41,9 @@ DEFAULT_RANGE_POINTS = 7
 
 def current_grid(i_min: float, i_max: float | None = None, points: int = DEFAULT_RANGE_POINTS) -> np.ndarray:
     """Currents at which sets are compared: ``i_min`` alone, or ``points`` log-spaced from i_min to i_max."""
-    if not (i_min > 0 and np.isfinite(i_min)):
-        raise InputError(f"the operating current must be positive, got {i_min} A")
+    i_min = check_operating_current(i_min)
+    if i_max is not None:
+        i_max = check_operating_current(i_max, "the top of the current range")
     if i_max is None or i_max == i_min:
         return np.array([float(i_min)])
     if not i_max > i_min:
@@ -302,6 +304,7 @@ def match_sets(parts: Sequence[Part], currents: np.ndarray, size: int, count: in
         raise InputError(f"a matched set needs at least 2 parts, got size {size}")
     if len(parts) < size:
         raise InputError(f"{len(parts)} part(s) in stock cannot make a set of {size}")
+    warm_k = check_at_most(warm_k, MAX_WARM_K, "the warm step", "K")
     if size == 2 and not warm_k:
         return _conducting_only(match_pairs(parts, currents, count))
     arrays = parts_to_arrays(parts)
@@ -400,8 +403,9 @@ def bin_by_vgs(parts: Sequence[Part], current: float, width: float) -> tuple[Vgs
     tuple of VgsBin
         Occupied and empty bins from the lowest to the highest occupied one, in ascending VGS.
     """
-    if not (width > 0 and np.isfinite(width)):
+    if not width > 0:
         raise InputError(f"the bin width must be a positive voltage, got {width}")
+    check_at_most(width, MAX_GATE_V, "the bin width", "V")  # a wider bin holds every part
     current_grid(current)
     if not parts:
         return ()

@@ -14,6 +14,7 @@ from typing import Any, Iterable, Sequence
 
 import numpy as np
 
+from benchlab.bounds import check_typed_curve
 from benchlab.errors import InputError
 from benchlab.models import DeviceParams, thermal_voltage
 
@@ -121,6 +122,7 @@ def parse_inline_model(text: str, default_label: str) -> Part:
         params = DeviceParams(model=model, **values)
     except (TypeError, ValueError) as exc:
         raise InputError(f"inline model '{text}': {exc}") from None
+    check_typed_curve(params, f"inline model '{text}'")
     return Part(label=label, params=params)
 
 

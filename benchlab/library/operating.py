@@ -12,6 +12,7 @@ import json
 import math
 from typing import TYPE_CHECKING, Any, Sequence
 
+from benchlab.bounds import MAX_OPERATING_CURRENT_A
 from benchlab.errors import LibraryError
 from benchlab.models import DeviceParams
 
@@ -69,8 +70,9 @@ def figures(params: DeviceParams, current: float) -> tuple:
 
 def _check_current(current: float, what: str) -> float:
     value = _finite(current)
-    if value is None or not value > 0:
-        raise LibraryError(f"{what} must be a positive current in A (got {current!r})")
+    if value is None or not 0 < value <= MAX_OPERATING_CURRENT_A:
+        raise LibraryError(f"{what} must be a positive current in A, at most {MAX_OPERATING_CURRENT_A:g} A "
+                           f"(got {current!r})")
     return value
 
 

@@ -12,6 +12,7 @@ from typing import Any, Callable, Sequence
 
 import numpy as np
 
+from benchlab.bounds import MAX_WARM_K, check_at_most, check_operating_current
 from benchlab.design.matching import MatchedSet, MatchResult, VgsBin, bin_by_vgs, current_grid, match_sets, orientation_errors
 from benchlab.design.parts import Part, parse_inline_model, parts_to_arrays
 from benchlab.design.sink import SinkDesign, SinkOptions, analyze_sink, check_supply_voltage, synthesize_sink
@@ -66,10 +67,15 @@ def _check_request(req: SinkRequest) -> None:
     check_supply_voltage(req.supply)
     if (req.current is None) == (req.resistor is None):
         raise InputError("give exactly one of --at-current (design the resistor) or --resistor (analyse it)")
-    if req.current is not None and not req.current > 0:
-        raise InputError("--at-current must be positive")
+    if req.current is not None:
+        check_operating_current(req.current, "the target current")
     if req.resistor is not None and not req.resistor > 0:
         raise InputError("--resistor must be positive")
+    if req.resistor is not None and req.supply / req.resistor < MIN_DESIGN_CURRENT_A:
+        # the reference carries less than supply / R: below what a sweep detects nothing is known of the parts
+        raise DesignError(f"{req.supply:g} V through {req.resistor:g} ohm carries at most "
+                          f"{req.supply / req.resistor:.3g} A, below the {MIN_DESIGN_CURRENT_A * 1e6:g} uA a sweep "
+                          "detects: the parts would be off; raise the supply or lower the resistor")
     if req.ref and req.ref_model:
         raise InputError("give the reference either from the library (--ref) or inline (--ref-model), not both")
     picks = sum(bool(x) for x in (req.out, req.out_models, req.outputs is not None))
@@ -368,13 +374,12 @@ def match_parts(library_path, current: float, size: int, *, current_max: float |
     currents = current_grid(current, current_max)
     if count is not None and count < 1:
         raise InputError("--sets must be at least 1")
+    check_at_most(warm_k, MAX_WARM_K, "the warm step", "K")
     with _open(library_path) as lib:
         stock = [part_from_record(r, lib) for r in _stock(lib, lot, polarity)]
     if len(stock) < size:
         where = f" in lot '{lot}'" if lot else ""
         raise DesignError(f"{len(stock)} in-stock part(s) with curves{where}; a set needs {size}")
-    if not warm_k >= 0:
-        raise InputError("--warm must be 0 K or more")
     return match_sets(stock, currents, size, count, warm_k=warm_k)
 
 

@@ -12,6 +12,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Sequence
 
+from benchlab.bounds import check_typed_curve
 from benchlab.errors import BenchlabError, InputError, LibraryError
 from benchlab.library import (Library, PartRecord, default_library_path, export_library, import_library,
                               import_sessions as import_into)
@@ -65,12 +66,15 @@ def hand_params(vth: float | None, gm: float | None = None, kp: float | None = N
             raise InputError(f"{flag} must be a finite number, got {value}")
     try:
         if gm is not None:
-            return DeviceParams("linear", vth=float(vth), gm=float(gm))
-        if theta:
-            return DeviceParams("theta", vth=float(vth), kp=float(kp), theta=float(theta))
-        return DeviceParams("square", vth=float(vth), kp=float(kp))
+            params = DeviceParams("linear", vth=float(vth), gm=float(gm))
+        elif theta:
+            params = DeviceParams("theta", vth=float(vth), kp=float(kp), theta=float(theta))
+        else:
+            params = DeviceParams("square", vth=float(vth), kp=float(kp))
     except ValueError as exc:
         raise InputError(str(exc)) from exc
+    check_typed_curve(params, "the hand-entered curve")
+    return params
 
 
 def fit_function(model: str = "auto") -> Callable:

@@ -15,6 +15,7 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any, Callable
 
+from benchlab.bounds import check_operating_current
 from benchlab.errors import BenchlabError, InputError
 from benchlab.kinds import PartClass, PointStatus
 from benchlab.sweep.classify import LEAK_VGS_FRACTION
@@ -295,8 +296,7 @@ def library_rows(library: str | Path | None, *, text: str = "", gm_at_a: float =
     label, state, classification and flags) and sorted by ``sort_key`` (a row key; missing values last)."""
     from benchlab.services.library import list_parts
 
-    if not (isinstance(gm_at_a, (int, float)) and math.isfinite(gm_at_a) and gm_at_a > 0):
-        raise InputError(f"the gm current must be above 0 A, got {gm_at_a!r}")
+    check_operating_current(gm_at_a, "the gm current")
     rows = []
     needle = text.strip().lower()
     for part in list_parts(library, state="all"):
