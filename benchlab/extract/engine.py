@@ -104,37 +104,60 @@ def _current_and_jacobian(model, vgs, params, ut, want_jacobian=True):
         if not want_jacobian:
             return current, None
         return current, [-gm * (q > 0), q]
+    # The arithmetic below is done in place where a temporary is not needed again: the same operations in the
+    # same order as the formulas in the comments (so the same numbers to the last bit), fewer arrays allocated.
     kp = params[:, 1:2]
     if model == "ekv":
         n = params[:, 3:4]
         scale = 2.0 * n * ut
-        x = (vgs - vth) / scale
+        x = np.subtract(vgs, vth)
+        x /= scale  # x = (vgs - vth) / scale
         # softplus(x) = ln(1 + e^x) and logistic(x) = dsoftplus/dx from one overflow-free exponential
-        e = np.exp(-np.abs(x))
-        softplus = np.maximum(x, 0.0) + np.log1p(e)
+        e = np.abs(x)
+        np.negative(e, out=e)
+        np.exp(e, out=e)  # e = exp(-|x|)
+        softplus = np.maximum(x, 0.0)
+        softplus += np.log1p(e)  # softplus = max(x, 0) + log1p(e)
         q = scale * softplus
     else:
-        q = np.maximum(vgs - vth, 0.0)
+        q = np.subtract(vgs, vth)
+        np.maximum(q, 0.0, out=q)  # q = max(vgs - vth, 0)
     if model == "square":
-        half_q2 = 0.5 * q * q
+        half_q2 = 0.5 * q
+        half_q2 *= q  # half_q2 = 0.5 q q
         current = kp * half_q2
         if not want_jacobian:
             return current, None
         return current, [-kp * q, half_q2]
     theta = params[:, 2:3]
-    inv_denom = 1.0 / (1.0 + theta * q)
-    half_q2_d = 0.5 * q * q * inv_denom
+    inv_denom = theta * q
+    inv_denom += 1.0
+    np.divide(1.0, inv_denom, out=inv_denom)  # inv_denom = 1 / (1 + theta q)
+    half_q2_d = 0.5 * q
+    half_q2_d *= q
+    half_q2_d *= inv_denom  # half_q2_d = 0.5 q q inv_denom
     current = kp * half_q2_d
     if not want_jacobian:
         return current, None
-    kq_d = kp * q * inv_denom
-    di_dq = kq_d * (1.0 + 0.5 * theta * q) * inv_denom
-    d_theta = -kq_d * half_q2_d
+    kq_d = kp * q
+    kq_d *= inv_denom  # kq_d = kp q inv_denom
+    di_dq = (0.5 * theta) * q
+    di_dq += 1.0
+    np.multiply(kq_d, di_dq, out=di_dq)
+    di_dq *= inv_denom  # di_dq = kq_d (1 + 0.5 theta q) inv_denom
+    d_theta = np.negative(kq_d, out=kq_d)
+    d_theta *= half_q2_d  # d_theta = -kq_d half_q2_d
     if model == "theta":
-        return current, [-di_dq, half_q2_d, d_theta]
-    dq_dvov = np.where(x >= 0.0, 1.0, e) / (1.0 + e)  # logistic(x)
-    dq_dn = 2.0 * ut * (softplus - x * dq_dvov)
-    return current, [-di_dq * dq_dvov, half_q2_d, d_theta, di_dq * dq_dn]
+        return current, [np.negative(di_dq, out=di_dq), half_q2_d, d_theta]
+    dq_dvov = np.where(x >= 0.0, 1.0, e)
+    e += 1.0
+    dq_dvov /= e  # logistic(x) = where(x >= 0, 1, e) / (1 + e)
+    dq_dn = np.multiply(x, dq_dvov, out=x)
+    np.subtract(softplus, dq_dn, out=dq_dn)
+    dq_dn *= 2.0 * ut  # dq_dn = 2 ut (softplus - x dq_dvov)
+    first = np.negative(di_dq)
+    first *= dq_dvov  # -di_dq dq_dvov
+    return current, [first, half_q2_d, d_theta, np.multiply(di_dq, dq_dn, out=dq_dn)]
 
 
 def row_median(values: np.ndarray, keep: np.ndarray) -> np.ndarray:
@@ -177,7 +200,11 @@ def _residuals(model, vgs, inv, target, params, ut):
     # list of (B, N) arrays: building the normal equations column by column is several
     # times faster than a stacked matmul
     current, columns = _current_and_jacobian(model, vgs, params, ut)
-    return current * inv - target, [c * inv for c in columns]
+    current *= inv
+    current -= target  # current x inv - target
+    for column in columns:  # the columns are this call's own arrays
+        column *= inv
+    return current, columns
 
 
 def _normal_equations(r, columns):
@@ -277,8 +304,8 @@ def solve_batch(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
             r, columns = r_trial, columns_trial
         elif better.any():
             keep_new = better[:, None]
-            r = np.where(keep_new, r_trial, r)
-            columns = [np.where(keep_new, new, old) for new, old in zip(columns_trial, columns)]
+            for old, new in zip([r, *columns], [r_trial, *columns_trial]):
+                np.copyto(old, new, where=keep_new)  # where(keep_new, new, old), in place: these are the fit's own
         # damping from the gain ratio (H. B. Nielsen, Damping parameter in Marquardt's method, IMM-REP-1999-05,
         # Technical University of Denmark; Madsen, Nielsen & Tingleff, Methods for non-linear least squares
         # problems, 2004, chapter 3; citations from memory): lowered as far as the step's actual over predicted
