@@ -106,7 +106,19 @@ class CurvePlot(PlotextPlot):
         self._next_at = max(self._next_at, time.monotonic() + max(1.0 / MAX_REDRAW_HZ, cost / RENDER_SHARE))
         return lines
 
+    def render(self):
+        # plotext turns a log axis's data into logarithms in place when it builds the figure: a second build of the
+        # same figure (the terminal resized, the view shown again) took logarithms of logarithms and raised. So the
+        # figure is filled afresh from the buffers before every build.
+        self._fill()
+        return super().render()
+
     def draw(self) -> None:
+        """Draw the buffered points now (the figure is filled from them at the render)."""
+        self.redraws += 1
+        self.refresh()
+
+    def _fill(self) -> None:
         plt = self.plt
         plt.clear_data()
         plt.clear_figure()
@@ -122,8 +134,6 @@ class CurvePlot(PlotextPlot):
         fit = [(v, i) for v, i in zip(self.fit_vgs, self.fit_ids) if math.isfinite(i) and (i > 0 or not self.log_scale)]
         if fit:
             plt.plot([v for v, _ in fit], [i for _, i in fit], marker="braille", label="fit")
-        self.redraws += 1
-        self.refresh()
 
 
 class ResidualPlot(CurvePlot):
@@ -136,7 +146,7 @@ class ResidualPlot(CurvePlot):
     def toggle_scale(self) -> None:
         """Residuals are always drawn on a linear axis."""
 
-    def draw(self) -> None:
+    def _fill(self) -> None:
         plt = self.plt
         plt.clear_data()
         plt.clear_figure()
@@ -149,5 +159,3 @@ class ResidualPlot(CurvePlot):
             plt.ylim(-top, top)  # symmetric: the zero line sits in the middle, over or under is plain to see
             plt.hline(0.0)
             plt.scatter([v for v, _ in keep], [r for _, r in keep], marker="braille")
-        self.redraws += 1
-        self.refresh()
