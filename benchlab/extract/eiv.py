@@ -111,8 +111,10 @@ def point_variance(model: str, vgs, i_meas, mask, params, *, ut: float = thermal
 
 
 def effective_variance_fit(model: str, vgs, i_meas, mask, params, *, ut: float = thermal_voltage(),
-                           sigma_v=None, passes: int = PASSES) -> tuple[BatchFit, np.ndarray]:
-    """Re-fit stacked sweeps with effective-variance weights, starting from ``params``.
+                           sigma_v=None, passes: int = PASSES, with_covariance: bool = True
+                           ) -> tuple[BatchFit, np.ndarray]:
+    """Re-fit stacked sweeps with effective-variance weights, starting from ``params``
+    (``with_covariance`` False leaves the covariance NaN, for a fit whose errors nobody reads).
 
     Returns
     -------
@@ -126,6 +128,6 @@ def effective_variance_fit(model: str, vgs, i_meas, mask, params, *, ut: float =
     for done in range(1, passes + 1):
         variance = point_variance(model, vgs, i_meas, mask, params, ut=ut, sigma_v=sigma_v, previous=variance)
         fit = solve_batch(model, vgs, i_meas, mask, params, ut=ut, sigma=np.sqrt(variance),
-                          with_covariance=done == passes)
+                          with_covariance=with_covariance and done == passes)
         params = np.where(np.isfinite(fit.params), fit.params, params)
     return fit, np.sqrt(variance)

@@ -213,20 +213,27 @@ def _rank(points: list[_Points], masks: list[np.ndarray], criteria: list[dict], 
     Returns ``{model: (fit, {sweep index: row})}`` for the sweeps each candidate could be fitted to.
     """
     fits: dict[str, tuple] = {}
+    sizes = [int(m.sum()) for m in masks]
+    every = None  # all sweeps stacked once, for the candidates every sweep has enough points for
     for candidate in AUTO_CANDIDATES:
-        usable = [b for b, m in enumerate(masks) if m.sum() >= len(PARAM_NAMES[candidate]) + 2]
+        usable = [b for b, size in enumerate(sizes) if size >= len(PARAM_NAMES[candidate]) + 2]
         if not usable:
             continue
+        stacked = None
+        if len(usable) == len(points):
+            every = every or _stacked_window(points, masks)
+            stacked = every
         start = None
         if candidate == "ekv" and ekv_from_theta and "theta" in fits:
             # on the top decades the theta candidate already fitted these points: ekv starts from it (its own
             # start would fit a theta law again), n from the steepest log-current slope
             fit_t, row_t = fits["theta"]
             if all(b in row_t for b in usable):
-                stacked = _window_only(*_stack([points[b] for b in usable], [masks[b] for b in usable])[:3])
-                start = ekv_start_from_theta(stacked[0], stacked[1], stacked[2],
+                window = (stacked or _stacked_window([points[b] for b in usable], [masks[b] for b in usable]))[1]
+                start = ekv_start_from_theta(window[0], window[1], window[2],
                                              np.array([fit_t.params[row_t[b]] for b in usable]), ut)
-        fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut)
+        fit, _, _ = _fit_model(candidate, [points[b] for b in usable], [masks[b] for b in usable], start, ut=ut,
+                               stacked=stacked)
         for row, b in enumerate(usable):
             criteria[b][candidate] = _aicc(float(fit.rss[row]), float(fit.n_points[row]), len(PARAM_NAMES[candidate]))
         fits[candidate] = (fit, {b: row for row, b in enumerate(usable)})
@@ -278,10 +285,10 @@ def _rank_on_common_weights(points: list[_Points], masks: list[np.ndarray], crit
             continue
         fit, row_of = fits[name]
         chosen = [points[b] for b in rows]
-        vgs = _stack(chosen, [masks[b] for b in rows])[0]
-        v, i, m, columns = _window_only(*_stack(chosen, [masks[b] for b in rows])[:3])
+        (vgs, _, _, _), (v, i, m, columns) = _stacked_window(chosen, [masks[b] for b in rows])
+        # only the residuals and THETA of this fit are read (not its covariance)
         weighted, s = effective_variance_fit(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
-                                             sigma_v=_stated_sigma_v(chosen))
+                                             sigma_v=_stated_sigma_v(chosen), with_covariance=False)
         full = _spread(s, columns, vgs.shape[1])
         for k, b in enumerate(rows):
             sigma[b] = full[k, :points[b].vgs.size]
@@ -294,11 +301,10 @@ def _rank_on_common_weights(points: list[_Points], masks: list[np.ndarray], crit
         if not rows:
             continue
         chosen = [points[b] for b in rows]
-        _, _, mask, _ = _stack(chosen, [masks[b] for b in rows])
+        (_, _, mask, _), (v, i, m, columns) = _stacked_window(chosen, [masks[b] for b in rows])
         weights = np.ones(mask.shape)
         for k, b in enumerate(rows):
             weights[k, :sigma[b].size] = sigma[b]
-        v, i, m, columns = _window_only(*_stack(chosen, [masks[b] for b in rows])[:3])
         if columns is not None:
             weights = np.take_along_axis(weights, columns, axis=1)
         weighted = solve_batch(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
@@ -349,16 +355,22 @@ def _rank_whole_curves(points, ranked, final_model, reasons, criteria, fits, ut)
             rows.pop(b, None)  # its comparison fit was on the other window: the reported fit starts afresh
 
 
+def _stacked_window(points: list[_Points], masks: list[np.ndarray]):
+    # the stacked sweeps (see _stack) and their fit windows (see _window_only)
+    stacked = _stack(points, masks)
+    return stacked, _window_only(*stacked[:3])
+
+
 def _fit_model(model: str, points: list[_Points], masks: list[np.ndarray], start=None,
-               ut: float = thermal_voltage(), weighted: bool = False):
-    vgs, i_d, mask, valid = _stack(points, masks)
+               ut: float = thermal_voltage(), weighted: bool = False, stacked=None):
+    # stacked: these points and masks as _stacked_window gives them, when the caller has them already
+    (vgs, i_d, mask, valid), window = stacked or _stacked_window(points, masks)
     need = len(PARAM_NAMES[model]) + 1
     for p, m in zip(points, masks):
         if m.sum() < need:
             where = f"{p.sweep.source}: " if p.sweep.source else ""
             raise FitError(f"{where}only {int(m.sum())} of the {p.id.size} points (measured {p.id.min():.3g} to "
                            f"{p.id.max():.3g} A) lie in the fit window; the {model} model needs at least {need}")
-    window = _window_only(vgs, i_d, mask)
     # the covariance of this fit is never read: the comparison ranks by the residuals, and the reported
     # fit is the weighted one below
     fit = fit_stacked(model, *window[:3], start, ut=ut, with_covariance=False)
