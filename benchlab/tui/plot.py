@@ -15,10 +15,25 @@ import time
 
 from textual_plotext import PlotextPlot
 
+from benchlab.units import format_si
+
 MAX_REDRAW_HZ = 10.0
 # Rendering the plot costs about 10-20 ms of CPU on a 150x46 screen (plotext builds the figure, rich parses its
 # ANSI text, textual cuts it into strips): at most 8 % of the time keeps the sweep thread's share of the GIL.
 RENDER_SHARE = 0.08
+
+
+def decade_ticks(values, rows: int) -> list[float]:
+    """Whole decades (1e-9, 1e-8, ...) inside the range of the positive ``values``, every n-th so that at most about
+    one tick falls on every second of ``rows`` rows; empty when no decade lies inside."""
+    positive = [v for v in values if v > 0]
+    if not positive:
+        return []
+    low, high = math.ceil(math.log10(min(positive)) - 1e-9), math.floor(math.log10(max(positive)) + 1e-9)
+    if high < low:
+        return []
+    step = max(1, math.ceil((high - low + 1) / max(rows // 2, 2)))
+    return [10.0 ** k for k in range(low, high + 1, step)]
 
 
 class CurvePlot(PlotextPlot):
@@ -132,8 +147,17 @@ class CurvePlot(PlotextPlot):
         if keep:
             plt.scatter([v for v, _ in keep], [i for _, i in keep], marker="braille", label="measured")
         fit = [(v, i) for v, i in zip(self.fit_vgs, self.fit_ids) if math.isfinite(i) and (i > 0 or not self.log_scale)]
+        if self.log_scale and keep:
+            # the fit's tail far below the smallest measured current (down to 1e-28 A) squeezed the points into the
+            # top of the axis: the fit is drawn down to a decade below the measurements
+            floor = min(i for _, i in keep) / 10.0
+            fit = [(v, i) for v, i in fit if i >= floor]
         if fit:
             plt.plot([v for v, _ in fit], [i for _, i in fit], marker="braille", label="fit")
+        if self.log_scale and keep:
+            ticks = decade_ticks([i for _, i in keep] + [i for _, i in fit], self.size.height - 4)
+            if ticks:  # whole decades with SI labels (plotext's own were up to 34 digits wide)
+                plt.yticks(ticks, [format_si(t, "A") for t in ticks])
 
 
 class ResidualPlot(CurvePlot):
