@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import csv
 import re
-from itertools import repeat
+from itertools import islice, repeat
 from dataclasses import dataclass, field
 import numpy as np
 
@@ -285,10 +285,30 @@ def read_table(path) -> SweepTable:
 _RECORD_ONLY = ("point", "status", "direction", "spread_v")
 
 
+_PLAIN_HEADERS: dict = {}  # header line -> (header, column index) of a plain file's header, None for any other
+
+
+def _plain_header(line: str, name: str):
+    if line in _PLAIN_HEADERS:
+        return _PLAIN_HEADERS[line]
+    found = None
+    header = tuple(h.strip() for h in line.split(","))
+    if line.strip() and len(header) >= 2:
+        try:
+            index = _column_index(list(header), name)
+        except InputError:
+            index = None
+        if index is not None and not any(c in index for c in _RECORD_ONLY):
+            found = header, index
+    if len(_PLAIN_HEADERS) < 64:
+        _PLAIN_HEADERS[line] = found
+    return found
+
+
 def _plain_body(name: str):
-    # the header, column index and data lines of a plain numeric CSV that read_table reads the simple way (no
-    # quotes, every line with the header's width, a newline after the last line, no record columns); None for
-    # anything else (read_table then reads it, and names whatever is wrong)
+    # the header, column index, data text and row count of a plain numeric CSV that read_table reads the simple
+    # way (no quotes, every line with the header's width, a newline after the last line, no record columns);
+    # None for anything else (read_table then reads it, and names whatever is wrong)
     try:
         text = _read_text(name)
     except InputError:
@@ -297,22 +317,10 @@ def _plain_body(name: str):
         return None
     lines = text.split("\n")
     lines.pop()
-    if len(lines) < 2 or not lines[0].strip():
+    plain = _plain_header(lines[0], name) if len(lines) >= 2 else None
+    if plain is None or set(map(str.count, islice(lines, 1, None), repeat(","))) != {len(plain[0]) - 1}:
         return None
-    header = tuple(h.strip() for h in lines[0].split(","))
-    index = _INDEX_CACHE.get(header)
-    if index is None:
-        try:
-            index = _column_index(list(header), name)
-        except InputError:
-            return None
-        if len(_INDEX_CACHE) < 64:
-            _INDEX_CACHE[header] = index
-    body = lines[1:]
-    width = len(header)
-    if width < 2 or any(c in index for c in _RECORD_ONLY) or set(map(str.count, body, repeat(","))) != {width - 1}:
-        return None
-    return header, index, body
+    return plain[0], plain[1], text[len(lines[0]) + 1:], len(lines) - 1
 
 
 def read_plain_many(paths) -> list:
@@ -340,22 +348,24 @@ def read_plain_many(paths) -> list:
     for k, path in enumerate(paths):
         plain = None if path is None else _plain_body(str(path))
         if plain is not None:
-            groups.setdefault(plain[0], []).append((k, plain[1], plain[2]))
+            groups.setdefault(plain[0], []).append((k, plain[1], plain[2], plain[3]))
     for header, members in groups.items():
         width, index = len(header), members[0][1]
-        cells = ",".join([line for _, _, body in members for line in body]).split(",")
+        # every file's data lines end with a newline: one text, one split into cells (the last one empty)
+        cells = "".join([text for _, _, text, _ in members]).replace("\n", ",").split(",")
+        cells.pop()
         try:
             vgs, i_d = (np.fromiter(map(float, cells[index[c]::width]), dtype=float, count=len(cells) // width)
                         for c in ("vgs", "id"))
         except ValueError:
             continue  # a cell that is not a number: read_table names it
-        sizes = np.array([len(body) for _, _, body in members])
+        sizes = np.array([rows for _, _, _, rows in members])
         ends = np.cumsum(sizes)
         # a file with a reading that is not finite or a current at or below 0 takes read_table's rules
         bad = np.concatenate(([0], np.cumsum(~(np.isfinite(vgs) & np.isfinite(i_d) & (i_d > 0)))))
         clean = (bad[ends] - bad[ends - sizes]) == 0
         ordered = "v_source" in index
-        for (k, _, _), start, end, ok in zip(members, (ends - sizes).tolist(), ends.tolist(), clean.tolist()):
+        for (k, _, _, _), start, end, ok in zip(members, (ends - sizes).tolist(), ends.tolist(), clean.tolist()):
             if ok:
                 found[k] = FitPoints(vgs=vgs[start:end], id=i_d[start:end], direction=None,
                                      rows=np.arange(1, end - start + 1), skipped={}, ordered=ordered,

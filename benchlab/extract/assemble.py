@@ -255,6 +255,7 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
     cc_rows = _optional_list(vth_cc_sd)
     sd_threshold_rows = _optional_list(threshold_errors["second_derivative_sqrt"])
     threshold_rows = {k: _optional_list(v) for k, v in thresholds.items()}
+    threshold_items = list(threshold_rows.items())
     vgs_cc_rows, gm_cc_rows = _optional_list(vgs_cc_model), _optional_list(gm_cc_model)
     theta_rows, n_rows = theta.tolist(), slope_n.tolist()
     rms_abs_rows, rms_rel_rows, used_rows = rms_abs.tolist(), rms_rel.tolist(), n_used.tolist()
@@ -288,7 +289,8 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             correlation = correlations_batch(names, covariance[None])[0]
             method = f"bootstrap/{int(bootstrap)}"
         row_thresholds = {"model": device.vth}
-        row_thresholds.update({k: v[row] for k, v in threshold_rows.items()})
+        for key, values in threshold_items:
+            row_thresholds[key] = values[row]
         vth_cc = row_thresholds["constant_current"]
         flags_found = found[row]
         if vth_cc is None:
@@ -334,9 +336,10 @@ def assemble(model: str, sweeps, fit: BatchFit, stacked, chosen_by: list[str], *
             rms_residual=rms_abs_rows[row], rms_relative=rms_rel_rows[row],
             vgs_at_cc=vgs_cc_rows[row], gm_at_cc=gm_cc_rows[row], stderr=stderr,
             stderr_method=method,
-            flags=tuple(dict.fromkeys(code for code, _ in flags_found if code)), notes=tuple(n for _, n in flags_found),
+            flags=tuple(dict.fromkeys(code for code, _ in flags_found if code)) if flags_found else (),
+            notes=tuple(n for _, n in flags_found) if flags_found else (),
             thresholds=row_thresholds, window=window, reason=reasons[row],
-            criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()},
+            criteria={k: (v if math.isfinite(v) else None) for k, v in criteria[row].items()} if criteria[row] else {},
             points_used=used_rows[row], points_skipped=int(sum(sweep.skipped.values())), hysteresis_v=shift,
             fitter_version=FITTER_VERSION))
     return results

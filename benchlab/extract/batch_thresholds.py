@@ -17,8 +17,11 @@ HALF_WIDTH = 2
 
 
 def _sorted_rows(key, valid, *arrays):
-    # sort each row by key, invalid entries last
-    order = np.argsort(np.where(valid, key, np.inf), axis=1, kind="stable")
+    # sort each row by key, invalid entries last (rows in that order already, as a fit's rows by current, stay)
+    key = np.where(valid, key, np.inf)
+    if np.all(key[:, 1:] >= key[:, :-1]):  # a stable sort would leave every row as it is
+        return [valid, *arrays]
+    order = np.argsort(key, axis=1, kind="stable")
     return [np.take_along_axis(a, order, axis=1) for a in (valid, *arrays)]
 
 
