@@ -193,7 +193,7 @@ def _choose(criteria: dict[str, float], theta: float | None) -> tuple[str, str]:
     if "ekv" in finite and (not pair or all(finite["ekv"] < finite[m] - AICC_MARGIN for m in pair)):
         chosen, why = "ekv", f"lowest AICc, by more than {AICC_MARGIN:g} below both square-law forms"
     elif "theta" in finite and theta is not None and theta > 0.0:
-        chosen, why = "theta", f"THETA = {theta:.3g} 1/V fitted above its bound 0 (mobility degradation)"
+        chosen, why = "theta", f"THETA = {theta:.3g} 1/V, above its bound 0 (the square law would hold it at 0)"
     elif "square" in finite:
         chosen = "square"
         why = ("too few points for the THETA law" if "theta" not in finite
