@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from textual.app import ComposeResult
-from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.containers import Horizontal, ScrollableContainer, Vertical, VerticalScroll
 from textual.widgets import DataTable, Input, Label, Static
 
 from benchlab.tui.plot import CurvePlot, ResidualPlot
@@ -57,4 +57,7 @@ class SinkView(Horizontal):
             yield from _field("or mismatch target", "sink-mismatch", "", "e.g. 2 %")
             yield from _field("Load voltage (V)", "sink-load", "", "the supply")
             yield from _field("Lot", "sink-lot", "", "all lots")
-        yield Static("Fill in the form; the design is recomputed as you type.", id="sink-report", classes="panel")
+        # the report is taller and wider than the panel (its cautions come last): it scrolls both ways, so every
+        # caution can be read (they were cut off at the bottom and the right edge)
+        with ScrollableContainer(id="sink-scroll", classes="panel"):
+            yield Static("Fill in the form; the design is recomputed as you type.", id="sink-report")
