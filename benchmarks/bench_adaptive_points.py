@@ -54,10 +54,10 @@ def vth_fit(points, temperature_k: float) -> tuple[float, float]:
     return (float(err) if err is not None and np.isfinite(err) else float("inf")), float(result.params.vth)
 
 
-def _sweep(part_index: int, start_v: float, mode: str, budget: int):
+def _sweep(part_index: int, start_v: float, mode: str, budget: int, seed: int):
     """(points, top supply voltage, ambient K, true Vth at the ambient) of one sweep of the given kind on a fresh
     simulated bench; points None when the part is not a good one."""
-    with SimBench(SimConfig(time_scale=0.0, bag_size=part_index + 1, seed=5)) as sim:
+    with SimBench(SimConfig(time_scale=0.0, bag_size=part_index + 1, seed=seed)) as sim:
         config = simulator_bench_config(sim.start(first_port=0), series_resistor_ohm=sim.series_resistor_actual_ohm)
         handle = connect(config, sim)
         try:
@@ -81,11 +81,11 @@ def _sweep(part_index: int, start_v: float, mode: str, budget: int):
             handle.close()
 
 
-def needed(part_index: int, mode: str, start_v: float) -> tuple[int, float] | None:
+def needed(part_index: int, mode: str, start_v: float, seed: int = 5) -> tuple[int, float] | None:
     """(points, fitted Vth - true Vth) of the sweep of this kind that first reached a Vth standard error within
     TARGET_V (None: not a good part, or not reached)."""
     for budget in (0,) if mode == "fit" else BUDGETS:
-        points, _, ambient_k, truth = _sweep(part_index, start_v, mode, budget)
+        points, _, ambient_k, truth = _sweep(part_index, start_v, mode, budget, seed)
         if points is None:
             return None
         err, vth = vth_fit(points, ambient_k)
@@ -103,13 +103,14 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--parts", type=int, default=6)
     parser.add_argument("--start-v", type=float, default=0.0, help="where both sweeps start (V)")
+    parser.add_argument("--seed", type=int, default=5, help="seed of the simulated bag (and its noise)")
     args = parser.parse_args(argv)
     modes = ("fit", "targets", "even")
     counts: dict[str, list[int]] = {m: [] for m in modes}
     errors: dict[str, list[float]] = {m: [] for m in modes}
-    print(f"both sweeps start at {args.start_v:g} V")
+    print(f"both sweeps start at {args.start_v:g} V; simulated bag of seed {args.seed}")
     for index in range(args.parts):
-        got = {m: needed(index, m, args.start_v) for m in modes}
+        got = {m: needed(index, m, args.start_v, args.seed) for m in modes}
         if any(v is None for v in got.values()):
             print(f"part {index + 1}: skipped (not a good part, or {TARGET_V * 1e3:g} mV not reached: {got})")
             continue

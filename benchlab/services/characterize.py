@@ -17,10 +17,11 @@ from typing import Any, Callable, Iterator, Protocol, runtime_checkable
 from benchlab.choices import DEFAULT_SESSIONS_DIR
 from benchlab.errors import InputError, SweepCancelled
 from benchlab.sweep.engine import preflight, run
+from benchlab.sweep.fit_targeting import leak_scale_v
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepOutcome
 from benchlab.sweep.session import SessionWriter, check_name
-from benchlab.kinds import Fixture, SweepMode
+from benchlab.kinds import Fixture, PartClass, SweepMode
 from benchlab.library.store import default_operator  # who is at the bench unless --operator says
 
 CAUTION = ("Caution: a swept part and its heat sink can get hot enough to burn, and the fixture carries the supply's "
@@ -399,6 +400,21 @@ def sweep_part(handle: BenchHandle, plan: SweepPlan, session: SessionWriter, lab
     return run(plan, handle.bench, on_event, cancel, label=label, recorder=recorder, vth_stderr=running_fit)
 
 
+def bag_prior(plan: SweepPlan, outcome: SweepOutcome, prior: float | None) -> float | None:
+    """The running knowledge a bag hands to its next part's fit-aimed sweep: the lowest leak-check scale (VGS at
+    250 uA, else at the onset of conduction) of the good parts so far (``SweepPlan.prior_leak_scale_v``).
+
+    Only fit-aimed sweeps on the resistor fixture use it, and only good parts count: a leaky or shorted part's
+    VGS says nothing about where the next part's leak region lies.
+    """
+    if plan.vth_stderr_v is None or plan.fixture != Fixture.RESISTOR or outcome.classification != PartClass.GOOD:
+        return prior
+    scale = leak_scale_v(plan, outcome.points)
+    if scale is None or not scale > 0:
+        return prior
+    return scale if prior is None else min(prior, scale)
+
+
 def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path = DEFAULT_SESSIONS_DIR,
               lot: str = "bag", count: int | None = None, operator: str = "", ambient_c: float | None = None,
               loader: Any = None, resume: str | Path | None = None, on_event: Callable[[Any], None] | None = None,
@@ -442,6 +458,7 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
         loader = SimPartLoader(handle.bench) if is_simulated(handle) else PromptPartLoader()
     done = session.completed_labels()
     skipped, outcomes, stopped = [], [], None
+    prior = plan.prior_leak_scale_v
     try:
         while count is None or len(done) < count:
             if cancel is not None and cancel.is_set():
@@ -455,11 +472,12 @@ def sweep_bag(handle: BenchHandle, plan: SweepPlan, *, sessions_root: str | Path
                 skipped.append(label)
                 loader.progress(f"{label} is already measured in this session: skipped")  # now, not only at the end
                 continue
-            outcome = sweep_part(handle, plan, session, label, on_event, cancel)
+            outcome = sweep_part(handle, replace(plan, prior_leak_scale_v=prior), session, label, on_event, cancel)
             outcomes.append(outcome)
             if not outcome.complete:
                 stopped = outcome.stop_reason
                 break
+            prior = bag_prior(plan, outcome, prior)
             done.add(label)
             loader.progress(f"{len(done)} of {count} parts done" if count else f"{len(done)} parts done")
     finally:

@@ -96,14 +96,35 @@ def first_level(plan: SweepPlan) -> float:
     """Where a fit-targeted sweep starts. On the resistor fixture: half the load line's jump from 0 V (no
     diode-connected part takes more than V / R there: at most 45 % of the top target), a reading that for most parts
     also serves the leak check (a point at half the VGS of conduction or below, :mod:`benchlab.sweep.classify`)
-    and from which the jump still reaches conduction; ``start_v`` only when it lies above the whole jump. On a SMU:
-    ``start_v``."""
+    and from which the jump still reaches conduction; ``start_v`` only when it lies above the whole jump. With
+    ``plan.prior_leak_scale_v`` (the parts swept before in the session) no higher than 0.9 x half of it, so the
+    reading lies in the leak region of a part like them also where half the jump would not (a large R x I_top:
+    at 100 mA through 47 ohm half the jump is 2.1 V, above the leak region of a 2.6 V part, and the leak check
+    took a reading of its own at the end). Only ever lowered by the prior: every jump stays bounded by the load
+    line as without it. On a SMU: ``start_v``."""
     if plan.fixture != Fixture.RESISTOR:
         return plan.start_v
     jump = LOAD_LINE_MARGIN * plan.worst_case_resistor_ohm() * plan.max_current_a
     if plan.start_v > jump:
         return plan.start_v
-    return round(min(0.5 * jump, plan.limits.max_supply_v), 6)
+    level = 0.5 * jump
+    if plan.prior_leak_scale_v is not None:
+        level = min(level, 0.9 * LEAK_VGS_FRACTION * plan.prior_leak_scale_v)
+    return round(min(level, plan.limits.max_supply_v), 6)
+
+
+def leak_scale_v(plan: SweepPlan, points: Sequence[SweepPoint]) -> float | None:
+    """The VGS the classifier scales the leak region by (:func:`benchlab.sweep.classify.classify`): VGS at the
+    250 uA reference along the up-sweep's setpoints, else the lowest VGS of a conducting point; None when
+    nothing conducted."""
+    ups = in_setpoint_order(points)
+    scale = vgs_at_current(ups, REFERENCE_CURRENT_A, plan.detect_floor_a())
+    if scale is None:
+        seen = conducting(plan, ups)
+        if not seen:
+            return None
+        scale = min(v for v, _ in seen)
+    return scale
 
 
 def leak_check_level(plan: SweepPlan, ups: Sequence[SweepPoint]) -> float | None:
@@ -111,14 +132,10 @@ def leak_check_level(plan: SweepPlan, ups: Sequence[SweepPoint]) -> float | None
     ``LEAK_VGS_FRACTION`` x the VGS of the reference current (or of the onset of conduction); None when one is.
     The classifier needs such a point to tell a leaky part (docs/sweeps.md); the search does not always leave one.
     """
-    floor = plan.detect_floor_a()
     ups = in_setpoint_order(ups)
-    scale = vgs_at_current(ups, REFERENCE_CURRENT_A, floor)
+    scale = leak_scale_v(plan, ups)
     if scale is None:
-        seen = conducting(plan, ups)
-        if not seen:
-            return None
-        scale = min(v for v, _ in seen)
+        return None
     if any(0 < p.vgs <= LEAK_VGS_FRACTION * scale for p in ups if p.direction == "up" and p.usable):
         return None
     return round(0.9 * LEAK_VGS_FRACTION * scale, 6)

@@ -124,6 +124,12 @@ class SweepPlan:
         ``targets`` mode: aim the points at the fit instead of at evenly spread currents, and stop once the
         running fit's Vth standard error is at or below this (V), or after ``points`` conducting points
         (:mod:`benchlab.sweep.fit_targeting`). None: the evenly spread targets.
+    prior_leak_scale_v : float or None
+        Fit-aimed sweeps on the resistor fixture: the lowest VGS the leak check was scaled by (VGS at the 250 uA
+        reference, else at the onset of conduction) among the good parts swept before in this session (V). The
+        first reading then goes no higher than 0.45 x this, inside the leak region of a part like them, so it
+        serves the leak check and no reading is added for it at the end; never higher than without it. A bag
+        sets it from its previous parts (:func:`benchlab.services.characterize.sweep_bag`). None: no prior.
     """
 
     fixture: str
@@ -155,6 +161,7 @@ class SweepPlan:
     max_measured_points: int = 200
     max_duration_s: float | None = 900.0
     vth_stderr_v: float | None = None
+    prior_leak_scale_v: float | None = None
 
     def target_currents(self) -> np.ndarray:
         """The target currents (A), evenly spread in log(current), ascending."""
@@ -286,6 +293,8 @@ def validate_plan(plan: SweepPlan) -> SweepPlan:
         if plan.mode != SweepMode.TARGETS:
             raise InputError(f"vth_stderr_v aims an adaptive sweep at the fit: it goes with mode 'targets', "
                              f"not '{plan.mode}'")
+    if plan.prior_leak_scale_v is not None:
+        _positive("prior_leak_scale_v", plan.prior_leak_scale_v)
     if plan.max_rereads < 0 or plan.list_chunk < 1 or plan.max_measured_points < plan.points:
         raise InputError("max_rereads must be >= 0, list_chunk >= 1 and max_measured_points >= points")
     if plan.fixture == Fixture.RESISTOR:

@@ -4,6 +4,7 @@ the leak check, the safety limits, and one end-to-end sweep on the simulated ben
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -12,11 +13,15 @@ from hypothesis import given, settings, strategies as st
 from benchlab.errors import InputError
 from benchlab.extract.fit import fit_sweep
 from benchlab.models import DeviceParams
+from benchlab.services.characterize import sweep_bag
 from benchlab.services.fitting import running_vth_stderr
+from benchlab.sweep.classify import LEAK_VGS_FRACTION
 from benchlab.sweep.engine import run
 from benchlab.sweep.fit_targeting import (
-    fit_reached, grid_currents, interpolate_vgs, interpolation_base, leak_check_level, next_fit_step, next_target,
+    first_level, fit_reached, grid_currents, interpolate_vgs, interpolation_base, leak_check_level, leak_scale_v,
+    next_fit_step, next_target,
 )
+from benchlab.sweep.session import read_session
 from benchlab.sweep.plan import Limits, SweepPlan, validate_plan
 from benchlab.sweep.records import SweepPoint
 
@@ -124,12 +129,15 @@ def test_without_the_running_fit_nothing_is_sent():
 @settings(max_examples=15, deadline=None)
 @given(vth=st.floats(1.0, 4.5), kp=st.floats(0.2, 5.0), theta=st.floats(0.0, 0.5), n=st.floats(1.1, 2.0),
        r=st.sampled_from([1.0, 10.0, 100.0]), max_v=st.floats(5.0, 15.0), max_a=st.floats(0.05, 0.5),
-       max_w=st.floats(0.2, 2.0), fixture=st.sampled_from(["resistor", "smu"]), need=st.integers(6, 12))
+       max_w=st.floats(0.2, 2.0), fixture=st.sampled_from(["resistor", "smu"]), need=st.integers(6, 12),
+       prior=st.one_of(st.none(), st.floats(0.05, 8.0)))
 def test_fit_targeted_sweeps_keep_the_limits_and_end_off(vth, kp, theta, n, r, max_v, max_a, max_w, fixture,
-                                                         need):
-    # the stop rule is stubbed (it stops after `need` conducting points) so the stepping is exercised at length
+                                                         need, prior):
+    # the stop rule is stubbed (it stops after `need` conducting points) so the stepping is exercised at length;
+    # a bag's prior (any value, right or wrong for the part) moves the first reading and nothing past the limits
     bench = FakeBench(DeviceParams(model="ekv", vth=vth, kp=kp, theta=theta, n=n), resistor_ohm=r)
-    p = plan(fixture=fixture, limits=Limits(max_v, max_a, max_w), series_resistor_ohm=r, max_current_a=max_a * 0.8)
+    p = plan(fixture=fixture, limits=Limits(max_v, max_a, max_w), series_resistor_ohm=r, max_current_a=max_a * 0.8,
+             prior_leak_scale_v=prior)
     outcome = run(p, bench, clock=bench.clock, sleep=bench.clock.sleep,
                   vth_stderr=lambda points: 1e-3 if sum(q.id >= 2e-6 for q in points) >= need else math.inf)
     assert max(applied_voltages(bench.log)) <= max_v
@@ -167,3 +175,48 @@ def test_duds_are_still_judged_on_the_simulated_bench():
             outcome = run(p, handle.bench, vth_stderr=lambda pts: running_vth_stderr(pts, sim.config.ambient_k))
             assert outcome.classification == EXPECTED_CLASS[kind], (kind, outcome.reason)
             sim.core.next_part()
+
+
+def test_the_bags_prior_only_ever_lowers_the_first_reading_into_the_leak_region():
+    # Ohm's law on the series resistor: from 0 V a setpoint V can drive at most V / R (common practice); the
+    # leak region is the classifier's rule (docs/sweeps.md): at or below half the VGS of the 250 uA point
+    p = plan(max_current_a=0.1)
+    half_jump = 0.5 * 0.9 * 46.5 * 0.1
+    assert first_level(p) == pytest.approx(half_jump)
+    assert first_level(replace(p, prior_leak_scale_v=2.6)) == pytest.approx(0.9 * 0.5 * 2.6)
+    assert first_level(replace(p, prior_leak_scale_v=8.0)) == pytest.approx(half_jump)  # never raised
+    assert first_level(replace(p, fixture="smu", prior_leak_scale_v=2.6)) == p.start_v
+    ups = [pt(1.17, 1.17, 1e-9), pt(6.0, 2.9, 0.07), pt(2.9, 2.6, 250e-6)]
+    assert leak_scale_v(p, ups) == pytest.approx(2.6)
+    assert leak_check_level(p, ups) is None  # the first reading serves the leak check
+    with pytest.raises(InputError, match="prior_leak_scale_v"):
+        validate_plan(replace(p, prior_leak_scale_v=-1.0))
+
+
+def test_a_bag_hands_the_leak_region_of_its_good_parts_to_the_next_part(tmp_path):
+    # the simulator's bag of 6 (seed 3): good, open, good, leaky, good, short; top 100 mA, where half the load
+    # line's jump (2.1 V) lies above the leak region of these parts
+    from .simhelp import EXPECTED_CLASS
+
+    with sim_bench(bag_size=6, seed=3) as (sim, handle):
+        truth = {q.label: q.kind for q in sim.bag}
+        p = plan(limits=Limits.from_safety_limits(handle.config.limits), points=10, max_current_a=0.1,
+                 series_resistor_ohm=handle.config.series_resistor_ohm, down_sweep=False, settle_s=0.0)
+        result = sweep_bag(handle, p, sessions_root=tmp_path, lot="prior", count=6)
+        assert sim.log.last_output_state("supply") is False
+    stored = read_session(result.session_path).sweeps
+    prior = None
+    for outcome in result.outcomes:
+        assert outcome.classification == EXPECTED_CLASS[truth[outcome.label]], (outcome.label, outcome.reason)
+        assert stored[outcome.label].meta["plan"]["prior_leak_scale_v"] == prior
+        first = outcome.points[0]
+        assert first.v_source == pytest.approx(first_level(replace(p, prior_leak_scale_v=prior)), abs=1e-3)
+        if outcome.classification == "good":
+            scale = leak_scale_v(p, outcome.points)
+            in_leak_region = [q for q in outcome.points if 0 < q.vgs <= LEAK_VGS_FRACTION * scale]
+            if prior is None:  # no prior: the first reading is above the leak region, one is added at the end
+                assert first not in in_leak_region and in_leak_region == [outcome.points[-1]]
+            else:  # the first reading serves the leak check: no reading is added for it
+                assert in_leak_region == [first]
+            prior = scale if prior is None else min(prior, scale)
+    assert prior is not None and prior > 1.5  # the leaky part's low VGS never became the prior
