@@ -230,19 +230,24 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
 
     def action_abort(self) -> None:
         """From every view: tell the sweep to stop and switch every output off now."""
+        sweeping = self.running_tag is not None
         self.shown_tag = None
         self.hands_free_on = False
         self.cancel_event.set()
         self.say("ABORT: switching every output off")
-        self._abort_worker()
+        self._abort_worker(sweeping)
 
     @work(thread=True, group="abort")
-    def _abort_worker(self) -> None:
+    def _abort_worker(self, sweeping: bool = False) -> None:
         from benchlab.services import station
 
         problems = station.abort(self.handle, self.cancel_event)
         if problems:
             self.post_message(Problem("could not confirm the output is off: " + "; ".join(problems)))
+        elif self.handle is None:
+            self.call_from_thread(self.say, "ABORT: no bench connected, nothing to switch off")
+        elif not sweeping:  # (a stopped sweep's own verdict line follows, and says what to do next)
+            self.call_from_thread(self.say, "ABORT done: every output switched off")
         self._poll_outputs_now()
 
     def action_quit_safely(self) -> None:

@@ -155,3 +155,13 @@ async def test_hands_free_bag_of_ten_with_a_part_pulled(tmp_path):
     stored = list_parts(str(tmp_path / "lib.db"), state="all")
     assert len(stored) == len(swept)  # nothing stored for the pulled part
     assert {p.lot for p in stored} == {"rack-b"}
+
+
+async def test_abort_when_idle_says_when_every_output_is_off(tmp_path):
+    # Ctrl+K said 'switching every output off' and never that it was done
+    app = make_app(tmp_path)
+    async with app.run_test(size=SIZE) as pilot:
+        await connected(pilot)
+        await pilot.press("ctrl+k")
+        await until(pilot, lambda: "ABORT done: every output switched off" in app.status_text, 10)
+        assert output_log(app)[-1:] in ([], ["OFF"])  # the simulator's own record: nothing left on
