@@ -24,7 +24,7 @@ from itertools import combinations
 
 import numpy as np
 
-from benchlab.extract.engine import BatchFit, _current_and_jacobian, row_median, solve_batch
+from benchlab.extract.engine import CHUNK_ROWS, BatchFit, _current_and_jacobian, join_fits, row_median, solve_batch
 from benchlab.models import thermal_voltage
 
 PASSES = 2
@@ -123,6 +123,13 @@ def effective_variance_fit(model: str, vgs, i_meas, mask, params, *, ut: float =
         :func:`benchlab.extract.engine.sandwich_covariance`, robust to a wrong variance model) and
         the point standard deviations (A) of the last pass, shape (B, N).
     """
+    if vgs.shape[0] > CHUNK_ROWS:  # cache-sized chunks (as fit_stacked): each row's numbers are its own
+        parts = [effective_variance_fit(model, vgs[lo:lo + CHUNK_ROWS], i_meas[lo:lo + CHUNK_ROWS],
+                                        mask[lo:lo + CHUNK_ROWS], params[lo:lo + CHUNK_ROWS], ut=ut,
+                                        sigma_v=sigma_v if sigma_v is None or np.ndim(sigma_v) == 0 else sigma_v[lo:lo + CHUNK_ROWS],
+                                        passes=passes, with_covariance=with_covariance)
+                 for lo in range(0, vgs.shape[0], CHUNK_ROWS)]
+        return join_fits([fit for fit, _ in parts]), np.concatenate([s for _, s in parts])
     variance = None
     fit = None
     for done in range(1, passes + 1):

@@ -463,9 +463,18 @@ def _theta_start(vgs, i_meas, mask, vth, kp, ut):
 CHUNK_ROWS = 1024  # sweeps per solve: arrays of a few hundred kB stay in cache (about 2x faster than one huge batch)
 
 
+def join_fits(parts: list[BatchFit]) -> BatchFit:
+    """The fits of consecutive chunks of rows as one :class:`BatchFit`."""
+    if len(parts) == 1:
+        return parts[0]
+    return BatchFit(model=parts[0].model, **{name: np.concatenate([getattr(p, name) for p in parts])
+                                             for name in ("params", "covariance", "rss", "n_points", "iterations",
+                                                          "converged")})
+
+
 def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarray, start: np.ndarray | None = None,
                 *, ut: float = thermal_voltage(), chunk_rows: int = CHUNK_ROWS,
-                with_covariance: bool = True) -> BatchFit:
+                with_covariance: bool = True, sigma: np.ndarray | None = None) -> BatchFit:
     """Starting values (unless given) and :func:`solve_batch` over stacked sweeps, a chunk of rows at a time.
 
     Parameters
@@ -481,19 +490,18 @@ def fit_stacked(model: str, vgs: np.ndarray, i_meas: np.ndarray, mask: np.ndarra
         Sweeps solved together.
     with_covariance : bool
         As :func:`solve_batch` (False for fits whose covariance nobody reads).
+    sigma : ndarray, shape (B, N), optional
+        As :func:`solve_batch`.
 
     Returns
     -------
     BatchFit
-        For all B sweeps, in order.
+        For all B sweeps, in order (each row's numbers do not depend on the others in its chunk).
     """
     parts = []
     for lo in range(0, vgs.shape[0], chunk_rows):
         rows = slice(lo, lo + chunk_rows)
         begin = initial_guess(model, vgs[rows], i_meas[rows], mask[rows], ut=ut) if start is None else start[rows]
         parts.append(solve_batch(model, vgs[rows], i_meas[rows], mask[rows], begin, ut=ut,
-                                 with_covariance=with_covariance))
-    if len(parts) == 1:
-        return parts[0]
-    return BatchFit(model=model, **{name: np.concatenate([getattr(p, name) for p in parts])
-                                    for name in ("params", "covariance", "rss", "n_points", "iterations", "converged")})
+                                 with_covariance=with_covariance, sigma=None if sigma is None else sigma[rows]))
+    return join_fits(parts)

@@ -26,7 +26,7 @@ from benchlab.errors import FitError, InputError
 from benchlab.extract.assemble import assemble
 from benchlab.extract.diagnostics import MIN_DECADES
 from benchlab.extract.eiv import effective_variance_fit
-from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked, solve_batch
+from benchlab.extract.engine import CHUNK_ROWS, PARAM_NAMES, ekv_start_from_theta, fit_stacked
 from benchlab.extract.result import FitResult
 from benchlab.extract.sweepdata import Sweep, validate_points
 from benchlab.models import MODEL_NAMES, T_NOMINAL_K, thermal_voltage
@@ -307,7 +307,7 @@ def _rank_on_common_weights(points: list[_Points], masks: list[np.ndarray], crit
             weights[k, :sigma[b].size] = sigma[b]
         if columns is not None:
             weights = np.take_along_axis(weights, columns, axis=1)
-        weighted = solve_batch(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
+        weighted = fit_stacked(name, v, i, m, np.array([fit.params[row_of[b]] for b in rows]), ut=ut,
                                sigma=np.where(m > 0, weights, 1.0), with_covariance=False)
         _store_aicc(criteria, rows, name, weighted)
         if name == "theta":
