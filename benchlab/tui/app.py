@@ -75,6 +75,11 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
 
     CSS_PATH = "app.tcss"
     TITLE = "benchlab"
+    # below 110 columns the forms and side panels narrow (app.tcss, Screen.-narrow) so every view keeps room for its
+    # plot: at 80 columns the Characterize view's curve had no width at all
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    # below 36 rows the Library view leaves out the residual plot, so the part's curve keeps its height
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (36, "-tall")]
     # F1..F7 are listed in the title bar (and on the help screen), not in the footer: there they took the room of
     # the view's own keys, which were cut at the right edge of a 150-column terminal
     BINDINGS = [
@@ -164,10 +169,18 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
     def on_unmount(self) -> None:
         sys.setswitchinterval(getattr(self, "_switch_interval", 0.005))
 
-    def _title(self) -> None:
+    def _title(self, width: int | None = None) -> None:
+        if (self.size.width if width is None else width) < 110:  # every view's key in 80 columns (F7 Thermal was cut off there)
+            tabs = " ".join(f"[reverse] F{i + 1} {VIEW_TITLES[v]} [/reverse]" if v == self.current_view
+                            else f"F{i + 1} {VIEW_TITLES[v]}" for i, v in enumerate(VIEWS))
+            self._q("#title-bar", Static).update(tabs)
+            return
         tabs = "  ".join(f"[reverse] F{i + 1} {VIEW_TITLES[v]} [/reverse]" if v == self.current_view
                          else f" F{i + 1} {VIEW_TITLES[v]} " for i, v in enumerate(VIEWS))
         self._q("#title-bar", Static).update(f"[b]benchlab[/b]  {tabs}")
+
+    def on_resize(self, event) -> None:
+        self._title(event.size.width)
 
     def _q(self, selector, expect_type=None):
         """A widget of the views: looked up on the app's own screen, also while the help screen is on top."""
