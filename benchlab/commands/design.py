@@ -186,7 +186,7 @@ def _match_sets(args) -> int:
     if args.json:
         print_json(result.to_dict())
     else:
-        print(format_match(result), end="")
+        print(format_match(result, args.sets), end="")
     return 0
 
 

@@ -175,8 +175,9 @@ def format_sink_report(design: SinkDesign | Mapping[str, Any], design_id: int | 
     return "\n".join(lines) + "\n"
 
 
-def format_match(result: MatchResult) -> str:
-    """Matched sets, one per line, best first, with what was optimised."""
+def format_match(result: MatchResult, asked: int | None = None) -> str:
+    """Matched sets, one per line, best first, with what was optimised; ``asked`` is how many sets were asked for
+    (None: as many as possible), to say why parts are left over."""
     span = (format_si(result.currents[0], "A", 4) if len(result.currents) == 1
             else f"{format_si(result.currents[0], 'A', 4)} .. {format_si(result.currents[-1], 'A', 4)} ({len(result.currents)} points)")
     lines = [f"Matched sets of {result.size} at {span}: {result.method}", f"  ({result.objective})"]
@@ -185,9 +186,13 @@ def format_match(result: MatchResult) -> str:
         lines.append(f"  {k:>3}. ref {s.ref} (VGS {s.vgs_ref:.4f} V) -> {errs}; worst {s.worst_error * 100:.4f} %")
     if not result.sets:
         lines.append("  no set could be formed")
-    if result.unmatched:
-        lines.append(f"  {result.unmatched} part(s) left unmatched: no set left among them whose every output "
-                     f"conducts (carries 2 uA or more) at the operating current")
+    if result.unmatched and asked is not None and len(result.sets) >= asked:
+        lines.append(f"  {result.unmatched} part(s) not used: the {asked} set(s) asked for were found")
+    elif result.unmatched and result.unmatched < result.size:
+        lines.append(f"  {result.unmatched} part(s) left over: too few for another set of {result.size}")
+    elif result.unmatched:
+        lines.append(f"  {result.unmatched} part(s) left unmatched: no further set was found among them whose every "
+                     f"output conducts (carries 2 uA or more) at the operating current")
     return "\n".join(lines) + "\n"
 
 

@@ -83,3 +83,14 @@ def test_the_bounds_leave_real_parts_alone(bag, capsys):
     assert main(["design", "match", "--at-current", "300m", "--outputs", "2", "--warm", "30",
                  "--library", str(bag)]) == 0
     assert main(["parts", "add", "BIG", "--vth", "4", "--kp", "300", "--library", str(bag)]) == 0
+
+
+def test_match_says_why_parts_are_left_over(bag, capsys):
+    # six parts in sets of four: one set, two parts over. The text said 'no set left among them whose every output
+    # conducts', as if the two parts were faulty, when two parts simply cannot make a set of four
+    assert main(["design", "match", "--at-current", "20m", "--outputs", "3", "--library", str(bag)]) == 0
+    out = capsys.readouterr().out
+    assert "2 part(s) left over: too few for another set of 4" in out and "conducts" not in out
+    assert main(["design", "match", "--at-current", "20m", "--outputs", "1", "--sets", "1", "--library",
+                 str(bag)]) == 0
+    assert "4 part(s) not used: the 1 set(s) asked for were found" in capsys.readouterr().out
