@@ -9,6 +9,7 @@ from typing import Any, Iterable, Mapping, Sequence
 
 from benchlab.design.text import (monte_carlo_rows, self_heating_rows, sink_output_rows,
                                   sink_parameter_rows)
+from benchlab.design.verdict import DEFAULT_MISMATCH_TARGET
 from benchlab.units import format_si
 
 BENCH_CAUTIONS = (
@@ -100,24 +101,29 @@ def shopping_rows(design: Mapping[str, Any]) -> list[tuple[str, ...]]:
 def verdict(design: Mapping[str, Any]) -> tuple[bool, str]:
     """Whether the design meets its target, and the sentence that says so.
 
-    The target is the mismatch target the design was made for (``design sink --mismatch-target``); every output
-    must also stay in compliance. A design made without a target is judged on compliance alone, and says so.
+    The target is the mismatch target the design was made for (``design sink --mismatch-target``), else the
+    designer's default (5 %), as in the verdict ``design sink`` prints; every output must also stay in compliance
+    and the junctions must settle (no thermal runaway). A design made without a target said it MEETS the target
+    with any error and with thermal runaway, while the CLI called the same design NOT USABLE.
     """
     outputs = design.get("outputs") or []
     worst = max((abs(o["error"]) for o in outputs), default=0.0)
     out_of = [str(o["part"]) for o in outputs if not o.get("in_compliance", True)]
     target = (design.get("degeneration") or {}).get("target")
+    runaway = design.get("runaway") if isinstance(design.get("runaway"), Mapping) else {}
     parts = []
-    ok = not out_of
+    ok = not out_of and worst <= (target or DEFAULT_MISMATCH_TARGET) and not runaway.get("runaway")
     if target:
-        ok = ok and worst <= target
         parts.append(f"worst output error {worst * 100:.3f} % against a target of {target * 100:g} %")
     else:
-        parts.append(f"worst output error {worst * 100:.3f} % (no mismatch target was set)")
+        parts.append(f"worst output error {worst * 100:.3f} % against the default target of "
+                     f"{DEFAULT_MISMATCH_TARGET * 100:g} %")
     if out_of:
         parts.append("out of compliance: " + ", ".join(out_of))
     else:
         parts.append(f"every output in compliance at {format_si(design.get('load_voltage'), 'V', 4)}")
+    if runaway.get("runaway"):
+        parts.append(str(runaway.get("verdict") or "THERMAL RUNAWAY"))
     return ok, ("MEETS the target at nominal values: " if ok else "MISSES the target: ") + "; ".join(parts)
 
 
