@@ -81,22 +81,26 @@ def _sweep(part_index: int, start_v: float, mode: str, budget: int, seed: int):
             handle.close()
 
 
-def needed(part_index: int, mode: str, start_v: float, seed: int = 5) -> tuple[int, float] | None:
-    """(points, fitted Vth - true Vth) of the sweep of this kind that first reached a Vth standard error within
-    TARGET_V (None: not a good part, or not reached)."""
+def needed(part_index: int, mode: str, start_v: float, seed: int = 5) -> tuple[int, float, float] | None:
+    """(points, fitted Vth - true Vth, its standard error) of the sweep of this kind that first reached a Vth
+    standard error within TARGET_V (None: not a good part, or not reached)."""
     for budget in (0,) if mode == "fit" else BUDGETS:
         points, _, ambient_k, truth = _sweep(part_index, start_v, mode, budget, seed)
         if points is None:
             return None
         err, vth = vth_fit(points, ambient_k)
         if err <= TARGET_V:
-            return len(points), vth - truth
+            return len(points), vth - truth, err
     return None
 
 
-def _range_mv(errors: list[float]) -> str:
-    size = [abs(e) * 1e3 for e in errors]
-    return f"median {statistics.median(size):.2f} mV, {min(size):.2f}-{max(size):.2f} mV"
+def _range_mv(errors: list[tuple[float, float]]) -> str:
+    """Median and range of |fitted - true Vth|, and in how many fits the truth lies within two quoted standard
+    errors (about 95 % of honest fits would; a check on the error the stop rule trusts)."""
+    size = [abs(e) * 1e3 for e, _ in errors]
+    covered = sum(abs(e) <= 2 * se for e, se in errors)
+    return (f"median {statistics.median(size):.2f} mV, {min(size):.2f}-{max(size):.2f} mV, "
+            f"within 2 standard errors in {covered} of {len(errors)}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -107,7 +111,7 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     modes = ("fit", "targets", "even")
     counts: dict[str, list[int]] = {m: [] for m in modes}
-    errors: dict[str, list[float]] = {m: [] for m in modes}
+    errors: dict[str, list[tuple[float, float]]] = {m: [] for m in modes}
     print(f"both sweeps start at {args.start_v:g} V; simulated bag of seed {args.seed}")
     for index in range(args.parts):
         got = {m: needed(index, m, args.start_v, args.seed) for m in modes}
@@ -116,7 +120,7 @@ def main(argv: list[str] | None = None) -> int:
             continue
         for m in modes:
             counts[m].append(got[m][0])
-            errors[m].append(got[m][1])
+            errors[m].append(got[m][1:])
         print(f"part {index + 1}: " + ", ".join(f"{m} {got[m][0]} points (Vth {got[m][1] * 1e3:+.2f} mV from truth)"
                                                  for m in modes), flush=True)
     if counts["even"]:
