@@ -14,6 +14,8 @@ _SIM_NAMES = ("seed", "time_scale", "log")
 
 def _common(p: argparse.ArgumentParser) -> None:
     p.add_argument("--part", required=True, metavar="LABEL", help="label of the part in the fixture, e.g. Q07")
+    p.add_argument("--lot", help="the part's lot in the library, when its label is in several lots (the results "
+                                 "are stored on LOT/LABEL)")
     where = p.add_mutually_exclusive_group()
     where.add_argument("--bench", metavar="CONFIG", help="bench file with a [thermal] table (docs/bench-config.md)")
     where.add_argument("--sim", action="store_true", help="the built-in simulated bench (SMU fixture, heated block)")
@@ -55,7 +57,7 @@ def run_tempco(args: argparse.Namespace) -> int:
     from benchlab.services import thermal as svc
 
     outcome = svc.measure_tempco(args.part, args.temps, bench_path=args.bench, sim=_sim_options(args),
-                                 sessions_root=args.sessions, library=args.library, model=args.model,
+                                 sessions_root=args.sessions, library=args.library, lot=args.lot, model=args.model,
                                  bootstrap=args.bootstrap, on_event=None if args.json else ProgressBar(out=sys.stderr),
                                  say=_say(args))
     return _print(outcome, args.json)
@@ -68,7 +70,7 @@ def run_rth(args: argparse.Namespace) -> int:
     plan = RthPlan(sense_current_a=args.sense_current, heating_power_w=args.power, heatsink_k_per_w=args.heatsink,
                    calibration_rise_k=args.calibration_rise)
     outcome = svc.measure_rth(args.part, bench_path=args.bench, sim=_sim_options(args), sessions_root=args.sessions,
-                              library=args.library, plan=plan, say=_say(args))
+                              library=args.library, lot=args.lot, plan=plan, say=_say(args))
     return _print(outcome, args.json)
 
 

@@ -187,7 +187,7 @@ def _sweep_of(outcome):
 def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
                    handle: chz.BenchHandle | None = None, seat: bool = True,
                    sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
-                   model: str = "auto", bootstrap: int = 100, on_event: Callable[[Any], None] | None = None,
+                   lot: str | None = None, model: str = "auto", bootstrap: int = 100, on_event: Callable[[Any], None] | None = None,
                    say: Callable[[str], None] | None = None, cancel=None,
                    on_record: Callable[[str, dict], None] | None = None,
                    sweep_options: dict[str, Any] | None = None) -> ThermalOutcome:
@@ -196,6 +196,7 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
     The bench is ``bench_path`` or ``sim`` (connected here and closed at the end), or ``handle``, a bench the
     caller keeps open (the terminal UI); on a borrowed simulator ``seat=False`` measures the part already in the
     fixture (its label must be ``part``). ``on_record(kind, values)`` hears every line of ``thermal.jsonl``.
+    ``lot`` names the library part's lot when its label is in several lots (the values are stored on LOT/LABEL).
 
     Raises
     ------
@@ -205,6 +206,8 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
         Instrument problems and cancellation, after the output is off.
     """
     check_name("part label", part)
+    if lot is not None:
+        check_name("lot name", lot)
     temps_k = tuple(float(t) + KELVIN for t in temperatures_c)
     thermal_cfg, _ = _thermal_setup(bench_path, sim, handle)
     validate_tempco_plan(TempcoPlan(temps_k, None, model, bootstrap), thermal_cfg)  # type: ignore[arg-type]
@@ -224,13 +227,13 @@ def measure_tempco(part: str, temperatures_c, *, bench_path: str | None = None, 
                                 temperature_sigma_k=[s for *_, s in records], model=model, bootstrap=bootstrap)
     outcome = ThermalOutcome(part=part, measurement="tempco", tempco=result, session_path=str(session.path),
                              settle_criterion=thermal.config.settle_criterion(), notes=result.notes)
-    return _finish(outcome, session.path, library)
+    return _finish(outcome, session.path, library, lot)
 
 
 def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions | None = None,
                 handle: chz.BenchHandle | None = None, seat: bool = True,
                 sessions_root: str | Path = chz.DEFAULT_SESSIONS_DIR, library: str | None = None,
-                plan: RthPlan | None = None, say: Callable[[str], None] | None = None,
+                lot: str | None = None, plan: RthPlan | None = None, say: Callable[[str], None] | None = None,
                 cancel=None, on_record: Callable[[str, dict], None] | None = None) -> ThermalOutcome:
     """Thermal resistance of ``part`` in the fixture by the electrical method, with the pulsed/DC cross-check.
 
@@ -245,6 +248,8 @@ def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions
         Instrument problems and cancellation, after the output is off.
     """
     check_name("part label", part)
+    if lot is not None:
+        check_name("lot name", lot)
     plan = plan or RthPlan()
     thermal_cfg, limits = _thermal_setup(bench_path, sim, handle)
     validate_rth_plan(plan, thermal_cfg, limits)
@@ -260,7 +265,7 @@ def measure_rth(part: str, *, bench_path: str | None = None, sim: chz.SimOptions
     result = rth_result(raw, plan)
     outcome = ThermalOutcome(part=part, measurement="rth", rth=result, session_path=str(session.path),
                              settle_criterion=thermal.config.settle_criterion(), notes=result.notes)
-    return _finish(outcome, session.path, library)
+    return _finish(outcome, session.path, library, lot)
 
 
 def _caution(bench_path, handle, say) -> None:
@@ -305,19 +310,20 @@ def rth_result(raw: dict[str, Any], plan: RthPlan) -> RthResult:
                      reference_rise_k=raw.get("reference_rise_k", 0.0))
 
 
-def _finish(outcome: ThermalOutcome, session_path: Path, library: str | None) -> ThermalOutcome:
+def _finish(outcome: ThermalOutcome, session_path: Path, library: str | None,
+            lot: str | None = None) -> ThermalOutcome:
     """Write the result next to the readings and store it in the library when the part is there."""
-    stored = store_in_library(outcome, library)
+    stored = store_in_library(outcome, library, lot)
     outcome = replace(outcome, stored=stored)
     write_json_atomic(session_path / f"thermal-{outcome.measurement}.json", outcome.to_dict())
     return outcome
 
 
-def store_in_library(outcome: ThermalOutcome, library: str | None) -> str:
+def store_in_library(outcome: ThermalOutcome, library: str | None, lot: str | None = None) -> str:
     """Store the measured values on the part in the library, if a part of that label is there ("" otherwise).
 
     An existing library is opened (none is created for a thermal run); a label in several lots is ambiguous
-    and the values are not stored (said in the return value).
+    without ``lot`` and the values are not stored (said in the return value, with how to name the lot).
     """
     from benchlab.errors import LibraryError
     from benchlab.library.thermal import record_thermal
@@ -329,9 +335,12 @@ def store_in_library(outcome: ThermalOutcome, library: str | None) -> str:
     try:
         with open_library(library) as lib:
             try:
-                part = lib.get_part(outcome.part)
+                part = lib.get_part(outcome.part if lot is None else f"{lot}/{outcome.part}")
             except LibraryError as exc:
-                return "" if "no part" in str(exc) else f"not stored: {exc}"
+                if "no part" in str(exc) and lot is None:
+                    return ""
+                hint = "; give the lot (--lot) to store the values" if "ambiguous" in str(exc) else ""
+                return f"not stored: {exc}{hint}"
             details = outcome.to_dict()
             with lib.write():
                 row = record_thermal(lib, part.id, outcome.measurement, outcome.values(), outcome.stderrs(),

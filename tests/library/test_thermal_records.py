@@ -76,3 +76,26 @@ def test_api_thermal_frame_matches_the_cli_json(tmp_path, capsys, monkeypatch):
     assert frame.loc["Q01", "rth"] == pytest.approx(printed["rth"])
     assert frame.loc["Q01", "rth_stderr"] == pytest.approx(printed["stderr"]["rth"])
     assert frame.loc["Q02"].isna()["rth"]  # never measured: empty, not a made-up number
+
+
+def test_a_label_in_two_lots_is_stored_on_the_lot_given(tmp_path, capsys):
+    # the same label in two lots (a bag swept twice under two lot names): the run said 'ambiguous ... name it as
+    # LOT/LABEL', but --part refuses a '/' and thermal had no way to name the lot, so the values could not be stored
+    from benchlab.cli import main
+
+    path = tmp_path / "lab.db"
+    with Library.open(path, create=True) as lib:
+        lib.add_part("Q01", lot="rack")
+        lib.add_part("Q01", lot="spares")
+    outcome = svc.measure_rth("Q01", sim=SimOptions(), sessions_root=tmp_path / "s", library=str(path))
+    assert outcome.stored.startswith("not stored") and "--lot" in outcome.stored
+    assert main(["thermal", "rth", "--part", "Q01", "--lot", "spares", "--sim", "--sessions", str(tmp_path / "s"),
+                 "--library", str(path)]) == 0
+    assert "spares/Q01" in capsys.readouterr().out
+    with Library.open(path) as lib:
+        assert "rth" in measured_thermal(lib, lib.get_part("spares/Q01").id)
+        assert measured_thermal(lib, lib.get_part("rack/Q01").id) == {}
+    # a bad lot name is refused before anything is powered or written
+    assert main(["thermal", "rth", "--part", "Q01", "--lot", "../x", "--sim", "--sessions", str(tmp_path / "t"),
+                 "--library", str(path)]) != 0
+    assert not (tmp_path / "t").exists()
