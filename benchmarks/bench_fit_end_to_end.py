@@ -20,7 +20,8 @@ that take turns (loop, theta, auto, loop, ...), and each side's fastest round co
 machine another job's burst then slows one round, not one side. The CPU time of each side (its
 fastest round) and its ratio are printed too. Then the same comparison as separate processes
 (``python -m benchlab fit --json FILES`` against a script running the loop: interpreter start-up and
-every import on both sides; fastest of the rounds again, wall and CPU), then it imports ``--parts``
+every import on both sides, their bytecode compiled once as an installed package has it; fastest of the rounds
+again, wall and CPU), then it imports ``--parts``
 sweeps into a fresh library (without fitting) and times ``benchlab library refit``. The ratios, not
 the absolute times, are the result.
 """
@@ -36,6 +37,7 @@ for _name in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
 
 import argparse
 import contextlib
+import hashlib
 import io
 import json
 import resource
@@ -106,6 +108,15 @@ def thresholds_of(text):
     return np.array([json.loads(line)["vth"] for line in text.splitlines()])
 
 
+def digest_of(text) -> str:
+    """A short hash of every fitted number (parameters, standard errors, thresholds), not the temporary file names:
+    equal digests before and after a change to the fitting path mean it changed no fitted value."""
+    keys = ("model", "params", "stderr", "thresholds", "window", "rms_residual", "rms_relative", "vgs_at_cc",
+            "gm_at_cc", "criteria")
+    rows = [{k: line[k] for k in keys} for line in map(json.loads, text.splitlines())]
+    return hashlib.sha256(json.dumps(rows, sort_keys=True).encode()).hexdigest()[:16]
+
+
 def timed(func, *args):
     start = time.perf_counter()
     value = func(*args)
@@ -142,7 +153,11 @@ def as_processes(files, tmp: Path, rounds: int) -> None:
     listing.write_text("\n".join(map(str, files)))
     script = tmp / "loop.py"
     script.write_text(LOOP_SCRIPT.format(folder=str(Path(__file__).resolve().parent)))
-    env = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1")
+    # compiled bytecode as an installed package has it, for both sides: written to a temporary folder in the first
+    # round and read in the next (a machine set to write none, PYTHONDONTWRITEBYTECODE, would otherwise compile
+    # every pure-Python module it imports on every start-up; numpy's and scipy's come compiled)
+    env = dict(os.environ, PYTHONPATH=str(ROOT), OMP_NUM_THREADS="1", PYTHONPYCACHEPREFIX=str(tmp / "pycache"))
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
     runs = {"loop": [sys.executable, str(script), str(listing)]}
     for model in ("theta", "auto"):
         runs[model] = [sys.executable, "-m", "benchlab", "fit", "--json", "--model", model, *map(str, files)]
@@ -198,8 +213,13 @@ def main_bench() -> None:
         files, truth = write_files(Path(tmp), args.files, args.points)
         # both sides timed with their modules already imported (the loop's scipy is imported above)
         cli_fit(files[:3], "auto")
-        sides = {"loop": lambda: loop_fit(files), "theta": lambda: thresholds_of(cli_fit(files, "theta")),
-                 "auto": lambda: thresholds_of(cli_fit(files, "auto"))}
+        outputs = {}
+
+        def fitted(model):
+            outputs[model] = cli_fit(files, model)
+            return thresholds_of(outputs[model])
+
+        sides = {"loop": lambda: loop_fit(files), "theta": lambda: fitted("theta"), "auto": lambda: fitted("auto")}
         best = {name: (np.inf, np.inf) for name in sides}
         found = {}
         for _ in range(max(args.rounds, 1)):
@@ -219,6 +239,8 @@ def main_bench() -> None:
                   f"(CPU {c_cli:.2f} s, {c_loop / c_cli:.1f}x)  median |Vth error| {error[model]:.3f} mV  "
                   f"speed-up {ratio:.1f}x (aim {AIM[model]:g}x: {'met' if ratio >= AIM[model] else 'NOT met'})")
         # the parsing of the CLI's output is inside the timing above; it is a few ms
+        print("fitted values digest (equal before and after a speed change: no fitted number changed): "
+              f"theta {digest_of(outputs['theta'])}, auto {digest_of(outputs['auto'])}")
         as_processes(files, Path(tmp), max(args.rounds, 1))
     if args.parts:
         bench_refit(args.parts, args.points)
