@@ -59,9 +59,9 @@ class FitRecord:
         data = {"file": str(self.source.csv_path), "label": self.source.label,
                 "classification": self.source.classification}
         for key in SUMMARY_KEYS[2:]:
-            data[key] = full[key]
+            data[key] = full.pop(key)
         data["theta"] = data["theta"] or 0.0
-        data.update({k: v for k, v in full.items() if k not in data})
+        data.update(full)  # the rest of the result, in its order
         return data
 
 
@@ -339,7 +339,8 @@ def json_lines(records: list[FitRecord], curve_points: int = 0) -> str:
     """One JSON object per sweep, one per line (no NaN: undefined numbers are null); with
     ``curve_points`` each carries ``curve`` (see :func:`curve_of`)."""
     lines = []
-    encode = json.JSONEncoder(allow_nan=False).encode  # json.dumps(data, allow_nan=False), one encoder for all
+    # json.dumps(data, allow_nan=False), one encoder for all; plain data holds no cycles to look for
+    encode = json.JSONEncoder(allow_nan=False, check_circular=False).encode
     for record in records:
         data = record.to_dict()
         if curve_points:
