@@ -56,6 +56,25 @@ STATUS_POLL_SWEEPING_S = 5.0
 SWITCH_INTERVAL_S = 0.0005
 
 
+class KeysFooter(Footer):
+    """The footer, rebuilt only when the keys it shows change.
+
+    textual rebuilds its footer (about 20 widgets and a layout pass of the screen) on every focus change; pressing r
+    just after leaving a field put that rebuild inside the sweep, where it took the sweep thread's time
+    (benchmarks/bench_ui.py). The keys shown depend on the view, not on which field has the cursor.
+    """
+
+    _shown: tuple | None = None
+
+    def bindings_changed(self, screen) -> None:
+        shown = tuple((binding.key, binding.action, binding.description, enabled)
+                      for (_, binding, enabled, _) in screen.active_bindings.values() if binding.show)
+        if shown == self._shown and self.children:
+            return
+        self._shown = shown
+        super().bindings_changed(screen)
+
+
 @dataclass
 class UiOptions:
     """What ``benchlab ui`` was started with."""
@@ -151,7 +170,7 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
             yield SinkView(id="sink")
             yield ThermalView(id="thermal")
         yield Static("", id="status")
-        yield Footer(compact=True)
+        yield KeysFooter(compact=True)
 
     def on_mount(self) -> None:
         self._switch_interval = sys.getswitchinterval()

@@ -21,6 +21,10 @@ MAX_REDRAW_HZ = 10.0
 # Rendering the plot costs about 10-20 ms of CPU on a 150x46 screen (plotext builds the figure, rich parses its
 # ANSI text, textual cuts it into strips): at most 8 % of the time keeps the sweep thread's share of the GIL.
 RENDER_SHARE = 0.08
+# A sweep's first frame waits this long after it starts: a sweep over sooner (the simulator not waiting: about 0.4 s)
+# is drawn once, whole, at its end instead of in frames that each took the sweep thread's time; at a bench's pace
+# (seconds per sweep) the curve appears after half a second and then moves as before (benchmarks/bench_ui.py).
+FIRST_FRAME_S = 0.5
 
 
 def decade_ticks(values, rows: int) -> list[float]:
@@ -57,7 +61,13 @@ class CurvePlot(PlotextPlot):
 
     # -- data ------------------------------------------------------------------------------
     def clear_points(self) -> None:
+        """Empty the plot; while a sweep runs (a new one starting) its first frame waits ``FIRST_FRAME_S``."""
         self.vgs, self.ids, self.fit_vgs, self.fit_ids = [], [], [], []
+        if getattr(self.app, "running_tag", None) is not None:
+            if self._pending is not None and self._pending is not True:
+                self._pending.stop()
+            self._pending = None
+            self._next_at = time.monotonic() + FIRST_FRAME_S
         self._changed()
 
     def add_points(self, vgs, ids) -> None:
