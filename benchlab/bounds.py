@@ -84,3 +84,17 @@ def check_typed_curve(params, what: str) -> None:
     if not (math.isfinite(vgs) and vgs <= MAX_GATE_V):
         raise InputError(f"{what}: this curve needs more than {MAX_GATE_V:g} V of gate drive to carry "
                          f"{REACH_CURRENT_A * 1e6:g} uA, beyond the gate rating of discrete MOSFETs")
+
+
+# The temperatures a bench works at, in kelvin: the fitter's own range (150 to 600 K, benchlab/extract), so that a
+# session's recorded ambient can always be fitted; a sweep given 1e300 degC wrote a session no fit or import could use.
+MIN_BENCH_K, MAX_BENCH_K = 150.0, 600.0
+
+
+def check_ambient_c(value: float, what: str = "--ambient") -> float:
+    """``value`` (degC) when it is a bench temperature (150 to 600 K); else an InputError naming ``what``."""
+    kelvin = float(value) + 273.15
+    if not (math.isfinite(kelvin) and MIN_BENCH_K <= kelvin <= MAX_BENCH_K):
+        raise InputError(f"{what} {value:g} degC is not a bench temperature ({MIN_BENCH_K - 273.15:g} to "
+                         f"{MAX_BENCH_K - 273.15:g} degC)")
+    return float(value)

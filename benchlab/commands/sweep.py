@@ -134,11 +134,20 @@ def _prepare(args: argparse.Namespace):
     return svc, handle, plan
 
 
+def _check_ambient(args: argparse.Namespace) -> None:
+    # before anything is connected: the ambient is written into the session and every later fit of it uses it
+    if args.ambient is not None:
+        from benchlab.bounds import check_ambient_c
+
+        check_ambient_c(args.ambient)
+
+
 def run_sweep(args: argparse.Namespace) -> int:
     from benchlab.sweep.session import check_name
 
     check_name("part label", args.part)
     check_name("lot name", args.lot)
+    _check_ambient(args)
     svc, handle, plan = _prepare(args)
     try:
         outcome, csv_path = svc.sweep_one(handle, plan, args.part, lot=args.lot,
@@ -169,6 +178,7 @@ def run_bag(args: argparse.Namespace) -> int:
         from benchlab.sweep.session import check_name
 
         check_name("lot name", args.lot or "bag")
+        _check_ambient(args)
     svc, handle, plan = _prepare(args)
     progress = ProgressBar(out=sys.stderr if args.json else None)
     where: list = []
