@@ -97,8 +97,9 @@ class BenchlabApp(ThermalActions, LoopActions, DesignActions, App):
     # below 110 columns the forms and side panels narrow (app.tcss, Screen.-narrow) so every view keeps room for its
     # plot: at 80 columns the Characterize view's curve had no width at all
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
-    # below 36 rows the Library view leaves out the residual plot, so the part's curve keeps its height
-    VERTICAL_BREAKPOINTS = [(0, "-short"), (36, "-tall")]
+    # below 44 rows the Library view leaves out the residual plot, so the part's curve keeps its height (at 120x40 it
+    # had one row)
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (44, "-tall")]
     # F1..F7 are listed in the title bar (and on the help screen), not in the footer: there they took the room of
     # the view's own keys, which were cut at the right edge of a 150-column terminal
     BINDINGS = [

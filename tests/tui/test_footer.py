@@ -45,6 +45,10 @@ async def test_at_80_by_24_every_view_is_named_and_every_plot_keeps_room(tmp_pat
             await pilot.pause()
             region = app.screen.query_one(plot).region
             assert region.width >= 20 and region.height >= 5, f"{plot} is {region.width}x{region.height} at 80x24"
+        await pilot.resize_terminal(120, 40)  # the part's curve had one row here, under the residual plot
+        await pilot.press("f4")
+        await pilot.pause()
+        assert app.screen.query_one("#lib-plot").region.height >= 8
         await pilot.resize_terminal(150, 45)
         await pilot.pause()
         assert str(app.query_one("#title-bar", Static).render()).startswith("benchlab")
