@@ -200,7 +200,7 @@ def _choose(criteria: dict[str, float], theta: float | None) -> tuple[str, str]:
                else "THETA rests at its bound 0 (the curve does not bend down)")
     else:
         chosen, why = min(finite, key=finite.get), "lowest AICc"
-    others = ", ".join(f"{m} {finite[m] - finite[chosen]:+.1f}" for m in AUTO_CANDIDATES
+    others = ", ".join(f"{m} {finite[m] - finite[chosen]:+.4g}" for m in AUTO_CANDIDATES
                        if m in finite and m != chosen)
     return chosen, f"{chosen}: {why} (AICc relative to it: {others})"
 

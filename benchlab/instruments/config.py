@@ -226,11 +226,33 @@ def check_consistency(config: BenchConfig, profiles: Mapping[str, Profile], *, p
         raise fail("limits.max_supply_v", f"{lim.max_supply_v:g} V is above the meter's "
                                           f"{profiles['meter'].limits['max_voltage']:g} V (profile "
                                           f"'{profiles['meter'].name}'); an open part puts the full supply across it")
-    measuring = profiles[_NPLC_ROLE[config.fixture]]
+    problem = _nplc_problem(config.nplc, profiles[_NPLC_ROLE[config.fixture]])
+    if problem:
+        raise fail("measurement.nplc", problem)
+
+
+def _nplc_problem(nplc: float, measuring: Profile) -> str | None:
     low, high = measuring.limits["min_nplc"], measuring.limits["max_nplc"]
-    if not low <= config.nplc <= high:
-        raise fail("measurement.nplc", f"{config.nplc:g} is outside the instrument's {low:g} to {high:g} "
-                                       f"(profile '{measuring.name}')")
+    if low <= nplc <= high:
+        return None
+    return f"{nplc:g} is outside the instrument's {low:g} to {high:g} (profile '{measuring.name}')"
+
+
+def check_nplc(config: BenchConfig, nplc: float) -> None:
+    """Refuse an integration time (NPLC) the bench's measuring instrument cannot set, before anything connects.
+
+    The bench file's own ``measurement.nplc`` is checked when the file is read; this checks an override (the
+    ``--nplc`` option) against the profile of the instrument that measures (meter or source-measure unit).
+
+    Raises
+    ------
+    ConfigError
+        Naming the value and the profile's range.
+    """
+    spec = config.instruments[_NPLC_ROLE[config.fixture]]
+    problem = _nplc_problem(nplc, load_profile(spec.profile))
+    if problem:
+        raise ConfigError(f"nplc {problem}", path=config.source_path)
 
 
 def _renamed_legacy_roles(table: Mapping[str, Any], fail) -> Mapping[str, Any]:

@@ -106,7 +106,11 @@ def build_plan(config: Any, **options: Any) -> SweepPlan:
     _refuse_unused(plan, values)
     if "max_current_a" not in values:
         plan = replace(plan, max_current_a=min(plan.max_current_a, plan.limits.max_drain_a))
-    return validate_plan(plan)
+    plan = validate_plan(plan)
+    if "nplc" in values:  # the bench file's own value was checked against the profile when it was read
+        from benchlab.instruments.config import check_nplc
+        check_nplc(config, plan.nplc)
+    return plan
 
 
 def _refuse_unused(plan: SweepPlan, given: dict[str, Any]) -> None:

@@ -18,6 +18,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
+from benchlab.bounds import check_operating_current
 from benchlab.errors import BenchlabError, FitError, InputError
 from benchlab.extract import FitResult, Sweep, fit_batch, load_sweep_csv, operating_curve
 from benchlab.extract.sweepdata import load_sweeps_csv
@@ -263,6 +264,9 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
                                           and T_MIN_C <= temperature_c <= T_MAX_C):
         raise InputError(f"ambient temperature {temperature_c:g} degC is not a bench temperature "
                          f"({T_MIN_C:g} to {T_MAX_C:g} degC)")
+    if at_current is not None:
+        check_operating_current(at_current, "the current for gm and VGS (--at-current)")
+    check_operating_current(cc_current, "the constant-current threshold's current (--cc-current)")
     sources = resolve_inputs(paths)
     if save:
         plain = [s for s in sources if s.sidecar_path is None]
