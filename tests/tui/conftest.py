@@ -40,7 +40,11 @@ async def hands_free_whole_bag(pilot) -> list[str]:
     # no key from here on: the simulated operator swaps the parts until the bag is used up
     await until(pilot, lambda: sim.core.part_index == -1 and sim.core._pending_index is None
                 and any(e.text == "bag used up" for e in sim.log.entries(kind="part")), 120)
-    await pilot.pause(0.5)
+    # each part the operator took out after its sweep (or pulled mid-sweep) gets one log line once it is judged and
+    # stored; under load that can come well after the part is out, so wait for the lines, not a fixed pause
+    taken = sum("after its sweep" in e.text or "pulled out" in e.text for e in sim.log.entries(kind="operator"))
+    await until(pilot, lambda: len(getattr(app, "_hf_lines", [])) >= taken, 60)
+    await pilot.pause(0.3)
     lines = list(getattr(app, "_hf_lines", []))
     await pilot.press("ctrl+k")
     await until(pilot, lambda: app.running_tag is None, 15)
