@@ -339,7 +339,8 @@ def store_in_library(outcome: ThermalOutcome, library: str | None, lot: str | No
             except LibraryError as exc:
                 if "no part" in str(exc) and lot is None:
                     return ""
-                hint = "; give the lot (--lot) to store the values" if "ambiguous" in str(exc) else ""
+                hint = ("; give the lot to store the values (--lot, or LOT/LABEL in the terminal UI's part field)"
+                        if "ambiguous" in str(exc) else "")
                 return f"not stored: {exc}{hint}"
             details = outcome.to_dict()
             with lib.write():

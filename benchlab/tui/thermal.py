@@ -49,7 +49,7 @@ class ThermalView(Horizontal):
 
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="th-form", classes="form"):
-            yield from _field("Part label", "th-part", "", "the part in the fixture")
+            yield from _field("Part label", "th-part", "", "the part in the fixture (LOT/LABEL when the label is in several lots)")
             yield from _field("Temperatures (degC)", "th-temps", "25,60")
             yield from _field("Heat sink (K/W)", "th-heatsink", "0")
             yield from _field("Heating power (W)", "th-power", "", "bench limit")
@@ -76,7 +76,8 @@ class ThermalActions:
         label = ""
         if table.row_count:
             try:
-                label = str(table.coordinate_to_cell_key(table.cursor_coordinate).row_key.value).split("/")[-1]
+                # the row's LOT/LABEL: a label can be in several lots, and the values are stored on this one
+                label = str(table.coordinate_to_cell_key(table.cursor_coordinate).row_key.value)
             except Exception:  # noqa: BLE001 - no highlighted row
                 label = ""
         field.value = label or self._q("#label", Input).value.strip()
@@ -90,10 +91,13 @@ class ThermalActions:
             text = self._q(f"#{input_id}", Input).value.strip()
             return parse_quantity(text, unit) if text else default
 
-        part = check_name("part label", self._q("#th-part", Input).value.strip())
+        text = self._q("#th-part", Input).value.strip()
+        lot, _, label = text.rpartition("/")
+        part = check_name("part label", label)
+        lot = check_name("lot name", lot) if lot else None
         temps = [parse_quantity(t, "degC") for t in self._q("#th-temps", Input).value.replace(";", ",").split(",")
                  if t.strip()]
-        return {"part": part, "temps": temps, "heatsink": number("th-heatsink", "K/W", 0.0),
+        return {"part": part, "lot": lot, "temps": temps, "heatsink": number("th-heatsink", "K/W", 0.0),
                 "power": number("th-power", "W", None)}
 
     def action_thermal_tempco(self) -> None:
@@ -134,7 +138,7 @@ class ThermalActions:
                 news("point", (event.point.vgs, event.point.id))
 
         common = {"handle": self.handle, "seat": False, "sessions_root": self.options.sessions,
-                  "library": self.options.library, "say": lambda text: news("say", text), "cancel": self.cancel_event,
+                  "library": self.options.library, "lot": inputs["lot"], "say": lambda text: news("say", text), "cancel": self.cancel_event,
                   "on_record": news}
         if measurement == "tempco":
             job = lambda: svc.measure_tempco(inputs["part"], inputs["temps"], on_event=on_event,  # noqa: E731
@@ -196,7 +200,8 @@ class ThermalActions:
         flag = outcome.rth is not None and outcome.rth.pulsed_dc.get("flag")
         head = "[b white on red] CHECK PART [/]" if flag else "[b black on green]  DONE  [/]"
         result.update(head + "  " + escape("\n".join(lines)))
-        self._show_library_values(outcome.part)
+        shown = self._q("#th-part", Input).value.strip()  # LOT/LABEL when the lot was named
+        self._show_library_values(shown if shown.rpartition("/")[2] == outcome.part else outcome.part)
         self.say(f"thermal {outcome.measurement} of {outcome.part} done; output off. "
                  + (outcome.stored and "Stored in the library." or "Not stored (part not in the library)."))
 

@@ -135,3 +135,19 @@ async def test_bad_input_is_one_error_with_nothing_powered_or_written(tmp_path):
         assert "max_fixture_k" in str(app.query_one("#th-result").render())
         assert not app.handle.simulator.log.output_was_ever_on()
         assert not (tmp_path / "sessions").exists()
+
+
+async def test_a_label_in_two_lots_is_stored_on_the_lot_typed_as_lot_slash_label(tmp_path):
+    # the same label in two lots was ambiguous: the run finished and its values were not stored from the UI
+    db = str(tmp_path / "lib.db")
+    add_part(db, "Q01", lot="led-rack", vth=2.5, kp=3.0)
+    add_part(db, "Q01", lot="spare", vth=2.6, kp=3.0)
+    app = make_app(tmp_path, fixture="smu", library=db)
+    async with app.run_test(size=SIZE) as pilot:
+        await connected(pilot)
+        await pilot.press("f7")
+        await type_into(pilot, "th-part", "spare/Q01")
+        await _run(pilot, "f")
+        assert output_log(app)[-1] == "OFF"
+    assert "rth" in _measured(db, "spare/Q01")
+    assert "rth" not in _measured(db, "led-rack/Q01")
