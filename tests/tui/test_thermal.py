@@ -46,7 +46,7 @@ async def test_tempco_and_rth_from_the_ui_are_stored_and_the_output_ends_off(tmp
         truth = app.handle.simulator.current_part
         assert truth.label == "Q01"
         await pilot.press("f7")
-        assert app.query_one("#th-part").value == "Q01"  # offered: the part about to be swept
+        assert app.query_one("#th-part").value == "led-rack/Q01"  # offered: the Library's part, with its lot
         if fixture == "smu":
             await type_into(pilot, "th-temps", "25,60")
             await _run(pilot, "p")
