@@ -265,8 +265,8 @@ def fit_files(paths, *, model: str = "auto", at_current: float | None = None,
         raise InputError(f"ambient temperature {temperature_c:g} degC is not a bench temperature "
                          f"({T_MIN_C:g} to {T_MAX_C:g} degC)")
     if at_current is not None:
-        check_operating_current(at_current, "the current for gm and VGS (--at-current)")
-    check_operating_current(cc_current, "the constant-current threshold's current (--cc-current)")
+        check_operating_current(at_current, "--at-current (the current for gm and VGS)")
+    check_operating_current(cc_current, "--cc-current (the constant-current threshold's current)")
     sources = resolve_inputs(paths)
     if save:
         plain = [s for s in sources if s.sidecar_path is None]
