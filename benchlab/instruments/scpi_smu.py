@@ -31,14 +31,19 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
 
     def configure_source(self, mode: str, compliance: float) -> None:
         """Force ``mode`` (``"voltage"``: compliance in A; ``"current"``: compliance in V)."""
+        for operation, values in self._source_steps(mode, compliance):
+            self.configure(operation, **values)
+        self.mode = mode
+
+    @staticmethod
+    def _source_steps(mode: str, compliance: float) -> list[tuple[str, dict[str, float]]]:
+        """The settings that force ``mode`` with ``compliance``, the limit first: whatever happens next, the
+        protection for the new mode is already in place."""
         if mode not in ("voltage", "current"):
             raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
+        limit_unit = "amps" if mode == SourceFunction.VOLTAGE else "volts"
         limit_of = "current" if mode == SourceFunction.VOLTAGE else "voltage"
-        unit = "amps" if limit_of == "current" else "volts"
-        # The limit first: whatever happens next, the protection for the new mode is already in place.
-        self.configure(f"set_{limit_of}_compliance", **{unit: float(compliance)})
-        self.configure(f"source_{mode}")
-        self.mode = mode
+        return [(f"set_{limit_of}_compliance", {limit_unit: float(compliance)}), (f"source_{mode}", {})]
 
     def prepare_source(self, mode: str, compliance: float, nplc: float | None = None) -> None:
         """:meth:`configure_source`, :meth:`set_nplc` (when ``nplc`` is given) and a level of 0 as one batch.
@@ -47,11 +52,8 @@ class ScpiSmu(_OutputMixin, ScpiInstrument):
         error query (one round trip, :meth:`~ScpiInstrument.configure_batch`); else each setting is sent and
         checked in turn, the same lines as the separate calls. The output must be off: nothing here powers it.
         """
-        if mode not in ("voltage", "current"):
-            raise InputError(f"source mode must be 'voltage' or 'current', got {mode!r}")
-        limit_of = "current" if mode == SourceFunction.VOLTAGE else "voltage"
-        limit_unit, level_unit = ("amps", "volts") if limit_of == "current" else ("volts", "amps")
-        steps = [(f"set_{limit_of}_compliance", {limit_unit: float(compliance)}), (f"source_{mode}", {})]
+        steps = self._source_steps(mode, compliance)
+        level_unit = "volts" if mode == SourceFunction.VOLTAGE else "amps"
         if nplc is not None:
             steps.append(("set_nplc", {"nplc": float(nplc)}))
         steps.append((f"set_{mode}_level", {level_unit: 0.0}))
